@@ -1,0 +1,105 @@
+"""Numbers with units, as recipes write them: ``"20 ns"``, ``"-220 MHz"``, ``"2.4 GS/s"``.
+
+Everything inside shaper is SI: seconds and hertz (cycles per second). A plain
+number in a recipe is read as SI. A string must carry a unit of the right kind;
+an unknown unit or one of the wrong kind is an error that names the key.
+"""
+
+from __future__ import annotations
+
+import re
+
+from shaper.errors import RecipeError
+
+_PREFIX = {"": 1.0, "k": 1e3, "M": 1e6, "G": 1e9, "T": 1e12,
+           "m": 1e-3, "u": 1e-6, "µ": 1e-6, "μ": 1e-6, "n": 1e-9, "p": 1e-12}
+
+# unit symbol -> (kind, scale to SI)
+UNITS: dict[str, tuple[str, float]] = {}
+for _prefix in ("", "m", "u", "µ", "μ", "n", "p"):
+    UNITS[_prefix + "s"] = ("time", _PREFIX[_prefix])
+for _prefix in ("", "k", "M", "G", "T"):
+    UNITS[_prefix + "Hz"] = ("frequency", _PREFIX[_prefix])
+    UNITS[_prefix + "S/s"] = ("sample rate", _PREFIX[_prefix])
+    UNITS[_prefix + "Sa/s"] = ("sample rate", _PREFIX[_prefix])
+
+# which unit kinds a quantity of each kind accepts
+_ACCEPTS = {
+    "time": ("time",),
+    "frequency": ("frequency",),
+    "sample rate": ("sample rate", "frequency"),
+}
+_EXAMPLE = {"time": '"20 ns"', "frequency": '"-220 MHz"', "sample rate": '"2.4 GS/s"'}
+
+_NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([^\s\d].*?)?\s*$")
+
+
+def parse_quantity(value, kind: str, *, key: str, path: str | None = None) -> float:
+    """Read a number with a unit and return it in SI units.
+
+    Args:
+        value: a plain int or float (already SI), or a string such as ``"20 ns"``.
+        kind: ``"time"``, ``"frequency"`` or ``"sample rate"``.
+        key: the key path, for the error message.
+        path: the recipe file, for the error message.
+
+    Returns:
+        The value in seconds, hertz or samples per second.
+
+    Raises:
+        RecipeError: the value is not a number, its unit is unknown or of another kind.
+
+    Examples:
+        >>> parse_quantity("20 ns", "time", key="pulse.duration")
+        2e-08
+        >>> parse_quantity("2.4 GS/s", "sample rate", key="pulse.sample_rate")
+        2400000000.0
+        >>> parse_quantity(-220e6, "frequency", key="system.anharmonicity")
+        -220000000.0
+    """
+    if isinstance(value, bool):
+        raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
+                          path=path, key=key)
+    if isinstance(value, int | float):
+        return float(value)
+    if not isinstance(value, str):
+        raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
+                          path=path, key=key)
+    match = _NUMBER.match(value)
+    if not match:
+        raise RecipeError(f"cannot read {value!r} as a {kind}; write it like {_EXAMPLE[kind]}",
+                          path=path, key=key)
+    number, unit = float(match.group(1)), (match.group(2) or "")
+    if not unit:
+        return number
+    if unit not in UNITS:
+        known = ", ".join(u for u, (k, _) in UNITS.items()
+                          if k in _ACCEPTS[kind] and "μ" not in u and "µ" not in u)
+        raise RecipeError(f"unknown unit {unit!r} in {value!r}; a {kind} takes one of: {known}",
+                          path=path, key=key)
+    unit_kind, scale = UNITS[unit]
+    if unit_kind not in _ACCEPTS[kind]:
+        raise RecipeError(f"{value!r} is a {unit_kind}, but this key wants a {kind} "
+                          f"such as {_EXAMPLE[kind]}", path=path, key=key)
+    return number * scale
+
+
+def format_quantity(value: float, unit: str) -> str:
+    """A short human form of an SI value: ``format_quantity(2e-8, "s")`` gives ``'20 ns'``.
+
+    Examples:
+        >>> format_quantity(2e-8, "s")
+        '20 ns'
+        >>> format_quantity(-2.2e8, "Hz")
+        '-220 MHz'
+    """
+    if value == 0:
+        return f"0 {unit}"
+    prefixes = [("T", 1e12), ("G", 1e9), ("M", 1e6), ("k", 1e3), ("", 1.0),
+                ("m", 1e-3), ("u", 1e-6), ("n", 1e-9), ("p", 1e-12)]
+    if unit == "s":
+        prefixes = [p for p in prefixes if p[1] <= 1.0]
+    for prefix, scale in prefixes:
+        if abs(value) >= scale * 0.9999999:
+            return f"{value / scale:.6g} {prefix}{unit}"
+    return f"{value:.6g} {unit}"
