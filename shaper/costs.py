@@ -1,0 +1,177 @@
+"""Cost terms: small factories of pure functions, summed with weights by :func:`combine`.
+
+Each factory returns a :class:`CostTerm`, whose ``value(samples, problem, figures)``
+is a real scalar (unweighted). :func:`combine` sums ``weight * value`` over terms
+and returns the parts beside the total, ready for
+``jax.value_and_grad(..., has_aux=True)``. Weights are an array argument, so changing
+them does not recompile. A new term is one factory here and one line in ``TERMS``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from shaper import _jax  # noqa: F401
+from shaper.errors import InputError
+from shaper.figures import Figures, gate_figures, project, state_figures
+from shaper.propagator import ordered_product, slice_unitaries
+
+
+class Problem(NamedTuple):
+    """The arrays of one optimisation problem, as they cross ``jit``.
+
+    Shapes: d levels, k controls, d_c computational states, q qubits, e ensemble members.
+    """
+
+    drift: jax.Array            # (d, d) complex128, Hz
+    controls: jax.Array         # (k, d, d) complex128, dimensionless
+    dt: jax.Array               # () float64, seconds per AWG sample
+    computational: jax.Array    # (d_c,) int, indices of computational states
+    target: jax.Array           # (d_c, d_c) complex128 target gate (zeros for a transfer)
+    initial: jax.Array          # (d_c,) complex128 initial state of a transfer (else zeros)
+    final: jax.Array            # (d_c,) complex128 final state of a transfer (else zeros)
+    number_operators: jax.Array  # (q, d, d) complex128, level number per subsystem
+    detunings: jax.Array        # (e, q) float64, Hz: ensemble detuning offsets per qubit
+    scales: jax.Array           # (e,) float64: ensemble amplitude scale factors
+
+
+class CostTerm(NamedTuple):
+    """A named cost: ``value(samples (n, k) Hz, problem, figures) -> ()`` real."""
+
+    name: str
+    value: Callable[[jax.Array, Problem, Figures], jax.Array]
+
+
+def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
+             virtual_z: bool, method: str = "eigh") -> Figures:
+    """Fidelity and leakage of the samples on the problem's system (nominal parameters)."""
+    u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, problem.dt,
+                                        method=method))
+    return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
+
+
+def figures_of(u: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
+               virtual_z: bool) -> Figures:
+    if is_gate:
+        return gate_figures(project(u, problem.computational), problem.target, qubits=qubits,
+                            virtual_z=virtual_z)
+    return state_figures(u, problem.initial, problem.final, problem.computational, qubits)
+
+
+def infidelity() -> CostTerm:
+    """``1 - F``: the average gate infidelity (it includes leakage), or ``1 - |<f|U|i>|^2``."""
+    return CostTerm("infidelity", lambda samples, problem, figures: 1.0 - figures.fidelity)
+
+
+def leakage() -> CostTerm:
+    """The population leaving the computational subspace, as an extra weighted term."""
+    return CostTerm("leakage", lambda samples, problem, figures: figures.leakage)
+
+
+def out_of_band(samples: jax.Array, dt: jax.Array, cutoff_hz: float,
+                iq_columns: np.ndarray, baseband_columns: np.ndarray,
+                *, padding: int = 4) -> jax.Array:
+    """Fraction of the pulse energy at |f| > cutoff (FFT of the zero-padded samples).
+
+    I/Q channels are transformed as ``I + iQ`` (so the sidebands are told apart),
+    baseband channels as real signals.
+    """
+    n = samples.shape[0]
+    signals = [samples[:, i] + 1j * samples[:, q] for i, q in iq_columns]
+    signals += [samples[:, c].astype(jnp.complex128) for c in baseband_columns]
+    x = jnp.stack(signals, axis=0)
+    spectrum = jnp.abs(jnp.fft.fft(x, n=padding * n, axis=-1)) ** 2
+    freqs = np.fft.fftfreq(padding * n)  # cycles per sample; times 1/dt gives Hz
+    above = jnp.abs(freqs / dt) > cutoff_hz
+    total = jnp.sum(spectrum)
+    return jnp.sum(jnp.where(above[None, :], spectrum, 0.0)) / (total + 1e-300)
+
+
+def bandwidth(cutoff_hz: float, iq_columns: Sequence, baseband_columns: Sequence) -> CostTerm:
+    """The fraction of the pulse energy above ``cutoff_hz`` (see :func:`out_of_band`)."""
+    iq, bb = np.asarray(iq_columns, int).reshape(-1, 2), np.asarray(baseband_columns, int)
+    if not cutoff_hz > 0:
+        raise InputError(f"the bandwidth cutoff must be positive, got {cutoff_hz} Hz")
+    return CostTerm("bandwidth", lambda samples, problem, figures:
+                    out_of_band(samples, problem.dt, cutoff_hz, iq, bb))
+
+
+def smoothness(limits_hz: Sequence[float]) -> CostTerm:
+    """Mean squared first difference of the samples, in units of each channel's limit."""
+    scale = np.asarray(limits_hz, float)
+    scale = np.where(scale > 0, scale, 1.0)
+
+    def value(samples, problem, figures):
+        steps = jnp.diff(samples / scale, axis=0)
+        return jnp.mean(jnp.sum(steps ** 2, axis=-1))
+    return CostTerm("smoothness", value)
+
+
+def amplitude_limit(limits_hz: Sequence[float]) -> CostTerm:
+    """Soft penalty: mean of ``max(|u| / limit - 1, 0)^2`` per sample and control column."""
+    limits = np.asarray(limits_hz, float)
+    if np.any(limits <= 0):
+        raise InputError(f"amplitude limits must be positive, got {limits.tolist()}")
+
+    def value(samples, problem, figures):
+        return jnp.mean(jax.nn.relu(jnp.abs(samples) / limits - 1.0) ** 2)
+    return CostTerm("amplitude", value)
+
+
+def robustness(*, qubits: int, is_gate: bool, virtual_z: bool, method: str = "eigh") -> CostTerm:
+    """Mean infidelity over the problem's ensemble of detuning offsets and amplitude scales.
+
+    Member m sees ``drift + sum_q detunings[m, q] n_q`` and samples times ``scales[m]``;
+    the ensemble is batched with ``jax.vmap``.
+    """
+    def one(detuning, scale, samples, problem):
+        drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
+        member = problem._replace(drift=drift)
+        return evaluate(samples * scale, member, qubits=qubits, is_gate=is_gate,
+                        virtual_z=virtual_z, method=method).fidelity
+
+    def value(samples, problem, figures):
+        fid = jax.vmap(one, in_axes=(0, 0, None, None))(problem.detunings, problem.scales,
+                                                         samples, problem)
+        return 1.0 - jnp.mean(fid)
+    return CostTerm("robustness", value)
+
+
+TERMS: dict[str, Callable[..., CostTerm]] = {
+    "infidelity": infidelity,
+    "leakage": leakage,
+    "bandwidth": bandwidth,
+    "smoothness": smoothness,
+    "amplitude": amplitude_limit,
+    "robustness": robustness,
+}
+
+
+def make_term(name: str, **options) -> CostTerm:
+    """Look up a cost term factory by its recipe name."""
+    if name not in TERMS:
+        raise InputError(f"unknown cost term {name!r}; known terms: {', '.join(TERMS)}")
+    return TERMS[name](**options)
+
+
+def combine(terms: Sequence[CostTerm]):
+    """Sum weighted terms: ``total(samples, problem, figures, weights) -> (total, parts)``.
+
+    ``weights`` is a ``(len(terms),)`` array; ``parts`` maps each name to its unweighted value.
+
+    Raises:
+        InputError: two terms share a name.
+    """
+    names = [t.name for t in terms]
+    if len(set(names)) != len(names):
+        raise InputError(f"cost term names must be unique, got {names}")
+
+    def total(samples, problem, figures, weights):
+        parts = {t.name: t.value(samples, problem, figures) for t in terms}
+        return sum(weights[i] * parts[n] for i, n in enumerate(names)), parts
+    return total
