@@ -41,7 +41,7 @@ KEYS: dict[str, tuple[str, ...]] = {
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
                   "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
                   "drag_scale", "learning_rate", "propagator"),
-    "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency"),
+    "export": ("full_scale", "dac_bits", "granularity", "padding", "clip"),
 }
 REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
             "pulse": ("duration", "sample_rate", "max_rabi")}
@@ -75,7 +75,6 @@ class ExportSettings:
     granularity: int = 1
     padding: str = "after"
     clip: bool = False
-    if_frequency_hz: float = 0.0
 
 
 @dataclass(frozen=True, kw_only=True)

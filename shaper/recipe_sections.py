@@ -278,6 +278,4 @@ def _export(r: _Reader, t: dict, system: System, limits: dict[str, float]) -> Ex
         granularity=r.number(t, "granularity", "export.granularity", 1, integer=True,
                              minimum=1),
         padding=r.choice(t, "padding", "export.padding", PADDING, "after"),
-        clip=r.flag(t, "clip", "export.clip", False),
-        if_frequency_hz=r.number(t, "if_frequency", "export.if_frequency", 0.0,
-                                 kind="frequency"))
+        clip=r.flag(t, "clip", "export.clip", False))

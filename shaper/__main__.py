@@ -1,0 +1,5 @@
+import sys
+
+from shaper.cli.main import main
+
+sys.exit(main())

@@ -1,0 +1,34 @@
+"""Atomic file writes: a temporary file in the same folder, fsync, then rename.
+
+A reader never sees a half-written report or waveform, even if the process dies.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+
+def write_bytes(path: str | Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(data)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def write_text(path: str | Path, text: str) -> None:
+    write_bytes(path, text.encode("utf-8"))
+
+
+def write_json(path: str | Path, obj) -> None:
+    write_text(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")

@@ -1,0 +1,1 @@
+"""The ``shaper`` command: one module per subcommand; none has physics of its own."""

@@ -1,0 +1,22 @@
+"""``shaper bench``: time value-and-gradient against the SciPy reference, write results/."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--quick", action="store_true",
+                        help="n = 100 and 400 only, fewer repeats (under a minute)")
+    parser.add_argument("--out", default="results",
+                        help="folder for bench.json and bench.md (default: results)")
+    parser.add_argument("--method", action="append", choices=("eigh", "pade"),
+                        help="propagator method(s) to time (default: both)")
+
+
+def run(args: argparse.Namespace) -> int:
+    from shaper.bench import bench
+
+    bench(quick=args.quick, out=Path(args.out), methods=tuple(args.method or ("eigh", "pade")))
+    return 0

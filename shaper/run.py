@@ -1,0 +1,159 @@
+"""One whole job: optimise a recipe, export the waveform, re-check it, write the report.
+
+The figures in ``report.json`` are computed on the exported samples (after DAC
+quantisation and padding), re-simulated from the file's numbers, not taken from
+the optimiser (CONVENTIONS §7).
+"""
+
+from __future__ import annotations
+
+import platform
+import time
+from dataclasses import dataclass
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+from shaper import atomic, plots, waveio
+from shaper.costs import out_of_band
+from shaper.errors import ResultError
+from shaper.optimize import Result, optimize
+from shaper.recipe import Recipe, load_recipe
+from shaper.simulate import Simulation, simulate
+
+
+def versions() -> dict[str, str]:
+    out = {"python": platform.python_version()}
+    for package in ("shaper", "numpy", "scipy", "jax", "jaxlib", "optax", "matplotlib"):
+        try:
+            out[package] = metadata.version(package)
+        except metadata.PackageNotFoundError:
+            out[package] = "not installed"
+    return out
+
+
+@dataclass
+class RunOutput:
+    result: Result
+    report: dict
+    folder: Path
+    files: list[Path]
+
+
+def prepare_folder(folder: Path, force: bool) -> None:
+    """Create the run folder; refuse to overwrite an earlier run unless ``force``."""
+    if (folder / "report.json").exists() and not force:
+        raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
+                          f"or pass --force to overwrite it")
+    folder.mkdir(parents=True, exist_ok=True)
+
+
+def export_samples(recipe: Recipe, samples_hz: np.ndarray) -> tuple[waveio.Waveform, int]:
+    """Fractions of full scale, quantised and padded as the recipe's [export] asks."""
+    e = recipe.export
+    fractions, clipped = waveio.to_fractions(samples_hz, recipe.system, e.full_scale_hz,
+                                             clip=e.clip)
+    fractions = waveio.quantise(fractions, e.dac_bits)
+    fractions, start = waveio.pad(fractions, e.granularity, e.padding)
+    return waveio.Waveform(fractions=fractions, sample_rate_hz=recipe.sample_rate_hz,
+                           full_scale_hz=dict(e.full_scale_hz),
+                           column_names=recipe.system.control_names, pulse_start=start,
+                           bits=e.dac_bits), clipped
+
+
+def check_samples(recipe: Recipe, samples_hz: np.ndarray) -> Simulation:
+    return simulate(recipe.system, recipe.target, samples_hz, recipe.dt,
+                    virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator)
+
+
+def build_report(result: Result, exported: Simulation, internal: Simulation,
+                 waveform: waveio.Waveform, clipped: int, csv_name: str) -> dict:
+    recipe, best, o = result.recipe, result.best, result.recipe.optimizer
+    samples_hz = waveform.to_hz(recipe.system)
+    layout = result.objective.layout
+    band = None
+    if recipe.bandwidth_hz:
+        band = float(out_of_band(samples_hz, recipe.dt, recipe.bandwidth_hz, layout.iq_columns,
+                                 layout.baseband_columns))
+    met = exported.infidelity <= o.target_infidelity and exported.leakage <= o.target_leakage
+    if band is not None:
+        met = met and band <= recipe.max_out_of_band
+    return {
+        **exported.figures(),
+        "waveform": csv_name,
+        "sidecar": Path(csv_name).with_suffix(".json").name,
+        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
+                    "max_out_of_band": recipe.max_out_of_band if band is not None else None,
+                    "met": bool(met)},
+        "out_of_band_fraction": band,
+        "bandwidth_cutoff_hz": recipe.bandwidth_hz,
+        "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),
+        "clipped_samples": clipped,
+        "before_quantisation": internal.figures(),
+        "costs": best.parts,
+        "cost_weights": dict(zip(result.objective.names, result.objective.weights.tolist(),
+                                 strict=True)),
+        "optimizer": {"method": o.method, "iterations": best.iterations,
+                      "evaluations": best.evaluations, "stop_reason": best.stop_reason,
+                      "seed": best.seed, "compile_time_s": result.compile_time_s,
+                      "starts": [{"seed": s.seed, "cost": s.cost, "infidelity": s.infidelity,
+                                  "leakage": s.leakage, "iterations": s.iterations,
+                                  "stop_reason": s.stop_reason, "wall_time_s": s.wall_time_s}
+                                 for s in result.starts]},
+        "samples": int(waveform.fractions.shape[0]),
+        "pulse_samples": recipe.samples,
+        "duration_s": recipe.duration_s,
+        "sample_rate_hz": recipe.sample_rate_hz,
+        "wall_time_s": result.wall_time_s,
+        "recipe": {"name": recipe.name, "path": recipe.path, "sha256": recipe.sha256,
+                   "content": recipe.raw},
+        "versions": versions(),
+        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "caution": waveio.CAUTION,
+    }
+
+
+def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
+        seed: int | None = None, progress=None, plots_too: bool = True) -> RunOutput:
+    """Optimise, export and report. Writes into ``out`` (default ``results/<name>``)."""
+    recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
+        recipe_or_path)
+    folder = Path(out) if out is not None else Path("results") / recipe.name
+    prepare_folder(folder, force)
+    result = optimize(recipe, seed=seed, progress=progress)
+    waveform, clipped = export_samples(recipe, result.samples)
+    exported = check_samples(recipe, waveform.to_hz(recipe.system))
+    internal = check_samples(recipe, result.samples)
+    files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+                                  recipe_name=recipe.name, recipe_sha256=recipe.sha256)
+    report = build_report(result, exported, internal, waveform, clipped, files[0].name)
+    if plots_too:
+        files += write_plots(folder, recipe, waveform, exported, result.history)
+    atomic.write_json(folder / "report.json", report)
+    files.append(folder / "report.json")
+    return RunOutput(result=result, report=report, folder=folder, files=files)
+
+
+def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
+                history) -> list[Path]:
+    system, dt = recipe.system, recipe.dt
+    samples = waveform.to_hz(system)
+    names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
+                                  "convergence.png")]
+    plots.plot_waveform(names[0], samples, dt, system.control_names,
+                        limits=list(recipe.limits_hz.values()))
+    markers = {}
+    for q, tf in system.transition_frequencies.items():
+        markers[f"{q} f01"] = tf["f01_hz"]
+        markers[f"{q} f12"] = tf["f12_hz"]
+    plots.plot_spectrum(names[1], samples, dt, system.channels, cutoff_hz=recipe.bandwidth_hz,
+                        markers=markers)
+    labels = system.level_labels()
+    plots.plot_populations(names[2], simulation.populations, dt, labels,
+                           [labels[i] for i in system.computational])
+    if history:
+        plots.plot_convergence(names[3], history)
+    else:
+        names = names[:3]
+    return names

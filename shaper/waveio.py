@@ -1,0 +1,213 @@
+"""Waveform files for the AWG (CONVENTIONS §6): quantise, pad, write CSV + JSON; read back.
+
+``<name>.csv`` has a header ``time_s,<ch>_i,<ch>_q,...`` (a baseband channel has one
+column ``<ch>``) and one row per sample, values as fractions of full scale in
+[-1, 1]; ``<name>.json`` beside it holds the sample rate, and per channel the
+full-scale Rabi frequency, the IF frequency (0: the I/Q are baseband) and the DAC
+bits. Nothing is clipped silently.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from shaper import atomic
+from shaper.errors import WaveformError
+from shaper.systems import System
+
+FORMAT = "shaper-waveform/1"
+CAUTION = ("This waveform drives real instruments. Before loading it, check it against the "
+           "instrument's output limits and your lab's rules for its lines.")
+
+
+@dataclass(frozen=True)
+class Waveform:
+    """Samples as the instrument plays them.
+
+    Attributes:
+        fractions: ``(n, k)`` fractions of full scale, columns in the system's control order.
+        sample_rate_hz: AWG sample rate.
+        full_scale_hz: per channel name, the Rabi frequency (Hz) of full scale 1.0.
+        column_names: ``k`` column names.
+        pulse_start: index of the first sample of the pulse (after leading padding).
+        bits: DAC bits the fractions were quantised to (None: not quantised).
+    """
+
+    fractions: np.ndarray
+    sample_rate_hz: float
+    full_scale_hz: dict[str, float]
+    column_names: tuple[str, ...]
+    pulse_start: int = 0
+    bits: int | None = None
+
+    def to_hz(self, system: System) -> np.ndarray:
+        """The samples in Hz, ``(n, k)``, in the system's control order."""
+        return self.fractions * column_scales(system, self.full_scale_hz)[None, :]
+
+
+def column_scales(system: System, full_scale_hz: dict[str, float]) -> np.ndarray:
+    """``(k,)`` full scale in Hz of each control column."""
+    scales = np.zeros(len(system.control_names))
+    for ch in system.channels:
+        scales[list(ch.columns)] = full_scale_hz[ch.name]
+    return scales
+
+
+def quantise(fractions: np.ndarray, bits: int) -> np.ndarray:
+    """Round to the nearest of the ``2^(bits-1) - 1`` levels per sign of a signed DAC.
+
+    Error at most half a step, ``0.5 / (2^(bits-1) - 1)`` (common practice, no source).
+    """
+    levels = 2 ** (bits - 1) - 1
+    return np.round(np.asarray(fractions) * levels) / levels
+
+
+def pad(fractions: np.ndarray, granularity: int, placement: str) -> tuple[np.ndarray, int]:
+    """Zero-pad to a whole multiple of ``granularity`` samples; return (padded, pulse_start)."""
+    n = fractions.shape[0]
+    extra = (-n) % granularity
+    before = {"after": 0, "before": extra, "centre": extra // 2}[placement]
+    out = np.zeros((n + extra,) + fractions.shape[1:])
+    out[before:before + n] = fractions
+    return out, before
+
+
+def to_fractions(samples_hz: np.ndarray, system: System, full_scale_hz: dict[str, float], *,
+                 clip: bool = False) -> tuple[np.ndarray, int]:
+    """Samples in Hz -> fractions of full scale; over full scale is an error unless ``clip``.
+
+    Returns:
+        (fractions, number of samples clipped).
+
+    Raises:
+        WaveformError: a sample beyond full scale and ``clip`` is False; says which and by
+            how much.
+    """
+    fractions = np.asarray(samples_hz, float) / column_scales(system, full_scale_hz)[None, :]
+    over = np.abs(fractions) > 1.0
+    if np.any(over) and not clip:
+        rows, cols = np.nonzero(over)
+        worst = float(np.max(np.abs(fractions)))
+        shown = ", ".join(f"{system.control_names[c]}[{r}]" for r, c in zip(rows[:5], cols[:5],
+                                                                              strict=True))
+        raise WaveformError(f"{len(rows)} sample(s) exceed full scale (up to {worst:.6g} of "
+                            f"full scale, {100 * (worst - 1):.3g}% over): {shown}"
+                            f"{' ...' if len(rows) > 5 else ''}; raise the full scale or "
+                            f"ask for clipping (--clip)")
+    return np.clip(fractions, -1.0, 1.0), int(np.count_nonzero(over))
+
+
+def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: System, *,
+                   recipe_name: str, recipe_sha256: str, bare: bool = False) -> list[Path]:
+    """Write ``<name>.csv`` and ``<name>.json`` (or a bare CSV without header) atomically.
+
+    Returns:
+        The paths written.
+    """
+    folder = Path(folder)
+    n = waveform.fractions.shape[0]
+    time_s = np.arange(n) / waveform.sample_rate_hz
+    table = np.column_stack([time_s, waveform.fractions])
+    if bare:
+        text = "\n".join(",".join(f"{v:.9g}" for v in row) for row in waveform.fractions) + "\n"
+        path = folder / f"{name}.bare.csv"
+        atomic.write_text(path, text)
+        return [path]
+    header = ",".join(("time_s",) + tuple(waveform.column_names))
+    lines = [header] + [f"{row[0]:.12e}," + ",".join(f"{v:.12g}" for v in row[1:])
+                        for row in table]
+    csv_path, json_path = folder / f"{name}.csv", folder / f"{name}.json"
+    channels = {}
+    for ch in system.channels:
+        channels[ch.name] = {"kind": ch.kind,
+                             "columns": [waveform.column_names[c] for c in ch.columns],
+                             "full_scale_rabi_hz": waveform.full_scale_hz[ch.name],
+                             "if_frequency_hz": 0.0, "dac_bits": waveform.bits}
+    meta = {"format": FORMAT, "caution": CAUTION, "sample_rate_hz": waveform.sample_rate_hz,
+            "samples": n, "pulse_start_sample": waveform.pulse_start,
+            "pulse_start_s": waveform.pulse_start / waveform.sample_rate_hz,
+            "channels": channels, "recipe": recipe_name, "recipe_sha256": recipe_sha256}
+    atomic.write_text(csv_path, "\n".join(lines) + "\n")
+    atomic.write_json(json_path, meta)
+    return [csv_path, json_path]
+
+
+def read_waveform(csv_path: str | Path) -> Waveform:
+    """Read a waveform written by :func:`write_waveform` (CSV + JSON sidecar).
+
+    Raises:
+        WaveformError: missing or malformed file or sidecar, NaN, values beyond full scale,
+            uneven time steps, or a sidecar that contradicts the CSV.
+    """
+    csv_path = Path(csv_path)
+    json_path = csv_path.with_suffix(".json")
+    try:
+        meta = json.loads(json_path.read_text())
+    except OSError:
+        raise WaveformError(f"{csv_path}: its sidecar {json_path.name} is missing; it holds "
+                            f"the sample rate and full scale") from None
+    except json.JSONDecodeError as exc:
+        raise WaveformError(f"{json_path}: not valid JSON: {exc}") from None
+    try:
+        lines = csv_path.read_text().splitlines()
+    except OSError as exc:
+        raise WaveformError(f"{csv_path}: cannot read: {exc.strerror}") from None
+    if len(lines) < 2:
+        raise WaveformError(f"{csv_path}: empty: expected a header row and at least one sample")
+    header = [h.strip() for h in lines[0].split(",")]
+    if header[0] != "time_s":
+        raise WaveformError(f"{csv_path}: the first column must be time_s, got {header[0]!r}")
+    try:
+        data = np.array([[float(v) for v in line.split(",")] for line in lines[1:] if line],
+                        float)
+    except ValueError:
+        raise WaveformError(f"{csv_path}: every value after the header must be a number") \
+            from None
+    if data.ndim != 2 or data.shape[1] != len(header):
+        raise WaveformError(f"{csv_path}: every row must have {len(header)} values")
+    if not np.all(np.isfinite(data)):
+        raise WaveformError(f"{csv_path}: contains NaN or infinite values")
+    for key in ("sample_rate_hz", "channels", "samples"):
+        if key not in meta:
+            raise WaveformError(f"{json_path}: missing key {key!r}")
+    rate = float(meta["sample_rate_hz"])
+    if meta["samples"] != data.shape[0]:
+        raise WaveformError(f"{json_path}: says {meta['samples']} samples, the CSV has "
+                            f"{data.shape[0]}")
+    if data.shape[0] > 1 and not np.allclose(np.diff(data[:, 0]), 1 / rate, rtol=1e-6,
+                                             atol=0):
+        raise WaveformError(f"{csv_path}: time steps are uneven or do not match the sidecar's "
+                            f"sample rate {rate} Hz")
+    if np.any(np.abs(data[:, 1:]) > 1.0 + 1e-12):
+        raise WaveformError(f"{csv_path}: values beyond full scale (|x| > 1)")
+    full = {name: float(ch["full_scale_rabi_hz"]) for name, ch in meta["channels"].items()}
+    bits = {ch.get("dac_bits") for ch in meta["channels"].values()}
+    return Waveform(fractions=data[:, 1:], sample_rate_hz=rate, full_scale_hz=full,
+                    column_names=tuple(header[1:]),
+                    pulse_start=int(meta.get("pulse_start_sample", 0)),
+                    bits=bits.pop() if len(bits) == 1 else None)
+
+
+def read_waveform_for(path: str, recipe) -> np.ndarray:
+    """A waveform file as samples in Hz on the recipe's grid (a first guess).
+
+    Raises:
+        WaveformError: the file's columns, sample rate or length do not fit the recipe.
+    """
+    wave = read_waveform(path)
+    system = recipe.system
+    if wave.column_names != system.control_names:
+        raise WaveformError(f"{path}: columns {list(wave.column_names)} do not match the "
+                            f"recipe's controls {list(system.control_names)}")
+    if abs(wave.sample_rate_hz - recipe.sample_rate_hz) > 1e-9 * recipe.sample_rate_hz:
+        raise WaveformError(f"{path}: sample rate {wave.sample_rate_hz} Hz, the recipe's is "
+                            f"{recipe.sample_rate_hz} Hz")
+    samples = wave.to_hz(system)[wave.pulse_start:wave.pulse_start + recipe.samples]
+    if samples.shape[0] != recipe.samples:
+        raise WaveformError(f"{path}: {samples.shape[0]} pulse samples, the recipe needs "
+                            f"{recipe.samples}")
+    return samples
