@@ -1,0 +1,43 @@
+"""Independent references for the tests: nothing here calls shaper's propagator."""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.linalg
+
+
+def expm_product(drift, controls, samples, dt) -> np.ndarray:
+    """U = U_{n-1} ... U_0 with U_j = scipy.linalg.expm(-2 pi i dt H_j) (CONVENTIONS §1, §4)."""
+    u = np.eye(drift.shape[0], dtype=complex)
+    for row in np.asarray(samples, float):
+        h = drift + np.tensordot(row, controls, axes=1)
+        u = scipy.linalg.expm(-2j * np.pi * dt * h) @ u
+    return u
+
+
+def pedersen_fidelity(p, target) -> float:
+    """Average gate fidelity, Pedersen, Moller, Molmer, Phys. Lett. A 367, 47 (2007), eq. for
+    F = [Tr(M M^dag) + |Tr M|^2] / [d(d+1)], written out independently of shaper."""
+    m = target.conj().T @ p
+    d = p.shape[0]
+    return float((np.trace(m @ m.conj().T).real + abs(np.trace(m)) ** 2) / (d * (d + 1)))
+
+
+def subspace_leakage(u, comp) -> float:
+    """Wood and Gambetta, Phys. Rev. A 97, 032306 (2018): 1 - Tr(P P^dag)/d."""
+    p = u[np.ix_(comp, comp)]
+    return float(1 - np.trace(p @ p.conj().T).real / len(comp))
+
+
+def duffing(levels, detuning_hz, alpha_hz):
+    """The Duffing transmon of Koch et al., Phys. Rev. A 76, 042319 (2007), drive frame,
+    built here by hand: drift and the I, Q operators of CONVENTIONS §2."""
+    n = np.arange(levels)
+    drift = np.diag(detuning_hz * n + 0.5 * alpha_hz * n * (n - 1)).astype(complex)
+    a = np.diag(np.sqrt(np.arange(1, levels)), 1).astype(complex)
+    return drift, np.array([0.5 * (a + a.conj().T), 0.5j * (a.conj().T - a)])
+
+
+def random_hermitian(rng, d, scale=1.0):
+    a = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+    return scale * (a + a.conj().T) / 2
