@@ -14,7 +14,6 @@ relative to the largest gradient entry. The reference lives here, not in the lib
 
 from __future__ import annotations
 
-import json
 import platform
 import statistics
 import time

@@ -80,9 +80,11 @@ def initial_samples(recipe: Recipe, objective: Objective, rng: np.random.Generat
     return np.asarray(samples)
 
 
-def _targets_met(recipe: Recipe, infidelity: float, leak: float) -> bool:
+def _targets_met(recipe: Recipe, infidelity: float, leak: float, parts: dict) -> bool:
     o = recipe.optimizer
-    return infidelity <= o.target_infidelity / o.margin and leak <= o.target_leakage / o.margin
+    band_ok = "bandwidth" not in parts or parts["bandwidth"] <= recipe.max_out_of_band / o.margin
+    return (infidelity <= o.target_infidelity / o.margin
+            and leak <= o.target_leakage / o.margin and band_ok)
 
 
 class _Stop(Exception):
@@ -120,7 +122,7 @@ def _run_lbfgs(recipe, objective, x0, weights, progress, deadline) -> StartResul
             progress(record)
         if value < state["stall_best"] * (1 - 1e-3):
             state["stall_best"], state["stall_at"] = value, state["iters"]
-        if _targets_met(recipe, infid, leak):
+        if _targets_met(recipe, infid, leak, parts):
             state["reason"] = "targets met"
         elif state["iters"] >= o.max_iterations:
             state["reason"] = "iteration limit"
@@ -197,7 +199,7 @@ def _run_adam(recipe, objective, x0, weights, progress, deadline) -> StartResult
             stall_best, stall_at = best[0], iters
         if reason:
             break
-        if _targets_met(recipe, best[3], best[4]):
+        if _targets_met(recipe, best[3], best[4], best[2]):
             reason = "targets met"
         elif iters >= o.max_iterations:
             reason = "iteration limit"

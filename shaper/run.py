@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from shaper import atomic, plots, waveio
+from shaper.baselines import textbook_pulses
 from shaper.costs import out_of_band
 from shaper.errors import ResultError
 from shaper.optimize import Result, optimize
@@ -54,7 +55,11 @@ def export_samples(recipe: Recipe, samples_hz: np.ndarray) -> tuple[waveio.Wavef
     e = recipe.export
     fractions, clipped = waveio.to_fractions(samples_hz, recipe.system, e.full_scale_hz,
                                              clip=e.clip)
-    fractions = waveio.quantise(fractions, e.dac_bits)
+    layout_pairs = np.array([c.columns for c in recipe.system.channels if c.kind == "iq"],
+                            int).reshape(-1, 2)
+    bound = np.array([recipe.limits_hz[c.name] / e.full_scale_hz[c.name]
+                      for c in recipe.system.channels if c.kind == "iq"])
+    fractions = waveio.quantise(fractions, e.dac_bits, bound=bound, pairs=layout_pairs)
     fractions, start = waveio.pad(fractions, e.granularity, e.padding)
     return waveio.Waveform(fractions=fractions, sample_rate_hz=recipe.sample_rate_hz,
                            full_scale_hz=dict(e.full_scale_hz),
@@ -128,6 +133,8 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
     files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     report = build_report(result, exported, internal, waveform, clipped, files[0].name)
+    report["textbook_pulses"] = textbook_pulses(recipe, result.objective.problem,
+                                                result.objective.layout, result.objective.qubits)
     if plots_too:
         files += write_plots(folder, recipe, waveform, exported, result.history)
     atomic.write_json(folder / "report.json", report)

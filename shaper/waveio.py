@@ -57,13 +57,29 @@ def column_scales(system: System, full_scale_hz: dict[str, float]) -> np.ndarray
     return scales
 
 
-def quantise(fractions: np.ndarray, bits: int) -> np.ndarray:
+def quantise(fractions: np.ndarray, bits: int, *, bound: np.ndarray | None = None,
+             pairs: np.ndarray | None = None) -> np.ndarray:
     """Round to the nearest of the ``2^(bits-1) - 1`` levels per sign of a signed DAC.
 
     Error at most half a step, ``0.5 / (2^(bits-1) - 1)`` (common practice, no source).
+    Where rounding would lift an I/Q pair's magnitude ``|I + iQ|`` above ``bound`` (per
+    pair, as a fraction of full scale), that sample is rounded toward zero instead, so a
+    limit that held before quantisation still holds after.
+
+    Args:
+        fractions: ``(n, k)`` values in [-1, 1].
+        bits: DAC resolution.
+        bound: ``(p,)`` magnitude limit of each I/Q pair; ``pairs``: ``(p, 2)`` columns.
     """
     levels = 2 ** (bits - 1) - 1
-    return np.round(np.asarray(fractions) * levels) / levels
+    x = np.asarray(fractions, float) * levels
+    out = np.round(x)
+    if bound is not None and pairs is not None:
+        for (i, q), lim in zip(pairs, bound, strict=True):
+            over = np.hypot(out[:, i], out[:, q]) > lim * levels
+            out[over, i] = np.trunc(x[over, i])
+            out[over, q] = np.trunc(x[over, q])
+    return out / levels
 
 
 def pad(fractions: np.ndarray, granularity: int, placement: str) -> tuple[np.ndarray, int]:
