@@ -1,0 +1,55 @@
+"""shaper: optimal-control pulse shaping for qubit gates.
+
+A recipe (TOML) describes the qubit(s), the gate and the instrument; shaper finds
+drive samples that implement the gate within the instrument's limits and writes
+them as I/Q waveforms for an AWG, with a report. See README.md.
+
+The public API is listed in ``__all__``; JAX is imported on first use of the engine.
+"""
+
+from __future__ import annotations
+
+from importlib import import_module
+
+__version__ = "0.1.0"
+
+_EXPORTS = {
+    "propagate": "shaper.propagator",
+    "cycle_exponential": "shaper.propagator",
+    "System": "shaper.systems",
+    "TransmonSpec": "shaper.systems",
+    "transmon": "shaper.systems",
+    "coupled_transmons": "shaper.systems",
+    "from_matrices": "shaper.systems",
+    "Target": "shaper.targets",
+    "gate": "shaper.targets",
+    "state_transfer": "shaper.targets",
+    "average_gate_fidelity": "shaper.figures",
+    "leakage": "shaper.figures",
+    "gate_figures": "shaper.figures",
+    "best_frame_angles": "shaper.figures",
+    "load_recipe": "shaper.recipe",
+    "Recipe": "shaper.recipe",
+    "optimize": "shaper.optimize",
+    "Result": "shaper.optimize",
+    "run": "shaper.run",
+    "simulate": "shaper.simulate",
+    "read_waveform": "shaper.waveio",
+    "ShaperError": "shaper.errors",
+    "RecipeError": "shaper.errors",
+    "InputError": "shaper.errors",
+    "WaveformError": "shaper.errors",
+}
+
+__all__ = sorted(_EXPORTS) + ["__version__"]
+
+
+def __getattr__(name: str):
+    # lazy, so that `import shaper` (and `shaper --help`) does not import JAX
+    if name in _EXPORTS:
+        return getattr(import_module(_EXPORTS[name]), name)
+    raise AttributeError(f"module 'shaper' has no attribute {name!r}")
+
+
+def __dir__():
+    return __all__

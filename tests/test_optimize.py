@@ -1,0 +1,179 @@
+"""The main job end to end, checked against references outside the project."""
+
+import json
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
+
+import shaper
+from shaper.optimize import optimize
+from shaper.recipe import load_recipe
+
+ROOT = Path(__file__).parent.parent
+DEMO = ROOT / "recipes" / "demo-x180.toml"
+X = np.array([[0, 1], [1, 0]], complex)
+
+
+def read_csv(path):
+    # read with numpy only, not with shaper's reader
+    data = np.genfromtxt(path, delimiter=",", names=True)
+    return data
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "run"
+    proc = subprocess.run(["shaper", "optimize", str(DEMO), "--out", str(out)],
+                          capture_output=True, text=True, timeout=600)
+    return proc, out
+
+
+def test_cli_demo_writes_every_file(demo_run):
+    proc, out = demo_run
+    assert proc.returncode == 0, proc.stderr
+    for name in ("demo-x180.csv", "demo-x180.json", "report.json", "waveform.png",
+                 "spectrum.png", "populations.png", "convergence.png"):
+        assert (out / name).is_file(), name
+    report = json.loads((out / "report.json").read_text())
+    for key in ("fidelity", "infidelity", "leakage", "waveform", "costs", "optimizer",
+                "wall_time_s", "versions", "recipe", "caution"):
+        assert key in report
+    assert report["waveform"] == "demo-x180.csv"
+    assert report["optimizer"]["stop_reason"] == "targets met"
+    assert len(report["recipe"]["sha256"]) == 64
+    assert "CAUTION" in proc.stdout and "instrument" in proc.stdout
+
+
+def test_demo_meets_targets_and_report_matches_independent_resimulation(demo_run):
+    _, out = demo_run
+    report = json.loads((out / "report.json").read_text())
+    assert report["infidelity"] < 1e-6
+    assert report["leakage"] < 1e-7
+    meta = json.loads((out / "demo-x180.json").read_text())
+    data = read_csv(out / "demo-x180.csv")
+    full = meta["channels"]["q0"]["full_scale_rabi_hz"]
+    samples = np.column_stack([data["q0_i"], data["q0_q"]]) * full
+    # Koch et al. (2007) Duffing model built in the test; scipy.linalg.expm slice product
+    drift, controls = duffing(4, 0.0, -220e6)
+    u = expm_product(drift, controls, samples, 1 / meta["sample_rate_hz"])
+    comp = [0, 1]
+    fid = pedersen_fidelity(u[np.ix_(comp, comp)], X)
+    assert abs((1 - fid) - report["infidelity"]) < 1e-9
+    assert abs(subspace_leakage(u, comp) - report["leakage"]) < 1e-9
+    # the amplitude limit holds on every exported sample (|I + iQ| <= max_rabi = 60 MHz)
+    assert np.max(np.hypot(samples[:, 0], samples[:, 1])) <= 60e6
+    # DAC grid: every value is a whole number of 16-bit steps (common practice, no source)
+    steps = np.column_stack([data["q0_i"], data["q0_q"]]) * (2 ** 15 - 1)
+    assert np.max(np.abs(steps - np.round(steps))) < 1e-6
+
+
+def test_second_run_into_same_folder_refused_without_force(demo_run):
+    _, out = demo_run
+    before = (out / "report.json").read_bytes()
+    proc = subprocess.run(["shaper", "optimize", str(DEMO), "--out", str(out)],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 2
+    assert "already holds a run" in proc.stderr and "--force" in proc.stderr
+    assert (out / "report.json").read_bytes() == before
+
+
+def test_short_gate_beats_best_gaussian(tmp_path):
+    # 8 ns, 5 levels, anharmonicity -220 MHz: the optimiser reaches 1e-4 while the best plain
+    # Gaussian pi pulse (amplitude scanned, simulated here with scipy) leaks more than 1e-4.
+    result = optimize(ROOT / "recipes" / "short-x180.toml")
+    assert result.best.infidelity < 1e-4
+    drift, controls = duffing(5, 0.0, -220e6)
+    dt, n = 1 / 2.5e9, 20
+    t = (np.arange(n) + 0.5) * dt
+    sigma = n * dt / 4
+    g = np.exp(-0.5 * ((t - n * dt / 2) / sigma) ** 2)
+    g = g - g.min()
+    g = 0.5 * g / (g.sum() * dt)  # area 1/2: a pi pulse by Rabi's resonant solution
+    best = None
+    for scale in np.linspace(0.8, 1.2, 81):
+        u = expm_product(drift, controls, np.column_stack([scale * g, 0 * g]), dt)
+        fid = pedersen_fidelity(u[:2, :2], X)
+        if best is None or fid > best[0]:
+            best = (fid, subspace_leakage(u, [0, 1]))
+    assert best[1] > 1e-4
+    assert 1 - best[0] > 1e-4
+
+
+def test_bandwidth_term_brings_out_of_band_energy_below_request():
+    recipe = {
+        "name": "band", "system": {"model": "transmon", "levels": 3,
+                                   "qubit_frequency": "5 GHz", "anharmonicity": "-200 MHz"},
+        "gate": {"target": "X"},
+        "pulse": {"duration": "20 ns", "sample_rate": "2.4 GS/s", "max_rabi": "80 MHz",
+                  "bandwidth": "100 MHz", "max_out_of_band": 1e-4},
+        "optimizer": {"target_infidelity": 1e-5, "target_leakage": 1e-6},
+    }
+    result = optimize(recipe)
+
+    def fraction(samples):
+        # independent: numpy FFT of the zero-padded complex envelope I + iQ
+        z = samples[:, 0] + 1j * samples[:, 1]
+        spec = np.abs(np.fft.fft(z, 4 * len(z))) ** 2
+        f = np.fft.fftfreq(4 * len(z), 1 / 2.4e9)
+        return spec[np.abs(f) > 100e6].sum() / spec.sum()
+    assert fraction(result.samples) <= 1e-4
+    assert result.best.infidelity < 1e-5
+    recipe["pulse"].pop("bandwidth")
+    free = optimize(recipe)
+    assert fraction(free.samples) > 1e-4  # without the term the spectrum is wider
+
+
+def test_adam_reaches_target():
+    recipe = load_recipe(DEMO)
+    raw = dict(recipe.raw)
+    raw["optimizer"] = {"method": "adam", "target_infidelity": 1e-4, "target_leakage": 1e-5,
+                        "max_iterations": 2000, "learning_rate": 0.02}
+    result = optimize(raw)
+    assert result.best.stop_reason == "targets met"
+    assert result.best.infidelity < 1e-5
+
+
+def test_robustness_term_flattens_detuning_response():
+    base = {"name": "robust", "system": {"model": "transmon", "levels": 3,
+                                         "qubit_frequency": "5 GHz",
+                                         "anharmonicity": "-200 MHz"},
+            "gate": {"target": "X"},
+            "pulse": {"duration": "30 ns", "sample_rate": "2 GS/s", "max_rabi": "60 MHz"},
+            "optimizer": {"target_infidelity": 1e-9, "target_leakage": 1e-9,
+                          "max_iterations": 300, "margin": 1}}
+    robust = {**base, "cost": {"robustness": 1.0,
+                               "ensemble_detunings": ["-3 MHz", "0 MHz", "3 MHz"]}}
+    plain_result = optimize(base)
+    robust_result = optimize(robust)
+
+    def mean_infidelity(samples):
+        # reference: scipy.linalg.expm slice products at the ensemble's detunings
+        out = []
+        for det in (-3e6, 0.0, 3e6):
+            drift, controls = duffing(3, det, -200e6)
+            u = expm_product(drift, controls, samples, 0.5e-9)
+            out.append(1 - pedersen_fidelity(u[:2, :2], X))
+        return np.mean(out)
+    assert mean_infidelity(robust_result.samples) < 0.5 * mean_infidelity(plain_result.samples)
+
+
+def test_public_api_is_pinned():
+    assert shaper.__all__ == sorted(shaper.__all__[:-1]) + ["__version__"]
+    assert set(shaper.__all__) == {
+        "InputError", "Recipe", "RecipeError", "Result", "ShaperError", "System", "Target",
+        "TransmonSpec", "WaveformError", "average_gate_fidelity", "best_frame_angles",
+        "coupled_transmons", "cycle_exponential", "from_matrices", "gate", "gate_figures",
+        "leakage", "load_recipe", "optimize", "propagate", "read_waveform", "run", "simulate",
+        "state_transfer", "transmon", "__version__"}
+    for name in shaper.__all__:
+        assert getattr(shaper, name) is not None
+
+
+def test_help_does_not_import_jax():
+    code = ("import sys; from shaper.cli.main import build_parser; build_parser(); "
+            "print('jax' in sys.modules)")
+    proc = subprocess.run(["python", "-c", code], capture_output=True, text=True, timeout=60)
+    assert proc.stdout.strip() == "False"
