@@ -28,7 +28,7 @@ def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=N
         ax.axhline(lim / 1e6, color="grey", linestyle=":", linewidth=0.8)
         ax.axhline(-lim / 1e6, color="grey", linestyle=":", linewidth=0.8)
     ax.set_xlabel("time (ns)")
-    ax.set_ylabel("Rabi frequency (MHz)")
+    ax.set_ylabel("MHz (Rabi frequency; flux: shift)")
     ax.set_title("Drive samples as held by the DAC (dotted: amplitude limit)")
     ax.legend(loc="upper right", fontsize=8)
     fig.tight_layout()
@@ -80,8 +80,8 @@ def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
         ax = axes[0, j]
         for level, label in enumerate(labels):
             curve = populations[j, :, level]
-            if curve.max() > 1e-6:
-                ax.plot(t_ns, curve, label=f"|{label}>")
+            if curve.max() > 1e-3:  # one colour per level in every panel
+                ax.plot(t_ns, curve, label=f"|{label}>", color=f"C{level % 10}")
         ax.set_title(f"start in |{input_labels[j]}>", fontsize=9)
         ax.set_xlabel("time (ns)")
         ax.set_ylim(-0.02, 1.02)
