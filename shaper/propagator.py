@@ -58,14 +58,14 @@ def cycle_exponential(phases: ArrayLike) -> jax.Array:
         ``G_mn = -2 pi i exp(-i pi (x_m + x_n)) sinc(x_m - x_n)``, which equals the
         divided difference for distinct eigenvalues and its limit where they meet.
     """
-    x, v = jnp.linalg.eigh(phases)
+    x, v = jnp.linalg.eigh(phases, symmetrize_input=False)
     return _matmul(v * jnp.exp(-2j * jnp.pi * x)[..., None, :], jnp.conj(jnp.swapaxes(v, -1, -2)))
 
 
 @cycle_exponential.defjvp
 def _cycle_exponential_jvp(primals, tangents):
     (phases,), (dphases,) = primals, tangents
-    x, v = jnp.linalg.eigh(phases)
+    x, v = jnp.linalg.eigh(phases, symmetrize_input=False)
     vh = jnp.conj(jnp.swapaxes(v, -1, -2))
     half = jnp.exp(-1j * jnp.pi * x)  # N exponentials; G is their outer product times sinc
     u = _matmul(v * (half * half)[..., None, :], vh)
