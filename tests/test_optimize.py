@@ -1,6 +1,7 @@
 """The main job end to end, checked against references outside the project."""
 
 import json
+import os
 import subprocess
 from pathlib import Path
 
@@ -177,3 +178,32 @@ def test_help_does_not_import_jax():
             "print('jax' in sys.modules)")
     proc = subprocess.run(["python", "-c", code], capture_output=True, text=True, timeout=60)
     assert proc.stdout.strip() == "False"
+
+
+def test_first_guess_from_an_earlier_waveform(demo_run, tmp_path):
+    # the exported demo pulse already meets the targets: starting from it, L-BFGS-B stops at
+    # its first iteration (common practice, no source: warm starts from a previous run)
+    _, out = demo_run
+    raw = dict(load_recipe(DEMO).raw)
+    raw["optimizer"] = {"initial": str(out / "demo-x180.csv")}
+    result = optimize(raw)
+    assert result.best.iterations == 1
+    assert result.best.infidelity < 1e-6
+
+
+def test_wall_clock_limit_stops_the_run():
+    raw = dict(load_recipe(DEMO).raw)
+    raw["optimizer"] = {"max_time": "1 us", "target_infidelity": 1e-15,
+                        "target_leakage": 1e-15}
+    result = optimize(raw)
+    assert result.best.stop_reason == "time limit"
+    assert result.best.iterations == 1
+
+
+def test_compilation_cache_is_written(tmp_path):
+    # a second run of the same size reuses compiled code from the on-disk cache
+    env = {**os.environ, "SHAPER_CACHE_DIR": str(tmp_path / "cache")}
+    code = f"import shaper; shaper.optimize({str(DEMO)!r})"
+    subprocess.run(["python", "-c", code], env=env, check=True, timeout=300,
+                   capture_output=True)
+    assert len(list((tmp_path / "cache").iterdir())) > 0
