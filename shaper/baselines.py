@@ -29,7 +29,7 @@ def amplitude_scan(samples: np.ndarray, problem: Problem, scales: np.ndarray, *,
     return np.asarray(fid), np.asarray(leak)
 
 
-def textbook_pulses(recipe, problem: Problem, layout: Layout, qubits: int) -> dict:
+def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     """Best amplitude-scanned Gaussian and DRAG pulses for a one-qubit rotation recipe.
 
     Returns an empty dict when the recipe is not a one-qubit rotation on a transmon.
@@ -39,6 +39,9 @@ def textbook_pulses(recipe, problem: Problem, layout: Layout, qubits: int) -> di
         return {}
     if not recipe.system.transition_frequencies:
         return {}
+    from shaper.objective import make_problem
+
+    problem = make_problem(recipe)  # baseband, on the AWG grid
     out = {}
     limit = max(recipe.limits_hz.values())
     for kind in ("gaussian", "drag"):

@@ -48,8 +48,14 @@ class CostTerm(NamedTuple):
 
 
 def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
-             virtual_z: bool, method: str = "eigh") -> Figures:
-    """Fidelity and leakage of the samples on the problem's system (nominal parameters)."""
+             virtual_z: bool, method: str = "eigh", drive: Callable | None = None) -> Figures:
+    """Fidelity and leakage of the samples on the problem's system (nominal parameters).
+
+    ``drive``, if given, maps the AWG's samples to what the propagator sees on the grid of
+    ``problem.dt`` (for IF exports: the held modulated samples on sub-steps).
+    """
+    if drive is not None:
+        samples = drive(samples)
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, problem.dt,
                                         method=method))
     return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
@@ -92,13 +98,18 @@ def out_of_band(samples: jax.Array, dt: jax.Array, cutoff_hz: float,
     return jnp.sum(jnp.where(above[None, :], spectrum, 0.0)) / (total + 1e-300)
 
 
-def bandwidth(cutoff_hz: float, iq_columns: Sequence, baseband_columns: Sequence) -> CostTerm:
-    """The fraction of the pulse energy above ``cutoff_hz`` (see :func:`out_of_band`)."""
+def bandwidth(cutoff_hz: float, iq_columns: Sequence, baseband_columns: Sequence, *,
+              sample_period_s: float | None = None) -> CostTerm:
+    """The fraction of the pulse energy above ``cutoff_hz`` (see :func:`out_of_band`).
+
+    ``sample_period_s`` is the AWG's; default ``problem.dt`` (they differ when the
+    propagator runs on sub-steps).
+    """
     iq, bb = np.asarray(iq_columns, int).reshape(-1, 2), np.asarray(baseband_columns, int)
     if not cutoff_hz > 0:
         raise InputError(f"the bandwidth cutoff must be positive, got {cutoff_hz} Hz")
-    return CostTerm("bandwidth", lambda samples, problem, figures:
-                    out_of_band(samples, problem.dt, cutoff_hz, iq, bb))
+    return CostTerm("bandwidth", lambda samples, problem, figures: out_of_band(
+        samples, problem.dt if sample_period_s is None else sample_period_s, cutoff_hz, iq, bb))
 
 
 def smoothness(limits_hz: Sequence[float]) -> CostTerm:
@@ -123,7 +134,8 @@ def amplitude_limit(limits_hz: Sequence[float]) -> CostTerm:
     return CostTerm("amplitude", value)
 
 
-def robustness(*, qubits: int, is_gate: bool, virtual_z: bool, method: str = "eigh") -> CostTerm:
+def robustness(*, qubits: int, is_gate: bool, virtual_z: bool, method: str = "eigh",
+               drive: Callable | None = None) -> CostTerm:
     """Mean infidelity over the problem's ensemble of detuning offsets and amplitude scales.
 
     Member m sees ``drift + sum_q detunings[m, q] n_q`` and samples times ``scales[m]``;
@@ -133,7 +145,7 @@ def robustness(*, qubits: int, is_gate: bool, virtual_z: bool, method: str = "ei
         drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
         member = problem._replace(drift=drift)
         return evaluate(samples * scale, member, qubits=qubits, is_gate=is_gate,
-                        virtual_z=virtual_z, method=method).fidelity
+                        virtual_z=virtual_z, method=method, drive=drive).fidelity
 
     def value(samples, problem, figures):
         fid = jax.vmap(one, in_axes=(0, 0, None, None))(problem.detunings, problem.scales,

@@ -11,6 +11,7 @@ import numpy as np
 
 from shaper import costs
 from shaper.costs import Problem
+from shaper.modulation import held_drive, modulate, substeps
 from shaper.pulses import Layout, make_layout, to_samples
 from shaper.recipe import Recipe
 
@@ -56,15 +57,27 @@ def make_objective(recipe: Recipe) -> Objective:
     layout = make_layout(recipe.system, recipe.limits_hz, recipe.samples, hold=recipe.hold,
                          zero_ends=recipe.zero_ends, ramp_samples=recipe.ramp_samples)
     qubits = qubit_count(recipe)
+    problem = make_problem(recipe)
+    drive = None
+    if recipe.export.if_frequency_hz:
+        # optimise what the instrument plays: held IF-modulated samples, on sub-steps
+        f_if, side, dt = recipe.export.if_frequency_hz, recipe.export.sideband, recipe.dt
+        steps = substeps(f_if, dt)
+        pairs = layout.iq_columns
+
+        def drive(samples):
+            return held_drive(modulate(samples, pairs, f_if, dt, side), pairs, f_if, dt, side,
+                              steps=steps)
+        problem = problem._replace(dt=jnp.asarray(dt / steps))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
-                 method=recipe.optimizer.propagator)
+                 method=recipe.optimizer.propagator, drive=drive)
     w = recipe.weights
     terms = [costs.infidelity()]
     if w["leakage"] > 0:
         terms.append(costs.leakage())
     if recipe.bandwidth_hz and w["bandwidth"] > 0:
         terms.append(costs.bandwidth(recipe.bandwidth_hz, layout.iq_columns,
-                                     layout.baseband_columns))
+                                     layout.baseband_columns, sample_period_s=recipe.dt))
     if w["smoothness"] > 0:
         terms.append(costs.smoothness(layout.column_limits()))
     if w["amplitude"] > 0:
@@ -75,7 +88,6 @@ def make_objective(recipe: Recipe) -> Objective:
         terms.append(costs.robustness(**flags))
     names = tuple(t.name for t in terms)
     total = costs.combine(terms)
-    problem = make_problem(recipe)
 
     def loss(params, problem, weights):
         samples = to_samples(params, layout)

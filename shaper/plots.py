@@ -106,3 +106,22 @@ def plot_convergence(path: Path, history: list[dict]) -> None:
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def plot_sensitivity(path: Path, sensitivity: dict) -> None:
+    """Infidelity vs detuning offset and vs amplitude scale (log scale)."""
+    plt = _pyplot()
+    fig, axes = plt.subplots(1, 2, figsize=(9, 3.3))
+    axes[0].semilogy(np.array(sensitivity["detuning_hz"]) / 1e6,
+                     np.maximum(sensitivity["infidelity_vs_detuning"], 1e-16), marker=".")
+    axes[0].set_xlabel("detuning offset (MHz)")
+    axes[1].semilogy((np.array(sensitivity["amplitude_scale"]) - 1) * 100,
+                     np.maximum(sensitivity["infidelity_vs_scale"], 1e-16), marker=".")
+    axes[1].set_xlabel("amplitude error (%)")
+    for ax in axes:
+        ax.set_ylabel("infidelity")
+        ax.grid(True, which="both", alpha=0.3)
+    fig.suptitle("Sensitivity")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)

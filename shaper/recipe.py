@@ -41,7 +41,8 @@ KEYS: dict[str, tuple[str, ...]] = {
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
                   "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
                   "drag_scale", "learning_rate", "propagator"),
-    "export": ("full_scale", "dac_bits", "granularity", "padding", "clip"),
+    "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
+               "sideband"),
 }
 REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
             "pulse": ("duration", "sample_rate", "max_rabi")}
@@ -75,6 +76,8 @@ class ExportSettings:
     granularity: int = 1
     padding: str = "after"
     clip: bool = False
+    if_frequency_hz: float = 0.0
+    sideband: str = "lower"
 
 
 @dataclass(frozen=True, kw_only=True)

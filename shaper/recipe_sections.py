@@ -33,7 +33,8 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     pulse = _pulse(r, r.table(raw, "pulse", "pulse"), system)
     weights, detunings, scales = _cost(r, r.table(raw, "cost", "cost"), system)
     optimizer = _optimizer(r, r.table(raw, "optimizer", "optimizer"))
-    export = _export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"])
+    export = _export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
+                     pulse["sample_rate_hz"])
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
                   virtual_z=virtual_z, weights=weights, ensemble_detunings_hz=detunings,
                   ensemble_scales=scales, optimizer=optimizer, export=export, raw=raw, **pulse)
@@ -259,7 +260,8 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
                             d.propagator))
 
 
-def _export(r: _Reader, t: dict, system: System, limits: dict[str, float]) -> ExportSettings:
+def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],
+            rate: float) -> ExportSettings:
     r.check_keys(t, "export")
     channels = [c.name for c in system.channels]
     full = r.per_channel(t["full_scale"], "export.full_scale", channels) \
@@ -271,6 +273,10 @@ def _export(r: _Reader, t: dict, system: System, limits: dict[str, float]) -> Ex
                         f"its full scale {format_quantity(full[c], 'Hz')} (export.full_scale); "
                         f"lower the limit or raise the full scale")
     bits = r.number(t, "dac_bits", "export.dac_bits", 16, integer=True, minimum=2)
+    if_hz = r.number(t, "if_frequency", "export.if_frequency", 0.0, kind="frequency")
+    if abs(if_hz) >= rate / 2:
+        r.fail("export.if_frequency", f"must lie below the Nyquist frequency "
+                                      f"{format_quantity(rate / 2, 'Hz')} of the sample rate")
     if bits > 32:
         r.fail("export.dac_bits", f"must be at most 32, got {bits}")
     return ExportSettings(
@@ -278,4 +284,6 @@ def _export(r: _Reader, t: dict, system: System, limits: dict[str, float]) -> Ex
         granularity=r.number(t, "granularity", "export.granularity", 1, integer=True,
                              minimum=1),
         padding=r.choice(t, "padding", "export.padding", PADDING, "after"),
-        clip=r.flag(t, "clip", "export.clip", False))
+        clip=r.flag(t, "clip", "export.clip", False),
+        if_frequency_hz=if_hz,
+        sideband=r.choice(t, "sideband", "export.sideband", ("lower", "upper"), "lower"))

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import platform
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from importlib import metadata
 from pathlib import Path
 
@@ -19,9 +19,10 @@ from shaper import atomic, plots, waveio
 from shaper.baselines import textbook_pulses
 from shaper.costs import out_of_band
 from shaper.errors import ResultError
+from shaper.export import make_waveform, simulate_played
 from shaper.optimize import Result, optimize
 from shaper.recipe import Recipe, load_recipe
-from shaper.simulate import Simulation, simulate
+from shaper.simulate import Simulation
 
 
 def versions() -> dict[str, str]:
@@ -48,28 +49,6 @@ def prepare_folder(folder: Path, force: bool) -> None:
         raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
                           f"or pass --force to overwrite it")
     folder.mkdir(parents=True, exist_ok=True)
-
-
-def export_samples(recipe: Recipe, samples_hz: np.ndarray) -> tuple[waveio.Waveform, int]:
-    """Fractions of full scale, quantised and padded as the recipe's [export] asks."""
-    e = recipe.export
-    fractions, clipped = waveio.to_fractions(samples_hz, recipe.system, e.full_scale_hz,
-                                             clip=e.clip)
-    layout_pairs = np.array([c.columns for c in recipe.system.channels if c.kind == "iq"],
-                            int).reshape(-1, 2)
-    bound = np.array([recipe.limits_hz[c.name] / e.full_scale_hz[c.name]
-                      for c in recipe.system.channels if c.kind == "iq"])
-    fractions = waveio.quantise(fractions, e.dac_bits, bound=bound, pairs=layout_pairs)
-    fractions, start = waveio.pad(fractions, e.granularity, e.padding)
-    return waveio.Waveform(fractions=fractions, sample_rate_hz=recipe.sample_rate_hz,
-                           full_scale_hz=dict(e.full_scale_hz),
-                           column_names=recipe.system.control_names, pulse_start=start,
-                           bits=e.dac_bits), clipped
-
-
-def check_samples(recipe: Recipe, samples_hz: np.ndarray) -> Simulation:
-    return simulate(recipe.system, recipe.target, samples_hz, recipe.dt,
-                    virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator)
 
 
 def build_report(result: Result, exported: Simulation, internal: Simulation,
@@ -127,14 +106,18 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
     folder = Path(out) if out is not None else Path("results") / recipe.name
     prepare_folder(folder, force)
     result = optimize(recipe, seed=seed, progress=progress)
-    waveform, clipped = export_samples(recipe, result.samples)
-    exported = check_samples(recipe, waveform.to_hz(recipe.system))
-    internal = check_samples(recipe, result.samples)
+    waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
+                                      recipe.sample_rate_hz)
+    exported = simulate_played(recipe, waveform)
+    unquantised, _ = make_waveform(recipe, result.samples,
+                                   replace(recipe.export, dac_bits=None, granularity=1),
+                                   recipe.sample_rate_hz)
+    internal = simulate_played(recipe, unquantised)
     files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     report = build_report(result, exported, internal, waveform, clipped, files[0].name)
-    report["textbook_pulses"] = textbook_pulses(recipe, result.objective.problem,
-                                                result.objective.layout, result.objective.qubits)
+    report["textbook_pulses"] = textbook_pulses(recipe, result.objective.layout,
+                                                result.objective.qubits)
     if plots_too:
         files += write_plots(folder, recipe, waveform, exported, result.history)
     atomic.write_json(folder / "report.json", report)
@@ -143,8 +126,9 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
 
 
 def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
-                history) -> list[Path]:
-    system, dt = recipe.system, recipe.dt
+                history, *, dt: float | None = None) -> list[Path]:
+    """waveform.png, spectrum.png (transitions marked), populations.png, convergence.png."""
+    system, dt = recipe.system, dt or recipe.dt
     samples = waveform.to_hz(system)
     names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
                                   "convergence.png")]

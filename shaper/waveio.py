@@ -43,6 +43,8 @@ class Waveform:
     column_names: tuple[str, ...]
     pulse_start: int = 0
     bits: int | None = None
+    if_frequency_hz: float = 0.0  # the I/Q carry this IF (shaper.modulation), 0: baseband
+    sideband: str = "lower"
 
     def to_hz(self, system: System) -> np.ndarray:
         """The samples in Hz, ``(n, k)``, in the system's control order."""
@@ -128,11 +130,15 @@ def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: Sy
     n = waveform.fractions.shape[0]
     time_s = np.arange(n) / waveform.sample_rate_hz
     table = np.column_stack([time_s, waveform.fractions])
-    if bare:
-        text = "\n".join(",".join(f"{v:.9g}" for v in row) for row in waveform.fractions) + "\n"
-        path = folder / f"{name}.bare.csv"
-        atomic.write_text(path, text)
-        return [path]
+    if bare:  # numbers only: one file per channel, I,Q columns (baseband: one column)
+        paths = []
+        for ch in system.channels:
+            block = waveform.fractions[:, list(ch.columns)]
+            path = folder / f"{name}_{ch.name}.txt"
+            atomic.write_text(path, "\n".join(",".join(f"{v:.12g}" for v in row)
+                                              for row in block) + "\n")
+            paths.append(path)
+        return paths
     header = ",".join(("time_s",) + tuple(waveform.column_names))
     lines = [header] + [f"{row[0]:.12e}," + ",".join(f"{v:.12g}" for v in row[1:])
                         for row in table]
@@ -142,7 +148,10 @@ def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: Sy
         channels[ch.name] = {"kind": ch.kind,
                              "columns": [waveform.column_names[c] for c in ch.columns],
                              "full_scale_rabi_hz": waveform.full_scale_hz[ch.name],
-                             "if_frequency_hz": 0.0, "dac_bits": waveform.bits}
+                             "if_frequency_hz": waveform.if_frequency_hz if ch.kind == "iq"
+                             else 0.0, "dac_bits": waveform.bits}
+        if ch.kind == "iq" and waveform.if_frequency_hz:
+            channels[ch.name]["sideband"] = waveform.sideband
     meta = {"format": FORMAT, "caution": CAUTION, "sample_rate_hz": waveform.sample_rate_hz,
             "samples": n, "pulse_start_sample": waveform.pulse_start,
             "pulse_start_s": waveform.pulse_start / waveform.sample_rate_hz,
@@ -202,10 +211,21 @@ def read_waveform(csv_path: str | Path) -> Waveform:
         raise WaveformError(f"{csv_path}: values beyond full scale (|x| > 1)")
     full = {name: float(ch["full_scale_rabi_hz"]) for name, ch in meta["channels"].items()}
     bits = {ch.get("dac_bits") for ch in meta["channels"].values()}
+    iq = [ch for ch in meta["channels"].values() if ch.get("kind", "iq") == "iq"]
+    ifs = {float(ch.get("if_frequency_hz", 0.0)) for ch in iq}
+    sidebands = {ch.get("sideband", "lower") for ch in iq}
+    if len(ifs) > 1 or len(sidebands) > 1:
+        raise WaveformError(f"{json_path}: channels with different IF frequencies or "
+                            f"sidebands are not supported")
+    columns = [c for ch in meta["channels"].values() for c in ch.get("columns", [])]
+    if columns and sorted(columns) != sorted(header[1:]):
+        raise WaveformError(f"{json_path}: lists columns {columns}, the CSV has {header[1:]}")
     return Waveform(fractions=data[:, 1:], sample_rate_hz=rate, full_scale_hz=full,
                     column_names=tuple(header[1:]),
                     pulse_start=int(meta.get("pulse_start_sample", 0)),
-                    bits=bits.pop() if len(bits) == 1 else None)
+                    bits=bits.pop() if len(bits) == 1 else None,
+                    if_frequency_hz=ifs.pop() if ifs else 0.0,
+                    sideband=sidebands.pop() if sidebands else "lower")
 
 
 def read_waveform_for(path: str, recipe) -> np.ndarray:

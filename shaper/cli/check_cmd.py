@@ -1,0 +1,77 @@
+"""``shaper check RECIPE WAVEFORM``: simulate any waveform and judge it against the recipe.
+
+Exit code 0 when the recipe's targets are met, 1 when not, 2 for bad input.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("recipe", help="the recipe (system, gate, targets)")
+    parser.add_argument("waveform", help="a .csv (ours, with its .json, or plain), .npy or .npz")
+    parser.add_argument("--levels", type=int, help="levels per transmon (default: the recipe's)")
+    parser.add_argument("--json", action="store_true", help="print one JSON object only")
+    parser.add_argument("--sample-rate", help="for files without a sidecar, e.g. 2.4GS/s")
+    parser.add_argument("--full-scale", help="for files without a sidecar: the Rabi frequency "
+                                             "of full scale 1.0, e.g. 60MHz")
+    parser.add_argument("--detuning-span", default="5 MHz",
+                        help="sensitivity scan +- this detuning (default 5 MHz)")
+    parser.add_argument("--scale-span", type=float, default=0.05,
+                        help="sensitivity scan +- this amplitude fraction (default 0.05)")
+    parser.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
+
+
+def run(args: argparse.Namespace) -> int:
+    from shaper.check import check_waveform
+    from shaper.recipe import load_recipe
+    from shaper.units import parse_quantity
+    from shaper.waveform_import import read_any
+
+    recipe = load_recipe(args.recipe)
+    rate = parse_quantity(_spaced(args.sample_rate), "sample rate", key="--sample-rate") \
+        if args.sample_rate else None
+    scale = parse_quantity(_spaced(args.full_scale), "frequency", key="--full-scale") \
+        if args.full_scale else None
+    span = parse_quantity(_spaced(args.detuning_span), "frequency", key="--detuning-span")
+    system = recipe.system
+    wave = read_any(args.waveform, system, sample_rate_hz=rate, full_scale_hz=scale)
+    verdict, curves = check_waveform(recipe, wave, levels=args.levels, detuning_span_hz=span,
+                                     scale_span=args.scale_span)
+    verdict["waveform"] = str(args.waveform)
+    if args.plots:
+        from shaper.check import write_check_plots
+        write_check_plots(Path(args.plots), verdict, curves)
+    if args.json:
+        print(json.dumps(verdict))
+    else:
+        _print_summary(verdict)
+    return 0 if verdict["pass"] else 1
+
+
+def _spaced(text: str) -> str:
+    # accept "60MHz" as well as "60 MHz" on the command line
+    import re
+    return re.sub(r"^([-+0-9.eE]+)([A-Za-zµ].*)$", r"\1 \2", text.strip())
+
+
+def _print_summary(v: dict) -> None:
+    s = v["sensitivity"]
+    print(f"{v['waveform']} on {v['recipe']} ({'x'.join(map(str, v['levels']))} levels, "
+          f"{v['samples']} samples)")
+    print(f"  infidelity {v['infidelity']:.3e}   leakage {v['leakage']:.3e}   "
+          f"max population outside the qubit levels {v['max_population_outside_qubit_levels']:.3e}")
+    if any(v["frame_after_rad"]) or any(v["frame_before_rad"]):
+        print(f"  virtual Z: before {v['frame_before_rad']} rad, after {v['frame_after_rad']} rad")
+    print(f"  d(infidelity)/d(detuning) {s['d_infidelity_d_detuning_per_mhz']:.3e} per MHz; "
+          f"at +-{max(s['detuning_hz']) / 1e6:g} MHz: {s['infidelity_vs_detuning'][0]:.3e}, "
+          f"{s['infidelity_vs_detuning'][-1]:.3e}")
+    print(f"  d(infidelity)/d(amplitude) {s['d_infidelity_d_scale_per_percent']:.3e} per %; "
+          f"at +-{100 * (max(s['amplitude_scale']) - 1):.3g} %: "
+          f"{s['infidelity_vs_scale'][0]:.3e}, {s['infidelity_vs_scale'][-1]:.3e}")
+    t = v["targets"]
+    print(f"  {'PASS' if v['pass'] else 'FAIL'} against infidelity <= {t['infidelity']:g}, "
+          f"leakage <= {t['leakage']:g}")

@@ -1,0 +1,55 @@
+"""``shaper export RUN``: write an earlier run's pulse for another instrument, no re-optimising."""
+
+from __future__ import annotations
+
+import argparse
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("run", help="a run folder (with report.json) or its report.json")
+    parser.add_argument("--out", required=True, help="folder for the new waveform")
+    parser.add_argument("--sample-rate", help="the instrument's rate, e.g. 2GS/s (default: the "
+                                              "run's); resampled and re-checked")
+    parser.add_argument("--bits", type=int, help="DAC bits (default: the recipe's)")
+    parser.add_argument("--if", dest="if_frequency",
+                        help="IF (single-sideband) frequency the I/Q should carry, e.g. 100MHz")
+    parser.add_argument("--sideband", choices=("lower", "upper"),
+                        help="lower: (I+iQ) exp(+2 pi i f_IF t), LO at f_d + f_IF (default); "
+                             "upper: the opposite")
+    parser.add_argument("--granularity", type=int, help="pad to a multiple of this many samples")
+    parser.add_argument("--padding", choices=("after", "before", "centre"))
+    parser.add_argument("--clip", action="store_true",
+                        help="clip samples over full scale (counted in export.json)")
+    parser.add_argument("--bare", action="store_true",
+                        help="numbers only: one file per channel, no header, no sidecar")
+    parser.add_argument("--force", action="store_true", help="overwrite an earlier export")
+
+
+def run(args: argparse.Namespace) -> int:
+    from shaper.cli.check_cmd import _spaced
+    from shaper.errors import InputError
+    from shaper.export import reexport
+    from shaper.units import parse_quantity
+
+    if args.bits is not None and not 2 <= args.bits <= 32:
+        raise InputError(f"--bits must be between 2 and 32, got {args.bits}")
+    if args.granularity is not None and args.granularity < 1:
+        raise InputError(f"--granularity must be at least 1, got {args.granularity}")
+    rate = parse_quantity(_spaced(args.sample_rate), "sample rate", key="--sample-rate") \
+        if args.sample_rate else None
+    if_hz = parse_quantity(_spaced(args.if_frequency), "frequency", key="--if") \
+        if args.if_frequency else None
+    report = reexport(args.run, out=args.out, sample_rate_hz=rate, bits=args.bits, if_hz=if_hz,
+                      sideband=args.sideband, granularity=args.granularity,
+                      padding=args.padding, clip=True if args.clip else None, bare=args.bare,
+                      force=args.force)
+    run_fig = report["at_run_rate"]
+    print(f"exported {report['samples']} samples at {report['sample_rate_hz'] / 1e9:g} GS/s "
+          f"({report['resampling']}), {report['dac_bits']}-bit, IF "
+          f"{report['if_frequency_hz'] / 1e6:g} MHz: {', '.join(report['files'])} in {args.out}")
+    print(f"  as played: infidelity {report['infidelity']:.3e}, leakage {report['leakage']:.3e}"
+          f" (the run at its own rate: {run_fig['infidelity']:.3e}, {run_fig['leakage']:.3e})")
+    if report["clipped_samples"]:
+        print(f"  {report['clipped_samples']} sample(s) clipped at full scale")
+    print(f"CAUTION: {report['caution']}")
+    return 0
