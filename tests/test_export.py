@@ -1,0 +1,283 @@
+"""Export, import and check: waveforms a lab can load, and a verdict on any waveform."""
+
+import contextlib
+import io
+import json
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
+
+from shaper.cli.main import main
+from shaper.errors import WaveformError
+from shaper.export import make_waveform, resample, simulate_played
+from shaper.modulation import demodulate, modulate
+from shaper.recipe import load_recipe
+from shaper.run import run
+from shaper.waveform_import import read_any
+from shaper.waveio import read_waveform
+
+ROOT = Path(__file__).parent.parent
+X = np.array([[0, 1], [1, 0]], complex)
+
+
+def cli(*args):
+    """Run the command's entry point in this process; return (code, stdout, stderr)."""
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main([str(a) for a in args])
+    return code, out.getvalue(), err.getvalue()
+
+
+def recipe_file(tmp_path, levels, alpha="-200 MHz", duration="10 ns", rate="2 GS/s",
+                targets=""):
+    path = tmp_path / f"r{levels}.toml"
+    path.write_text(f"""name = "t{levels}"
+[system]
+model = "transmon"
+levels = {levels}
+qubit_frequency = "5 GHz"
+anharmonicity = "{alpha}"
+[gate]
+target = "X"
+[pulse]
+duration = "{duration}"
+sample_rate = "{rate}"
+max_rabi = "200 MHz"
+[optimizer]
+{targets}
+""")
+    return path
+
+
+def gaussian_pi(n, dt):
+    # area 1/2: a pi rotation by Rabi's resonant solution (I. I. Rabi, Phys. Rev. 51, 652 (1937))
+    t = (np.arange(n) + 0.5) * dt
+    sigma = n * dt / 5
+    g = np.exp(-0.5 * ((t - n * dt / 2) / sigma) ** 2)
+    return 0.5 * g / (g.sum() * dt)
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    return run(ROOT / "recipes" / "demo-x180.toml", out=out, plots_too=False)
+
+
+def test_round_trip_within_half_a_dac_step(demo, tmp_path):
+    recipe = load_recipe(ROOT / "recipes" / "demo-x180.toml")
+    for bits in (16, 12):
+        settings = recipe.export.__class__(**{**recipe.export.__dict__, "dac_bits": bits})
+        wave, _ = make_waveform(recipe, demo.result.samples, settings, recipe.sample_rate_hz)
+        from shaper.waveio import write_waveform
+        folder = tmp_path / str(bits)
+        folder.mkdir()
+        write_waveform(folder, "w", wave, recipe.system, recipe_name="x", recipe_sha256="0")
+        back = read_waveform(folder / "w.csv")
+        exact = demo.result.samples / 60e6
+        # half a step of a signed DAC: 0.5 / (2^(bits-1) - 1) (common practice, no source)
+        assert np.max(np.abs(back.fractions - exact)) <= 0.5 / (2 ** (bits - 1) - 1) + 1e-15
+        if bits == 16:
+            change = abs(simulate_played(recipe, back).infidelity - demo.report[
+                "before_quantisation"]["infidelity"])
+            assert change < 1e-8  # 16 bits cost next to nothing on this pulse
+
+
+def test_if_modulation_round_trip_and_spectral_line():
+    rng = np.random.default_rng(0)
+    samples = rng.normal(size=(64, 3))
+    mod = modulate(samples, [[0, 1]], 150e6, 1 / 2.4e9, "lower", start=5)
+    assert np.max(np.abs(demodulate(mod, [[0, 1]], 150e6, 1 / 2.4e9, "lower", start=5)
+                         - samples)) < 1e-14
+    assert np.array_equal(mod[:, 2], samples[:, 2])  # baseband column untouched
+    constant = np.tile([1.0, 0.0, 0.0], (480, 1))
+    z = modulate(constant, [[0, 1]], 100e6, 1 / 2.4e9, "lower")
+    spectrum = np.abs(np.fft.fft(z[:, 0] + 1j * z[:, 1]))
+    freqs = np.fft.fftfreq(480, 1 / 2.4e9)
+    assert freqs[np.argmax(spectrum)] == pytest.approx(100e6)  # lower sideband: +f_IF
+    z = modulate(constant, [[0, 1]], 100e6, 1 / 2.4e9, "upper")
+    assert freqs[np.argmax(np.abs(np.fft.fft(z[:, 0] + 1j * z[:, 1])))] == pytest.approx(-100e6)
+
+
+def test_if_export_figures_match_a_fine_independent_simulation(demo, tmp_path):
+    # What the DAC plays: modulated values held per sample; in the drive frame the envelope
+    # turns at -f_IF within each sample. Reference: scipy expm on 400 sub-steps per sample.
+    code, out, err = cli("export", demo.folder, "--out", tmp_path / "if", "--if", "100MHz")
+    assert code == 0, err
+    report = json.loads((tmp_path / "if" / "export.json").read_text())
+    meta = json.loads((tmp_path / "if" / "demo-x180.json").read_text())
+    assert meta["channels"]["q0"]["if_frequency_hz"] == 100e6
+    data = np.genfromtxt(tmp_path / "if" / "demo-x180.csv", delimiter=",", names=True)
+    z = (data["q0_i"] + 1j * data["q0_q"]) * 60e6
+    dt, steps = 1 / 2.4e9, 400
+    t = (np.arange(len(z) * steps) + 0.5) * dt / steps
+    envelope = np.repeat(z, steps) * np.exp(-2j * np.pi * 100e6 * t)
+    drift, controls = duffing(4, 0.0, -220e6)
+    u = expm_product(drift, controls, np.column_stack([envelope.real, envelope.imag]),
+                     dt / steps)
+    assert abs((1 - pedersen_fidelity(u[:2, :2], X)) - report["infidelity"]) < 1e-9
+    assert abs(subspace_leakage(u, [0, 1]) - report["leakage"]) < 1e-9
+    # holding the modulated value costs fidelity against the baseband run
+    assert report["infidelity"] > 10 * report["at_run_rate"]["infidelity"]
+
+
+def test_resampling_integer_ratio_is_exact_and_box_keeps_area():
+    rng = np.random.default_rng(1)
+    samples = rng.normal(size=(48, 2))
+    held, how = resample(samples, 2.4e9, 4.8e9)
+    assert "exact" in how and np.array_equal(held[::2], samples)
+    box, how = resample(samples, 2.4e9, 1e9)
+    assert box.shape == (20, 2)
+    # the integral over time of the piecewise-constant pulse is unchanged
+    assert np.allclose(box.sum(axis=0) / 1e9, samples.sum(axis=0) / 2.4e9, atol=1e-15)
+
+
+def write_plain(tmp_path, name, samples, full_scale):
+    path = tmp_path / name
+    np.savetxt(path, samples / full_scale, delimiter=",", header="q0_i,q0_q", comments="")
+    return path
+
+
+def test_gaussian_area_rule_on_two_levels(tmp_path):
+    # Rabi's resonant solution: area 1/2 is a pi pulse; on two levels the fidelity > 0.9999
+    dt, n = 0.5e-9, 20
+    g = gaussian_pi(n, dt)
+    path = write_plain(tmp_path, "g.csv", np.column_stack([g, 0 * g]), 200e6)
+    code, out, err = cli("check", recipe_file(tmp_path, 2), path, "--sample-rate", "2GS/s",
+                         "--full-scale", "200MHz", "--json")
+    verdict = json.loads(out)
+    assert verdict["fidelity"] > 0.9999
+    assert abs(verdict["leakage"]) < 1e-12
+
+
+def test_check_leakage_matches_independent_simulation_and_drag_leaks_less(tmp_path):
+    dt, n, alpha = 0.5e-9, 20, -200e6
+    g = gaussian_pi(n, dt)
+    # first-order DRAG, Motzoi et al., Phys. Rev. Lett. 103, 110501 (2009), in these units
+    # (Rabi frequencies in Hz): Q = -(dI/dt) / (2 pi alpha)
+    drag_q = -np.gradient(g, dt) / (2 * np.pi * alpha)
+    leaks = {}
+    recipe = recipe_file(tmp_path, 3)
+    for name, samples in (("gauss", np.column_stack([g, 0 * g])),
+                          ("drag", np.column_stack([g, drag_q]))):
+        path = write_plain(tmp_path, f"{name}.csv", samples, 200e6)
+        code, out, err = cli("check", recipe, path, "--sample-rate", "2GS/s", "--full-scale",
+                             "200MHz", "--json")
+        assert code in (0, 1), err
+        verdict = json.loads(out)
+        drift, controls = duffing(3, 0.0, alpha)
+        quantised = np.genfromtxt(path, delimiter=",", names=True)
+        held = np.column_stack([quantised["q0_i"], quantised["q0_q"]]) * 200e6
+        u = expm_product(drift, controls, held, dt)
+        assert abs(verdict["leakage"] - subspace_leakage(u, [0, 1])) < 1e-9
+        leaks[name] = verdict["leakage"]
+    assert leaks["gauss"] > 1e-4
+    assert leaks["drag"] < leaks["gauss"] / 10
+
+
+def test_check_agrees_with_the_run_report_and_exit_codes(demo, tmp_path):
+    recipe = ROOT / "recipes" / "demo-x180.toml"
+    csv = demo.folder / "demo-x180.csv"
+    code, out, err = cli("check", recipe, csv, "--json")
+    assert code == 0, err
+    verdict = json.loads(out)
+    for key in ("fidelity", "infidelity", "leakage"):
+        assert verdict[key] == pytest.approx(demo.report[key], abs=1e-12)
+    for key in ("populations", "sensitivity", "pass", "frame_after_rad"):
+        assert key in verdict
+    # more levels for a leakage study: still a valid verdict, 6 levels
+    code, out, _ = cli("check", recipe, csv, "--json", "--levels", "6")
+    assert json.loads(out)["levels"] == [6]
+    # a recipe with stricter targets than the pulse reaches: exit 1
+    strict = recipe_file(tmp_path, 4, alpha="-220 MHz", duration="20 ns", rate="2.4 GS/s",
+                         targets="target_infidelity = 1e-12")
+    code, out, err = cli("check", strict, csv, "--json")
+    assert code == 1, err
+
+
+def test_check_command_installed_exit_codes(demo, tmp_path):
+    csv = demo.folder / "demo-x180.csv"
+    proc = subprocess.run(["shaper", "check", str(ROOT / "recipes" / "demo-x180.toml"), str(csv),
+                           "--plots", str(tmp_path / "plots")], capture_output=True, text=True,
+                          timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert "PASS" in proc.stdout
+    assert (tmp_path / "plots" / "sensitivity.png").is_file()
+    assert (tmp_path / "plots" / "spectrum.png").is_file()
+
+
+def test_over_full_scale_is_an_error_and_clip_counts(demo, tmp_path):
+    recipe = load_recipe(ROOT / "recipes" / "demo-x180.toml")
+    loud = demo.result.samples * 1.5
+    with pytest.raises(WaveformError, match=r"exceed full scale \(up to 1\.\d+ of full scale"):
+        make_waveform(recipe, loud, recipe.export, recipe.sample_rate_hz)
+    settings = recipe.export.__class__(**{**recipe.export.__dict__, "clip": True})
+    wave, clipped = make_waveform(recipe, loud, settings, recipe.sample_rate_hz)
+    assert clipped > 0 and np.max(np.abs(wave.fractions)) <= 1.0
+
+
+def test_bare_export_and_granularity(demo, tmp_path):
+    code, out, err = cli("export", demo.folder, "--out", tmp_path / "b", "--bare",
+                         "--granularity", "32", "--padding", "centre")
+    assert code == 0, err
+    numbers = np.loadtxt(tmp_path / "b" / "demo-x180_q0.txt", delimiter=",")
+    assert numbers.shape == (64, 2)  # 48 samples padded to a multiple of 32
+    assert np.all(numbers[:8] == 0) and np.all(numbers[-8:] == 0)
+    report = json.loads((tmp_path / "b" / "export.json").read_text())
+    assert report["infidelity"] < 1e-4  # padding is free evolution on resonance
+
+
+def _bad_files(tmp_path, demo):
+    csv = (demo.folder / "demo-x180.csv").read_text().splitlines()
+    sidecar = json.loads((demo.folder / "demo-x180.json").read_text())
+    cases = {}
+
+    def ours(name, lines, meta=sidecar):
+        folder = tmp_path / name
+        folder.mkdir()
+        (folder / "w.csv").write_text("\n".join(lines) + "\n")
+        (folder / "w.json").write_text(json.dumps(meta))
+        return folder / "w.csv"
+    cases["NaN value"] = (ours("nan", csv[:3] + ["1e-9,nan,0"] + csv[4:]), "NaN or infinite")
+    cases["missing column"] = (ours("col", [",".join(r.split(",")[:2]) for r in csv]),
+                               "lists columns")
+    uneven = csv[:5] + [csv[5].replace(csv[5].split(",")[0], "9.9e-9", 1)] + csv[6:]
+    cases["uneven time steps"] = (ours("uneven", uneven), "uneven")
+    cases["beyond full scale"] = (ours("over", csv[:3] + ["8.333333333333e-10,1.5,0"] + csv[4:]),
+                                  "beyond full scale")
+    cases["empty file"] = (ours("empty", []), "empty")
+    cases["sidecar contradicts"] = (ours("count", csv, {**sidecar, "samples": 7}),
+                                    "says 7 samples")
+    plain = tmp_path / "plain.csv"
+    plain.write_text("q0_i,q0_q\n0.1,0.2\n")
+    cases["plain csv without rate"] = (plain, "does not give its sample rate")
+    npy = tmp_path / "w.npy"
+    np.save(npy, np.zeros((10, 3)))
+    cases["npy of the wrong shape"] = (npy, "expected 2 column")
+    odd = tmp_path / "w.wav"
+    odd.write_text("x")
+    cases["unknown type"] = (odd, "unknown waveform type")
+    cases["missing file"] = (tmp_path / "nope.csv", "no such file")
+    return cases
+
+
+def test_malformed_waveform_files_exit_2(demo, tmp_path):
+    recipe = ROOT / "recipes" / "demo-x180.toml"
+    for label, (path, match) in _bad_files(tmp_path, demo).items():
+        code, out, err = cli("check", recipe, path)
+        assert code == 2, (label, err)
+        assert match in err, (label, err)
+        assert "Traceback" not in err
+
+
+def test_numpy_archives_read(tmp_path):
+    system = load_recipe(ROOT / "recipes" / "demo-x180.toml").system
+    data = np.random.default_rng(2).uniform(-0.5, 0.5, size=(48, 2))
+    np.savez(tmp_path / "w.npz", samples=data, sample_rate_hz=2.4e9, full_scale_hz=60e6)
+    wave = read_any(tmp_path / "w.npz", system)
+    assert np.array_equal(wave.fractions, data) and wave.sample_rate_hz == 2.4e9
+    np.save(tmp_path / "w.npy", data)
+    wave = read_any(tmp_path / "w.npy", system, sample_rate_hz=2.4e9, full_scale_hz=60e6)
+    assert np.allclose(wave.to_hz(system), data * 60e6)
