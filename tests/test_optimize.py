@@ -207,3 +207,13 @@ def test_compilation_cache_is_written(tmp_path):
     subprocess.run(["python", "-c", code], env=env, check=True, timeout=300,
                    capture_output=True)
     assert len(list((tmp_path / "cache").iterdir())) > 0
+
+
+def test_coarser_optimiser_grid_holds_samples():
+    # pulse.hold = 3: the optimiser's slices are 3 AWG samples long; the export repeats them
+    raw = dict(load_recipe(DEMO).raw)
+    raw["pulse"] = {**raw["pulse"], "hold": 3, "zero_ends": False}
+    result = optimize(raw)
+    blocks = result.samples.reshape(16, 3, 2)
+    assert np.array_equal(blocks, np.repeat(blocks[:, :1], 3, axis=1))
+    assert result.best.infidelity < 1e-6

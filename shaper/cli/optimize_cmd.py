@@ -19,7 +19,9 @@ class Progress:
     """A live status line on a terminal (tqdm); a plain line every few iterations otherwise."""
 
     def __init__(self, total: int, stream=sys.stderr):
-        self.stream, self.bar, self.count = stream, None, 0
+        import time
+
+        self.stream, self.bar, self.count, self.start = stream, None, 0, time.monotonic()
         if stream.isatty():
             from tqdm import tqdm
             self.bar = tqdm(total=total, unit="it", file=stream, dynamic_ncols=True,
@@ -33,9 +35,13 @@ class Progress:
             self.bar.n = record["iteration"]
             self.bar.set_postfix_str(text)
             return
+        import time
+
         self.count += 1
         if self.count <= 10 or self.count % 10 == 0:
-            print(f"iteration {record['iteration']:5d} {text}", file=self.stream, flush=True)
+            rate = record["iteration"] / max(time.monotonic() - self.start, 1e-9)
+            print(f"iteration {record['iteration']:5d} ({rate:.0f} it/s) {text}",
+                  file=self.stream, flush=True)
 
     def close(self) -> None:
         if self.bar is not None:
