@@ -32,3 +32,14 @@ def write_text(path: str | Path, text: str) -> None:
 
 def write_json(path: str | Path, obj) -> None:
     write_text(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")
+
+
+def read_json(path: str | Path, error, missing: str):
+    """Parse a JSON file; raise ``error(message)`` naming the file if absent or malformed."""
+    path = Path(path)
+    try:
+        return json.loads(path.read_text())
+    except OSError:
+        raise error(f"{path}: {missing}") from None
+    except json.JSONDecodeError as exc:
+        raise error(f"{path}: not valid JSON: {exc}") from None

@@ -9,7 +9,6 @@ instrument without optimising again.
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import replace
 from pathlib import Path
@@ -111,13 +110,8 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
     """An earlier run: its recipe, pulse samples (Hz, baseband), report and folder."""
     path = Path(path)
     report_path = path / "report.json" if path.is_dir() else path
-    try:
-        report = json.loads(report_path.read_text())
-    except OSError:
-        raise ResultError(f"{report_path}: no report.json here; give a run folder or its "
-                          f"report.json") from None
-    except json.JSONDecodeError as exc:
-        raise ResultError(f"{report_path}: not valid JSON: {exc}") from None
+    report = atomic.read_json(report_path, ResultError,
+                              "no report.json here; give a run folder or its report.json")
     for key in ("recipe", "waveform"):
         if key not in report:
             raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")

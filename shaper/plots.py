@@ -18,6 +18,12 @@ def _pyplot():
     return plt
 
 
+def _finish(fig, path: Path) -> None:
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    _pyplot().close(fig)
+
+
 def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=None) -> None:
     plt = _pyplot()
     fig, ax = plt.subplots(figsize=(8, 3.5))
@@ -31,9 +37,7 @@ def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=N
     ax.set_ylabel("MHz (Rabi frequency; flux: shift)")
     ax.set_title("Drive samples as held by the DAC (dotted: amplitude limit)")
     ax.legend(loc="upper right", fontsize=8)
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    _finish(fig, path)
 
 
 def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
@@ -64,9 +68,7 @@ def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
     ax.set_ylabel("relative power")
     ax.set_title("Pulse spectrum")
     ax.legend(loc="upper right", fontsize=8)
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    _finish(fig, path)
 
 
 def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
@@ -87,9 +89,7 @@ def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
         ax.set_ylim(-0.02, 1.02)
         ax.legend(fontsize=7)
     axes[0, 0].set_ylabel("population")
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    _finish(fig, path)
 
 
 def plot_convergence(path: Path, history: list[dict]) -> None:
@@ -103,9 +103,7 @@ def plot_convergence(path: Path, history: list[dict]) -> None:
     ax.set_xlabel("iteration")
     ax.set_title("Convergence (best so far)")
     ax.legend(fontsize=8)
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    _finish(fig, path)
 
 
 def plot_sensitivity(path: Path, sensitivity: dict) -> None:
@@ -122,6 +120,4 @@ def plot_sensitivity(path: Path, sensitivity: dict) -> None:
         ax.set_ylabel("infidelity")
         ax.grid(True, which="both", alpha=0.3)
     fig.suptitle("Sensitivity")
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    _finish(fig, path)

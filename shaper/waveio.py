@@ -9,7 +9,6 @@ bits. Nothing is clipped silently.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -170,13 +169,8 @@ def read_waveform(csv_path: str | Path) -> Waveform:
     """
     csv_path = Path(csv_path)
     json_path = csv_path.with_suffix(".json")
-    try:
-        meta = json.loads(json_path.read_text())
-    except OSError:
-        raise WaveformError(f"{csv_path}: its sidecar {json_path.name} is missing; it holds "
-                            f"the sample rate and full scale") from None
-    except json.JSONDecodeError as exc:
-        raise WaveformError(f"{json_path}: not valid JSON: {exc}") from None
+    meta = atomic.read_json(json_path, WaveformError, "the waveform's sidecar is missing; it "
+                            "holds the sample rate and full scale")
     try:
         lines = csv_path.read_text().splitlines()
     except OSError as exc:
