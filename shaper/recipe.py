@@ -22,7 +22,7 @@ from shaper.targets import Target
 from shaper.units import parse_quantity
 
 MODELS = ("transmon", "transmons", "matrices")
-METHODS = ("lbfgs", "adam")
+METHODS = ("lbfgs", "adam", "lbfgs-jit")
 PADDING = ("after", "before", "centre")
 
 # allowed keys per section; a nested table's keys are listed under "section.sub"

@@ -20,7 +20,7 @@ from shaper.baselines import textbook_pulses
 from shaper.costs import out_of_band
 from shaper.errors import ResultError
 from shaper.export import make_waveform, simulate_played
-from shaper.optimize import Result, optimize
+from shaper.optimize import Result, optimize, read_history
 from shaper.recipe import Recipe, load_recipe
 from shaper.simulate import Simulation
 
@@ -43,11 +43,19 @@ class RunOutput:
     files: list[Path]
 
 
-def prepare_folder(folder: Path, force: bool) -> None:
+def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
     """Create the run folder; refuse to overwrite an earlier run unless ``force``."""
+    if resume:
+        if not any(folder.glob("checkpoint-*.npz")):
+            raise ResultError(f"{folder}: no checkpoint to resume from (checkpoint-<i>.npz); "
+                              f"start the run without --resume")
+        return
     if (folder / "report.json").exists() and not force:
         raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
                           f"or pass --force to overwrite it")
+    if any(folder.glob("checkpoint-*.npz")) and not force:
+        raise ResultError(f"{folder} holds checkpoints of an unfinished run; pass --resume to "
+                          f"continue it or --force to start again")
     folder.mkdir(parents=True, exist_ok=True)
 
 
@@ -81,8 +89,9 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
         "optimizer": {"method": o.method, "iterations": best.iterations,
                       "evaluations": best.evaluations, "stop_reason": best.stop_reason,
                       "seed": best.seed, "compile_time_s": result.compile_time_s,
-                      "starts": [{"seed": s.seed, "cost": s.cost, "infidelity": s.infidelity,
-                                  "leakage": s.leakage, "iterations": s.iterations,
+                      "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
+                                  "infidelity": s.infidelity, "leakage": s.leakage,
+                                  "iterations": s.iterations,
                                   "stop_reason": s.stop_reason, "wall_time_s": s.wall_time_s}
                                  for s in result.starts]},
         "samples": int(waveform.fractions.shape[0]),
@@ -99,13 +108,25 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
 
 
 def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
-        seed: int | None = None, progress=None, plots_too: bool = True) -> RunOutput:
-    """Optimise, export and report. Writes into ``out`` (default ``results/<name>``)."""
+        seed: int | None = None, progress=None, plots_too: bool = True, resume: bool = False,
+        workers: int = 1, stop=None, log=None, checkpoint_every: int = 100,
+        checkpoint_seconds: float = 60.0) -> RunOutput:
+    """Optimise, export and report. Writes into ``out`` (default ``results/<name>``).
+
+    Checkpoints go into the same folder; ``resume`` continues from them. ``stop`` turns
+    truthy on a signal: the run then writes the best pulse so far and a report with stop
+    reason "interrupted".
+    """
     recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
         recipe_or_path)
     folder = Path(out) if out is not None else Path("results") / recipe.name
-    prepare_folder(folder, force)
-    result = optimize(recipe, seed=seed, progress=progress)
+    prepare_folder(folder, force, resume)
+    if force and not resume:
+        for old in list(folder.glob("checkpoint-*.npz")) + [folder / "history.jsonl"]:
+            old.unlink(missing_ok=True)
+    result = optimize(recipe, seed=seed, progress=progress, folder=folder, resume=resume,
+                      stop=stop, workers=workers, checkpoint_every=checkpoint_every,
+                      checkpoint_seconds=checkpoint_seconds, on_start_done=log)
     waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
                                       recipe.sample_rate_hz)
     exported = simulate_played(recipe, waveform)
@@ -119,7 +140,8 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
     report["textbook_pulses"] = textbook_pulses(recipe, result.objective.layout,
                                                 result.objective.qubits)
     if plots_too:
-        files += write_plots(folder, recipe, waveform, exported, result.history)
+        history = read_history(folder, result.best.index) or result.history
+        files += write_plots(folder, recipe, waveform, exported, history)
     atomic.write_json(folder / "report.json", report)
     files.append(folder / "report.json")
     return RunOutput(result=result, report=report, folder=folder, files=files)

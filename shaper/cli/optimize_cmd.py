@@ -1,9 +1,17 @@
-"""``shaper optimize RECIPE``: optimise, export the waveform, write the report and plots."""
+"""``shaper optimize RECIPE``: optimise, export the waveform, write the report and plots.
+
+Long runs: checkpoints in the run folder, ``--resume`` continues; SIGINT/SIGTERM finish
+the step, save and write the best pulse so far (exit 130/143); ``--starts K`` runs K
+seeded starts on ``--workers`` processes; ``--hours`` and ``--iterations`` are budgets.
+"""
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+import time
+from pathlib import Path
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -12,17 +20,30 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--seed", type=int, help="seed of the first start (overrides the recipe)")
     parser.add_argument("--force", action="store_true",
                         help="overwrite an earlier run in the output folder")
+    parser.add_argument("--resume", action="store_true",
+                        help="continue from the checkpoints in the output folder")
+    parser.add_argument("--starts", type=int, help="independently seeded starts (default: the "
+                                                   "recipe's optimizer.starts)")
+    parser.add_argument("--workers", type=int, default=0,
+                        help="worker processes for the starts (default: one per core, at most "
+                             "one per start; 1: one after another in this process)")
+    parser.add_argument("--hours", type=float, help="wall-clock budget in hours")
+    parser.add_argument("--iterations", type=int, help="iteration budget per start")
+    parser.add_argument("--checkpoint-every", type=int, default=100, metavar="N",
+                        help="checkpoint every N iterations (default 100)")
+    parser.add_argument("--checkpoint-seconds", type=float, default=60.0, metavar="T",
+                        help="and at least every T seconds (default 60)")
+    parser.add_argument("--quiet", action="store_true", help="print only the final summary")
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
 
 
 class Progress:
     """A live status line on a terminal (tqdm); a plain line every few iterations otherwise."""
 
-    def __init__(self, total: int, stream=sys.stderr):
-        import time
-
+    def __init__(self, total: int, stream=sys.stderr, log=None):
         self.stream, self.bar, self.count, self.start = stream, None, 0, time.monotonic()
-        if stream.isatty():
+        self.log = log
+        if stream is not None and stream.isatty():
             from tqdm import tqdm
             self.bar = tqdm(total=total, unit="it", file=stream, dynamic_ncols=True,
                             leave=True)
@@ -31,14 +52,14 @@ class Progress:
         terms = " ".join(f"{k[5:]}={v:.2e}" for k, v in record.items() if k.startswith("cost_"))
         text = (f"infidelity={record['infidelity']:.3e} leakage={record['leakage']:.3e} "
                 f"| {terms}")
+        self.count += 1
+        sparse = self.count <= 10 or self.count % 10 == 0
+        if self.log and sparse:
+            self.log.line(f"iteration {record['iteration']} {text}", echo=False)
         if self.bar is not None:
             self.bar.n = record["iteration"]
             self.bar.set_postfix_str(text)
-            return
-        import time
-
-        self.count += 1
-        if self.count <= 10 or self.count % 10 == 0:
+        elif self.stream is not None and sparse:
             rate = record["iteration"] / max(time.monotonic() - self.start, 1e-9)
             print(f"iteration {record['iteration']:5d} ({rate:.0f} it/s) {text}",
                   file=self.stream, flush=True)
@@ -48,25 +69,76 @@ class Progress:
             self.bar.close()
 
 
+class RunLog:
+    """``run.log`` in the run folder: one timestamped line per event, flushed at once."""
+
+    def __init__(self, path: Path, echo=None):
+        self.path, self.echo = path, echo
+
+    def line(self, text: str, echo: bool = True) -> None:
+        with open(self.path, "a") as handle:
+            handle.write(f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}\n")
+        if echo and self.echo is not None:
+            print(text, file=self.echo, flush=True)
+
+    def __call__(self, start) -> None:  # a start has finished
+        self.line(f"start {start.index} (seed {start.seed}): infidelity {start.infidelity:.3e}, "
+                  f"leakage {start.leakage:.3e}, {start.iterations} iterations, "
+                  f"{start.stop_reason}")
+
+
 def run(args: argparse.Namespace) -> int:
+    from shaper.errors import InputError
     from shaper.recipe import load_recipe
 
+    for name in ("starts", "iterations", "checkpoint_every"):
+        value = getattr(args, name)
+        if value is not None and value < 1:
+            raise InputError(f"--{name.replace('_', '-')} must be at least 1, got {value}")
+    if args.hours is not None and not args.hours > 0:
+        raise InputError(f"--hours must be positive, got {args.hours}")
     recipe = load_recipe(args.recipe)
+    from shaper.interrupt import EXIT_CODES, stop_on_signals
+    from shaper.optimize import with_budget
+    from shaper.run import prepare_folder
     from shaper.run import run as run_job
 
-    progress = Progress(recipe.optimizer.max_iterations)
-    try:
-        output = run_job(recipe, out=args.out, force=args.force, seed=args.seed,
-                         progress=progress, plots_too=not args.no_plots)
-    finally:
-        progress.close()
+    recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
+                         starts=args.starts)
+    starts = recipe.optimizer.starts
+    workers = args.workers or min(starts, os.cpu_count() or 1)
+    folder = Path(args.out) if args.out else Path("results") / recipe.name
+    prepare_folder(folder, args.force, args.resume)
+    log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
+    log.line(f"{'resuming' if args.resume else 'starting'} {recipe.name} from {args.recipe}: "
+             f"{starts} start(s) on {workers if starts > 1 else 1} process(es)")
+    progress = Progress(recipe.optimizer.max_iterations,
+                        stream=None if args.quiet or starts > 1 and workers > 1 else sys.stderr,
+                        log=log)
+    with stop_on_signals() as stop:
+        try:
+            output = run_job(recipe, out=folder, force=args.force, seed=args.seed,
+                             progress=progress, plots_too=not args.no_plots, resume=args.resume,
+                             workers=workers if starts > 1 else 1, stop=stop, log=log,
+                             checkpoint_every=args.checkpoint_every,
+                             checkpoint_seconds=args.checkpoint_seconds)
+        finally:
+            progress.close()
     r = output.report
+    reason = r["optimizer"]["stop_reason"]
+    log.line(f"finished: {reason}; infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e}")
+    if len(r["optimizer"]["starts"]) > 1:
+        print("start  seed  infidelity  leakage     iterations  stop")
+        for s in r["optimizer"]["starts"]:
+            print(f"{s['index']:5d} {s['seed']:5d}  {s['infidelity']:.3e}   {s['leakage']:.3e}"
+                  f"   {s['iterations']:9d}  {s['stop_reason']}")
     print(f"{recipe.name}: infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e} "
           f"(on the exported {r['samples']} samples, {recipe.export.dac_bits}-bit DAC)")
-    print(f"stopped: {r['optimizer']['stop_reason']} after {r['optimizer']['iterations']} "
-          f"iterations; wall time {r['wall_time_s']:.2f} s "
-          f"(compile {r['optimizer']['compile_time_s']:.2f} s)")
+    print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; wall time "
+          f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s)")
     print(f"targets {'met' if r['targets']['met'] else 'NOT met'}; wrote "
           + ", ".join(p.name for p in output.files) + f" in {output.folder}")
     print(f"CAUTION: {r['caution']}")
+    if stop:
+        return EXIT_CODES.get(stop.signal, 130)
     return 0

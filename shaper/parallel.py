@@ -1,0 +1,87 @@
+"""Many starts in worker processes, one JAX process per worker, threads pinned.
+
+Each worker sets its BLAS and XLA thread counts to one before JAX is imported, so that
+two workers on two cores do not fight over them. Workers get the recipe, the seed and
+the start index; start i always uses seed + i, so the results do not depend on the
+number of workers.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from concurrent.futures import ProcessPoolExecutor
+from multiprocessing import get_context
+
+_PINNED = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
+           "XLA_FLAGS": "--xla_cpu_multi_thread_eigen=false intra_op_parallelism_threads=1"}
+
+
+def pin_threads() -> None:
+    """Worker initialiser: one thread per worker (before anything imports JAX)."""
+    os.environ.update(_PINNED)
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides, through the stop file
+
+
+def _worker(raw_recipe, path, index, seed, options):
+    import signal
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)  # likewise
+    from shaper.objective import make_objective
+    from shaper.optimize import run_one
+    from shaper.recipe import load_recipe
+
+    recipe = load_recipe(raw_recipe if path is None else path)
+    from dataclasses import replace
+    recipe = replace(recipe, optimizer=options.pop("optimizer"))
+    objective = make_objective(recipe)
+    stop_file = options.pop("stop_file")
+    options["deadline"] = time.monotonic() + recipe.optimizer.max_time_s
+
+    class FileFlag:
+        def __bool__(self):
+            return stop_file is not None and os.path.exists(stop_file)
+    t = time.monotonic()
+    result = run_one(recipe, objective, index, seed, stop=FileFlag(), **options)
+    result.history = result.history[-200:]
+    return result, time.monotonic() - t
+
+
+def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resume, stop,
+                 checkpoint_every, checkpoint_seconds):
+    """Run every start of ``recipe`` on ``workers`` processes; return (starts, 0.0)."""
+    stop_file = None if folder is None else str(folder / ".stop")
+    if stop_file and os.path.exists(stop_file):
+        os.remove(stop_file)
+    # worker clocks are monotonic per process: hand over the remaining time instead
+    remaining = max(deadline - time.monotonic(), 0.0)
+    from dataclasses import replace
+    optimizer = replace(recipe.optimizer, max_time_s=remaining)
+    results = []
+    context = get_context("spawn")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=context,
+                             initializer=pin_threads) as pool:
+        futures = [pool.submit(_worker, recipe.raw if recipe.path is None else None,
+                               recipe.path, i, seed + i,
+                               dict(folder=folder, resume=resume,
+                                    checkpoint_every=checkpoint_every,
+                                    checkpoint_seconds=checkpoint_seconds,
+                                    optimizer=optimizer, stop_file=stop_file))
+                   for i in range(recipe.optimizer.starts)]
+        pending = set(futures)
+        while pending:
+            if stop and stop_file:  # pass a signal on to the workers
+                open(stop_file, "w").close()
+            done = [f for f in pending if f.done()]
+            for f in done:
+                pending.discard(f)
+                result, _ = f.result()
+                results.append(result)
+                if on_start_done:
+                    on_start_done(result)
+            if pending:
+                time.sleep(0.05)
+    if stop_file and os.path.exists(stop_file):
+        os.remove(stop_file)
+    return sorted(results, key=lambda r: r.index), 0.0
+
