@@ -57,7 +57,7 @@ def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
         def drive(x):
             return held_drive(x, iq_pairs(recipe), wave.if_frequency_hz, period, wave.sideband,
                               steps=steps, start=wave.pulse_start)
-    problem = make_problem(recipe)._replace(dt=jnp.asarray(period / steps))
+    problem = make_problem(recipe, steps=steps)._replace(dt=jnp.asarray(period / steps))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  drive=drive)
     x = jnp.asarray(samples)

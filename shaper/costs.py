@@ -38,6 +38,9 @@ class Problem(NamedTuple):
     number_operators: jax.Array  # (q, d, d) complex128, level number per subsystem
     detunings: jax.Array        # (e, q) float64, Hz: ensemble detuning offsets per qubit
     scales: jax.Array           # (e,) float64: ensemble amplitude scale factors
+    envelope: jax.Array         # (n,) float64 in [0, 1]: fixed factor per AWG sample
+    active: jax.Array           # (m,) float64, 1 or 0: propagator slices that take dt
+    #                             (0: padding to a shared size, an identity slice)
 
 
 class CostTerm(NamedTuple):
@@ -56,7 +59,8 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
     """
     if drive is not None:
         samples = drive(samples)
-    u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, problem.dt,
+    dt = (problem.dt * problem.active)[:, None, None]
+    u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                         method=method))
     return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from typing import Any
 
@@ -12,7 +13,7 @@ import numpy as np
 from shaper import costs
 from shaper.costs import Problem
 from shaper.modulation import held_drive, modulate, substeps
-from shaper.pulses import Layout, make_layout, to_samples
+from shaper.pulses import Layout, make_layout, padded, to_samples
 from shaper.recipe import Recipe
 
 
@@ -31,9 +32,32 @@ class Objective:
     value_and_grad: Any
     loss: Any
     qubits: int
+    traces: list  # one entry per trace of the loss: how often it was (re)compiled
+
+    def for_recipe(self, recipe: Recipe) -> Objective:
+        """This objective (same compiled code) on a recipe that differs only in duration.
+
+        The recipe's samples must fit this objective's padded size.
+        """
+        layout = padded(recipe_layout(recipe), self.layout.samples)
+        return dataclasses.replace(self, layout=layout,
+                                   problem=make_problem(recipe, layout, real=recipe.samples))
 
 
-def make_problem(recipe: Recipe) -> Problem:
+def recipe_layout(recipe: Recipe) -> Layout:
+    return make_layout(recipe.system, recipe.limits_hz, recipe.samples, hold=recipe.hold,
+                       zero_ends=recipe.zero_ends, ramp_samples=recipe.ramp_samples)
+
+
+def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | None = None,
+                 steps: int = 1) -> Problem:
+    """The recipe's arrays; with a padded ``layout``, slices past ``real`` samples are identities.
+
+    ``steps`` > 1: the propagator runs on that many sub-steps per sample (IF exports).
+    """
+    layout = layout or recipe_layout(recipe)
+    real = layout.samples if real is None else real
+    active = np.repeat((np.arange(layout.samples) < real).astype(float), steps)
     s, t = recipe.system, recipe.target
     dc = len(s.computational)
     zeros_vec = np.zeros(dc, complex)
@@ -45,19 +69,26 @@ def make_problem(recipe: Recipe) -> Problem:
         final=jnp.asarray(zeros_vec if t.is_gate else t.final),
         number_operators=jnp.asarray(s.number_operators),
         detunings=jnp.asarray(recipe.ensemble_detunings_hz, dtype=jnp.float64),
-        scales=jnp.asarray(recipe.ensemble_scales, dtype=jnp.float64))
+        scales=jnp.asarray(recipe.ensemble_scales, dtype=jnp.float64),
+        envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active))
 
 
 def qubit_count(recipe: Recipe) -> int:
     return max(1, int(round(np.log2(len(recipe.system.computational)))))
 
 
-def make_objective(recipe: Recipe) -> Objective:
-    """Build the terms the recipe asks for and jit their weighted sum's value and gradient."""
-    layout = make_layout(recipe.system, recipe.limits_hz, recipe.samples, hold=recipe.hold,
-                         zero_ends=recipe.zero_ends, ramp_samples=recipe.ramp_samples)
+def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
+    """Build the terms the recipe asks for and jit their weighted sum's value and gradient.
+
+    ``pad_to`` (AWG samples): pad the slice count to this shared size with identity slices,
+    so that recipes differing only in duration reuse the compiled code
+    (:meth:`Objective.for_recipe`). Not with an IF export.
+    """
+    layout = recipe_layout(recipe)
+    if pad_to is not None and not recipe.export.if_frequency_hz:
+        layout = padded(layout, pad_to)
     qubits = qubit_count(recipe)
-    problem = make_problem(recipe)
+    problem = make_problem(recipe, layout, real=recipe.samples)
     drive = None
     if recipe.export.if_frequency_hz:
         # optimise what the instrument plays: held IF-modulated samples, on sub-steps
@@ -68,7 +99,7 @@ def make_objective(recipe: Recipe) -> Objective:
         def drive(samples):
             return held_drive(modulate(samples, pairs, f_if, dt, side), pairs, f_if, dt, side,
                               steps=steps)
-        problem = problem._replace(dt=jnp.asarray(dt / steps))
+        problem = make_problem(recipe, layout, steps=steps)._replace(dt=jnp.asarray(dt / steps))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  method=recipe.optimizer.propagator, drive=drive)
     w = recipe.weights
@@ -89,8 +120,11 @@ def make_objective(recipe: Recipe) -> Objective:
     names = tuple(t.name for t in terms)
     total = costs.combine(terms)
 
+    traces = []
+
     def loss(params, problem, weights):
-        samples = to_samples(params, layout)
+        traces.append(params.shape)  # runs at trace time only
+        samples = to_samples(params, layout, problem.envelope)
         figures = costs.evaluate(samples, problem, **flags)
         value, parts = total(samples, problem, figures, weights)
         return value, (parts, figures)
@@ -98,4 +132,4 @@ def make_objective(recipe: Recipe) -> Objective:
     vg = jax.jit(jax.value_and_grad(loss, has_aux=True))
     weights = np.array([w[n] for n in names], float)
     return Objective(problem=problem, layout=layout, names=names, weights=weights,
-                     value_and_grad=vg, loss=loss, qubits=qubits)
+                     value_and_grad=vg, loss=loss, qubits=qubits, traces=traces)

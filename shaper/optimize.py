@@ -20,7 +20,7 @@ import numpy as np
 from shaper import checkpoint
 from shaper.errors import ResultError
 from shaper.loops import Session, StartResult, run_start
-from shaper.objective import Objective, make_objective
+from shaper.objective import Objective, make_objective, recipe_layout
 from shaper.pulses import first_guess, rotation_area, to_params, to_samples
 from shaper.recipe import Recipe, load_recipe
 
@@ -58,7 +58,7 @@ def initial_samples(recipe: Recipe, objective: Objective, rng: np.random.Generat
         from shaper.waveio import read_waveform_for
         return read_waveform_for(kind, recipe)
     axis = "y" if recipe.target.label.upper().startswith("Y") else "x"
-    samples = first_guess(kind, recipe.system, objective.layout, recipe.dt,
+    samples = first_guess(kind, recipe.system, recipe_layout(recipe), recipe.dt,
                           area=rotation_area(recipe.target.label), rng=rng,
                           drag_scale=recipe.optimizer.drag_scale, axis=axis)
     return np.asarray(samples)
@@ -67,7 +67,10 @@ def initial_samples(recipe: Recipe, objective: Objective, rng: np.random.Generat
 def start_point(recipe: Recipe, objective: Objective, seed: int, index: int) -> np.ndarray:
     """Parameters of start ``index``: the first guess, perturbed for every start after the first."""
     rng = np.random.default_rng(seed)
-    x0 = to_params(initial_samples(recipe, objective, rng), objective.layout)
+    guess = initial_samples(recipe, objective, rng)
+    guess = np.concatenate([guess, np.zeros((objective.layout.samples - guess.shape[0],
+                                             guess.shape[1]))])
+    x0 = to_params(guess, objective.layout)
     if index > 0:
         x0 = x0 + rng.normal(scale=0.1, size=x0.shape)
     return x0
@@ -171,7 +174,8 @@ def optimize(recipe_or_path, *, seed: int | None = None,
             if start.stop_reason == "interrupted" or time.monotonic() > deadline:
                 break
     best = min(starts, key=lambda s: s.cost)
-    samples = np.asarray(to_samples(jnp.asarray(best.params), objective.layout))
+    samples = np.asarray(to_samples(jnp.asarray(best.params), objective.layout,
+                                    objective.problem.envelope))[:recipe.samples]
     if folder is not None:
         from shaper import atomic
         atomic.write_json(folder / "starts.json", [

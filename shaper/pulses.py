@@ -11,6 +11,7 @@ grid (each value held for ``hold`` AWG samples). They become samples in Hz by
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import jax
@@ -90,6 +91,14 @@ def make_layout(system: System, limits_hz: dict[str, float], samples: int, *, ho
                   len(system.control_names))
 
 
+def padded(layout: Layout, samples: int) -> Layout:
+    """The layout with its envelope zero-padded to ``samples`` (a shared size)."""
+    if samples < layout.samples or samples % layout.hold:
+        raise InputError(f"cannot pad {layout.samples} samples to {samples}")
+    envelope = np.concatenate([layout.envelope, np.zeros(samples - layout.samples)])
+    return dataclasses.replace(layout, envelope=envelope)
+
+
 def _tanh_over_r(r2: jax.Array) -> jax.Array:
     # tanh(r)/r, safe at r = 0 (value 1, gradient finite): the double-where pattern
     small = r2 < 1e-12
@@ -97,8 +106,12 @@ def _tanh_over_r(r2: jax.Array) -> jax.Array:
     return jnp.where(small, 1.0 - r2 / 3.0, jnp.tanh(r) / r)
 
 
-def to_samples(params: jax.Array, layout: Layout) -> jax.Array:
-    """Parameters ``(m, k)`` -> samples ``(m * hold, k)`` in Hz, within the limits."""
+def to_samples(params: jax.Array, layout: Layout, envelope=None) -> jax.Array:
+    """Parameters ``(m, k)`` -> samples ``(m * hold, k)`` in Hz, within the limits.
+
+    ``envelope`` (an array argument, so that it can change without recompiling) replaces
+    ``layout.envelope``.
+    """
     out = jnp.zeros_like(params)
     if len(layout.iq_columns):
         xy = params[:, layout.iq_columns]  # (m, p, 2)
@@ -107,7 +120,8 @@ def to_samples(params: jax.Array, layout: Layout) -> jax.Array:
     if len(layout.baseband_columns):
         u = jnp.tanh(params[:, layout.baseband_columns]) * layout.baseband_limits_hz
         out = out.at[:, layout.baseband_columns].set(u)
-    return jnp.repeat(out, layout.hold, axis=0) * layout.envelope[:, None]
+    envelope = layout.envelope if envelope is None else envelope
+    return jnp.repeat(out, layout.hold, axis=0) * envelope[:, None]
 
 
 def to_params(samples: np.ndarray, layout: Layout, *, headroom: float = 0.98) -> np.ndarray:

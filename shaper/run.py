@@ -20,6 +20,7 @@ from shaper.baselines import textbook_pulses
 from shaper.costs import out_of_band
 from shaper.errors import ResultError
 from shaper.export import make_waveform, simulate_played
+from shaper.objective import recipe_layout
 from shaper.optimize import Result, optimize, read_history
 from shaper.recipe import Recipe, load_recipe
 from shaper.simulate import Simulation
@@ -63,7 +64,7 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
                  waveform: waveio.Waveform, clipped: int, csv_name: str) -> dict:
     recipe, best, o = result.recipe, result.best, result.recipe.optimizer
     samples_hz = waveform.to_hz(recipe.system)
-    layout = result.objective.layout
+    layout = recipe_layout(recipe)
     band = None
     if recipe.bandwidth_hz:
         band = float(out_of_band(samples_hz, recipe.dt, recipe.bandwidth_hz, layout.iq_columns,
@@ -137,7 +138,7 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
     files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     report = build_report(result, exported, internal, waveform, clipped, files[0].name)
-    report["textbook_pulses"] = textbook_pulses(recipe, result.objective.layout,
+    report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
                                                 result.objective.qubits)
     if plots_too:
         history = read_history(folder, result.best.index) or result.history
