@@ -121,3 +121,20 @@ def plot_sensitivity(path: Path, sensitivity: dict) -> None:
         ax.grid(True, which="both", alpha=0.3)
     fig.suptitle("Sensitivity")
     _finish(fig, path)
+
+
+def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=None) -> None:
+    """Best infidelity and leakage vs duration, with the targets and the chosen duration."""
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(7, 3.8))
+    t = [p.duration_s * 1e9 for p in points]
+    ax.semilogy(t, [max(p.infidelity, 1e-16) for p in points], "o-", label="infidelity")
+    ax.semilogy(t, [max(p.leakage, 1e-16) for p in points], "s--", label="leakage")
+    ax.axhline(targets[0], color="C0", linestyle=":", linewidth=0.9, label="target infidelity")
+    ax.axhline(targets[1], color="C1", linestyle=":", linewidth=0.9, label="target leakage")
+    if chosen_s:
+        ax.axvline(chosen_s * 1e9, color="green", linewidth=0.9, label="shortest passing")
+    ax.set_xlabel("duration (ns)")
+    ax.set_title("Best result per duration")
+    ax.legend(fontsize=8)
+    _finish(fig, path)

@@ -128,6 +128,13 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
     result = optimize(recipe, seed=seed, progress=progress, folder=folder, resume=resume,
                       stop=stop, workers=workers, checkpoint_every=checkpoint_every,
                       checkpoint_seconds=checkpoint_seconds, on_start_done=log)
+    return finish(result, folder, plots_too=plots_too)
+
+
+def finish(result: Result, folder: Path, *, plots_too: bool = True) -> RunOutput:
+    """Export the result's samples, re-check what the AWG plays, write report and plots."""
+    recipe = result.recipe
+    folder.mkdir(parents=True, exist_ok=True)
     waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
                                       recipe.sample_rate_hz)
     exported = simulate_played(recipe, waveform)
