@@ -46,7 +46,7 @@ def previous(path: Path) -> Path:
 
 
 def _read(path: Path) -> tuple[dict[str, np.ndarray], dict]:
-    with np.load(path, allow_pickle=False) as data:
+    with open(path, "rb") as handle, np.load(handle, allow_pickle=False) as data:
         arrays = {k: data[k] for k in data.files if not k.startswith("__")}
         text, checksum = str(data["__meta__"]), str(data["__checksum__"])
     if _digest(arrays, text) != checksum:
