@@ -29,7 +29,7 @@ class RecipeError(ShaperError):
         self.path = path
         self.key = key
         self.detail = message
-        where = path or "<recipe>"
+        where = path or ("command line" if key and key.startswith("--") else "<recipe>")
         if key:
             where += f": {key}"
         super().__init__(f"{where}: {message}")

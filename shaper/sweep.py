@@ -11,7 +11,6 @@ sweep does not redo finished durations.
 from __future__ import annotations
 
 import copy
-import re
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -35,8 +34,7 @@ def parse_durations(text: str) -> list[float]:
         InputError: malformed, non-positive, or more than 500 points.
     """
     def one(part):
-        part = re.sub(r"^([-+0-9.eE]+)([A-Za-zµ].*)$", r"\1 \2", part.strip())
-        return parse_quantity(part, "time", key="--durations")
+        return parse_quantity(part.strip(), "time", key="--durations")
     if ":" in text:
         pieces = text.split(":")
         if len(pieces) != 3:

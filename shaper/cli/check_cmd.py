@@ -32,11 +32,11 @@ def run(args: argparse.Namespace) -> int:
     from shaper.waveform_import import read_any
 
     recipe = load_recipe(args.recipe)
-    rate = parse_quantity(_spaced(args.sample_rate), "sample rate", key="--sample-rate") \
+    rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
         if args.sample_rate else None
-    scale = parse_quantity(_spaced(args.full_scale), "frequency", key="--full-scale") \
+    scale = parse_quantity(args.full_scale, "frequency", key="--full-scale") \
         if args.full_scale else None
-    span = parse_quantity(_spaced(args.detuning_span), "frequency", key="--detuning-span")
+    span = parse_quantity(args.detuning_span, "frequency", key="--detuning-span")
     system = recipe.system
     wave = read_any(args.waveform, system, sample_rate_hz=rate, full_scale_hz=scale)
     verdict, curves = check_waveform(recipe, wave, levels=args.levels, detuning_span_hz=span,
@@ -50,12 +50,6 @@ def run(args: argparse.Namespace) -> int:
     else:
         _print_summary(verdict)
     return 0 if verdict["pass"] else 1
-
-
-def _spaced(text: str) -> str:
-    # accept "60MHz" as well as "60 MHz" on the command line
-    import re
-    return re.sub(r"^([-+0-9.eE]+)([A-Za-zµ].*)$", r"\1 \2", text.strip())
 
 
 def _print_summary(v: dict) -> None:

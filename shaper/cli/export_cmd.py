@@ -26,7 +26,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.cli.check_cmd import _spaced
     from shaper.errors import InputError
     from shaper.export import reexport
     from shaper.units import parse_quantity
@@ -35,9 +34,9 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--bits must be between 2 and 32, got {args.bits}")
     if args.granularity is not None and args.granularity < 1:
         raise InputError(f"--granularity must be at least 1, got {args.granularity}")
-    rate = parse_quantity(_spaced(args.sample_rate), "sample rate", key="--sample-rate") \
+    rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
         if args.sample_rate else None
-    if_hz = parse_quantity(_spaced(args.if_frequency), "frequency", key="--if") \
+    if_hz = parse_quantity(args.if_frequency, "frequency", key="--if") \
         if args.if_frequency else None
     report = reexport(args.run, out=args.out, sample_rate_hz=rate, bits=args.bits, if_hz=if_hz,
                       sideband=args.sideband, granularity=args.granularity,
