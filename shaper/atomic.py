@@ -16,6 +16,7 @@ def write_bytes(path: str | Path, data: bytes) -> None:
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions
         with os.fdopen(fd, "wb") as handle:
             handle.write(data)
             handle.flush()
@@ -24,6 +25,12 @@ def write_bytes(path: str | Path, data: bytes) -> None:
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_text(path: str | Path, text: str) -> None:
