@@ -55,8 +55,8 @@ def initial_samples(recipe: Recipe, objective: Objective, rng: np.random.Generat
     """The recipe's first guess, in Hz, on the AWG grid."""
     kind = recipe.optimizer.initial
     if kind.endswith((".csv", ".npy", ".npz")):
-        from shaper.waveio import read_waveform_for
-        return read_waveform_for(kind, recipe)
+        from shaper.waveform_import import read_first_guess
+        return read_first_guess(kind, recipe)
     axis = "y" if recipe.target.label.upper().startswith("Y") else "x"
     samples = first_guess(kind, recipe.system, recipe_layout(recipe), recipe.dt,
                           area=rotation_area(recipe.target.label), rng=rng,

@@ -150,3 +150,35 @@ def _read_plain_csv(path: Path, system: System):
     if names and names[0] == "time_s":
         times, data, names = data[:, 0], data[:, 1:], names[1:]
     return names, data, times
+
+
+def read_first_guess(path: str, recipe) -> np.ndarray:
+    """A waveform file as baseband samples in Hz on the recipe's grid (a first guess).
+
+    A relative path is looked up beside the recipe first, then in the working folder. Files
+    without a sidecar are read with the recipe's sample rate and full scale.
+
+    Raises:
+        WaveformError: the file's columns, sample rate or length do not fit the recipe.
+    """
+    candidate = Path(path)
+    if not candidate.is_absolute() and recipe.path:
+        beside = Path(recipe.path).parent / candidate
+        candidate = beside if beside.exists() else candidate
+    system = recipe.system
+    wave = read_any(candidate, system, sample_rate_hz=recipe.sample_rate_hz,
+                    full_scale_hz=dict(recipe.export.full_scale_hz))
+    if abs(wave.sample_rate_hz - recipe.sample_rate_hz) > 1e-9 * recipe.sample_rate_hz:
+        raise WaveformError(f"{candidate}: sample rate {wave.sample_rate_hz} Hz, the recipe's "
+                            f"is {recipe.sample_rate_hz} Hz")
+    samples = wave.to_hz(system)
+    if wave.if_frequency_hz:
+        from shaper.export import iq_pairs
+        from shaper.modulation import demodulate
+        samples = demodulate(samples, iq_pairs(recipe), wave.if_frequency_hz,
+                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
+    samples = samples[wave.pulse_start:wave.pulse_start + recipe.samples]
+    if samples.shape[0] != recipe.samples:
+        raise WaveformError(f"{candidate}: {samples.shape[0]} pulse samples, the recipe needs "
+                            f"{recipe.samples}")
+    return samples

@@ -220,24 +220,3 @@ def read_waveform(csv_path: str | Path) -> Waveform:
                     bits=bits.pop() if len(bits) == 1 else None,
                     if_frequency_hz=ifs.pop() if ifs else 0.0,
                     sideband=sidebands.pop() if sidebands else "lower")
-
-
-def read_waveform_for(path: str, recipe) -> np.ndarray:
-    """A waveform file as samples in Hz on the recipe's grid (a first guess).
-
-    Raises:
-        WaveformError: the file's columns, sample rate or length do not fit the recipe.
-    """
-    wave = read_waveform(path)
-    system = recipe.system
-    if wave.column_names != system.control_names:
-        raise WaveformError(f"{path}: columns {list(wave.column_names)} do not match the "
-                            f"recipe's controls {list(system.control_names)}")
-    if abs(wave.sample_rate_hz - recipe.sample_rate_hz) > 1e-9 * recipe.sample_rate_hz:
-        raise WaveformError(f"{path}: sample rate {wave.sample_rate_hz} Hz, the recipe's is "
-                            f"{recipe.sample_rate_hz} Hz")
-    samples = wave.to_hz(system)[wave.pulse_start:wave.pulse_start + recipe.samples]
-    if samples.shape[0] != recipe.samples:
-        raise WaveformError(f"{path}: {samples.shape[0]} pulse samples, the recipe needs "
-                            f"{recipe.samples}")
-    return samples

@@ -217,3 +217,19 @@ def test_coarser_optimiser_grid_holds_samples():
     blocks = result.samples.reshape(16, 3, 2)
     assert np.array_equal(blocks, np.repeat(blocks[:, :1], 3, axis=1))
     assert result.best.infidelity < 1e-6
+
+
+def test_first_guess_from_a_numpy_file(tmp_path):
+    # a .npy of fractions of full scale (60 MHz) written by the test: the Gaussian area rule
+    # (area 1/2 is a pi pulse, Rabi's resonant solution) gives a start the optimiser finishes
+    t = (np.arange(48) + 0.5) / 2.4e9
+    g = np.exp(-0.5 * ((t - 10e-9) / 4e-9) ** 2)
+    g = 0.5 * g / (g.sum() / 2.4e9)
+    np.save(tmp_path / "guess.npy", np.column_stack([g, 0 * g]) / 60e6)
+    raw = dict(load_recipe(DEMO).raw)
+    raw["optimizer"] = {"initial": str(tmp_path / "guess.npy")}
+    result = optimize(raw)
+    assert result.best.infidelity < 1e-6
+    raw["optimizer"] = {"initial": str(tmp_path / "missing.npy")}
+    with pytest.raises(shaper.WaveformError, match="no such file"):
+        optimize(raw)
