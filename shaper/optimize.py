@@ -114,6 +114,15 @@ def run_one(recipe: Recipe, objective: Objective, index: int, seed: int, *, dead
     return run_start(session, np.asarray(x0), state)
 
 
+def compile_now(objective: Objective) -> float:
+    """Compile the value and gradient once, outside the loops' clocks; return the seconds."""
+    c0 = time.monotonic()
+    probe = jnp.zeros((objective.layout.slices, objective.layout.controls))
+    jax.block_until_ready(objective.value_and_grad(probe, objective.problem,
+                                                   jnp.asarray(objective.weights)))
+    return time.monotonic() - c0
+
+
 def with_budget(recipe: Recipe, *, iterations: int | None = None,
                 hours: float | None = None, starts: int | None = None) -> Recipe:
     """The recipe with the command line's budgets in place of its own."""
@@ -137,7 +146,9 @@ def optimize(recipe_or_path, *, seed: int | None = None,
         folder: where checkpoints (``checkpoint-<i>.npz``) and ``history.jsonl`` go;
             None: no checkpoints.
         resume: continue from the checkpoints in ``folder``; finished starts are not redone.
-        stop: an object that turns truthy when the run should stop (a signal).
+        stop: an object that turns truthy when the run should stop (a signal); with
+            ``workers > 1`` it reaches the workers through a file in ``folder``, so it
+            needs a folder there.
         workers: > 1 runs the starts in that many worker processes.
         on_start_done: called with each finished :class:`StartResult`.
 
@@ -160,11 +171,7 @@ def optimize(recipe_or_path, *, seed: int | None = None,
         from shaper.parallel import run_parallel
         starts, compile_time = run_parallel(recipe, seed, workers, on_start_done, **options)
     else:
-        c0 = time.monotonic()  # compile once, outside the loops' clocks
-        probe = jnp.zeros((objective.layout.slices, objective.layout.controls))
-        jax.block_until_ready(objective.value_and_grad(probe, objective.problem,
-                                                       jnp.asarray(objective.weights)))
-        compile_time = time.monotonic() - c0
+        compile_time = compile_now(objective)
         starts = []
         for i in range(o.starts):
             start = run_one(recipe, objective, i, seed + i, progress=progress, **options)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import os
 import time
 from concurrent.futures import ProcessPoolExecutor
+from dataclasses import replace
 from multiprocessing import get_context
 
 _PINNED = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
@@ -28,36 +29,38 @@ def _worker(raw_recipe, path, index, seed, options):
     import signal
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # likewise
     from shaper.objective import make_objective
-    from shaper.optimize import run_one
+    from shaper.optimize import compile_now, run_one
     from shaper.recipe import load_recipe
 
     recipe = load_recipe(raw_recipe if path is None else path)
-    from dataclasses import replace
     recipe = replace(recipe, optimizer=options.pop("optimizer"))
     objective = make_objective(recipe)
+    compile_time = compile_now(objective)
     stop_file = options.pop("stop_file")
     options["deadline"] = time.monotonic() + recipe.optimizer.max_time_s
 
     class FileFlag:
         def __bool__(self):
             return stop_file is not None and os.path.exists(stop_file)
-    t = time.monotonic()
     result = run_one(recipe, objective, index, seed, stop=FileFlag(), **options)
     result.history = result.history[-200:]
-    return result, time.monotonic() - t
+    return result, compile_time
 
 
 def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resume, stop,
                  checkpoint_every, checkpoint_seconds):
-    """Run every start of ``recipe`` on ``workers`` processes; return (starts, 0.0)."""
+    """Run every start of ``recipe`` on ``workers`` processes.
+
+    Returns:
+        (starts in index order, the longest compile time of a worker in seconds).
+    """
     stop_file = None if folder is None else str(folder / ".stop")
     if stop_file and os.path.exists(stop_file):
         os.remove(stop_file)
     # worker clocks are monotonic per process: hand over the remaining time instead
     remaining = max(deadline - time.monotonic(), 0.0)
-    from dataclasses import replace
     optimizer = replace(recipe.optimizer, max_time_s=remaining)
-    results = []
+    results, compile_time = [], 0.0
     context = get_context("spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=context,
                              initializer=pin_threads) as pool:
@@ -75,13 +78,14 @@ def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resu
             done = [f for f in pending if f.done()]
             for f in done:
                 pending.discard(f)
-                result, _ = f.result()
+                result, seconds = f.result()
                 results.append(result)
+                compile_time = max(compile_time, seconds)
                 if on_start_done:
                     on_start_done(result)
             if pending:
                 time.sleep(0.05)
     if stop_file and os.path.exists(stop_file):
         os.remove(stop_file)
-    return sorted(results, key=lambda r: r.index), 0.0
+    return sorted(results, key=lambda r: r.index), compile_time
 

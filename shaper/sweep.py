@@ -61,8 +61,7 @@ def bucket(samples: int, hold: int) -> int:
 def recipe_at(recipe: Recipe, samples: int) -> Recipe:
     raw = copy.deepcopy(recipe.raw)
     raw["pulse"]["duration"] = samples / recipe.sample_rate_hz
-    out = load_recipe(raw)
-    return out
+    return load_recipe(raw)
 
 
 def stretch(samples_hz: np.ndarray, n: int) -> np.ndarray:
