@@ -1,6 +1,6 @@
 """Cost terms: small factories of pure functions, summed with weights by :func:`combine`.
 
-Each factory returns a :class:`CostTerm`, whose ``value(samples, problem, figures)``
+Each factory returns a :class:`CostTerm`, whose ``value(samples, problem, scores)``
 is a real scalar (unweighted). :func:`combine` sums ``weight * value`` over terms
 and returns the parts beside the total, ready for
 ``jax.value_and_grad(..., has_aux=True)``. Weights are an array argument, so changing
@@ -36,18 +36,27 @@ class Problem(NamedTuple):
     initial: jax.Array          # (d_c,) complex128 initial state of a transfer (else zeros)
     final: jax.Array            # (d_c,) complex128 final state of a transfer (else zeros)
     number_operators: jax.Array  # (q, d, d) complex128, level number per subsystem
-    detunings: jax.Array        # (e, q) float64, Hz: ensemble detuning offsets per qubit
-    scales: jax.Array           # (e,) float64: ensemble amplitude scale factors
+    detunings: jax.Array        # (m, q) float64, Hz: detuning offset of each member per qubit
+    scales: jax.Array           # (m,) float64: amplitude scale factor of each member
+    #                             member 0 is the nominal system (0 Hz, 1.0); members 1..m-1
+    #                             are the robustness ensemble, if the recipe has one
     envelope: jax.Array         # (n,) float64 in [0, 1]: fixed factor per AWG sample
     active: jax.Array           # (m,) float64, 1 or 0: propagator slices that take dt
     #                             (0: padding to a shared size, an identity slice)
 
 
+class Evaluation(NamedTuple):
+    """The figures of every member of a problem, from one batched propagation."""
+
+    nominal: Figures  # member 0: the system as the recipe gives it
+    members: Figures  # every member, each field with a leading (m,) axis (row 0 = nominal)
+
+
 class CostTerm(NamedTuple):
-    """A named cost: ``value(samples (n, k) Hz, problem, figures) -> ()`` real."""
+    """A named cost: ``value(samples (n, k) Hz, problem, evaluation) -> ()`` real."""
 
     name: str
-    value: Callable[[jax.Array, Problem, Figures], jax.Array]
+    value: Callable[[jax.Array, Problem, Evaluation], jax.Array]
 
 
 def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
@@ -65,6 +74,26 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
     return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
 
 
+def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
+                     virtual_z: bool, method: str = "eigh",
+                     drive: Callable | None = None) -> Evaluation:
+    """Figures of the nominal system and of every ensemble member, in ONE batched propagation.
+
+    Member m sees ``drift + sum_q detunings[m, q] n_q`` and the samples times ``scales[m]``.
+    Batching all members with ``jax.vmap`` is not only cheaper than separate calls: it
+    keeps every compiled objective to a single batched eigendecomposition, which is what
+    avoids the LAPACK thread-pool deadlock described in DEVELOPERS.md ("One
+    eigendecomposition per program").
+    """
+    def one(detuning, scale):
+        drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
+        return evaluate(samples * scale, problem._replace(drift=drift), qubits=qubits,
+                        is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive)
+
+    members = jax.vmap(one)(problem.detunings, problem.scales)
+    return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], members), members=members)
+
+
 def figures_of(u: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
                virtual_z: bool) -> Figures:
     if is_gate:
@@ -75,12 +104,13 @@ def figures_of(u: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
 
 def infidelity() -> CostTerm:
     """``1 - F``: the average gate infidelity (it includes leakage), or ``1 - |<f|U|i>|^2``."""
-    return CostTerm("infidelity", lambda samples, problem, figures: 1.0 - figures.fidelity)
+    return CostTerm("infidelity",
+                    lambda samples, problem, scores: 1.0 - scores.nominal.fidelity)
 
 
 def leakage() -> CostTerm:
     """The population leaving the computational subspace, as an extra weighted term."""
-    return CostTerm("leakage", lambda samples, problem, figures: figures.leakage)
+    return CostTerm("leakage", lambda samples, problem, scores: scores.nominal.leakage)
 
 
 def out_of_band(samples: jax.Array, dt: jax.Array, cutoff_hz: float,
@@ -112,7 +142,7 @@ def bandwidth(cutoff_hz: float, iq_columns: Sequence, baseband_columns: Sequence
     iq, bb = np.asarray(iq_columns, int).reshape(-1, 2), np.asarray(baseband_columns, int)
     if not cutoff_hz > 0:
         raise InputError(f"the bandwidth cutoff must be positive, got {cutoff_hz} Hz")
-    return CostTerm("bandwidth", lambda samples, problem, figures: out_of_band(
+    return CostTerm("bandwidth", lambda samples, problem, scores: out_of_band(
         samples, problem.dt if sample_period_s is None else sample_period_s, cutoff_hz, iq, bb))
 
 
@@ -121,7 +151,7 @@ def smoothness(limits_hz: Sequence[float]) -> CostTerm:
     scale = np.asarray(limits_hz, float)
     scale = np.where(scale > 0, scale, 1.0)
 
-    def value(samples, problem, figures):
+    def value(samples, problem, scores):
         steps = jnp.diff(samples / scale, axis=0)
         return jnp.mean(jnp.sum(steps ** 2, axis=-1))
     return CostTerm("smoothness", value)
@@ -133,28 +163,19 @@ def amplitude_limit(limits_hz: Sequence[float]) -> CostTerm:
     if np.any(limits <= 0):
         raise InputError(f"amplitude limits must be positive, got {limits.tolist()}")
 
-    def value(samples, problem, figures):
+    def value(samples, problem, scores):
         return jnp.mean(jax.nn.relu(jnp.abs(samples) / limits - 1.0) ** 2)
     return CostTerm("amplitude", value)
 
 
-def robustness(*, qubits: int, is_gate: bool, virtual_z: bool, method: str = "eigh",
-               drive: Callable | None = None) -> CostTerm:
-    """Mean infidelity over the problem's ensemble of detuning offsets and amplitude scales.
+def robustness() -> CostTerm:
+    """Mean infidelity over the ensemble members (members 1..m-1 of the problem).
 
-    Member m sees ``drift + sum_q detunings[m, q] n_q`` and samples times ``scales[m]``;
-    the ensemble is batched with ``jax.vmap``.
+    The members are propagated together with the nominal system
+    (:func:`evaluate_members`), so this term adds no propagation of its own.
     """
-    def one(detuning, scale, samples, problem):
-        drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
-        member = problem._replace(drift=drift)
-        return evaluate(samples * scale, member, qubits=qubits, is_gate=is_gate,
-                        virtual_z=virtual_z, method=method, drive=drive).fidelity
-
-    def value(samples, problem, figures):
-        fid = jax.vmap(one, in_axes=(0, 0, None, None))(problem.detunings, problem.scales,
-                                                         samples, problem)
-        return 1.0 - jnp.mean(fid)
+    def value(samples, problem, scores):
+        return 1.0 - jnp.mean(scores.members.fidelity[1:])
     return CostTerm("robustness", value)
 
 
@@ -176,7 +197,7 @@ def make_term(name: str, **options) -> CostTerm:
 
 
 def combine(terms: Sequence[CostTerm]):
-    """Sum weighted terms: ``total(samples, problem, figures, weights) -> (total, parts)``.
+    """Sum weighted terms: ``total(samples, problem, scores, weights) -> (total, parts)``.
 
     ``weights`` is a ``(len(terms),)`` array; ``parts`` maps each name to its unweighted value.
 
@@ -187,7 +208,7 @@ def combine(terms: Sequence[CostTerm]):
     if len(set(names)) != len(names):
         raise InputError(f"cost term names must be unique, got {names}")
 
-    def total(samples, problem, figures, weights):
-        parts = {t.name: t.value(samples, problem, figures) for t in terms}
+    def total(samples, problem, scores, weights):
+        parts = {t.name: t.value(samples, problem, scores) for t in terms}
         return sum(weights[i] * parts[n] for i, n in enumerate(names)), parts
     return total

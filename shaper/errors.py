@@ -9,7 +9,12 @@ from __future__ import annotations
 
 
 class ShaperError(Exception):
-    """Base class of every error caused by bad input, not by a bug."""
+    """Base class of every error caused by bad input, not by a bug.
+
+    ``exit_code`` is what the command line exits with: 2 for bad input.
+    """
+
+    exit_code = 2
 
 
 class InputError(ShaperError, ValueError):
@@ -41,3 +46,10 @@ class WaveformError(ShaperError):
 
 class ResultError(ShaperError):
     """An output folder or report is missing, or would be overwritten."""
+
+
+class EnvironmentFailure(ShaperError):
+    """The machine, not the input, failed the run: a stall, a full disk, no permission,
+    not enough memory. The command line exits 3."""
+
+    exit_code = 3

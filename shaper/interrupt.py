@@ -1,44 +1,123 @@
 """SIGINT and SIGTERM during a run: finish the step, save, stop; a second signal stops at once.
 
-The first signal only sets a flag that the optimiser loop reads between steps, so the
-run writes its checkpoint, the best pulse so far and a report with stop reason
-"interrupted". A second signal raises KeyboardInterrupt straight away; every file is
-written atomically, so none is left half-written.
+The first signal sets a flag that the optimiser loop reads between steps; the loop
+acknowledges it, writes its checkpoint, the best pulse so far and a report with stop
+reason "interrupted", and the command exits 130 (SIGINT) or 143 (SIGTERM).
+
+A stuck computation never returns to Python, so Python-level handlers alone cannot be
+trusted: the signals also reach a helper thread (through ``signal.set_wakeup_fd``, which
+the C-level handler writes even while the main thread is blocked in native code). If
+the loop has not acknowledged the first signal within ``grace_s`` seconds, the helper
+runs the rescue (checkpoint and best pulse from the last completed evaluation) and
+ends the process; a second signal ends it at once. Both exits use ``os._exit`` after
+the atomic writes already done, so native threads that will never finish cannot keep
+the process alive.
 """
 
 from __future__ import annotations
 
+import os
 import signal
 import threading
+from collections.abc import Callable
 from contextlib import contextmanager
 
 EXIT_CODES = {signal.SIGINT: 130, signal.SIGTERM: 143}
+GRACE_S = 10.0
 
 
 class StopFlag:
+    """Truthy once a signal asked the run to stop. ``signal`` is its number."""
+
     def __init__(self):
         self.signal: int | None = None
+        self.acknowledged = threading.Event()
 
     def __bool__(self) -> bool:
         return self.signal is not None
 
+    def acknowledge(self) -> None:
+        """The loop has seen the flag and is saving: no forced exit after the grace."""
+        self.acknowledged.set()
+
+    @property
+    def exit_code(self) -> int:
+        return EXIT_CODES.get(self.signal, 130)
+
 
 @contextmanager
-def stop_on_signals():
-    """Install the handlers (main thread only); yield the :class:`StopFlag`."""
+def stop_on_signals(*, grace_s: float | None = None, rescue: Callable[[str], None] | None = None,
+                    log: Callable[[str], None] | None = None, exit=os._exit):
+    """Install the handlers (main thread only); yield the :class:`StopFlag`.
+
+    Args:
+        grace_s: how long the loop may take to acknowledge the first signal (default
+            :data:`GRACE_S`).
+        rescue: called (from a helper thread, without JAX) before a forced exit.
+        log: called with a line of text about a forced exit.
+        exit: how to end the process (default ``os._exit``).
+    """
+    grace_s = GRACE_S if grace_s is None else grace_s
     flag = StopFlag()
     if threading.current_thread() is not threading.main_thread():
         yield flag
         return
+    read_fd, write_fd = os.pipe()
+    os.set_blocking(write_fd, False)
+    done = threading.Event()
 
-    def handler(signum, frame):
-        if flag:
-            raise KeyboardInterrupt
-        flag.signal = signum
+    def forced(signum: int, why: str) -> None:
+        text = f"{signal.Signals(signum).name}: {why}"
+        if rescue is not None:
+            try:
+                rescue(text)
+            except Exception as exc:  # noqa: BLE001 - exit anyway
+                text += f"; saving the best pulse failed: {exc}"
+        if log is not None:
+            try:
+                log(text)
+            except Exception:  # noqa: BLE001
+                pass
+        exit(EXIT_CODES.get(signum, 130))
 
+    def watch() -> None:
+        seen = 0
+        while not done.is_set():
+            try:
+                data = os.read(read_fd, 16)
+            except OSError:
+                return
+            for signum in data:
+                if done.is_set() or signum not in EXIT_CODES:
+                    continue
+                seen += 1
+                if flag.signal is None:
+                    flag.signal = signum
+                if seen >= 2:
+                    forced(signum, "second signal, stopping at once")
+                    return
+                threading.Thread(target=grace, args=(signum,), daemon=True).start()
+
+    def grace(signum: int) -> None:
+        if not flag.acknowledged.wait(grace_s) and not done.is_set():
+            forced(signum, f"the computation did not return within {grace_s:.0f} s of the "
+                           f"signal; wrote the best pulse of the last completed evaluation")
+
+    def handler(signum, frame):  # runs in the main thread when Python gets control
+        if flag.signal is None:
+            flag.signal = signum
+
+    old_fd = signal.set_wakeup_fd(write_fd, warn_on_full_buffer=False)
     old = {s: signal.signal(s, handler) for s in EXIT_CODES}
+    helper = threading.Thread(target=watch, name="shaper-signals", daemon=True)
+    helper.start()
     try:
         yield flag
     finally:
+        done.set()
         for s, h in old.items():
             signal.signal(s, h)
+        signal.set_wakeup_fd(old_fd)
+        os.close(write_fd)  # wakes the helper's read with EOF
+        helper.join(timeout=1.0)
+        os.close(read_fd)

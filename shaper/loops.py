@@ -61,6 +61,7 @@ class Session:
     history_path: Path | None = None
     checkpoint_every: int = 100
     checkpoint_seconds: float = 60.0
+    watchdog: object = None  # a shaper.watchdog.Watchdog: beaten after every evaluation
 
 
 class Tracker:
@@ -77,8 +78,12 @@ class Tracker:
             self.best = (b["cost"], np.asarray(best_x), b["parts"], b["infidelity"],
                          b["leakage"])
         self.saved_at, self.saved_iteration = time.monotonic(), self.iteration
+        if session.watchdog is not None:
+            session.watchdog.tracker = self  # what its rescue saves
 
     def offer(self, value, x, parts, infidelity, leakage) -> None:
+        if self.s.watchdog is not None:
+            self.s.watchdog.beat()
         if np.isfinite(value) and (self.best is None or value < self.best[0]):
             self.best = (float(value), np.array(x), {k: float(v) for k, v in parts.items()},
                          float(infidelity), float(leakage))
@@ -108,6 +113,9 @@ class Tracker:
             self.stall_best, self.stall_at = value, self.iteration
         if self.s.stop:
             self.reason = "interrupted"
+            acknowledge = getattr(self.s.stop, "acknowledge", None)
+            if acknowledge is not None:
+                acknowledge()  # saving now: no forced exit after the grace period
         elif self.targets_met():
             self.reason = "targets met"
         elif self.iteration >= self.o.max_iterations:
@@ -159,8 +167,9 @@ def run_scipy(session: Session, x0: np.ndarray, resume=None) -> StartResult:
     current = {"x": np.array(x0)}
 
     def fun(x):
-        (value, (parts, figures)), grad = obj.value_and_grad(jnp.asarray(x.reshape(shape)),
-                                                             obj.problem, weights)
+        (value, (parts, scores)), grad = obj.value_and_grad(jnp.asarray(x.reshape(shape)),
+                                                            obj.problem, weights)
+        figures = scores.nominal
         tracker.evaluations += 1
         if not np.isfinite(float(value)) or not np.all(np.isfinite(grad)):
             tracker.reason = ("numerical failure: the cost or its gradient is not finite; try "
@@ -210,14 +219,22 @@ def _chunk_runner(objective: Objective, optimizer, needs_value: bool):
             params, opt_state = carry
             if needs_value:  # L-BFGS: its line search reuses values kept in the state
                 value, grad = optax.value_and_grad_from_state(value_fn)(params, state=opt_state)
-                parts, figures = objective.loss(params, problem, weights)[1]
                 updates, opt_state = optimizer.update(grad, opt_state, params, value=value,
                                                       grad=grad, value_fn=value_fn)
-            else:
-                (value, (parts, figures)), grad = jax.value_and_grad(
-                    objective.loss, has_aux=True)(params, problem, weights)
-                updates, opt_state = optimizer.update(grad, opt_state, params)
-            record = (value, parts, 1.0 - figures.fidelity, figures.leakage, params)
+                new = optax.apply_updates(params, updates)
+                # The parts are those of the point the line search accepted; evaluating them
+                # there (not at ``params``) makes this evaluation depend on the line search,
+                # so the program never runs two eigendecompositions at once (DEVELOPERS.md,
+                # "One eigendecomposition per program").
+                value, (parts, scores) = objective.loss(new, problem, weights)
+                record = (value, parts, 1.0 - scores.nominal.fidelity, scores.nominal.leakage,
+                          new)
+                return (new, opt_state), record
+            (value, (parts, scores)), grad = jax.value_and_grad(
+                objective.loss, has_aux=True)(params, problem, weights)
+            updates, opt_state = optimizer.update(grad, opt_state, params)
+            record = (value, parts, 1.0 - scores.nominal.fidelity, scores.nominal.leakage,
+                      params)
             return (optax.apply_updates(params, updates), opt_state), record
         return jax.lax.scan(step, (params, opt_state), None, length=CHUNK)
     return chunk
@@ -233,7 +250,7 @@ def run_optax(session: Session, x0: np.ndarray, resume=None) -> StartResult:
     opt_state = optimizer.init(params)
     meta, best_x, arrays = (None, None, None) if resume is None else resume
     tracker = Tracker(session, meta, best_x)
-    if arrays is not None:  # restore the optimiser's state exactly
+    if arrays is not None and meta.get("state_leaves"):  # restore the optimiser's state
         leaves, treedef = jax.tree_util.tree_flatten(opt_state)
         restored = [jnp.asarray(arrays[f"state_{i}"], dtype=leaf.dtype)
                     for i, leaf in enumerate(leaves)]

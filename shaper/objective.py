@@ -21,8 +21,9 @@ from shaper.recipe import Recipe
 class Objective:
     """The compiled objective of a recipe.
 
-    ``value_and_grad(params, weights) -> ((total, (parts, figures)), gradient)`` is jitted;
-    ``params`` is ``(slices, k)`` float64, ``weights`` ``(len(names),)``.
+    ``value_and_grad(params, problem, weights) -> ((total, (parts, scores)), gradient)`` is
+    jitted; ``params`` is ``(slices, k)`` float64, ``weights`` ``(len(names),)``, ``scores``
+    a :class:`~shaper.costs.Evaluation` (nominal figures and every ensemble member's).
     """
 
     problem: Problem
@@ -60,6 +61,12 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
     active = np.repeat((np.arange(layout.samples) < real).astype(float), steps)
     s, t = recipe.system, recipe.target
     dc = len(s.computational)
+    subsystems = len(s.number_operators)
+    if has_ensemble(recipe):  # member 0 is the nominal system, the ensemble follows
+        ensemble_detunings = np.asarray(recipe.ensemble_detunings_hz, float).reshape(-1, subsystems)
+        ensemble_scales = np.asarray(recipe.ensemble_scales, float)
+    else:
+        ensemble_detunings, ensemble_scales = np.zeros((0, subsystems)), np.zeros(0)
     zeros_vec = np.zeros(dc, complex)
     return Problem(
         drift=jnp.asarray(s.drift), controls=jnp.asarray(s.controls),
@@ -68,9 +75,16 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
         initial=jnp.asarray(zeros_vec if t.is_gate else t.initial),
         final=jnp.asarray(zeros_vec if t.is_gate else t.final),
         number_operators=jnp.asarray(s.number_operators),
-        detunings=jnp.asarray(recipe.ensemble_detunings_hz, dtype=jnp.float64),
-        scales=jnp.asarray(recipe.ensemble_scales, dtype=jnp.float64),
+        detunings=jnp.asarray(np.concatenate([np.zeros((1, subsystems)), ensemble_detunings]),
+                              dtype=jnp.float64),
+        scales=jnp.asarray(np.concatenate([[1.0], ensemble_scales]), dtype=jnp.float64),
         envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active))
+
+
+def has_ensemble(recipe: Recipe) -> bool:
+    """True when the recipe asks for robustness over detunings or amplitude scales."""
+    return (len(recipe.ensemble_scales) > 1 or bool(np.any(recipe.ensemble_detunings_hz != 0))
+            or bool(np.any(recipe.ensemble_scales != 1))) and recipe.weights["robustness"] > 0
 
 
 def qubit_count(recipe: Recipe) -> int:
@@ -113,10 +127,8 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
         terms.append(costs.smoothness(layout.column_limits()))
     if w["amplitude"] > 0:
         terms.append(costs.amplitude_limit(layout.column_limits()))
-    ensemble = len(recipe.ensemble_scales) > 1 or np.any(recipe.ensemble_detunings_hz != 0) \
-        or np.any(recipe.ensemble_scales != 1)
-    if ensemble and w["robustness"] > 0:
-        terms.append(costs.robustness(**flags))
+    if has_ensemble(recipe):
+        terms.append(costs.robustness())
     names = tuple(t.name for t in terms)
     total = costs.combine(terms)
 
@@ -125,9 +137,9 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     def loss(params, problem, weights):
         traces.append(params.shape)  # runs at trace time only
         samples = to_samples(params, layout, problem.envelope)
-        figures = costs.evaluate(samples, problem, **flags)
-        value, parts = total(samples, problem, figures, weights)
-        return value, (parts, figures)
+        scores = costs.evaluate_members(samples, problem, **flags)
+        value, parts = total(samples, problem, scores, weights)
+        return value, (parts, scores)
 
     vg = jax.jit(jax.value_and_grad(loss, has_aux=True))
     weights = np.array([w[n] for n in names], float)

@@ -100,7 +100,8 @@ def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | Non
 
 def run_one(recipe: Recipe, objective: Objective, index: int, seed: int, *, deadline: float,
             folder: Path | None, resume: bool, progress=None, stop=None,
-            checkpoint_every: int = 100, checkpoint_seconds: float = 60.0) -> StartResult:
+            checkpoint_every: int = 100, checkpoint_seconds: float = 60.0,
+            watchdog=None) -> StartResult:
     """Run (or resume, or pick up the finished result of) start ``index``."""
     path = checkpoint_path(folder, index)
     done, state = finished_start(path, recipe) if resume else (None, None)
@@ -110,7 +111,8 @@ def run_one(recipe: Recipe, objective: Objective, index: int, seed: int, *, dead
     session = Session(recipe=recipe, objective=objective, deadline=deadline, seed=seed,
                       index=index, progress=progress, stop=stop, checkpoint_path=path,
                       history_path=None if folder is None else Path(folder) / "history.jsonl",
-                      checkpoint_every=checkpoint_every, checkpoint_seconds=checkpoint_seconds)
+                      checkpoint_every=checkpoint_every, checkpoint_seconds=checkpoint_seconds,
+                      watchdog=watchdog)
     return run_start(session, np.asarray(x0), state)
 
 
@@ -135,7 +137,7 @@ def with_budget(recipe: Recipe, *, iterations: int | None = None,
 def optimize(recipe_or_path, *, seed: int | None = None,
              progress: Callable[[dict], None] | None = None, folder: str | Path | None = None,
              resume: bool = False, stop=None, workers: int = 1, checkpoint_every: int = 100,
-             checkpoint_seconds: float = 60.0, on_start_done=None) -> Result:
+             checkpoint_seconds: float = 60.0, on_start_done=None, watchdog=None) -> Result:
     """Optimise the pulse a recipe describes.
 
     Args:
@@ -151,6 +153,8 @@ def optimize(recipe_or_path, *, seed: int | None = None,
             needs a folder there.
         workers: > 1 runs the starts in that many worker processes.
         on_start_done: called with each finished :class:`StartResult`.
+        watchdog: a :class:`~shaper.watchdog.Watchdog` beaten after every evaluation of a
+            serial start (worker processes run their own).
 
     Returns:
         A :class:`Result`; the best start's samples are ``result.samples`` (Hz).
@@ -169,9 +173,14 @@ def optimize(recipe_or_path, *, seed: int | None = None,
                    checkpoint_every=checkpoint_every, checkpoint_seconds=checkpoint_seconds)
     if workers > 1 and o.starts > 1:
         from shaper.parallel import run_parallel
-        starts, compile_time = run_parallel(recipe, seed, workers, on_start_done, **options)
+        limit = watchdog.limit_s if watchdog is not None else None
+        starts, compile_time = run_parallel(recipe, seed, workers, on_start_done,
+                                            stall_limit_s=limit, watchdog=watchdog, **options)
     else:
+        options["watchdog"] = watchdog
         compile_time = compile_now(objective)
+        if watchdog is not None:
+            watchdog.beat("compile")
         starts = []
         for i in range(o.starts):
             start = run_one(recipe, objective, i, seed + i, progress=progress, **options)

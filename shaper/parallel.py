@@ -11,18 +11,30 @@ from __future__ import annotations
 import os
 import time
 from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 from multiprocessing import get_context
+
+from shaper.errors import EnvironmentFailure
 
 _PINNED = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
            "XLA_FLAGS": "--xla_cpu_multi_thread_eigen=false intra_op_parallelism_threads=1"}
 
 
-def pin_threads() -> None:
-    """Worker initialiser: one thread per worker (before anything imports JAX)."""
+def pin_threads(parent: int | None = None) -> None:
+    """Worker initialiser: one thread per worker (before anything imports JAX); die with
+    the parent (a worker whose parent was killed would otherwise hold its memory forever)."""
     os.environ.update(_PINNED)
     import signal
+    import threading
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides, through the stop file
+
+    def watch_parent():
+        while os.getppid() == parent:
+            time.sleep(0.5)
+        os._exit(1)  # the parent is gone: re-parented to init (or a subreaper)
+    if parent is not None:
+        threading.Thread(target=watch_parent, name="shaper-parent-watch", daemon=True).start()
 
 
 def _worker(raw_recipe, path, index, seed, options):
@@ -31,6 +43,17 @@ def _worker(raw_recipe, path, index, seed, options):
     from shaper.objective import make_objective
     from shaper.optimize import compile_now, run_one
     from shaper.recipe import load_recipe
+    from shaper.watchdog import Watchdog
+
+    limit = options.pop("stall_limit_s")
+    watchdog = None
+    if limit is not None:  # a stuck worker saves its checkpoint and exits 3
+        def rescue(message):
+            tracker = getattr(watchdog, "tracker", None)
+            if tracker is not None and tracker.best is not None \
+                    and tracker.s.checkpoint_path is not None:
+                tracker.save(tracker.best[1])
+        watchdog = Watchdog(limit_s=limit, rescue=rescue).__enter__()
 
     recipe = load_recipe(raw_recipe if path is None else path)
     recipe = replace(recipe, optimizer=options.pop("optimizer"))
@@ -42,13 +65,18 @@ def _worker(raw_recipe, path, index, seed, options):
     class FileFlag:
         def __bool__(self):
             return stop_file is not None and os.path.exists(stop_file)
-    result = run_one(recipe, objective, index, seed, stop=FileFlag(), **options)
+    try:
+        result = run_one(recipe, objective, index, seed, stop=FileFlag(), watchdog=watchdog,
+                         **options)
+    finally:
+        if watchdog is not None:
+            watchdog.__exit__()
     result.history = result.history[-200:]
     return result, compile_time
 
 
 def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resume, stop,
-                 checkpoint_every, checkpoint_seconds):
+                 checkpoint_every, checkpoint_seconds, stall_limit_s=None, watchdog=None):
     """Run every start of ``recipe`` on ``workers`` processes.
 
     Returns:
@@ -63,13 +91,14 @@ def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resu
     results, compile_time = [], 0.0
     context = get_context("spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=context,
-                             initializer=pin_threads) as pool:
+                             initializer=pin_threads, initargs=(os.getpid(),)) as pool:
         futures = [pool.submit(_worker, recipe.raw if recipe.path is None else None,
                                recipe.path, i, seed + i,
                                dict(folder=folder, resume=resume,
                                     checkpoint_every=checkpoint_every,
                                     checkpoint_seconds=checkpoint_seconds,
-                                    optimizer=optimizer, stop_file=stop_file))
+                                    optimizer=optimizer, stop_file=stop_file,
+                                    stall_limit_s=stall_limit_s))
                    for i in range(recipe.optimizer.starts)]
         pending = set(futures)
         while pending:
@@ -78,12 +107,20 @@ def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resu
             done = [f for f in pending if f.done()]
             for f in done:
                 pending.discard(f)
-                result, seconds = f.result()
+                try:
+                    result, seconds = f.result()
+                except BrokenProcessPool as exc:
+                    raise EnvironmentFailure(
+                        "a worker process ended without a result (stalled and stopped by its "
+                        "watchdog, killed, or out of memory); finished starts and checkpoints "
+                        "are kept: continue with --resume") from exc
                 results.append(result)
                 compile_time = max(compile_time, seconds)
                 if on_start_done:
                     on_start_done(result)
             if pending:
+                if watchdog is not None:  # the workers watch themselves
+                    watchdog.beat("waiting for worker processes")
                 time.sleep(0.05)
     if stop_file and os.path.exists(stop_file):
         os.remove(stop_file)

@@ -14,7 +14,6 @@ from __future__ import annotations
 import dataclasses
 from dataclasses import dataclass
 
-import jax
 import jax.numpy as jnp
 import numpy as np
 
@@ -99,29 +98,31 @@ def padded(layout: Layout, samples: int) -> Layout:
     return dataclasses.replace(layout, envelope=envelope)
 
 
-def _tanh_over_r(r2: jax.Array) -> jax.Array:
+def _tanh_over_r(r2, xp=jnp):
     # tanh(r)/r, safe at r = 0 (value 1, gradient finite): the double-where pattern
     small = r2 < 1e-12
-    r = jnp.sqrt(jnp.where(small, 1.0, r2))
-    return jnp.where(small, 1.0 - r2 / 3.0, jnp.tanh(r) / r)
+    r = xp.sqrt(xp.where(small, 1.0, r2))
+    return xp.where(small, 1.0 - r2 / 3.0, xp.tanh(r) / r)
 
 
-def to_samples(params: jax.Array, layout: Layout, envelope=None) -> jax.Array:
+def to_samples(params, layout: Layout, envelope=None):
     """Parameters ``(m, k)`` -> samples ``(m * hold, k)`` in Hz, within the limits.
 
     ``envelope`` (an array argument, so that it can change without recompiling) replaces
-    ``layout.envelope``.
+    ``layout.envelope``. NumPy parameters give NumPy samples without touching JAX (the
+    watchdog writes the best pulse that way while a computation is stuck).
     """
-    out = jnp.zeros_like(params)
+    xp = np if isinstance(params, np.ndarray) else jnp
+    columns = [xp.zeros(params.shape[0])] * layout.controls
     if len(layout.iq_columns):
         xy = params[:, layout.iq_columns]  # (m, p, 2)
-        scale = _tanh_over_r(jnp.sum(xy ** 2, axis=-1)) * layout.iq_limits_hz
-        out = out.at[:, layout.iq_columns].set(xy * scale[..., None])
-    if len(layout.baseband_columns):
-        u = jnp.tanh(params[:, layout.baseband_columns]) * layout.baseband_limits_hz
-        out = out.at[:, layout.baseband_columns].set(u)
+        scale = _tanh_over_r(xp.sum(xy ** 2, axis=-1), xp) * layout.iq_limits_hz
+        for j, (i, q) in enumerate(layout.iq_columns):
+            columns[i], columns[q] = xy[:, j, 0] * scale[:, j], xy[:, j, 1] * scale[:, j]
+    for c, limit in zip(layout.baseband_columns, layout.baseband_limits_hz, strict=True):
+        columns[c] = xp.tanh(params[:, c]) * limit
     envelope = layout.envelope if envelope is None else envelope
-    return jnp.repeat(out, layout.hold, axis=0) * envelope[:, None]
+    return xp.repeat(xp.stack(columns, axis=1), layout.hold, axis=0) * envelope[:, None]
 
 
 def to_params(samples: np.ndarray, layout: Layout, *, headroom: float = 0.98) -> np.ndarray:

@@ -22,6 +22,7 @@ from shaper.errors import ResultError
 from shaper.export import make_waveform, simulate_played
 from shaper.objective import recipe_layout
 from shaper.optimize import Result, optimize, read_history
+from shaper.pulses import to_samples
 from shaper.recipe import Recipe, load_recipe
 from shaper.simulate import Simulation
 
@@ -111,12 +112,13 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
 def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
         seed: int | None = None, progress=None, plots_too: bool = True, resume: bool = False,
         workers: int = 1, stop=None, log=None, checkpoint_every: int = 100,
-        checkpoint_seconds: float = 60.0) -> RunOutput:
+        checkpoint_seconds: float = 60.0, watchdog=None) -> RunOutput:
     """Optimise, export and report. Writes into ``out`` (default ``results/<name>``).
 
     Checkpoints go into the same folder; ``resume`` continues from them. ``stop`` turns
     truthy on a signal: the run then writes the best pulse so far and a report with stop
-    reason "interrupted".
+    reason "interrupted". ``watchdog`` (a :class:`~shaper.watchdog.Watchdog`) is beaten
+    after every evaluation and every later stage; :func:`rescue_writer` gives its rescue.
     """
     recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
         recipe_or_path)
@@ -127,17 +129,56 @@ def run(recipe_or_path, *, out: str | Path | None = None, force: bool = False,
             old.unlink(missing_ok=True)
     result = optimize(recipe, seed=seed, progress=progress, folder=folder, resume=resume,
                       stop=stop, workers=workers, checkpoint_every=checkpoint_every,
-                      checkpoint_seconds=checkpoint_seconds, on_start_done=log)
-    return finish(result, folder, plots_too=plots_too)
+                      checkpoint_seconds=checkpoint_seconds, on_start_done=log,
+                      watchdog=watchdog)
+    return finish(result, folder, plots_too=plots_too, watchdog=watchdog)
 
 
-def finish(result: Result, folder: Path, *, plots_too: bool = True) -> RunOutput:
+def rescue_writer(folder: Path, watchdog):
+    """The rescue of a stuck run: checkpoint and best pulse so far, without JAX.
+
+    Called from the watchdog's or the signal helper's thread while the main thread may be
+    stuck inside a computation, so it uses only NumPy and file writes: the checkpoint of
+    the current start (its best point; ``--resume`` continues from there), the best
+    pulse's waveform files, and ``rescue.json`` saying why and that the figures are the
+    optimiser's, not re-simulated.
+    """
+    def rescue(message: str) -> None:
+        tracker = getattr(watchdog, "tracker", None)
+        if tracker is None or tracker.best is None:
+            return
+        recipe, layout = tracker.s.recipe, tracker.s.objective.layout
+        value, best_x, parts, infidelity, leakage = tracker.best
+        if tracker.s.checkpoint_path is not None:
+            tracker.save(best_x)
+        samples = to_samples(np.asarray(best_x, float), layout)[:recipe.samples]
+        waveform, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
+        files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+                                      recipe_name=recipe.name, recipe_sha256=recipe.sha256)
+        atomic.write_json(folder / "rescue.json", {
+            "stop_reason": message, "waveform": files[0].name,
+            "figures_source": "the optimiser's best evaluation, before export; not "
+                              "re-simulated (the computation was stuck)",
+            "infidelity": infidelity, "leakage": leakage, "cost": value, "costs": parts,
+            "start": tracker.s.index, "iteration": tracker.iteration,
+            "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "caution": waveio.CAUTION})
+    return rescue
+
+
+def finish(result: Result, folder: Path, *, plots_too: bool = True,
+           watchdog=None) -> RunOutput:
     """Export the result's samples, re-check what the AWG plays, write report and plots."""
     recipe = result.recipe
     folder.mkdir(parents=True, exist_ok=True)
+
+    def stage(what: str) -> None:
+        if watchdog is not None:
+            watchdog.beat(what)
+    stage("export")
     waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
                                       recipe.sample_rate_hz)
     exported = simulate_played(recipe, waveform)
+    stage("re-simulation of the export")
     unquantised, _ = make_waveform(recipe, result.samples,
                                    replace(recipe.export, dac_bits=None, granularity=1),
                                    recipe.sample_rate_hz)
@@ -145,8 +186,11 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True) -> RunOutput
     files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     report = build_report(result, exported, internal, waveform, clipped, files[0].name)
+    stage("report")
     report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
                                                 result.objective.qubits)
+    stage("textbook pulses")
+    (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
     if plots_too:
         history = read_history(folder, result.best.index) or result.history
         files += write_plots(folder, recipe, waveform, exported, history)

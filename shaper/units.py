@@ -18,6 +18,8 @@ _PREFIX = {"": 1.0, "k": 1e3, "M": 1e6, "G": 1e9, "T": 1e12,
 UNITS: dict[str, tuple[str, float]] = {}
 for _prefix in ("", "m", "u", "µ", "μ", "n", "p"):
     UNITS[_prefix + "s"] = ("time", _PREFIX[_prefix])
+UNITS["min"] = ("time", 60.0)
+UNITS["h"] = ("time", 3600.0)
 for _prefix in ("", "k", "M", "G", "T"):
     UNITS[_prefix + "Hz"] = ("frequency", _PREFIX[_prefix])
     UNITS[_prefix + "S/s"] = ("sample rate", _PREFIX[_prefix])

@@ -163,7 +163,9 @@ def test_parallel_and_serial_starts_agree(tmp_path):
     assert [s.seed for s in serial.starts] == [s.seed for s in parallel.starts] == [0, 1, 2]
     for a, b in zip(serial.starts, parallel.starts, strict=True):
         assert a.iterations == b.iterations
-        assert abs(a.infidelity - b.infidelity) <= 1e-9 * max(a.infidelity, 1e-300)
+        # 1 - F is known to about 1e-15 absolute in float64; workers pin XLA to one thread,
+        # which may sum in another order, so equal to that precision, not bit for bit
+        assert abs(a.infidelity - b.infidelity) <= 1e-12
     assert np.allclose(serial.samples, parallel.samples, rtol=0, atol=1e-6 * 60e6)
 
 

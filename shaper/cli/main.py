@@ -51,10 +51,18 @@ def main(argv: list[str] | None = None) -> int:
         return int(import_module(COMMANDS[args.command][0]).run(args) or 0)
     except ShaperError as exc:
         print(f"shaper {args.command}: error: {exc}", file=sys.stderr)
-        return 2
+        return exc.exit_code
     except KeyboardInterrupt:
         print(f"shaper {args.command}: interrupted", file=sys.stderr)
         return 130
+    except MemoryError:
+        print(f"shaper {args.command}: error: out of memory; use fewer levels, samples or "
+              f"ensemble members", file=sys.stderr)
+        return 3
+    except OSError as exc:  # a full disk, no permission, a missing folder: the machine's part
+        where = f" ({exc.filename})" if getattr(exc, "filename", None) else ""
+        print(f"shaper {args.command}: error: {exc.strerror or exc}{where}", file=sys.stderr)
+        return 3
 
 
 if __name__ == "__main__":

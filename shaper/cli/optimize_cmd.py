@@ -33,6 +33,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="checkpoint every N iterations (default 100)")
     parser.add_argument("--checkpoint-seconds", type=float, default=60.0, metavar="T",
                         help="and at least every T seconds (default 60)")
+    parser.add_argument("--stall-limit", default="10 min", metavar="TIME",
+                        help="stop with exit code 3 (checkpoint and best pulse written) when no "
+                             "evaluation completes for this long, or 100x the median evaluation "
+                             "time if that is longer (default '10 min')")
     parser.add_argument("--quiet", action="store_true", help="print only the final summary")
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
 
@@ -97,11 +101,16 @@ def run(args: argparse.Namespace) -> int:
             raise InputError(f"--{name.replace('_', '-')} must be at least 1, got {value}")
     if args.hours is not None and not args.hours > 0:
         raise InputError(f"--hours must be positive, got {args.hours}")
+    from shaper.units import parse_quantity
+    stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit")
+    if not stall_limit > 0:
+        raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
     recipe = load_recipe(args.recipe)
-    from shaper.interrupt import EXIT_CODES, stop_on_signals
+    from shaper.interrupt import stop_on_signals
     from shaper.optimize import with_budget
-    from shaper.run import prepare_folder
+    from shaper.run import prepare_folder, rescue_writer
     from shaper.run import run as run_job
+    from shaper.watchdog import Watchdog
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
@@ -115,13 +124,15 @@ def run(args: argparse.Namespace) -> int:
     progress = Progress(recipe.optimizer.max_iterations,
                         stream=None if args.quiet or starts > 1 and workers > 1 else sys.stderr,
                         log=log)
-    with stop_on_signals() as stop:
+    watchdog = Watchdog(limit_s=stall_limit, log=log.line)
+    watchdog.rescue = rescue_writer(folder, watchdog)
+    with watchdog, stop_on_signals(rescue=watchdog.rescue, log=log.line) as stop:
         try:
             output = run_job(recipe, out=folder, force=args.force, seed=args.seed,
                              progress=progress, plots_too=not args.no_plots, resume=args.resume,
                              workers=workers if starts > 1 else 1, stop=stop, log=log,
                              checkpoint_every=args.checkpoint_every,
-                             checkpoint_seconds=args.checkpoint_seconds)
+                             checkpoint_seconds=args.checkpoint_seconds, watchdog=watchdog)
         finally:
             progress.close()
     r = output.report
@@ -140,5 +151,5 @@ def run(args: argparse.Namespace) -> int:
           + ", ".join(p.name for p in output.files) + f" in {output.folder}")
     print(f"CAUTION: {r['caution']}")
     if stop:
-        return EXIT_CODES.get(stop.signal, 130)
+        return stop.exit_code
     return 0
