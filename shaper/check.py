@@ -133,7 +133,7 @@ def write_check_plots(folder, verdict: dict, curves: dict) -> list:
     from pathlib import Path
 
     from shaper.plots import plot_sensitivity
-    from shaper.run import write_plots
+    from shaper.job import write_plots
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)

@@ -19,7 +19,7 @@ from shaper import atomic, waveio
 from shaper.errors import ResultError, WaveformError
 from shaper.modulation import held_drive, modulate, substeps
 from shaper.recipe import ExportSettings, Recipe, load_recipe
-from shaper.simulate import Simulation, simulate
+from shaper.simulation import Simulation, simulate
 from shaper.units import format_quantity
 
 

@@ -41,7 +41,7 @@ def _worker(raw_recipe, path, index, seed, options):
     import signal
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # likewise
     from shaper.objective import make_objective
-    from shaper.optimize import compile_now, run_one
+    from shaper.starts import compile_now, run_one
     from shaper.recipe import load_recipe
     from shaper.watchdog import Watchdog
 

@@ -15,7 +15,7 @@ from shaper.errors import WaveformError
 from shaper.export import make_waveform, resample, simulate_played
 from shaper.modulation import demodulate, modulate
 from shaper.recipe import load_recipe
-from shaper.run import run
+from shaper.job import run
 from shaper.waveform_import import read_any
 from shaper.waveio import read_waveform
 

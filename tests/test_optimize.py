@@ -3,6 +3,7 @@
 import json
 import os
 import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -10,7 +11,7 @@ import pytest
 from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
 
 import shaper
-from shaper.optimize import optimize
+from shaper.starts import optimize
 from shaper.recipe import load_recipe
 
 ROOT = Path(__file__).parent.parent
@@ -171,6 +172,52 @@ def test_public_api_is_pinned():
         "state_transfer", "transmon", "__version__"}
     for name in shaper.__all__:
         assert getattr(shaper, name) is not None
+
+
+# Every public function, called twice in a fresh process, after every submodule has been
+# imported (importing a submodule named like a public function used to replace it).
+API_TWICE = """
+import importlib, pkgutil, types
+import numpy as np
+import shaper
+for info in pkgutil.walk_packages(shaper.__path__, "shaper."):
+    if not info.name.endswith("__main__"):
+        importlib.import_module(info.name)
+for name in shaper.__all__:
+    assert not isinstance(getattr(shaper, name), types.ModuleType), name
+DEMO = RECIPE
+x = np.array([[0, 0.5], [0.5, 0]], complex)
+for _ in range(2):
+    u = shaper.propagate(np.zeros((2, 2)), x[None], np.full((10, 1), 50e6), 1e-9)
+    shaper.cycle_exponential(np.zeros((1, 2, 2), complex))
+    q = shaper.transmon(3, 5e9, -200e6)
+    shaper.coupled_transmons([shaper.TransmonSpec(name="a", levels=3, qubit_frequency_hz=5e9,
+                                                  anharmonicity_hz=-2e8),
+                              shaper.TransmonSpec(name="b", levels=3, qubit_frequency_hz=5.2e9,
+                                                  anharmonicity_hz=-2e8)],
+                             [("a", "b", 5e6)])
+    shaper.from_matrices(np.zeros((2, 2)), {"x": x})
+    t = shaper.gate("X")
+    shaper.state_transfer([1, 0], [0, 1])
+    p = np.array([[0, 1], [1, 0]], complex)
+    assert abs(float(shaper.average_gate_fidelity(p, t.unitary)) - 1) < 1e-12
+    shaper.leakage(p)
+    shaper.gate_figures(p, t.unitary, qubits=1)
+    shaper.best_frame_angles(p, t.unitary, 1)
+    recipe = shaper.load_recipe(DEMO)
+    result = shaper.optimize(recipe)
+    sim = shaper.simulate(recipe.system, recipe.target, result.samples, recipe.dt)
+    out = shaper.run(recipe, out=OUT, force=True, plots_too=False)
+    shaper.read_waveform(out.files[0])
+print("twice ok")
+"""
+
+
+def test_every_public_function_works_twice_in_one_process(tmp_path):
+    code = API_TWICE.replace("RECIPE", repr(str(DEMO))).replace("OUT", repr(str(tmp_path)))
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=600)
+    assert proc.returncode == 0 and "twice ok" in proc.stdout, proc.stderr[-3000:]
 
 
 def test_help_does_not_import_jax():

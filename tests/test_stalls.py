@@ -127,7 +127,7 @@ print("done")
 BLOCKING = """
 import dataclasses, sys, threading
 import shaper.interrupt
-import shaper.optimize as opt
+import shaper.starts as opt
 shaper.interrupt.GRACE_S = 1.0
 real = opt.make_objective
 
