@@ -132,8 +132,8 @@ def write_check_plots(folder, verdict: dict, curves: dict) -> list:
     """sensitivity.png plus the waveform, spectrum (f01, f12 marked) and population plots."""
     from pathlib import Path
 
-    from shaper.plots import plot_sensitivity
     from shaper.job import write_plots
+    from shaper.plots import plot_sensitivity
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)

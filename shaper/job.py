@@ -21,10 +21,10 @@ from shaper.costs import out_of_band
 from shaper.errors import ResultError
 from shaper.export import make_waveform, simulate_played
 from shaper.objective import recipe_layout
-from shaper.starts import Result, optimize, read_history
 from shaper.pulses import to_samples
 from shaper.recipe import Recipe, load_recipe
 from shaper.simulation import Simulation
+from shaper.starts import Result, optimize, read_history
 
 
 def versions() -> dict[str, str]:

@@ -41,8 +41,8 @@ def _worker(raw_recipe, path, index, seed, options):
     import signal
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # likewise
     from shaper.objective import make_objective
-    from shaper.starts import compile_now, run_one
     from shaper.recipe import load_recipe
+    from shaper.starts import compile_now, run_one
     from shaper.watchdog import Watchdog
 
     limit = options.pop("stall_limit_s")

@@ -21,9 +21,9 @@ from shaper import atomic
 from shaper.errors import InputError, ResultError
 from shaper.loops import Session, StartResult, run_start
 from shaper.objective import Objective, make_objective
-from shaper.starts import Result, start_point
 from shaper.pulses import to_params, to_samples
 from shaper.recipe import Recipe, load_recipe
+from shaper.starts import Result, start_point
 from shaper.units import format_quantity, parse_quantity
 
 

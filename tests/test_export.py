@@ -13,9 +13,9 @@ from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
 from shaper.cli.main import main
 from shaper.errors import WaveformError
 from shaper.export import make_waveform, resample, simulate_played
+from shaper.job import run
 from shaper.modulation import demodulate, modulate
 from shaper.recipe import load_recipe
-from shaper.job import run
 from shaper.waveform_import import read_any
 from shaper.waveio import read_waveform
 

@@ -13,8 +13,8 @@ from helpers import duffing, expm_product, pedersen_fidelity
 
 from shaper import checkpoint
 from shaper.errors import ResultError
-from shaper.starts import optimize
 from shaper.recipe import load_recipe
+from shaper.starts import optimize
 from shaper.sweep import Sweep, parse_durations
 from shaper.waveio import read_waveform
 

@@ -107,9 +107,9 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
     recipe = load_recipe(args.recipe)
     from shaper.interrupt import stop_on_signals
-    from shaper.starts import with_budget
     from shaper.job import prepare_folder, rescue_writer
     from shaper.job import run as run_job
+    from shaper.starts import with_budget
     from shaper.watchdog import Watchdog
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,

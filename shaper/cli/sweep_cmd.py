@@ -36,8 +36,8 @@ def run(args: argparse.Namespace) -> int:
 
     from shaper import atomic
     from shaper.interrupt import EXIT_CODES, stop_on_signals
-    from shaper.plots import plot_sweep
     from shaper.job import finish
+    from shaper.plots import plot_sweep
     from shaper.sweep import Sweep
     from shaper.units import format_quantity
 
