@@ -17,9 +17,9 @@ import numpy as np
 
 from shaper.costs import evaluate
 from shaper.errors import InputError
-from shaper.export import iq_pairs, simulate_played
+from shaper.export import iq_pairs, judge_waveform, member_figures, simulate_played
 from shaper.modulation import held_drive, substeps
-from shaper.objective import make_problem, qubit_count
+from shaper.objective import qubit_count, waveform_problem
 from shaper.recipe import Recipe, load_recipe
 from shaper.waveio import Waveform
 
@@ -57,7 +57,7 @@ def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
         def drive(x):
             return held_drive(x, iq_pairs(recipe), wave.if_frequency_hz, period, wave.sideband,
                               steps=steps, start=wave.pulse_start)
-    problem = make_problem(recipe, steps=steps)._replace(dt=jnp.asarray(period / steps))
+    problem = waveform_problem(recipe, samples.shape[0], steps=steps, dt=period)
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  drive=drive)
     x = jnp.asarray(samples)
@@ -112,11 +112,16 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
                         np.linspace(-detuning_span_hz, detuning_span_hz, points),
                         np.linspace(1 - scale_span, 1 + scale_span, points))
     o = recipe.optimizer
-    passed = sim.infidelity <= o.target_infidelity and sim.leakage <= o.target_leakage
+    members = member_figures(recipe, wave)
+    judged = judge_waveform(recipe, wave, sim, members)
     verdict = {
         **sim.figures(),
-        "pass": bool(passed),
-        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage},
+        "pass": judged.met,
+        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
+                    "max_out_of_band": recipe.max_out_of_band if recipe.bandwidth_hz else None,
+                    **judged.as_dict()},
+        "ensemble": None if members is None else {"infidelity": members[0],
+                                                  "leakage": members[1]},
         "levels": list(system.dims),
         "samples": int(samples.shape[0]),
         "sample_rate_hz": wave.sample_rate_hz,

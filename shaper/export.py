@@ -18,9 +18,11 @@ import numpy as np
 from shaper import atomic, waveio
 from shaper.errors import ResultError, WaveformError
 from shaper.modulation import held_drive, modulate, substeps
+from shaper.objective import has_ensemble, qubit_count, recipe_layout, waveform_problem
 from shaper.recipe import ExportSettings, Recipe, load_recipe
 from shaper.simulation import Simulation, simulate
 from shaper.units import format_quantity
+from shaper.verdict import Verdict, judge
 
 
 def iq_pairs(recipe: Recipe) -> np.ndarray:
@@ -83,6 +85,69 @@ def simulate_played(recipe: Recipe, wave: waveio.Waveform) -> Simulation:
                    populations=fine.populations[:, ::2 * steps])
 
 
+def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
+    """The waveform's samples in Hz without its IF (the envelope the optimiser shaped)."""
+    samples = wave.to_hz(recipe.system)
+    if wave.if_frequency_hz:
+        from shaper.modulation import demodulate
+        samples = demodulate(samples, iq_pairs(recipe), wave.if_frequency_hz,
+                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
+    return samples
+
+
+def band_fraction(recipe: Recipe, wave: waveio.Waveform) -> float | None:
+    """The waveform's out-of-band fraction, measured as the bandwidth cost measures it: on
+    the baseband envelope (relative to the carrier), :func:`shaper.costs.out_of_band`.
+    None when the recipe sets no bandwidth."""
+    if not recipe.bandwidth_hz:
+        return None
+    from shaper.costs import out_of_band
+    layout = recipe_layout(recipe)
+    return float(out_of_band(baseband(recipe, wave), 1 / wave.sample_rate_hz,
+                             recipe.bandwidth_hz, layout.iq_columns, layout.baseband_columns))
+
+
+def member_figures(recipe: Recipe, wave: waveio.Waveform) -> tuple[list, list] | None:
+    """Infidelity and leakage of every ensemble member on the waveform as the DAC plays it.
+
+    None without an ensemble. With an IF the members are simulated on the sub-steps of
+    :func:`shaper.modulation.substeps` (accurate to about 1e-9; the nominal figures of
+    :func:`simulate_played` are extrapolated further).
+    """
+    if not has_ensemble(recipe):
+        return None
+    import jax
+    import jax.numpy as jnp
+
+    from shaper.costs import evaluate_members
+    samples = wave.to_hz(recipe.system)
+    period, steps, drive = 1.0 / wave.sample_rate_hz, 1, None
+    if wave.if_frequency_hz:
+        steps = substeps(wave.if_frequency_hz, period)
+
+        def drive(x):
+            return held_drive(x, iq_pairs(recipe), wave.if_frequency_hz, period, wave.sideband,
+                              steps=steps, start=wave.pulse_start)
+    problem = waveform_problem(recipe, samples.shape[0], steps=steps, dt=period)
+    flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
+                 virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator, drive=drive)
+    scores = jax.jit(lambda x, p: evaluate_members(x, p, **flags))(jnp.asarray(samples), problem)
+    fid, leak = np.asarray(scores.members.fidelity), np.asarray(scores.members.leakage)
+    return (1.0 - fid[1:]).tolist(), leak[1:].tolist()
+
+
+def judge_waveform(recipe: Recipe, wave: waveio.Waveform, played: Simulation,
+                   members: tuple[list, list] | None = None) -> Verdict:
+    """The one rule (:mod:`shaper.verdict`) on a waveform as played, without margin.
+
+    ``members``: the ensemble's figures if already computed (:func:`member_figures`).
+    """
+    members = members or member_figures(recipe, wave) or (None, None)
+    return judge(recipe, infidelity=played.infidelity, leakage=played.leakage,
+                 member_infidelities=members[0], member_leakages=members[1],
+                 out_of_band=band_fraction(recipe, wave))
+
+
 def resample(samples_hz: np.ndarray, rate_in: float, rate_out: float) -> tuple[np.ndarray, str]:
     """The piecewise-constant pulse at another sample rate.
 
@@ -117,11 +182,7 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
             raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")
     recipe = load_recipe(report["recipe"]["content"])
     wave = waveio.read_waveform(report_path.parent / report["waveform"])
-    samples = wave.to_hz(recipe.system)
-    if wave.if_frequency_hz:
-        from shaper.modulation import demodulate
-        samples = demodulate(samples, iq_pairs(recipe), wave.if_frequency_hz,
-                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
+    samples = baseband(recipe, wave)
     n = int(report.get("pulse_samples", samples.shape[0]))
     samples = samples[wave.pulse_start:wave.pulse_start + n]
     recipe = _at_rate(recipe, wave.sample_rate_hz, n)
@@ -164,6 +225,7 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
                             f"below the Nyquist frequency {format_quantity(rate / 2, 'Hz')}")
     wave, clipped = make_waveform(target, samples, settings, rate)
     played = simulate_played(target, wave)
+    verdict = judge_waveform(target, wave, played)
     files = waveio.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
                                   recipe_sha256=recipe.sha256, bare=bare)
     report = {**played.figures(), "waveform": files[0].name, "files": [f.name for f in files],
@@ -171,6 +233,8 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
               "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,
               "sideband": settings.sideband, "clipped_samples": clipped,
               "at_run_rate": original.figures(), "source": str(run_path),
+              "targets": {"infidelity": recipe.optimizer.target_infidelity,
+                          "leakage": recipe.optimizer.target_leakage, **verdict.as_dict()},
               "caution": waveio.CAUTION}
     atomic.write_json(out / "export.json", report)
     return report

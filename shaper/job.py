@@ -17,9 +17,8 @@ import numpy as np
 
 from shaper import atomic, plots, waveio
 from shaper.baselines import textbook_pulses
-from shaper.costs import out_of_band
 from shaper.errors import ResultError
-from shaper.export import make_waveform, simulate_played
+from shaper.export import judge_waveform, make_waveform, member_figures, simulate_played
 from shaper.objective import recipe_layout
 from shaper.pulses import to_samples
 from shaper.recipe import Recipe, load_recipe
@@ -64,22 +63,21 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
 def build_report(result: Result, exported: Simulation, internal: Simulation,
                  waveform: waveio.Waveform, clipped: int, csv_name: str) -> dict:
     recipe, best, o = result.recipe, result.best, result.recipe.optimizer
-    samples_hz = waveform.to_hz(recipe.system)
-    layout = recipe_layout(recipe)
-    band = None
-    if recipe.bandwidth_hz:
-        band = float(out_of_band(samples_hz, recipe.dt, recipe.bandwidth_hz, layout.iq_columns,
-                                 layout.baseband_columns))
-    met = exported.infidelity <= o.target_infidelity and exported.leakage <= o.target_leakage
-    if band is not None:
-        met = met and band <= recipe.max_out_of_band
+    members = member_figures(recipe, waveform)
+    verdict = judge_waveform(recipe, waveform, exported, members)
+    band = verdict.judged.get("out_of_band")
     return {
         **exported.figures(),
         "waveform": csv_name,
         "sidecar": Path(csv_name).with_suffix(".json").name,
         "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
                     "max_out_of_band": recipe.max_out_of_band if band is not None else None,
-                    "met": bool(met)},
+                    "ensemble_targets": o.ensemble_targets if members else None,
+                    **verdict.as_dict()},
+        "ensemble": None if members is None else {
+            "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
+            "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
+            "infidelity": members[0], "leakage": members[1]},
         "out_of_band_fraction": band,
         "bandwidth_cutoff_hz": recipe.bandwidth_hz,
         "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),

@@ -23,6 +23,7 @@ import scipy.optimize
 from shaper import checkpoint
 from shaper.objective import Objective
 from shaper.recipe import Recipe
+from shaper.verdict import judge
 
 CHUNK = 10  # optax steps per jitted call
 HISTORY_IN_MEMORY = 2000  # records kept in memory (thinned); the file keeps all
@@ -44,6 +45,8 @@ class StartResult:
     wall_time_s: float
     history: list[dict] = field(default_factory=list)
     index: int = 0
+    member_infidelities: list[float] | None = None  # each ensemble member's, at the best
+    member_leakages: list[float] | None = None
 
 
 @dataclass
@@ -69,6 +72,7 @@ class Tracker:
         self.s, self.o = session, session.recipe.optimizer
         self.best, self.iteration, self.evaluations = None, 0, 0
         self.stall_best, self.stall_at, self.reason = np.inf, 0, None
+        self.members: tuple[list, list] | None = None  # ensemble figures at the best point
         self.history: list[dict] = []
         self.started = time.monotonic()
         if meta:
@@ -77,23 +81,34 @@ class Tracker:
             b = meta["best"]
             self.best = (b["cost"], np.asarray(best_x), b["parts"], b["infidelity"],
                          b["leakage"])
+            if b.get("member_infidelities") is not None:
+                self.members = (b["member_infidelities"], b["member_leakages"])
         self.saved_at, self.saved_iteration = time.monotonic(), self.iteration
         if session.watchdog is not None:
             session.watchdog.tracker = self  # what its rescue saves
 
-    def offer(self, value, x, parts, infidelity, leakage) -> None:
+    def offer(self, value, x, parts, infidelity, leakage, members=None) -> None:
+        """One completed evaluation. ``members``: (fidelities, leakages) of every member,
+        row 0 the nominal system (:class:`shaper.costs.Evaluation`)."""
         if self.s.watchdog is not None:
             self.s.watchdog.beat()
         if np.isfinite(value) and (self.best is None or value < self.best[0]):
             self.best = (float(value), np.array(x), {k: float(v) for k, v in parts.items()},
                          float(infidelity), float(leakage))
+            if members is not None and np.shape(members[0])[0] > 1:
+                fid, leak = np.asarray(members[0]), np.asarray(members[1])
+                self.members = ((1.0 - fid[1:]).tolist(), leak[1:].tolist())
+
+    def verdict(self):
+        """The optimiser's figures judged by the one rule (:mod:`shaper.verdict`), with margin."""
+        _, _, parts, infid, leak = self.best
+        infids, leaks = self.members or (None, None)
+        return judge(self.s.recipe, infidelity=infid, leakage=leak, member_infidelities=infids,
+                     member_leakages=leaks, out_of_band=parts.get("bandwidth"),
+                     margin=self.o.margin)
 
     def targets_met(self) -> bool:
-        _, _, parts, infid, leak = self.best
-        r, o = self.s.recipe, self.o
-        band_ok = "bandwidth" not in parts or parts["bandwidth"] <= r.max_out_of_band / o.margin
-        return infid <= o.target_infidelity / o.margin and leak <= o.target_leakage / o.margin \
-            and band_ok
+        return self.verdict().met
 
     def iterations_done(self, count: int) -> bool:
         """Record ``count`` finished iterations; True when the start should stop."""
@@ -141,7 +156,9 @@ class Tracker:
                 "evaluations": self.evaluations, "stall_best": self.stall_best,
                 "stall_at": self.stall_at, "finished": finished, "stop_reason": self.reason,
                 "state_leaves": len(state_leaves),
-                "best": {"cost": value, "parts": parts, "infidelity": infid, "leakage": leak}}
+                "best": {"cost": value, "parts": parts, "infidelity": infid, "leakage": leak,
+                         "member_infidelities": (self.members or (None, None))[0],
+                         "member_leakages": (self.members or (None, None))[1]}}
         checkpoint.save(self.s.checkpoint_path, arrays, meta)
         self.saved_at, self.saved_iteration = time.monotonic(), self.iteration
 
@@ -151,7 +168,9 @@ class Tracker:
                            infidelity=infid, leakage=leak, iterations=self.iteration,
                            evaluations=self.evaluations, stop_reason=self.reason,
                            wall_time_s=time.monotonic() - self.started, history=self.history,
-                           index=self.s.index)
+                           index=self.s.index,
+                           member_infidelities=(self.members or (None, None))[0],
+                           member_leakages=(self.members or (None, None))[1])
 
 
 class _Failure(Exception):
@@ -176,7 +195,8 @@ def run_scipy(session: Session, x0: np.ndarray, resume=None) -> StartResult:
                               "a smaller max_rabi, more levels, or another first guess")
             raise _Failure
         tracker.offer(float(value), x.reshape(shape), parts, 1.0 - float(figures.fidelity),
-                      float(figures.leakage))
+                      float(figures.leakage),
+                      (scores.members.fidelity, scores.members.leakage))
         return float(value), np.asarray(grad, dtype=float).ravel()
 
     def callback(intermediate_result):
@@ -228,13 +248,13 @@ def _chunk_runner(objective: Objective, optimizer, needs_value: bool):
                 # "One eigendecomposition per program").
                 value, (parts, scores) = objective.loss(new, problem, weights)
                 record = (value, parts, 1.0 - scores.nominal.fidelity, scores.nominal.leakage,
-                          new)
+                          new, scores.members.fidelity, scores.members.leakage)
                 return (new, opt_state), record
             (value, (parts, scores)), grad = jax.value_and_grad(
                 objective.loss, has_aux=True)(params, problem, weights)
             updates, opt_state = optimizer.update(grad, opt_state, params)
             record = (value, parts, 1.0 - scores.nominal.fidelity, scores.nominal.leakage,
-                      params)
+                      params, scores.members.fidelity, scores.members.leakage)
             return (optax.apply_updates(params, updates), opt_state), record
         return jax.lax.scan(step, (params, opt_state), None, length=CHUNK)
     return chunk
@@ -256,13 +276,13 @@ def run_optax(session: Session, x0: np.ndarray, resume=None) -> StartResult:
                     for i, leaf in enumerate(leaves)]
         opt_state = jax.tree_util.tree_unflatten(treedef, restored)
     while True:
-        (params, opt_state), (values, parts, infids, leaks, seen) = chunk(
+        (params, opt_state), (values, parts, infids, leaks, seen, m_fid, m_leak) = chunk(
             params, opt_state, obj.problem, weights)
         values = np.asarray(values)
         tracker.evaluations += CHUNK
         for j in range(CHUNK):
             tracker.offer(values[j], np.asarray(seen[j]), {k: v[j] for k, v in parts.items()},
-                          infids[j], leaks[j])
+                          infids[j], leaks[j], (m_fid[j], m_leak[j]))
         if tracker.best is None:
             tracker.reason = ("numerical failure: the cost is not finite; try a smaller "
                               "learning_rate or another first guess")

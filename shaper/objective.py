@@ -81,6 +81,21 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
         envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active))
 
 
+def waveform_problem(recipe: Recipe, samples: int, *, steps: int = 1,
+                     dt: float | None = None) -> Problem:
+    """The recipe's system, target and ensemble for a waveform of ``samples`` samples.
+
+    A waveform file may be longer or shorter than the recipe's pulse (granularity
+    padding, a hold, another recipe's file): the recipe supplies the physics, the file
+    the samples. Every slice is active; ``dt`` (default the recipe's) is the sample
+    period, divided into ``steps`` propagator slices.
+    """
+    problem = make_problem(recipe)
+    period = recipe.dt if dt is None else dt
+    return problem._replace(dt=jnp.asarray(period / steps),
+                            envelope=jnp.ones(samples), active=jnp.ones(samples * steps))
+
+
 def has_ensemble(recipe: Recipe) -> bool:
     """True when the recipe asks for robustness over detunings or amplitude scales."""
     return (len(recipe.ensemble_scales) > 1 or bool(np.any(recipe.ensemble_detunings_hz != 0))

@@ -40,7 +40,7 @@ KEYS: dict[str, tuple[str, ...]] = {
              "ensemble_detunings", "ensemble_scales"),
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
                   "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
-                  "drag_scale", "learning_rate", "propagator"),
+                  "drag_scale", "learning_rate", "propagator", "ensemble_targets"),
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
                "sideband"),
 }
@@ -65,6 +65,7 @@ class OptimizerSettings:
     drag_scale: float = 1.0
     learning_rate: float = 0.02
     propagator: str = "eigh"
+    ensemble_targets: str = "every"  # or "mean": how the ensemble members meet the targets
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -18,6 +18,7 @@ from shaper.recipe import (
 from shaper.systems import System, TransmonSpec, coupled_transmons, from_matrices, transmon
 from shaper.targets import Target, gate, state_transfer
 from shaper.units import format_quantity, parse_quantity
+from shaper.verdict import ENSEMBLE_RULES
 
 DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothness": 0.0,
                    "amplitude": 0.0, "robustness": 1.0}
@@ -257,7 +258,9 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         learning_rate=r.number(t, "learning_rate", "optimizer.learning_rate", d.learning_rate,
                                positive=True),
         propagator=r.choice(t, "propagator", "optimizer.propagator", ("eigh", "pade"),
-                            d.propagator))
+                            d.propagator),
+        ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",
+                                  ENSEMBLE_RULES, d.ensemble_targets))
 
 
 def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],

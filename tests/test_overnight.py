@@ -73,7 +73,8 @@ def test_killed_run_resumes_to_the_uninterrupted_result(tmp_path, method, iterat
     common = ["--no-plots", "--quiet", "--checkpoint-every", "20"]
     whole = subprocess.run(shaper_cmd("optimize", recipe, "--out", tmp_path / "whole", *common),
                            capture_output=True, text=True, timeout=600)
-    assert whole.returncode == 0, whole.stderr
+    assert whole.returncode == 1, whole.stderr  # computed, targets missed (5 MHz is too weak)
+    assert "targets NOT met: infidelity" in whole.stdout
     out = tmp_path / "killed"
     proc = subprocess.Popen(shaper_cmd("optimize", recipe, "--out", out, *common),
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -83,7 +84,7 @@ def test_killed_run_resumes_to_the_uninterrupted_result(tmp_path, method, iterat
     assert reached < iterations
     resumed = subprocess.run(shaper_cmd("optimize", recipe, "--out", out, "--resume", *common),
                              capture_output=True, text=True, timeout=600)
-    assert resumed.returncode == 0, resumed.stderr
+    assert resumed.returncode == 1, resumed.stderr
     a = json.loads((tmp_path / "whole" / "report.json").read_text())
     b = json.loads((out / "report.json").read_text())
     assert b["optimizer"]["iterations"] == a["optimizer"]["iterations"] == iterations

@@ -67,5 +67,12 @@ def _print_summary(v: dict) -> None:
           f"at +-{100 * (max(s['amplitude_scale']) - 1):.3g} %: "
           f"{s['infidelity_vs_scale'][0]:.3e}, {s['infidelity_vs_scale'][-1]:.3e}")
     t = v["targets"]
+    if v.get("ensemble"):
+        print(f"  ensemble: worst infidelity {max(v['ensemble']['infidelity']):.3e}, "
+              f"worst leakage {max(v['ensemble']['leakage']):.3e} "
+              f"({len(v['ensemble']['infidelity'])} members)")
     print(f"  {'PASS' if v['pass'] else 'FAIL'} against infidelity <= {t['infidelity']:g}, "
-          f"leakage <= {t['leakage']:g}")
+          f"leakage <= {t['leakage']:g}"
+          + (f", out-of-band <= {t['max_out_of_band']:g}" if t.get("max_out_of_band") else ""))
+    for miss in t["missed"]:
+        print(f"  missed: {miss['name']} {miss['value']:.3e} > {miss['limit']:g}")

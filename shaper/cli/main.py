@@ -32,6 +32,8 @@ def build_parser() -> argparse.ArgumentParser:
         description="Optimal-control pulse shaping for qubit gates: a recipe in, AWG "
                     "waveforms and a report out.")
     parser.add_argument("--version", action="version", version=f"shaper {_version()}")
+    parser.add_argument("--debug", action="store_true",
+                        help="show the Python traceback of an error instead of one line")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, (module, help_text) in COMMANDS.items():
         cmd = sub.add_parser(name, help=help_text, description=help_text)
@@ -45,24 +47,35 @@ def main(argv: list[str] | None = None) -> int:
     if not args.command:
         parser.print_help()
         return 2
-    from shaper.errors import ShaperError
-
     try:
         return int(import_module(COMMANDS[args.command][0]).run(args) or 0)
-    except ShaperError as exc:
-        print(f"shaper {args.command}: error: {exc}", file=sys.stderr)
-        return exc.exit_code
     except KeyboardInterrupt:
         print(f"shaper {args.command}: interrupted", file=sys.stderr)
         return 130
-    except MemoryError:
-        print(f"shaper {args.command}: error: out of memory; use fewer levels, samples or "
-              f"ensemble members", file=sys.stderr)
-        return 3
-    except OSError as exc:  # a full disk, no permission, a missing folder: the machine's part
+    except Exception as exc:
+        if args.debug:
+            raise
+        code, text = explain(exc)
+        print(f"shaper {args.command}: {text}", file=sys.stderr)
+        return code
+
+
+def explain(exc: Exception) -> tuple[int, str]:
+    """The exit code and the one line for an error (README, "Commands"): 2 bad input,
+    3 the machine failed the run, 4 a bug in shaper."""
+    from shaper.errors import ShaperError
+
+    if isinstance(exc, ShaperError):
+        return exc.exit_code, f"error: {exc}"
+    first = str(exc).splitlines()[0][:300] if str(exc) else ""
+    if isinstance(exc, MemoryError) or "RESOURCE_EXHAUSTED" in first:
+        return 3, ("error: out of memory; use fewer levels, samples or ensemble members"
+                   + (f" ({first})" if first else ""))
+    if isinstance(exc, OSError):  # a full disk, no permission: the machine's part
         where = f" ({exc.filename})" if getattr(exc, "filename", None) else ""
-        print(f"shaper {args.command}: error: {exc.strerror or exc}{where}", file=sys.stderr)
-        return 3
+        return 3, f"error: {exc.strerror or exc}{where}"
+    return 4, (f"internal error: {type(exc).__name__}: {first}. This is a bug in shaper; run "
+               f"again as 'shaper --debug ...' and report the traceback")
 
 
 if __name__ == "__main__":

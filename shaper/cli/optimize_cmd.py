@@ -147,9 +147,17 @@ def run(args: argparse.Namespace) -> int:
           f"(on the exported {r['samples']} samples, {recipe.export.dac_bits}-bit DAC)")
     print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; wall time "
           f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s)")
-    print(f"targets {'met' if r['targets']['met'] else 'NOT met'}; wrote "
-          + ", ".join(p.name for p in output.files) + f" in {output.folder}")
+    print("wrote " + ", ".join(p.name for p in output.files) + f" in {output.folder}")
     print(f"CAUTION: {r['caution']}")
+    print(targets_line(r["targets"]))
     if stop:
         return stop.exit_code
-    return 0
+    return 0 if r["targets"]["met"] else 1
+
+
+def targets_line(targets: dict) -> str:
+    """The final line of a command that judges a result: met, or each missed target."""
+    if targets["met"]:
+        return "targets met"
+    return "targets NOT met: " + "; ".join(
+        f"{m['name']} {m['value']:.3e} > {m['limit']:g}" for m in targets["missed"])
