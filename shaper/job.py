@@ -45,11 +45,24 @@ class RunOutput:
 
 
 def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
-    """Create the run folder; refuse to overwrite an earlier run unless ``force``."""
+    """Create and lock the run folder; refuse to overwrite an earlier run unless ``force``.
+
+    The lock (:func:`shaper.atomic.lock_folder`) keeps a second run out of the folder while
+    this process lives.
+    """
+    if folder.exists() and not folder.is_dir():
+        raise ResultError(f"{folder} is a file, not a folder; choose another --out")
     if resume:
         if not any(folder.glob("checkpoint-*.npz")):
             raise ResultError(f"{folder}: no checkpoint to resume from (checkpoint-<i>.npz); "
                               f"start the run without --resume")
+        atomic.lock_folder(folder)
+        report = folder / "report.json"
+        if report.exists() and not force:
+            old = atomic.read_json(report, ResultError, "unreadable report")
+            if old.get("optimizer", {}).get("stop_reason") != "interrupted":
+                raise ResultError(f"{folder} holds a finished run (report.json); there is "
+                                  f"nothing to resume. Pass --force to export it again")
         return
     if (folder / "report.json").exists() and not force:
         raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
@@ -58,6 +71,7 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
         raise ResultError(f"{folder} holds checkpoints of an unfinished run; pass --resume to "
                           f"continue it or --force to start again")
     folder.mkdir(parents=True, exist_ok=True)
+    atomic.lock_folder(folder)
 
 
 def build_report(result: Result, exported: Simulation, internal: Simulation,

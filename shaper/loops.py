@@ -20,7 +20,7 @@ import numpy as np
 import optax
 import scipy.optimize
 
-from shaper import checkpoint
+from shaper import atomic, checkpoint
 from shaper.objective import Objective
 from shaper.recipe import Recipe
 from shaper.verdict import judge
@@ -120,8 +120,7 @@ class Tracker:
         if len(self.history) > HISTORY_IN_MEMORY:
             self.history = self.history[::2]
         if self.s.history_path is not None:
-            with open(self.s.history_path, "a") as handle:
-                handle.write(json.dumps({"start": self.s.index, **record}) + "\n")
+            atomic.append_line(self.s.history_path, json.dumps({"start": self.s.index, **record}))
         if self.s.progress:
             self.s.progress(record)
         if value < self.stall_best * (1 - 1e-3):

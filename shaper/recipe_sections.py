@@ -15,7 +15,15 @@ from shaper.recipe import (
     Recipe,
     _Reader,
 )
-from shaper.systems import System, TransmonSpec, coupled_transmons, from_matrices, transmon
+from shaper.systems import (
+    NAME,
+    NAME_RULE,
+    System,
+    TransmonSpec,
+    coupled_transmons,
+    from_matrices,
+    transmon,
+)
 from shaper.targets import Target, gate, state_transfer
 from shaper.units import format_quantity, parse_quantity
 from shaper.verdict import ENSEMBLE_RULES
@@ -26,9 +34,12 @@ DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothn
 
 def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     r.check_keys(raw, "")
+    if not isinstance(raw.get("description", ""), str):
+        r.fail("description", f"expected text, got {str(raw['description'])[:40]!r}")
     name = raw["name"]
-    if not isinstance(name, str) or not name.strip() or any(c in name for c in "/\\\0"):
-        r.fail("name", f"expected a non-empty name usable as a folder name, got {name!r}")
+    if not isinstance(name, str) or not NAME.fullmatch(name):
+        r.fail("name", f"expected {NAME_RULE} (it names the output folder and files), "
+                       f"got {str(name)[:80]!r}")
     system = _system(r, r.table(raw, "system", "system"))
     target, virtual_z = _gate(r, r.table(raw, "gate", "gate"), system)
     pulse = _pulse(r, r.table(raw, "pulse", "pulse"), system)
@@ -36,14 +47,73 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     optimizer = _optimizer(r, r.table(raw, "optimizer", "optimizer"))
     export = _export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
                      pulse["sample_rate_hz"])
+    _fits_in_memory(r, system, pulse, len(scales), export)
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
                   virtual_z=virtual_z, weights=weights, ensemble_detunings_hz=detunings,
                   ensemble_scales=scales, optimizer=optimizer, export=export, raw=raw, **pulse)
 
 
+# Bytes per (slice x d^2) that one value-and-gradient holds at once: eigenvectors,
+# exponentials, the derivative's G matrix, tangents and the pairwise products, complex128
+# (16 bytes each), measured within a factor of two on the bundled recipes.
+BYTES_PER_ENTRY = 16 * 16
+MAX_EXPORT_SAMPLES = 10_000_000
+
+
+def available_memory() -> int:
+    """Bytes this process may still allocate (MemAvailable, else the physical memory)."""
+    try:
+        with open("/proc/meminfo") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    import os
+    return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+
+
+def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
+                    export: ExportSettings) -> None:
+    """Refuse, before anything is allocated, a problem that cannot fit in this machine."""
+    from shaper.modulation import substeps
+
+    n, g = pulse["samples"], export.granularity
+    exported = -(-n // g) * g
+    if exported > MAX_EXPORT_SAMPLES:
+        r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
+                                     f"{exported} samples, more than any AWG memory "
+                                     f"({MAX_EXPORT_SAMPLES}); check the granularity")
+    steps = substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"]) \
+        if export.if_frequency_hz else 1
+    d = system.dimension
+    need = (members + 1) * n * steps * d * d * BYTES_PER_ENTRY
+    have = available_memory()
+    if need > 0.8 * have:
+        key = "system.levels" if d > 64 else "pulse.duration"
+        r.fail(key, f"this problem needs about {need / 2**30:.1f} GiB ({n} samples x {steps} "
+                    f"sub-steps x {members + 1} system(s) x {d}^2 levels) and this machine has "
+                    f"{have / 2**30:.1f} GiB available; use fewer levels, a shorter pulse or a "
+                    f"smaller ensemble")
+
+
+# which [system] keys each model reads; any other key would be silently ignored
+MODEL_KEYS = {
+    "transmon": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
+                 "qubit"),
+    "transmons": ("model", "transmon", "coupling", "frame_frequency"),
+    "matrices": ("model", "unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
+                 "computational"),
+}
+
+
 def _system(r: _Reader, t: dict) -> System:
     r.check_keys(t, "system")
     model = r.choice(t, "model", "system.model", MODELS)
+    for key in t:
+        if key not in MODEL_KEYS[model]:
+            r.fail(f"system.{key}", f"not a key of model = {model!r} (its keys: "
+                                    f"{', '.join(MODEL_KEYS[model])})")
     try:
         if model == "transmon":
             for key in ("levels", "qubit_frequency", "anharmonicity"):
@@ -59,8 +129,9 @@ def _system(r: _Reader, t: dict) -> System:
             fd = r.number(t, "drive_frequency", "system.drive_frequency", fq, kind="frequency",
                           positive=True)
             name = t.get("qubit", "q0")
-            if not isinstance(name, str) or not name.isidentifier():
-                r.fail("system.qubit", f"expected a name like \"q0\", got {name!r}")
+            if not isinstance(name, str) or not NAME.fullmatch(name):
+                r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
+                                       f"got {str(name)[:80]!r}")
             return transmon(levels, fq, alpha, drive_frequency_hz=fd, name=name)
         if model == "transmons":
             return _transmons(r, t)
@@ -79,11 +150,14 @@ def _transmons(r: _Reader, t: dict) -> System:
         if not isinstance(item, dict):
             r.fail(where, "expected a table")
         r.check_keys(item, "system.transmon", where)
+        name = item.get("name", f"q{i}")
+        if not isinstance(name, str) or not NAME.fullmatch(name):
+            r.fail(f"{where}.name", f"expected {NAME_RULE}, got {str(name)[:80]!r}")
         levels = r.number(item, "levels", f"{where}.levels", integer=True)
         if levels < 2:
             r.fail(f"{where}.levels", f"must be at least 2, got {levels}")
         specs.append(TransmonSpec(
-            name=item.get("name", f"q{i}"), levels=levels,
+            name=name, levels=levels,
             qubit_frequency_hz=r.number(item, "qubit_frequency", f"{where}.qubit_frequency",
                                         kind="frequency", positive=True),
             anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
@@ -118,8 +192,14 @@ def _matrices(r: _Reader, t: dict) -> System:
         r.fail("system.controls", "expected a table of named control matrices, e.g. "
                                   "controls.drive_i = [[0, 0.5], [0.5, 0]]")
     ops = {}
+    for name in imag:
+        if name not in controls:
+            r.fail(f"system.controls_imag.{name}", f"no real part system.controls.{name}; "
+                                                   f"controls: {', '.join(controls)}")
     for name in controls:
         where = f"system.controls.{name}"
+        if not NAME.fullmatch(name):
+            r.fail(where, f"expected a control name of {NAME_RULE}")
         op = np.real(r.matrix(controls, name, where, size=drift.shape[0]))
         if name in imag:
             op = op + 1j * np.real(r.matrix(imag, name, f"system.controls_imag.{name}",
@@ -221,8 +301,9 @@ def _cost(r: _Reader, t: dict, system: System):
     det_hz = [parse_quantity(v, "frequency", key=f"cost.ensemble_detunings[{i}]", path=r.path)
               for i, v in enumerate(det)] or [0.0]
     for i, s in enumerate(scales):
-        if isinstance(s, bool) or not isinstance(s, int | float) or s <= 0:
-            r.fail(f"cost.ensemble_scales[{i}]", f"expected a positive factor, got {s!r}")
+        if isinstance(s, bool) or not isinstance(s, int | float) or not 0 < s < 10:
+            r.fail(f"cost.ensemble_scales[{i}]", f"expected a factor between 0 and 10 "
+                                                 f"(1.0 is the nominal amplitude), got {s!r}")
     scales = scales or [1.0]
     # the ensemble is every combination; each detuning offset applies to every qubit
     grid_d, grid_s = np.meshgrid(np.array(det_hz), np.array(scales, float), indexing="ij")
@@ -248,7 +329,7 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
                                 d.target_leakage, positive=True),
         margin=r.number(t, "margin", "optimizer.margin", d.margin, minimum=1.0),
         max_time_s=r.number(t, "max_time", "optimizer.max_time", d.max_time_s, kind="time",
-                            positive=True),
+                            positive=True, bare_check=False),
         stall_iterations=r.number(t, "stall_iterations", "optimizer.stall_iterations",
                                   d.stall_iterations, integer=True, minimum=1),
         seed=r.number(t, "seed", "optimizer.seed", d.seed, integer=True, minimum=0),

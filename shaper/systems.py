@@ -10,6 +10,7 @@ Phys. Rev. A 76, 042319 (2007).
 from __future__ import annotations
 
 import itertools
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
@@ -62,6 +63,9 @@ class System:
     number_operators: np.ndarray
     transition_frequencies: dict = field(default_factory=dict)
 
+    def __post_init__(self):
+        check_names(self)
+
     @property
     def dimension(self) -> int:
         return int(self.drift.shape[0])
@@ -79,6 +83,53 @@ class System:
     def level_labels(self) -> list[str]:
         """Labels of the basis states: ``"0"``, ``"1"``, ... or ``"00"``, ``"01"``, ..."""
         return ["".join(str(n) for n in idx) for idx in itertools.product(*map(range, self.dims))]
+
+
+NAME = re.compile(r"[A-Za-z0-9_-]{1,64}")  # used with fullmatch
+NAME_RULE = "1 to 64 letters, digits, '_' or '-'"
+
+
+def check_name(name, what: str) -> str:
+    """``name`` if it is a safe file-name part and CSV header (:data:`NAME`), else InputError."""
+    if not isinstance(name, str) or not NAME.fullmatch(name):
+        raise InputError(f"{what} {name!r} is not a valid name: use {NAME_RULE} (names "
+                         f"become file names and CSV column headers)")
+    return name
+
+
+def check_names(system: System) -> None:
+    """Every name valid, every channel and control column name unique, every control in
+    exactly one channel, with the column names the waveform file uses.
+
+    A clash would give one channel another's amplitude limit and full scale (a transmon
+    ``qa`` with flux beside a transmon named ``qa_flux``; controls ``drive_i``,
+    ``drive_q`` and ``drive``), so it is refused, not resolved.
+    """
+    for q in system.qubit_names:
+        check_name(q, "qubit")
+    names = [c.name for c in system.channels]
+    for c in names:
+        check_name(c, "channel")
+    twice = sorted({c for c in names if names.count(c) > 1})
+    if twice:
+        raise InputError(f"channel names must be unique, but {', '.join(map(repr, twice))} "
+                         f"names more than one channel (derived names: <transmon>_flux for a "
+                         f"flux line, <c>_i and <c>_q pair into channel <c>); rename one")
+    columns = [i for c in system.channels for i in c.columns]
+    if sorted(columns) != list(range(len(system.control_names))):
+        raise InputError("every control must belong to exactly one channel")
+    for c in system.channels:
+        expected = (f"{c.name}_i", f"{c.name}_q") if c.kind == "iq" else (c.name,)
+        got = tuple(system.control_names[i] for i in c.columns)
+        if got != expected:
+            raise InputError(f"channel {c.name!r}: its controls are named {got}, the waveform "
+                             f"file would call them {expected}")
+    headers = list(system.control_names)
+    twice = sorted({h for h in headers if headers.count(h) > 1})
+    if twice:
+        raise InputError(f"the waveform columns {', '.join(map(repr, twice))} would appear "
+                         f"twice; rename the channels so that no <c>_i or <c>_q equals another "
+                         f"channel's name")
 
 
 def _lowering(levels: int) -> np.ndarray:

@@ -7,6 +7,7 @@ an unknown unit or one of the wrong kind is an error that names the key.
 
 from __future__ import annotations
 
+import math
 import re
 
 from shaper.errors import RecipeError
@@ -36,7 +37,17 @@ _EXAMPLE = {"time": '"20 ns"', "frequency": '"-220 MHz"', "sample rate": '"2.4 G
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([^\s\d].*?)?\s*$")
 
 
-def parse_quantity(value, kind: str, *, key: str, path: str | None = None) -> float:
+# A bare number (no unit) this far from what a lab writes is almost always a unit slip:
+# max_rabi = 60 meant 60 MHz, not 60 Hz. Written with its unit, any value is taken.
+_PLAUSIBLE_BARE = {
+    "frequency": (lambda v: v == 0 or abs(v) >= 1e3, "MHz"),
+    "sample rate": (lambda v: v >= 1e3, "GS/s"),
+    "time": (lambda v: v <= 1e-2, "ns"),
+}
+
+
+def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
+                   bare_check: bool = True) -> float:
     """Read a number with a unit and return it in SI units.
 
     Args:
@@ -44,12 +55,16 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None) -> fl
         kind: ``"time"``, ``"frequency"`` or ``"sample rate"``.
         key: the key path, for the error message.
         path: the recipe file, for the error message.
+        bare_check: refuse a number without a unit that is implausible for the kind (a
+            frequency below 1 kHz, a sample rate below 1 kS/s, a time above 10 ms), with
+            "did you mean ..."; off for budgets such as ``optimizer.max_time``.
 
     Returns:
         The value in seconds, hertz or samples per second.
 
     Raises:
-        RecipeError: the value is not a number, its unit is unknown or of another kind.
+        RecipeError: the value is not a finite number, its unit is unknown or of another
+            kind, or a bare number is implausible (see ``bare_check``).
 
     Examples:
         >>> parse_quantity("20 ns", "time", key="pulse.duration")
@@ -63,7 +78,7 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None) -> fl
         raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
                           path=path, key=key)
     if isinstance(value, int | float):
-        return float(value)
+        return _checked(float(value), kind, key, path, bare=bare_check)
     if not isinstance(value, str):
         raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
                           path=path, key=key)
@@ -73,7 +88,7 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None) -> fl
                           path=path, key=key)
     number, unit = float(match.group(1)), (match.group(2) or "")
     if not unit:
-        return number
+        return _checked(number, kind, key, path, bare=bare_check)
     if unit not in UNITS:
         known = ", ".join(u for u, (k, _) in UNITS.items()
                           if k in _ACCEPTS[kind] and "μ" not in u and "µ" not in u)
@@ -83,7 +98,20 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None) -> fl
     if unit_kind not in _ACCEPTS[kind]:
         raise RecipeError(f"{value!r} is a {unit_kind}, but this key wants a {kind} "
                           f"such as {_EXAMPLE[kind]}", path=path, key=key)
-    return number * scale
+    return _checked(number * scale, kind, key, path, bare=False)
+
+
+def _checked(value: float, kind: str, key: str, path: str | None, *, bare: bool) -> float:
+    if not math.isfinite(value):
+        raise RecipeError(f"expected a finite {kind}, got {value!r}", path=path, key=key)
+    plausible, unit = _PLAUSIBLE_BARE[kind]
+    if bare and not plausible(value):
+        where = "command line" if key.startswith("-") else "recipe"
+        raise RecipeError(f"{value:g} without a unit reads as {value:g} "
+                          f"{'s' if kind == 'time' else 'Hz'}, which is implausible here; did "
+                          f"you mean '{value:g} {unit}'? Write the unit in the {where} "
+                          f"(any value written with its unit is taken)", path=path, key=key)
+    return value
 
 
 def format_quantity(value: float, unit: str) -> str:

@@ -133,7 +133,7 @@ def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: Sy
         paths = []
         for ch in system.channels:
             block = waveform.fractions[:, list(ch.columns)]
-            path = folder / f"{name}_{ch.name}.txt"
+            path = atomic.inside(folder, folder / f"{name}_{ch.name}.txt")
             atomic.write_text(path, "\n".join(",".join(f"{v:.12g}" for v in row)
                                               for row in block) + "\n")
             paths.append(path)
@@ -141,7 +141,8 @@ def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: Sy
     header = ",".join(("time_s",) + tuple(waveform.column_names))
     lines = [header] + [f"{row[0]:.12e}," + ",".join(f"{v:.12g}" for v in row[1:])
                         for row in table]
-    csv_path, json_path = folder / f"{name}.csv", folder / f"{name}.json"
+    csv_path = atomic.inside(folder, folder / f"{name}.csv")
+    json_path = atomic.inside(folder, folder / f"{name}.json")
     channels = {}
     for ch in system.channels:
         channels[ch.name] = {"kind": ch.kind,

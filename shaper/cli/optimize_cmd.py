@@ -80,8 +80,8 @@ class RunLog:
         self.path, self.echo = path, echo
 
     def line(self, text: str, echo: bool = True) -> None:
-        with open(self.path, "a") as handle:
-            handle.write(f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}\n")
+        from shaper.atomic import append_line
+        append_line(self.path, f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}")
         if echo and self.echo is not None:
             print(text, file=self.echo, flush=True)
 
@@ -102,7 +102,8 @@ def run(args: argparse.Namespace) -> int:
     if args.hours is not None and not args.hours > 0:
         raise InputError(f"--hours must be positive, got {args.hours}")
     from shaper.units import parse_quantity
-    stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit")
+    stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit",
+                                 bare_check=False)
     if not stall_limit > 0:
         raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
     recipe = load_recipe(args.recipe)
