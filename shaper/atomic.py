@@ -82,6 +82,10 @@ def read_json(path: str | Path, error, missing: str):
         raise error(f"{path}: {missing}") from None
     except json.JSONDecodeError as exc:
         raise error(f"{path}: not valid JSON: {exc}") from None
+    except UnicodeDecodeError as exc:
+        raise error(f"{path}: not a text file (byte {exc.start} is not UTF-8)") from None
+    except RecursionError:
+        raise error(f"{path}: nested too deeply") from None
 
 
 _HELD: dict[Path, int] = {}  # folders this process has locked: fd of each lock file

@@ -15,7 +15,7 @@ import numpy as np
 
 from shaper.errors import WaveformError
 from shaper.systems import System
-from shaper.waveio import Waveform, read_waveform
+from shaper.waveio import Waveform, read_lines, read_waveform
 
 
 def _check_values(path: Path, data: np.ndarray) -> None:
@@ -79,11 +79,11 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
         with _open_npz(path) as archive:
             if "samples" not in archive:
                 raise WaveformError(f"{path}: expected an array named 'samples' (n, controls)")
-            data = np.asarray(archive["samples"], float)
+            data = _real(path, archive["samples"])
             names = [str(c) for c in archive["columns"]] if "columns" in archive \
                 else list(system.control_names)
-            meta_rate = float(archive["sample_rate_hz"]) if "sample_rate_hz" in archive else None
-            meta_scale = float(archive["full_scale_hz"]) if "full_scale_hz" in archive else None
+            meta_rate = _scalar(path, archive, "sample_rate_hz")
+            meta_scale = _scalar(path, archive, "full_scale_hz")
         times = None
     else:
         raise WaveformError(f"{path}: unknown waveform type {path.suffix!r}; use .csv, .npy "
@@ -111,11 +111,31 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
                     full_scale_hz=full, column_names=system.control_names)
 
 
+def _real(path: Path, data) -> np.ndarray:
+    data = np.asarray(data)
+    if np.iscomplexobj(data):
+        raise WaveformError(f"{path}: complex values; store I and Q as separate real columns "
+                            f"(fractions of full scale), in the recipe's control order")
+    if data.dtype.kind not in "fiub":
+        raise WaveformError(f"{path}: expected numbers, got an array of {data.dtype}")
+    return data.astype(float)
+
+
 def _load_numpy(path: Path) -> np.ndarray:
     try:
-        return np.asarray(np.load(path, allow_pickle=False), float)
-    except (ValueError, OSError) as exc:
+        return _real(path, np.load(path, allow_pickle=False))
+    except (ValueError, OSError, EOFError) as exc:
         raise WaveformError(f"{path}: not a numpy array file: {exc}") from None
+
+
+def _scalar(path: Path, archive, key: str) -> float | None:
+    if key not in archive:
+        return None
+    value = _real(path, archive[key])
+    if value.size != 1 or not np.isfinite(value).all() or not float(value.ravel()[0]) > 0:
+        raise WaveformError(f"{path}: {key} must be one positive number (SI units), got "
+                            f"{value.ravel()[:3].tolist()}")
+    return float(value.ravel()[0])
 
 
 def _open_npz(path: Path):
@@ -126,7 +146,7 @@ def _open_npz(path: Path):
 
 
 def _read_plain_csv(path: Path, system: System):
-    lines = [ln for ln in path.read_text().splitlines() if ln.strip()]
+    lines = [ln for ln in read_lines(path) if ln.strip()]
     if not lines:
         raise WaveformError(f"{path}: empty: expected rows of comma-separated numbers")
     first = [c.strip() for c in lines[0].split(",")]
@@ -177,6 +197,12 @@ def read_first_guess(path: str, recipe) -> np.ndarray:
         from shaper.modulation import demodulate
         samples = demodulate(samples, iq_pairs(recipe), wave.if_frequency_hz,
                              1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
+    rest = samples[wave.pulse_start + recipe.samples:]
+    if np.any(rest != 0):
+        raise WaveformError(f"{candidate}: the pulse goes on past the recipe's {recipe.samples} "
+                            f"samples (non-zero samples up to "
+                            f"{wave.pulse_start + recipe.samples + np.nonzero(rest)[0].max()}); "
+                            f"a first guess must have the recipe's length")
     samples = samples[wave.pulse_start:wave.pulse_start + recipe.samples]
     if samples.shape[0] != recipe.samples:
         raise WaveformError(f"{candidate}: {samples.shape[0]} pulse samples, the recipe needs "

@@ -9,6 +9,7 @@ bits. Nothing is clipped silently.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -172,10 +173,7 @@ def read_waveform(csv_path: str | Path) -> Waveform:
     json_path = csv_path.with_suffix(".json")
     meta = atomic.read_json(json_path, WaveformError, "the waveform's sidecar is missing; it "
                             "holds the sample rate and full scale")
-    try:
-        lines = csv_path.read_text().splitlines()
-    except OSError as exc:
-        raise WaveformError(f"{csv_path}: cannot read: {exc.strerror}") from None
+    lines = read_lines(csv_path)
     if len(lines) < 2:
         raise WaveformError(f"{csv_path}: empty: expected a header row and at least one sample")
     header = [h.strip() for h in lines[0].split(",")]
@@ -191,12 +189,11 @@ def read_waveform(csv_path: str | Path) -> Waveform:
         raise WaveformError(f"{csv_path}: every row must have {len(header)} values")
     if not np.all(np.isfinite(data)):
         raise WaveformError(f"{csv_path}: contains NaN or infinite values")
-    for key in ("sample_rate_hz", "channels", "samples"):
-        if key not in meta:
-            raise WaveformError(f"{json_path}: missing key {key!r}")
-    rate = float(meta["sample_rate_hz"])
-    if meta["samples"] != data.shape[0]:
-        raise WaveformError(f"{json_path}: says {meta['samples']} samples, the CSV has "
+    side = Sidecar(json_path, meta)
+    rate = side.number(meta, "sample_rate_hz", positive=True)
+    samples = side.whole(meta, "samples", minimum=1)
+    if samples != data.shape[0]:
+        raise WaveformError(f"{json_path}: says {samples} samples, the CSV has "
                             f"{data.shape[0]}")
     if data.shape[0] > 1 and not np.allclose(np.diff(data[:, 0]), 1 / rate, rtol=1e-6,
                                              atol=0):
@@ -204,20 +201,93 @@ def read_waveform(csv_path: str | Path) -> Waveform:
                             f"sample rate {rate} Hz")
     if np.any(np.abs(data[:, 1:]) > 1.0 + 1e-12):
         raise WaveformError(f"{csv_path}: values beyond full scale (|x| > 1)")
-    full = {name: float(ch["full_scale_rabi_hz"]) for name, ch in meta["channels"].items()}
-    bits = {ch.get("dac_bits") for ch in meta["channels"].values()}
-    iq = [ch for ch in meta["channels"].values() if ch.get("kind", "iq") == "iq"]
-    ifs = {float(ch.get("if_frequency_hz", 0.0)) for ch in iq}
-    sidebands = {ch.get("sideband", "lower") for ch in iq}
+    channels = meta.get("channels")
+    if not isinstance(channels, dict) or not channels:
+        raise WaveformError(f"{json_path}: 'channels' must be a table of the channels, "
+                            f"got {str(channels)[:60]!r}")
+    full, bits, ifs, sidebands, columns = {}, set(), set(), set(), []
+    for name, ch in channels.items():
+        where = f"channels.{name}"
+        if not isinstance(ch, dict):
+            raise WaveformError(f"{json_path}: {where} must be a table")
+        full[name] = side.number(ch, "full_scale_rabi_hz", where, positive=True)
+        kind = side.choice(ch, "kind", ("iq", "baseband"), "iq", where)
+        bits.add(side.whole(ch, "dac_bits", minimum=2, maximum=32, where=where, optional=True))
+        names = ch.get("columns", [])
+        if not isinstance(names, list) or not all(isinstance(c, str) for c in names):
+            raise WaveformError(f"{json_path}: {where}.columns must be a list of column names")
+        columns += names
+        if kind == "iq":
+            ifs.add(side.number(ch, "if_frequency_hz", where, default=0.0))
+            sidebands.add(side.choice(ch, "sideband", ("lower", "upper"), "lower", where))
     if len(ifs) > 1 or len(sidebands) > 1:
         raise WaveformError(f"{json_path}: channels with different IF frequencies or "
                             f"sidebands are not supported")
-    columns = [c for ch in meta["channels"].values() for c in ch.get("columns", [])]
     if columns and sorted(columns) != sorted(header[1:]):
         raise WaveformError(f"{json_path}: lists columns {columns}, the CSV has {header[1:]}")
+    start = side.whole(meta, "pulse_start_sample", minimum=0, maximum=samples - 1,
+                       optional=True) or 0
     return Waveform(fractions=data[:, 1:], sample_rate_hz=rate, full_scale_hz=full,
                     column_names=tuple(header[1:]),
-                    pulse_start=int(meta.get("pulse_start_sample", 0)),
+                    pulse_start=start,
                     bits=bits.pop() if len(bits) == 1 else None,
                     if_frequency_hz=ifs.pop() if ifs else 0.0,
                     sideband=sidebands.pop() if sidebands else "lower")
+
+
+def read_lines(path: Path) -> list[str]:
+    """The lines of a text file, with the file named in every error."""
+    try:
+        return path.read_bytes().decode("utf-8").splitlines()
+    except OSError as exc:
+        raise WaveformError(f"{path}: cannot read: {exc.strerror}") from None
+    except UnicodeDecodeError as exc:
+        raise WaveformError(f"{path}: not a text file (byte {exc.start} is not UTF-8)") from None
+
+
+class Sidecar:
+    """Typed reads of a sidecar's fields, each error naming the file and the field."""
+
+    def __init__(self, path: Path, meta):
+        if not isinstance(meta, dict):
+            raise WaveformError(f"{path}: expected a JSON object, got {type(meta).__name__}")
+        self.path = path
+
+    def fail(self, where: str, message: str):
+        raise WaveformError(f"{self.path}: {where}: {message}")
+
+    def number(self, table: dict, key: str, where: str = "", *, positive: bool = False,
+               default: float | None = None) -> float:
+        name = f"{where}.{key}" if where else key
+        if key not in table:
+            if default is not None:
+                return default
+            self.fail(name, "missing")
+        value = table[key]
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            self.fail(name, f"expected a number in SI units (Hz), got {value!r}")
+        if not math.isfinite(value) or (positive and not value > 0):
+            self.fail(name, f"expected a {'positive ' if positive else ''}finite number, "
+                            f"got {value!r}")
+        return float(value)
+
+    def whole(self, table: dict, key: str, *, minimum: int, maximum: int | None = None,
+              where: str = "", optional: bool = False) -> int | None:
+        name = f"{where}.{key}" if where else key
+        if table.get(key) is None:
+            if optional:
+                return None
+            self.fail(name, "missing")
+        value = table[key]
+        if isinstance(value, bool) or not isinstance(value, int) or value < minimum \
+                or (maximum is not None and value > maximum):
+            bound = f" and {maximum}" if maximum is not None else ""
+            self.fail(name, f"expected a whole number between {minimum}{bound or ' and more'},"
+                            f" got {value!r}")
+        return value
+
+    def choice(self, table: dict, key: str, options, default: str, where: str) -> str:
+        value = table.get(key, default)
+        if value not in options:
+            self.fail(f"{where}.{key}", f"expected one of {', '.join(options)}, got {value!r}")
+        return value

@@ -3,8 +3,12 @@ one line that names the file and the key, and no traceback."""
 
 import contextlib
 import io
+import json
 import os
+import shutil
+from pathlib import Path
 
+import numpy as np
 import pytest
 
 from shaper.cli.main import main
@@ -250,3 +254,139 @@ def test_filesystem_faults(tmp_path, case, prepare, out, expected):
     else:
         assert code == expected, (code, err)
         assert len(err.strip().splitlines()) == 1, err
+
+
+# ---- waveform files: `shaper check` on a broken copy of the bundled demo's export ----
+
+DEMO = Path(__file__).parent.parent / "recipes" / "demo-x180.toml"
+DEMO_CSV = Path(__file__).parent.parent / "results" / "demo-x180" / "demo-x180.csv"
+
+
+def csv_lines(text):
+    return text.splitlines()
+
+
+def edit_csv(fn):
+    def apply(csv: Path, side: Path):
+        csv.write_text(fn(csv.read_text()))
+    return apply
+
+
+def edit_side(fn):
+    def apply(csv: Path, side: Path):
+        meta = json.loads(side.read_text())
+        fn(meta)
+        side.write_text(json.dumps(meta))
+    return apply
+
+
+def raw_side(text: bytes):
+    def apply(csv: Path, side: Path):
+        side.write_bytes(text)
+    return apply
+
+
+def first_channel(meta):
+    return next(iter(meta["channels"].values()))
+
+
+def replace_row(text, index, row):
+    lines = text.splitlines()
+    lines[index] = row
+    return "\n".join(lines) + "\n"
+
+
+def numpy_file(name, make):
+    def apply(csv: Path, side: Path):
+        make(csv.parent / name)
+    return apply
+
+
+WAVES = [
+    ("csv-empty", edit_csv(lambda t: ""), None),
+    ("csv-header-only", edit_csv(lambda t: t.splitlines()[0] + "\n"), None),
+    ("csv-first-column", edit_csv(lambda t: t.replace("time_s", "t", 1)), None),
+    ("csv-word", edit_csv(lambda t: replace_row(t, 3, "0,abc,0")), None),
+    ("csv-nan", edit_csv(lambda t: replace_row(t, 3, "8.3e-10,nan,0")), None),
+    ("csv-inf", edit_csv(lambda t: replace_row(t, 3, "8.3e-10,inf,0")), None),
+    ("csv-ragged", edit_csv(lambda t: replace_row(t, 3, "8.3e-10,0")), None),
+    ("csv-over-full-scale", edit_csv(lambda t: replace_row(t, 3, "8.333333333e-10,1.5,0")), None),
+    ("csv-uneven-time", edit_csv(lambda t: replace_row(t, 3, "9.9e-10,0,0")), None),
+    ("csv-not-utf8", lambda csv, side: csv.write_bytes(b"time_s,q0_i,q0_q\n0,\xff\xfe,0\n"),
+     None),
+    ("side-not-json", raw_side(b"{not json"), None),
+    ("side-not-utf8", raw_side(b"{\"a\": \"\xff\"}"), None),
+    ("side-a-list", raw_side(b"[1, 2]"), None),
+    ("side-no-rate", edit_side(lambda m: m.pop("sample_rate_hz")), "sample_rate_hz"),
+    ("side-rate-with-unit", edit_side(lambda m: m.update(sample_rate_hz="2.4 GS/s")),
+     "sample_rate_hz"),
+    ("side-rate-zero", edit_side(lambda m: m.update(sample_rate_hz=0)), "sample_rate_hz"),
+    ("side-rate-negative", edit_side(lambda m: m.update(sample_rate_hz=-2.4e9)),
+     "sample_rate_hz"),
+    ("side-samples-wrong", edit_side(lambda m: m.update(samples=47)), "samples"),
+    ("side-samples-text", edit_side(lambda m: m.update(samples="48")), "samples"),
+    ("side-no-channels", edit_side(lambda m: m.pop("channels")), "channels"),
+    ("side-channels-list", edit_side(lambda m: m.update(channels=["q0"])), "channels"),
+    ("side-channel-not-table", edit_side(lambda m: m.update(channels={"q0": 5})), "channels.q0"),
+    ("side-no-full-scale", edit_side(lambda m: first_channel(m).pop("full_scale_rabi_hz")),
+     "full_scale_rabi_hz"),
+    ("side-full-scale-negative",
+     edit_side(lambda m: first_channel(m).update(full_scale_rabi_hz=-6e7)), "full_scale_rabi_hz"),
+    ("side-full-scale-unit",
+     edit_side(lambda m: first_channel(m).update(full_scale_rabi_hz="60 MHz")),
+     "full_scale_rabi_hz"),
+    ("side-kind-unknown", edit_side(lambda m: first_channel(m).update(kind="rf")), "kind"),
+    ("side-columns-text", edit_side(lambda m: first_channel(m).update(columns="q0_i")),
+     "columns"),
+    ("side-columns-mismatch",
+     edit_side(lambda m: first_channel(m).update(columns=["a_i", "a_q"])), "columns"),
+    ("side-dac-bits", edit_side(lambda m: first_channel(m).update(dac_bits=99)), "dac_bits"),
+    ("side-if-text", edit_side(lambda m: first_channel(m).update(if_frequency_hz="100 MHz")),
+     "if_frequency_hz"),
+    ("side-sideband", edit_side(lambda m: first_channel(m).update(sideband="middle")),
+     "sideband"),
+    ("side-pulse-start", edit_side(lambda m: m.update(pulse_start_sample=480)),
+     "pulse_start_sample"),
+    ("side-other-channels", edit_side(lambda m: m.update(
+        channels={"qx": {**first_channel(m), "columns": []}})), "channels"),
+    ("npy-complex", numpy_file("w.npy", lambda p: np.save(p, np.zeros((48, 2), complex))), None),
+    ("npy-strings", numpy_file("w.npy", lambda p: np.save(p, np.array([["a", "b"]] * 48))),
+     None),
+    ("npy-columns", numpy_file("w.npy", lambda p: np.save(p, np.zeros((48, 3)))), None),
+    ("npy-truncated", numpy_file("w.npy", lambda p: p.write_bytes(b"\x93NUMPY\x01\x00")), None),
+    ("npz-no-samples", numpy_file("w.npz", lambda p: np.savez(p, other=np.zeros(3))), None),
+    ("npz-rate-array", numpy_file("w.npz", lambda p: np.savez(
+        p, samples=np.zeros((48, 2)), sample_rate_hz=np.array([1e9, 2e9]),
+        full_scale_hz=6e7)), "sample_rate_hz"),
+    ("npz-rate-zero", numpy_file("w.npz", lambda p: np.savez(
+        p, samples=np.zeros((48, 2)), sample_rate_hz=0.0, full_scale_hz=6e7)), "sample_rate_hz"),
+]
+
+
+@pytest.mark.parametrize("case, damage, field", WAVES, ids=[w[0] for w in WAVES])
+def test_malformed_waveform_is_refused(tmp_path, case, damage, field):
+    csv, side = tmp_path / "w.csv", tmp_path / "w.json"
+    shutil.copy(DEMO_CSV, csv)
+    shutil.copy(DEMO_CSV.with_suffix(".json"), side)
+    damage(csv, side)
+    target = csv
+    if case.startswith(("npy", "npz")):
+        target = tmp_path / f"w.{case[:3]}"
+    code, out, err = run_cli("check", DEMO, target, "--sample-rate", "2.4 GS/s",
+                             "--full-scale", "60 MHz")
+    assert code == 2, (code, out, err)
+    assert "Traceback" not in err and len(err.strip().splitlines()) == 1, err
+    assert str(tmp_path) in err, err
+    if field:
+        assert field in err, err
+
+
+def test_the_waveform_table_is_large_enough():
+    assert len(WAVES) >= 30
+
+
+def test_a_sample_rate_of_zero_on_the_command_line(tmp_path):
+    np.save(tmp_path / "w.npy", np.zeros((48, 2)))
+    code, out, err = run_cli("check", DEMO, tmp_path / "w.npy", "--sample-rate", "0 GS/s",
+                             "--full-scale", "60 MHz")
+    assert code == 2 and "--sample-rate must be positive" in err, err

@@ -27,6 +27,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from shaper.check import check_waveform
+    from shaper.errors import InputError
     from shaper.recipe import load_recipe
     from shaper.units import parse_quantity
     from shaper.waveform_import import read_any
@@ -38,6 +39,9 @@ def run(args: argparse.Namespace) -> int:
         if args.full_scale else None
     span = parse_quantity(args.detuning_span, "frequency", key="--detuning-span")
     system = recipe.system
+    for flag, value in (("--sample-rate", rate), ("--full-scale", scale)):
+        if value is not None and not value > 0:
+            raise InputError(f"{flag} must be positive, got {value:g}")
     wave = read_any(args.waveform, system, sample_rate_hz=rate, full_scale_hz=scale)
     verdict, curves = check_waveform(recipe, wave, levels=args.levels, detuning_span_hz=span,
                                      scale_span=args.scale_span)

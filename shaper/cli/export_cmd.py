@@ -38,6 +38,8 @@ def run(args: argparse.Namespace) -> int:
         if args.sample_rate else None
     if_hz = parse_quantity(args.if_frequency, "frequency", key="--if") \
         if args.if_frequency else None
+    if rate is not None and not rate > 0:
+        raise InputError(f"--sample-rate must be positive, got {rate:g}")
     report = reexport(args.run, out=args.out, sample_rate_hz=rate, bits=args.bits, if_hz=if_hz,
                       sideband=args.sideband, granularity=args.granularity,
                       padding=args.padding, clip=True if args.clip else None, bare=args.bare,
