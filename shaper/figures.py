@@ -113,7 +113,39 @@ def best_frame_angles(p: ArrayLike, target: ArrayLike, qubits: int, *,
 
     thetas, values = jax.vmap(run)(jnp.asarray(_STARTS))
     theta = thetas[jnp.argmax(values)]
-    return theta[qubits:], theta[:qubits]
+    return canonical_angles(theta[qubits:], theta[:qubits], c, bits)
+
+
+def canonical_angles(before: jax.Array, after: jax.Array, c: jax.Array,
+                     bits: jax.Array) -> tuple[jax.Array, jax.Array]:
+    """One documented choice among equally good frame angles.
+
+    For many gates only a combination of a qubit's two angles matters: for an X-type gate
+    ``Z(a) X Z(b) = X Z(b - a)`` up to a phase (only the difference), for a diagonal gate
+    only the sum. Along such a direction the fidelity is exactly constant, so the angle
+    search may stop anywhere on it. The choice made here, the same in the report, check
+    and export: wherever a qubit's angles are free along a direction, its ``before`` angle
+    is 0 and ``after`` carries the rest; every angle is wrapped to (-pi, pi].
+    ``c`` is ``conj(target) * P`` and ``bits`` the computational states' bits.
+    """
+    def trace(b, a):
+        return jnp.abs(jnp.sum(c * _frame_phases(a, bits)[:, None]
+                               * _frame_phases(b, bits)[None, :]))
+
+    def wrap(x):
+        return jnp.angle(jnp.exp(1j * x))
+
+    scale = trace(before, after) + 1e-300
+    step = 0.7  # any generic angle: a symmetry holds for every step or for none
+    for q in range(before.shape[0]):
+        unit = jnp.zeros_like(before).at[q].set(1.0)
+        for sign in (1.0, -1.0):  # after moves with before (difference) or against it (sum)
+            free = jnp.abs(trace(before + step * unit, after + sign * step * unit)
+                           - trace(before, after)) <= 1e-9 * scale
+            shift = jnp.where(free, -before[q], 0.0)
+            before = before + shift * unit
+            after = after + sign * shift * unit
+    return wrap(before), wrap(after)
 
 
 def apply_frame(p: ArrayLike, before: ArrayLike, after: ArrayLike, qubits: int) -> jax.Array:

@@ -122,3 +122,28 @@ def test_state_transfer():
     fig = state_figures(u, np.array([1, 0]), np.array([0, 1]), np.array([0, 1]), 1)
     assert float(fig.fidelity) == pytest.approx(1, abs=1e-15)
     assert float(fig.leakage) == pytest.approx(0, abs=1e-15)
+
+
+def test_frame_angles_follow_the_documented_choice():
+    # X-type gate: Z(a) X Z(b) = X Z(b - a) up to a global phase (a Pauli identity, common
+    # practice, no source), so only b - a is fixed; the documented choice puts before = 0.
+    from shaper.figures import best_frame_angles, gate_figures
+
+    x = np.array([[0, 1], [1, 0]], complex)
+
+    def z(phi):
+        return np.diag([1, np.exp(1j * phi)])
+    for a0, b0 in [(0.3, 1.9), (1.571, 2.989), (-2.0, 0.4)]:
+        p = z(a0) @ x @ z(b0)
+        before, after = best_frame_angles(p, x, 1)
+        assert float(before[0]) == 0.0
+        # whatever the angles, the framed gate must be X up to a global phase
+        framed = z(float(after[0])) @ p @ z(float(before[0]))
+        assert abs(abs(np.trace(x.conj().T @ framed)) - 2) < 1e-9
+        assert float(gate_figures(p, x, qubits=1, virtual_z=True).fidelity) > 1 - 1e-12
+    # diagonal two-qubit gate (CZ): only before + after matters per qubit -> before = 0 too
+    cz = np.diag([1, 1, 1, -1]).astype(complex)
+    p = np.kron(z(0.4), z(-1.1)) @ cz @ np.kron(z(0.9), z(0.2))
+    before, after = best_frame_angles(p, cz, 2)
+    assert np.allclose(np.asarray(before), 0.0)
+    assert float(gate_figures(p, cz, qubits=2, virtual_z=True).fidelity) > 1 - 1e-12
