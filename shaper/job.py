@@ -179,7 +179,13 @@ def rescue_writer(folder: Path, watchdog):
 
 def finish(result: Result, folder: Path, *, plots_too: bool = True,
            watchdog=None) -> RunOutput:
-    """Export the result's samples, re-check what the AWG plays, write report and plots."""
+    """Export the result's samples, re-check what the AWG plays, write report and plots.
+
+    Nothing finished is lost to a later step: the waveform files are written first, the
+    report as soon as its figures exist, and the extras (the textbook comparison, the
+    plots) are added afterwards; an extra that fails is recorded in the report
+    (``extras_failed``) instead of ending the job.
+    """
     recipe = result.recipe
     folder.mkdir(parents=True, exist_ok=True)
 
@@ -189,23 +195,33 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     stage("export")
     waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
                                       recipe.sample_rate_hz)
+    files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+                                  recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     exported = simulate_played(recipe, waveform)
     stage("re-simulation of the export")
     unquantised, _ = make_waveform(recipe, result.samples,
                                    replace(recipe.export, dac_bits=None, granularity=1),
                                    recipe.sample_rate_hz)
     internal = simulate_played(recipe, unquantised)
-    files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
-                                  recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     report = build_report(result, exported, internal, waveform, clipped, files[0].name)
-    stage("report")
-    report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
-                                                result.objective.qubits)
-    stage("textbook pulses")
+    atomic.write_json(folder / "report.json", report)
     (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
+    stage("report")
+    failed = {}
+    try:
+        report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
+                                                    result.objective.qubits)
+    except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
+        failed["textbook_pulses"] = f"{type(exc).__name__}: {exc}"
+    stage("textbook pulses")
     if plots_too:
-        history = read_history(folder, result.best.index) or result.history
-        files += write_plots(folder, recipe, waveform, exported, history)
+        try:
+            history = read_history(folder, result.best.index) or result.history
+            files += write_plots(folder, recipe, waveform, exported, history)
+        except Exception as exc:  # noqa: BLE001
+            failed["plots"] = f"{type(exc).__name__}: {exc}"
+    if failed:
+        report["extras_failed"] = failed
     atomic.write_json(folder / "report.json", report)
     files.append(folder / "report.json")
     return RunOutput(result=result, report=report, folder=folder, files=files)

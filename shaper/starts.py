@@ -8,6 +8,7 @@ always uses seed + i, so the results do not depend on how the starts were schedu
 from __future__ import annotations
 
 import json
+import logging
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, replace
@@ -25,6 +26,10 @@ from shaper.pulses import first_guess, rotation_area, to_params, to_samples
 from shaper.recipe import Recipe, load_recipe
 
 __all__ = ["Result", "StartResult", "optimize", "initial_samples"]
+
+# Events a user must hear about during a run (a damaged checkpoint replaced by its previous
+# copy). The command line sends them to run.log and the terminal.
+LOG = logging.getLogger("shaper")
 
 
 @dataclass
@@ -84,7 +89,9 @@ def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | Non
     """A start's state on disk: (its result if it had finished, the resume tuple if not)."""
     if path is None or not (path.exists() or checkpoint.previous(path).exists()):
         return None, None
-    arrays, meta, _ = checkpoint.load(path, recipe.sha256)
+    arrays, meta, note = checkpoint.load(path, recipe.sha256)
+    if note:
+        LOG.warning(f"{path.name}: {note}")
     if meta.get("method") != recipe.optimizer.method:
         raise ResultError(f"{path}: written by method {meta.get('method')!r}, the recipe now "
                           f"asks for {recipe.optimizer.method!r}")

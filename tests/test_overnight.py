@@ -253,3 +253,23 @@ def test_sweep_command_end_to_end(tmp_path):
                          capture_output=True, text=True, timeout=120)
     assert bad.returncode == 2 and "start <= stop" in bad.stderr
 
+
+
+def test_a_damaged_checkpoint_is_reported_in_the_log(tmp_path):
+    # the newest checkpoint truncated by a crash: the run continues from .prev and says so
+    recipe = write_long(tmp_path, "adam", 60)
+    out = tmp_path / "run"
+    proc = subprocess.Popen(shaper_cmd("optimize", recipe, "--out", out, "--no-plots",
+                                       "--quiet", "--checkpoint-every", "10"),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    wait_for_checkpoint(out / "checkpoint-0.npz", proc, minimum=30)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait(timeout=30)
+    assert checkpoint.previous(out / "checkpoint-0.npz").exists()
+    newest = out / "checkpoint-0.npz"
+    newest.write_bytes(newest.read_bytes()[:100])
+    resumed = subprocess.run(shaper_cmd("optimize", recipe, "--out", out, "--resume",
+                                        "--no-plots", "--quiet"),
+                             capture_output=True, text=True, timeout=300)
+    assert resumed.returncode == 1, resumed.stderr
+    assert "newest checkpoint was damaged" in (out / "run.log").read_text()

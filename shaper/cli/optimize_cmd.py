@@ -125,6 +125,13 @@ def run(args: argparse.Namespace) -> int:
     progress = Progress(recipe.optimizer.max_iterations,
                         stream=None if args.quiet or starts > 1 and workers > 1 else sys.stderr,
                         log=log)
+    import logging
+
+    class ToRunLog(logging.Handler):
+        def emit(self, record):
+            log.line(f"warning: {record.getMessage()}")
+    handler = ToRunLog()
+    logging.getLogger("shaper").addHandler(handler)
     watchdog = Watchdog(limit_s=stall_limit, log=log.line)
     watchdog.rescue = rescue_writer(folder, watchdog)
     with watchdog, stop_on_signals(rescue=watchdog.rescue, log=log.line) as stop:
@@ -136,6 +143,7 @@ def run(args: argparse.Namespace) -> int:
                              checkpoint_seconds=args.checkpoint_seconds, watchdog=watchdog)
         finally:
             progress.close()
+            logging.getLogger("shaper").removeHandler(handler)
     r = output.report
     reason = r["optimizer"]["stop_reason"]
     log.line(f"finished: {reason}; infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e}")
