@@ -102,6 +102,7 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
                                  strict=True)),
         "optimizer": {"method": o.method, "iterations": best.iterations,
                       "evaluations": best.evaluations, "stop_reason": best.stop_reason,
+                      "stop_detail": best.stop_detail,
                       "seed": best.seed, "compile_time_s": result.compile_time_s,
                       "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
                                   "infidelity": s.infidelity, "leakage": s.leakage,
@@ -229,24 +230,30 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
 
 def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
                 history, *, dt: float | None = None) -> list[Path]:
-    """waveform.png, spectrum.png (transitions marked), populations.png, convergence.png."""
+    """waveform.png, spectrum.png (transitions marked), populations.png, convergence.png,
+    each titled with the run, the gate and the figures of what was simulated."""
+    from shaper.export import baseband
+
     system, dt = recipe.system, dt or recipe.dt
     samples = waveform.to_hz(system)
+    title = (f"{recipe.name}: {recipe.target.label}, infidelity {simulation.infidelity:.2e}, "
+             f"leakage {simulation.leakage:.2e} (as exported)")
     names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
                                   "convergence.png")]
     plots.plot_waveform(names[0], samples, dt, system.control_names,
-                        limits=list(recipe.limits_hz.values()))
+                        limits=list(recipe.limits_hz.values()), title=title)
     markers = {}
     for q, tf in system.transition_frequencies.items():
         markers[f"{q} f01"] = tf["f01_hz"]
         markers[f"{q} f12"] = tf["f12_hz"]
-    plots.plot_spectrum(names[1], samples, dt, system.channels, cutoff_hz=recipe.bandwidth_hz,
-                        markers=markers)
+    plots.plot_spectrum(names[1], baseband(recipe, waveform), dt, system.channels,
+                        cutoff_hz=recipe.bandwidth_hz, markers=markers, title=title,
+                        if_hz=waveform.if_frequency_hz)
     labels = system.level_labels()
     plots.plot_populations(names[2], simulation.populations, dt, labels,
-                           [labels[i] for i in system.computational])
+                           [labels[i] for i in system.computational], title=title)
     if history:
-        plots.plot_convergence(names[3], history)
+        plots.plot_convergence(names[3], history, title=title)
     else:
         names = names[:3]
     return names

@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import time
 from dataclasses import dataclass, field
+from enum import StrEnum
 from pathlib import Path
 
 import jax
@@ -26,7 +27,34 @@ from shaper.recipe import Recipe
 from shaper.verdict import judge
 
 CHUNK = 10  # optax steps per jitted call
-HISTORY_IN_MEMORY = 2000  # records kept in memory (thinned); the file keeps all
+HISTORY_IN_MEMORY = 2000  # records kept in memory (thinned)
+HISTORY_ON_DISK = 4000  # records of one start in history.jsonl before it is thinned
+
+
+class StopReason(StrEnum):
+    """Why a start stopped: a fixed set of plain words (``stop_detail`` says more)."""
+
+    TARGETS_MET = "targets met"
+    ITERATION_LIMIT = "iteration limit"
+    TIME_LIMIT = "time limit"
+    NO_PROGRESS = "no progress"          # no 0.1 % improvement in stall_iterations
+    CONVERGED = "converged"              # the optimiser can find no better point
+    NUMERICAL_FAILURE = "numerical failure"
+    INTERRUPTED = "interrupted"
+
+
+def _scipy_detail(message) -> tuple[StopReason, str]:
+    """scipy's L-BFGS-B message in plain words."""
+    text = message.decode() if isinstance(message, bytes) else str(message)
+    if "ABNORMAL" in text.upper():
+        return StopReason.CONVERGED, "the line search found no better point (a flat or noisy " \
+                                     "cost at this precision)"
+    if "FACTR" in text.upper() or "REL_REDUCTION" in text.upper():
+        return StopReason.CONVERGED, "the cost stopped decreasing (relative change at machine " \
+                                     "precision)"
+    if "PROJ" in text.upper() or "GRADIENT" in text.upper():
+        return StopReason.CONVERGED, "the gradient vanished"
+    return StopReason.CONVERGED, text.lower()
 
 
 @dataclass
@@ -45,6 +73,7 @@ class StartResult:
     wall_time_s: float
     history: list[dict] = field(default_factory=list)
     index: int = 0
+    stop_detail: str = ""
     member_infidelities: list[float] | None = None  # each ensemble member's, at the best
     member_leakages: list[float] | None = None
 
@@ -72,6 +101,8 @@ class Tracker:
         self.s, self.o = session, session.recipe.optimizer
         self.best, self.iteration, self.evaluations = None, 0, 0
         self.stall_best, self.stall_at, self.reason = np.inf, 0, None
+        self.detail = ""  # more about the stop reason, in plain words
+        self.on_disk = 0  # records of this start written to history.jsonl
         self.members: tuple[list, list] | None = None  # ensemble figures at the best point
         self.history: list[dict] = []
         self.started = time.monotonic()
@@ -120,25 +151,45 @@ class Tracker:
         if len(self.history) > HISTORY_IN_MEMORY:
             self.history = self.history[::2]
         if self.s.history_path is not None:
-            atomic.append_line(self.s.history_path, json.dumps({"start": self.s.index, **record}))
+            self._stream(record)
         if self.s.progress:
             self.s.progress(record)
         if value < self.stall_best * (1 - 1e-3):
             self.stall_best, self.stall_at = value, self.iteration
         if self.s.stop:
-            self.reason = "interrupted"
+            self.reason = StopReason.INTERRUPTED
             acknowledge = getattr(self.s.stop, "acknowledge", None)
             if acknowledge is not None:
                 acknowledge()  # saving now: no forced exit after the grace period
         elif self.targets_met():
-            self.reason = "targets met"
+            self.reason = StopReason.TARGETS_MET
         elif self.iteration >= self.o.max_iterations:
-            self.reason = "iteration limit"
+            self.reason = StopReason.ITERATION_LIMIT
         elif time.monotonic() > self.s.deadline:
-            self.reason = "time limit"
+            self.reason = StopReason.TIME_LIMIT
         elif self.iteration - self.stall_at >= self.o.stall_iterations:
-            self.reason = f"stalled: no 0.1% improvement in {self.o.stall_iterations} iterations"
+            self.reason = StopReason.NO_PROGRESS
+            self.detail = f"no 0.1 % improvement in {self.o.stall_iterations} iterations"
         return self.reason is not None
+
+    def _stream(self, record: dict) -> None:
+        """Append to history.jsonl; past HISTORY_ON_DISK records of this start, thin them to
+        every other one (as in memory), so a night's run cannot fill the disk."""
+        path = self.s.history_path
+        atomic.append_line(path, json.dumps({"start": self.s.index, **record}))
+        self.on_disk += 1
+        if self.on_disk <= HISTORY_ON_DISK:
+            return
+        mine, others = [], []
+        for line in path.read_text().splitlines():
+            try:
+                item = json.loads(line)
+            except json.JSONDecodeError:
+                continue  # a line cut by a kill
+            (mine if item.get("start") == self.s.index else others).append(line)
+        mine = mine[::2]
+        atomic.write_text(path, "\n".join(others + mine) + "\n")
+        self.on_disk = len(mine)
 
     def checkpoint_due(self) -> bool:
         return self.s.checkpoint_path is not None and (
@@ -153,7 +204,9 @@ class Tracker:
         meta = {"recipe_sha256": self.s.recipe.sha256, "method": self.o.method,
                 "seed": self.s.seed, "index": self.s.index, "iteration": self.iteration,
                 "evaluations": self.evaluations, "stall_best": self.stall_best,
-                "stall_at": self.stall_at, "finished": finished, "stop_reason": self.reason,
+                "stall_at": self.stall_at, "finished": finished,
+                "stop_reason": None if self.reason is None else str(self.reason),
+                "stop_detail": self.detail,
                 "state_leaves": len(state_leaves),
                 "best": {"cost": value, "parts": parts, "infidelity": infid, "leakage": leak,
                          "member_infidelities": (self.members or (None, None))[0],
@@ -165,7 +218,8 @@ class Tracker:
         value, x, parts, infid, leak = self.best
         return StartResult(seed=self.s.seed, params=x, cost=value, parts=parts,
                            infidelity=infid, leakage=leak, iterations=self.iteration,
-                           evaluations=self.evaluations, stop_reason=self.reason,
+                           evaluations=self.evaluations, stop_reason=str(self.reason),
+                           stop_detail=self.detail,
                            wall_time_s=time.monotonic() - self.started, history=self.history,
                            index=self.s.index,
                            member_infidelities=(self.members or (None, None))[0],
@@ -190,8 +244,9 @@ def run_scipy(session: Session, x0: np.ndarray, resume=None) -> StartResult:
         figures = scores.nominal
         tracker.evaluations += 1
         if not np.isfinite(float(value)) or not np.all(np.isfinite(grad)):
-            tracker.reason = ("numerical failure: the cost or its gradient is not finite; try "
-                              "a smaller max_rabi, more levels, or another first guess")
+            tracker.reason = StopReason.NUMERICAL_FAILURE
+            tracker.detail = ("the cost or its gradient is not finite; try a smaller max_rabi, "
+                              "more levels, or another first guess")
             raise _Failure
         tracker.offer(float(value), x.reshape(shape), parts, 1.0 - float(figures.fidelity),
                       float(figures.leakage),
@@ -213,7 +268,7 @@ def run_scipy(session: Session, x0: np.ndarray, resume=None) -> StartResult:
             options={"maxiter": remaining + 1, "maxcor": 30, "ftol": 1e-16, "gtol": 1e-14,
                      "maxls": 40})
         if tracker.reason is None:
-            tracker.reason = f"optimiser converged ({res.message})"
+            tracker.reason, tracker.detail = _scipy_detail(res.message)
     except _Failure:
         pass
     if session.checkpoint_path is not None and tracker.best is not None:
@@ -283,8 +338,9 @@ def run_optax(session: Session, x0: np.ndarray, resume=None) -> StartResult:
             tracker.offer(values[j], np.asarray(seen[j]), {k: v[j] for k, v in parts.items()},
                           infids[j], leaks[j], (m_fid[j], m_leak[j]))
         if tracker.best is None:
-            tracker.reason = ("numerical failure: the cost is not finite; try a smaller "
-                              "learning_rate or another first guess")
+            tracker.reason = StopReason.NUMERICAL_FAILURE
+            tracker.detail = ("the cost is not finite; try a smaller learning_rate or another "
+                              "first guess")
             return tracker.result()
         stop = tracker.iterations_done(CHUNK)
         if tracker.checkpoint_due():

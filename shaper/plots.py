@@ -1,6 +1,8 @@
 """PNG plots of a run: I/Q vs time, spectrum with the cutoff, level populations, convergence.
 
-matplotlib with the Agg backend (no screen needed). Each function writes one file.
+Figures are drawn with matplotlib's object interface on its Agg canvas: no screen is
+needed and the caller's pyplot backend (a notebook's) is left alone. Each function
+writes one file; ``title`` (the run, the gate and its exported figures) heads each plot.
 """
 
 from __future__ import annotations
@@ -10,23 +12,31 @@ from pathlib import Path
 import numpy as np
 
 
-def _pyplot():
-    import matplotlib
+def _figure(width: float, height: float, panels: int = 1):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    return plt
+    fig = Figure(figsize=(width, height))
+    FigureCanvasAgg(fig)
+    axes = [fig.add_subplot(1, panels, k + 1) for k in range(panels)]
+    return fig, axes
 
 
-def _finish(fig, path: Path) -> None:
+def _finish(fig, path: Path, title: str | None = None) -> None:
+    if title:
+        fig.suptitle(title, fontsize=9)
     fig.tight_layout()
     fig.savefig(path, dpi=110)
-    _pyplot().close(fig)
 
 
-def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=None) -> None:
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(8, 3.5))
+def _integer_ticks(axis) -> None:
+    from matplotlib.ticker import MaxNLocator
+    axis.set_major_locator(MaxNLocator(integer=True))
+
+
+def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=None,
+                  title: str | None = None) -> None:
+    fig, (ax,) = _figure(8, 3.8)
     t_ns = np.arange(samples_hz.shape[0] + 1) * dt * 1e9
     for k, name in enumerate(names):
         ax.stairs(samples_hz[:, k] / 1e6, t_ns, label=name, linewidth=1.4)
@@ -35,16 +45,20 @@ def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=N
         ax.axhline(-lim / 1e6, color="grey", linestyle=":", linewidth=0.8)
     ax.set_xlabel("time (ns)")
     ax.set_ylabel("MHz (Rabi frequency; flux: shift)")
-    ax.set_title("Drive samples as held by the DAC (dotted: amplitude limit)")
+    ax.set_title("Drive samples as held by the DAC (dotted: amplitude limit)", fontsize=9)
     ax.legend(loc="upper right", fontsize=8)
-    _finish(fig, path)
+    _finish(fig, path, title)
 
 
 def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
-                  cutoff_hz: float | None = None, markers: dict | None = None) -> None:
-    """Power spectrum per channel (I + iQ for I/Q channels) with the cutoff and transitions."""
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(8, 3.5))
+                  cutoff_hz: float | None = None, markers: dict | None = None,
+                  title: str | None = None, if_hz: float = 0.0) -> None:
+    """Power spectrum per channel (I + iQ for I/Q channels) with the cutoff and transitions.
+
+    ``samples_hz`` is the baseband envelope, so frequencies are relative to the drive;
+    ``if_hz`` only says in the axis label where the file carries it.
+    """
+    fig, (ax,) = _figure(8, 3.8)
     n = samples_hz.shape[0]
     pad = max(1024, 8 * n)
     freqs = np.fft.fftshift(np.fft.fftfreq(pad, dt)) / 1e6
@@ -64,52 +78,58 @@ def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
                5 / (n * dt)) / 1e6
     ax.set_xlim(-span, span)
     ax.set_ylim(1e-14, 2)
-    ax.set_xlabel("frequency relative to the drive (MHz)")
+    where = f"; the file carries it at an IF of {if_hz / 1e6:g} MHz" if if_hz else ""
+    ax.set_xlabel(f"frequency of the envelope relative to the drive (MHz{where})")
     ax.set_ylabel("relative power")
-    ax.set_title("Pulse spectrum")
+    ax.set_title("Pulse spectrum (dashed: bandwidth cutoff; dotted: transitions)", fontsize=9)
     ax.legend(loc="upper right", fontsize=8)
-    _finish(fig, path)
+    _finish(fig, path, title)
+
+
+FLOOR = 1e-9  # populations plot down to here: leakage at a 1e-7 target must show
 
 
 def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
-                     input_labels) -> None:
-    """One panel per computational input state: population of every level over time."""
-    plt = _pyplot()
+                     input_labels, title: str | None = None) -> None:
+    """One panel per computational input state: the population of every level over time,
+    on a log scale down to :data:`FLOOR` (a level that never gets there is listed as
+    such in the legend, so no level is hidden)."""
     count = min(len(input_labels), 4)
-    fig, axes = plt.subplots(1, count, figsize=(4 * count, 3.2), squeeze=False)
+    fig, axes = _figure(4 * count, 3.6, count)
     t_ns = np.arange(populations.shape[1]) * dt * 1e9
-    for j in range(count):
-        ax = axes[0, j]
+    for j, ax in enumerate(axes):
         for level, label in enumerate(labels):
             curve = populations[j, :, level]
-            if curve.max() > 1e-3:  # one colour per level in every panel
-                ax.plot(t_ns, curve, label=f"|{label}>", color=f"C{level % 10}")
+            peak = float(curve.max())
+            name = f"|{label}>" if peak >= FLOOR else f"|{label}> (< 1e-9)"
+            ax.semilogy(t_ns, np.maximum(curve, FLOOR / 10), label=name,
+                        color=f"C{level % 10}")
         ax.set_title(f"start in |{input_labels[j]}>", fontsize=9)
         ax.set_xlabel("time (ns)")
-        ax.set_ylim(-0.02, 1.02)
-        ax.legend(fontsize=7)
-    axes[0, 0].set_ylabel("population")
-    _finish(fig, path)
+        ax.set_ylim(FLOOR, 2.0)
+        ax.legend(fontsize=6, loc="lower right")
+    axes[0].set_ylabel("population (log scale)")
+    _finish(fig, path, title)
 
 
-def plot_convergence(path: Path, history: list[dict]) -> None:
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6, 3.5))
+def plot_convergence(path: Path, history: list[dict], title: str | None = None) -> None:
+    fig, (ax,) = _figure(6, 3.8)
     it = [h["iteration"] for h in history]
     for key, label in (("cost", "total cost"), ("infidelity", "infidelity"),
                        ("leakage", "leakage")):
         values = np.maximum([h[key] for h in history], 1e-17)
         ax.semilogy(it, values, marker=".", label=label)
     ax.set_xlabel("iteration")
-    ax.set_title("Convergence (best so far)")
+    ax.set_ylabel("value of the best point so far")
+    _integer_ticks(ax.xaxis)
+    ax.set_title("Convergence (optimiser's figures)", fontsize=9)
     ax.legend(fontsize=8)
-    _finish(fig, path)
+    _finish(fig, path, title)
 
 
-def plot_sensitivity(path: Path, sensitivity: dict) -> None:
+def plot_sensitivity(path: Path, sensitivity: dict, title: str | None = None) -> None:
     """Infidelity vs detuning offset and vs amplitude scale (log scale)."""
-    plt = _pyplot()
-    fig, axes = plt.subplots(1, 2, figsize=(9, 3.3))
+    fig, axes = _figure(9, 3.6, 2)
     axes[0].semilogy(np.array(sensitivity["detuning_hz"]) / 1e6,
                      np.maximum(sensitivity["infidelity_vs_detuning"], 1e-16), marker=".")
     axes[0].set_xlabel("detuning offset (MHz)")
@@ -119,14 +139,13 @@ def plot_sensitivity(path: Path, sensitivity: dict) -> None:
     for ax in axes:
         ax.set_ylabel("infidelity")
         ax.grid(True, which="both", alpha=0.3)
-    fig.suptitle("Sensitivity")
-    _finish(fig, path)
+    _finish(fig, path, title or "Sensitivity")
 
 
-def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=None) -> None:
+def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=None,
+               title: str | None = None) -> None:
     """Best infidelity and leakage vs duration, with the targets and the chosen duration."""
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(7, 3.8))
+    fig, (ax,) = _figure(7, 4.0)
     t = [p.duration_s * 1e9 for p in points]
     ax.semilogy(t, [max(p.infidelity, 1e-16) for p in points], "o-", label="infidelity")
     ax.semilogy(t, [max(p.leakage, 1e-16) for p in points], "s--", label="leakage")
@@ -135,6 +154,7 @@ def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=
     if chosen_s:
         ax.axvline(chosen_s * 1e9, color="green", linewidth=0.9, label="shortest passing")
     ax.set_xlabel("duration (ns)")
-    ax.set_title("Best result per duration")
+    ax.set_ylabel("infidelity, leakage (best start)")
+    ax.set_title("Best result per duration", fontsize=9)
     ax.legend(fontsize=8)
-    _finish(fig, path)
+    _finish(fig, path, title)

@@ -101,6 +101,7 @@ def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | Non
                            parts=b["parts"], infidelity=b["infidelity"],
                            leakage=b["leakage"], iterations=meta["iteration"],
                            evaluations=meta["evaluations"], stop_reason=meta["stop_reason"],
+                           stop_detail=meta.get("stop_detail", ""),
                            wall_time_s=0.0, index=meta["index"],
                            member_infidelities=b.get("member_infidelities"),
                            member_leakages=b.get("member_leakages")), None

@@ -273,3 +273,18 @@ def test_a_damaged_checkpoint_is_reported_in_the_log(tmp_path):
                              capture_output=True, text=True, timeout=300)
     assert resumed.returncode == 1, resumed.stderr
     assert "newest checkpoint was damaged" in (out / "run.log").read_text()
+
+
+def test_history_on_disk_is_bounded(tmp_path, monkeypatch):
+    # a night's run must not fill the disk: past the bound the file is thinned to every
+    # other record, keeping the newest, as the in-memory history is
+    from shaper import loops
+
+    monkeypatch.setattr(loops, "HISTORY_ON_DISK", 50)
+    raw = dict(load_recipe(write_long(tmp_path, "adam", 2000)).raw)
+    result = optimize(raw, folder=tmp_path / "run")
+    lines = (tmp_path / "run" / "history.jsonl").read_text().splitlines()
+    assert 25 <= len(lines) <= 51
+    iterations = [json.loads(line)["iteration"] for line in lines]
+    assert iterations == sorted(iterations) and iterations[-1] == result.best.iterations == 2000
+    assert result.best.stop_reason in {r.value for r in loops.StopReason}
