@@ -76,7 +76,8 @@ def _worker(raw_recipe, path, index, seed, options):
 
 
 def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resume, stop,
-                 checkpoint_every, checkpoint_seconds, stall_limit_s=None, watchdog=None):
+                 checkpoint_every, checkpoint_seconds, stall_limit_s=None, watchdog=None,
+                 first=None):
     """Run every start of ``recipe`` on ``workers`` processes.
 
     Returns:
@@ -98,7 +99,7 @@ def run_parallel(recipe, seed, workers, on_start_done, *, deadline, folder, resu
                                     checkpoint_every=checkpoint_every,
                                     checkpoint_seconds=checkpoint_seconds,
                                     optimizer=optimizer, stop_file=stop_file,
-                                    stall_limit_s=stall_limit_s))
+                                    stall_limit_s=stall_limit_s, first=first))
                    for i in range(recipe.optimizer.starts)]
         pending = set(futures)
         while pending:

@@ -69,10 +69,13 @@ def initial_samples(recipe: Recipe, objective: Objective, rng: np.random.Generat
     return np.asarray(samples)
 
 
-def start_point(recipe: Recipe, objective: Objective, seed: int, index: int) -> np.ndarray:
-    """Parameters of start ``index``: the first guess, perturbed for every start after the first."""
+def start_point(recipe: Recipe, objective: Objective, seed: int, index: int,
+                first: np.ndarray | None = None) -> np.ndarray:
+    """Parameters of start ``index``: the first guess (``first``, samples in Hz, if given,
+    for start 0: a sweep's warm start), perturbed for every start after the first."""
     rng = np.random.default_rng(seed)
-    guess = initial_samples(recipe, objective, rng)
+    guess = first if first is not None and index == 0 else initial_samples(recipe, objective,
+                                                                           rng)
     guess = np.concatenate([guess, np.zeros((objective.layout.samples - guess.shape[0],
                                              guess.shape[1]))])
     x0 = to_params(guess, objective.layout)
@@ -111,13 +114,14 @@ def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | Non
 def run_one(recipe: Recipe, objective: Objective, index: int, seed: int, *, deadline: float,
             folder: Path | None, resume: bool, progress=None, stop=None,
             checkpoint_every: int = 100, checkpoint_seconds: float = 60.0,
-            watchdog=None) -> StartResult:
+            watchdog=None, first: np.ndarray | None = None) -> StartResult:
     """Run (or resume, or pick up the finished result of) start ``index``."""
     path = checkpoint_path(folder, index)
     done, state = finished_start(path, recipe) if resume else (None, None)
     if done is not None:
         return done
-    x0 = state[2]["x"] if state is not None else start_point(recipe, objective, seed, index)
+    x0 = state[2]["x"] if state is not None else start_point(recipe, objective, seed, index,
+                                                             first)
     session = Session(recipe=recipe, objective=objective, deadline=deadline, seed=seed,
                       index=index, progress=progress, stop=stop, checkpoint_path=path,
                       history_path=None if folder is None else Path(folder) / "history.jsonl",
@@ -147,7 +151,8 @@ def with_budget(recipe: Recipe, *, iterations: int | None = None,
 def optimize(recipe_or_path, *, seed: int | None = None,
              progress: Callable[[dict], None] | None = None, folder: str | Path | None = None,
              resume: bool = False, stop=None, workers: int = 1, checkpoint_every: int = 100,
-             checkpoint_seconds: float = 60.0, on_start_done=None, watchdog=None) -> Result:
+             checkpoint_seconds: float = 60.0, on_start_done=None, watchdog=None,
+             objective: Objective | None = None, first: np.ndarray | None = None) -> Result:
     """Optimise the pulse a recipe describes.
 
     Args:
@@ -165,6 +170,9 @@ def optimize(recipe_or_path, *, seed: int | None = None,
         on_start_done: called with each finished :class:`StartResult`.
         watchdog: a :class:`~shaper.watchdog.Watchdog` beaten after every evaluation of a
             serial start (worker processes run their own).
+        objective: a compiled objective for this recipe to reuse (a sweep's padded one);
+            worker processes build their own.
+        first: samples (Hz, the recipe's length) to start the first start from.
 
     Returns:
         A :class:`Result`; the best start's samples are ``result.samples`` (Hz).
@@ -177,10 +185,11 @@ def optimize(recipe_or_path, *, seed: int | None = None,
     if folder is not None:
         folder.mkdir(parents=True, exist_ok=True)
     t0 = time.monotonic()
-    objective = make_objective(recipe)
+    objective = objective or make_objective(recipe)
     deadline = t0 + o.max_time_s
     options = dict(deadline=deadline, folder=folder, resume=resume, stop=stop,
-                   checkpoint_every=checkpoint_every, checkpoint_seconds=checkpoint_seconds)
+                   checkpoint_every=checkpoint_every, checkpoint_seconds=checkpoint_seconds,
+                   first=first)
     if workers > 1 and o.starts > 1:
         from shaper.parallel import run_parallel
         limit = watchdog.limit_s if watchdog is not None else None

@@ -4,8 +4,13 @@ Each duration is optimised (with the recipe's starts; the first warm-started fro
 shorter neighbour, stretched in time with its area kept), then the shortest passing grid
 point is refined by bisection on whole samples. Durations are padded to a few shared
 sizes (powers of two, in samples) with identity slices, so a sweep compiles once per
-size, not once per duration. ``sweep.json`` is rewritten after every duration: a resumed
-sweep does not redo finished durations.
+size, not once per duration. Durations are whole samples: a requested duration that is
+not is moved to the nearest, and the sweep prints and records both. Each duration runs
+through the same starts runner as ``shaper optimize`` (workers, checkpoints in
+``duration-<n>/``), its pulse is written in the waveform format (``pulse-<n>.csv`` and
+its sidecar, which ``shaper check`` reads) and judged on that export by the one targets
+rule (:mod:`shaper.verdict`). ``sweep.json`` is rewritten after every duration: a
+resumed sweep does not redo finished durations.
 """
 
 from __future__ import annotations
@@ -17,13 +22,12 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper import atomic
+from shaper import atomic, waveio
 from shaper.errors import InputError, ResultError
-from shaper.loops import Session, StartResult, run_start
+from shaper.loops import StartResult
 from shaper.objective import Objective, make_objective
-from shaper.pulses import to_params, to_samples
 from shaper.recipe import Recipe, load_recipe
-from shaper.starts import Result, start_point
+from shaper.starts import Result, optimize
 from shaper.units import format_quantity, parse_quantity
 
 
@@ -74,22 +78,27 @@ def stretch(samples_hz: np.ndarray, n: int) -> np.ndarray:
 
 @dataclass
 class SweepPoint:
+    """One duration of a sweep: figures of its exported waveform (``pulse-<samples>.csv``)."""
+
     samples: int
-    duration_s: float
+    duration_s: float          # the actual duration: a whole number of samples
     infidelity: float
     leakage: float
     met: bool
     iterations: int
     wall_time_s: float
     stop_reason: str
+    requested_s: float | None = None  # the duration asked for, if rounding changed it
+    missed: str = ""           # which targets were missed, in words
 
 
 class Sweep:
     """One sweep over durations of a recipe, writing into ``folder``."""
 
     def __init__(self, recipe: Recipe, folder: Path, *, seed: int | None = None,
-                 resume: bool = False, stop=None, echo=print):
+                 resume: bool = False, stop=None, echo=print, workers: int = 1):
         self.recipe, self.folder, self.stop, self.echo = recipe, Path(folder), stop, echo
+        self.workers = workers
         self.seed = recipe.optimizer.seed if seed is None else seed
         self.objectives: dict[int, Objective] = {}
         self.points: dict[int, SweepPoint] = {}
@@ -119,51 +128,45 @@ class Sweep:
         return self.objectives[size].for_recipe(recipe)
 
     def samples_path(self, n: int) -> Path:
-        return self.folder / f"pulse-{n}.npy"
+        """The exported waveform of duration ``n`` (our CSV with its JSON sidecar)."""
+        return self.folder / f"pulse-{n}.csv"
 
-    def solve(self, n: int, warm: np.ndarray | None) -> tuple[SweepPoint, Result]:
-        """Optimise at ``n`` samples (or load the finished point)."""
+    def solve(self, n: int, warm: np.ndarray | None,
+              requested_s: float | None = None) -> tuple[SweepPoint, Result]:
+        """Optimise at ``n`` samples (or load the finished point); judge the export."""
         if n in self.points and self.samples_path(n).exists():
             return self.points[n], None
+        from shaper.export import judge_waveform, make_waveform, simulate_played
+
         recipe = recipe_at(self.recipe, n)
         objective = self.objective_for(recipe)
         t0 = time.monotonic()
-        o = recipe.optimizer
-        starts: list[StartResult] = []
-        for i in range(o.starts):
-            if i == 0 and warm is not None:
-                guess = stretch(warm, n)
-                guess = np.concatenate([guess, np.zeros((objective.layout.samples - n,
-                                                         guess.shape[1]))])
-                x0 = to_params(guess, objective.layout)
-            else:
-                x0 = start_point(recipe, objective, self.seed + i, i)
-            session = Session(recipe=recipe, objective=objective, stop=self.stop,
-                              deadline=time.monotonic() + o.max_time_s, seed=self.seed + i,
-                              index=i)
-            starts.append(run_start(session, x0))
-            if self.stop:
-                break
-        best = min(starts, key=lambda s: s.cost)
-        samples = np.asarray(to_samples(best.params, objective.layout,
-                                        objective.problem.envelope))[:n]
+        work = self.folder / f"duration-{n}"  # checkpoints and history of this duration
+        resume = any(work.glob("checkpoint-*.npz"))
+        result = optimize(recipe, seed=self.seed, objective=objective, stop=self.stop,
+                          first=None if warm is None else stretch(warm, n), folder=work,
+                          resume=resume, workers=self.workers)
+        wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
+        played = simulate_played(recipe, wave)
+        verdict = judge_waveform(recipe, wave, played)
+        best = result.best
         point = SweepPoint(samples=n, duration_s=n / recipe.sample_rate_hz,
-                           infidelity=best.infidelity, leakage=best.leakage,
-                           met=best.infidelity <= o.target_infidelity
-                           and best.leakage <= o.target_leakage,
-                           iterations=sum(s.iterations for s in starts),
-                           wall_time_s=time.monotonic() - t0, stop_reason=best.stop_reason)
+                           infidelity=played.infidelity, leakage=played.leakage,
+                           met=verdict.met, iterations=sum(s.iterations for s in result.starts),
+                           wall_time_s=time.monotonic() - t0, stop_reason=best.stop_reason,
+                           requested_s=requested_s,
+                           missed="" if verdict.met else verdict.summary())
         if not self.stop:  # an interrupted point is not finished: it is redone on resume
-            np.save(self.samples_path(n), samples)
+            waveio.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
+                                  recipe_name=recipe.name, recipe_sha256=recipe.sha256)
             self.points[n] = point
             self.save()
-        self.echo(f"{format_quantity(point.duration_s, 's'):>10} ({n:4d} samples): "
-                  f"infidelity {point.infidelity:.3e}, leakage {point.leakage:.3e} "
+        asked = "" if requested_s is None or abs(requested_s - point.duration_s) < 1e-15 \
+            else f" (asked {format_quantity(requested_s, 's')}: whole samples)"
+        self.echo(f"{format_quantity(point.duration_s, 's'):>10} ({n:4d} samples){asked}: "
+                  f"infidelity {point.infidelity:.3e}, leakage {point.leakage:.3e} (exported) "
                   f"{'meets' if point.met else 'misses'} the targets "
                   f"[{point.wall_time_s:.1f} s, compiles so far {self.compiles}]")
-        result = Result(recipe=recipe, objective=objective, best=best, starts=starts,
-                        samples=samples, compile_time_s=0.0,
-                        wall_time_s=time.monotonic() - t0)
         return point, result
 
     def save(self) -> None:
@@ -172,17 +175,27 @@ class Sweep:
             "points": [vars(p) for _, p in sorted(self.points.items())]})
 
     def pulse(self, n: int) -> np.ndarray | None:
+        """The pulse of duration ``n`` in Hz (baseband, without padding), or None."""
+        from shaper.export import baseband
+
         path = self.samples_path(n)
-        return np.load(path) if path.exists() else None
+        if not path.exists():
+            return None
+        recipe = recipe_at(self.recipe, n)
+        wave = waveio.read_waveform(path)
+        return baseband(recipe, wave)[wave.pulse_start:wave.pulse_start + n]
 
     def run(self, durations_s: list[float]) -> int | None:
         """Sweep the grid, refine by bisection; return the shortest passing sample count."""
         rate, hold = self.recipe.sample_rate_hz, self.recipe.hold
-        grid = sorted({max(hold, int(round(d * rate / hold)) * hold) for d in durations_s})
+        asked = {}
+        for d in durations_s:  # whole samples (slices): say where that moved a duration
+            asked.setdefault(max(hold, int(round(d * rate / hold)) * hold), d)
+        grid = sorted(asked)
         warm = None
         first_pass = None
         for i, n in enumerate(grid):
-            point, _ = self.solve(n, warm)
+            point, _ = self.solve(n, warm, asked[n])
             if self.stop:
                 return None
             warm = self.pulse(n)
@@ -216,10 +229,11 @@ class Sweep:
                       wall_time_s=point.wall_time_s)
 
     def table(self) -> str:
-        lines = ["| duration | samples | infidelity | leakage | meets targets | iterations | "
-                 "time (s) |", "|---|---|---|---|---|---|---|"]
+        lines = ["| duration | asked | samples | infidelity | leakage | meets targets | "
+                 "iterations | time (s) |", "|---|---|---|---|---|---|---|---|"]
         for _, p in sorted(self.points.items()):
-            lines.append(f"| {format_quantity(p.duration_s, 's')} | {p.samples} | "
+            asked = "bisection" if p.requested_s is None else format_quantity(p.requested_s, "s")
+            lines.append(f"| {format_quantity(p.duration_s, 's')} | {asked} | {p.samples} | "
                          f"{p.infidelity:.3e} | {p.leakage:.3e} | {'yes' if p.met else 'no'} | "
                          f"{p.iterations} | {p.wall_time_s:.1f} |")
         return "\n".join(lines) + "\n"

@@ -216,6 +216,23 @@ def test_sweep_finds_a_gate_shorter_than_any_gaussian(tmp_path):
     # needs several 1/|alpha|), so the sweep's gate is shorter than any passing Gaussian
     for n in range(4, shortest + 1, 4):
         assert gaussian_infidelity(n, 1 / 2.4e9, -220e6) > 1e-4
+    # every duration is a whole number of samples, and the sweep says what it asked for:
+    # 2 ns at 2.4 GS/s is 4.8 samples, so it ran 5 samples (2.0833 ns)
+    first = sweep.points[5]
+    assert first.requested_s == pytest.approx(2e-9) and first.duration_s == 5 / 2.4e9
+    # each pulse is a waveform file the checker reads, judged as exported
+    from shaper.cli.main import main as shaper_main
+    wave = read_waveform(tmp_path / "s" / f"pulse-{shortest}.csv")
+    assert wave.fractions.shape[0] == shortest
+    raw = dict(recipe.raw, pulse=dict(recipe.raw["pulse"]))
+    (tmp_path / "r.toml").write_text(
+        "name = 'sweep'\n[system]\nmodel = 'transmon'\nlevels = 4\n"
+        "qubit_frequency = '5 GHz'\nanharmonicity = '-220 MHz'\n[gate]\ntarget = 'X'\n"
+        "[pulse]\nduration = '10 ns'\nsample_rate = '2.4 GS/s'\nmax_rabi = '400 MHz'\n"
+        "[optimizer]\ntarget_infidelity = 1e-4\ntarget_leakage = 1e-4\n")
+    assert raw["pulse"]["max_rabi"] == "400 MHz"
+    assert shaper_main(["check", str(tmp_path / "r.toml"),
+                        str(tmp_path / "s" / f"pulse-{shortest}.csv")]) == 0
     # resuming redoes nothing
     again = Sweep(recipe, tmp_path / "s", resume=True, echo=lambda text: None)
     assert again.run(grid) == shortest and again.compiles == 0

@@ -17,6 +17,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="start:stop:step (e.g. 6ns:30ns:2ns) or a list (10ns,12ns,20ns)")
     parser.add_argument("--out", help="output folder (default: results/<name>-sweep)")
     parser.add_argument("--starts", type=int, help="starts per duration (default: the recipe's)")
+    parser.add_argument("--workers", type=int, default=0,
+                        help="worker processes for the starts of each duration (default: one "
+                             "per core, at most one per start)")
     parser.add_argument("--seed", type=int, help="seed of the first start")
     parser.add_argument("--resume", action="store_true", help="continue an earlier sweep")
     parser.add_argument("--quiet", action="store_true", help="print only the final summary")
@@ -28,14 +31,17 @@ def run(args: argparse.Namespace) -> int:
     from shaper.recipe import load_recipe
     from shaper.sweep import parse_durations
 
-    if args.starts is not None and args.starts < 1:
-        raise InputError(f"--starts must be at least 1, got {args.starts}")
+    for name in ("starts", "workers"):
+        value = getattr(args, name)
+        if value is not None and value < (1 if name == "starts" else 0):
+            raise InputError(f"--{name} must be at least 1, got {value}")
     recipe = load_recipe(args.recipe)
     durations = parse_durations(args.durations)
+    import os
     from dataclasses import replace
 
     from shaper import atomic
-    from shaper.interrupt import EXIT_CODES, stop_on_signals
+    from shaper.interrupt import stop_on_signals
     from shaper.job import finish
     from shaper.plots import plot_sweep
     from shaper.sweep import Sweep
@@ -46,8 +52,12 @@ def run(args: argparse.Namespace) -> int:
     folder = Path(args.out) if args.out else Path("results") / f"{recipe.name}-sweep"
     echo = (lambda text: None) if args.quiet else (lambda text: print(text, file=sys.stderr,
                                                                       flush=True))
+    starts = recipe.optimizer.starts
+    workers = args.workers or min(starts, os.cpu_count() or 1)
+    atomic.lock_folder(folder)
     with stop_on_signals() as stop:
-        sweep = Sweep(recipe, folder, seed=args.seed, resume=args.resume, stop=stop, echo=echo)
+        sweep = Sweep(recipe, folder, seed=args.seed, resume=args.resume, stop=stop, echo=echo,
+                      workers=workers if starts > 1 else 1)
         shortest = sweep.run(durations)
     table = sweep.table()
     atomic.write_text(folder / "sweep.md", f"# Duration sweep of {recipe.name}\n\n{table}")
@@ -60,14 +70,17 @@ def run(args: argparse.Namespace) -> int:
     print(f"compiles: {sweep.compiles} for {len(sweep.points)} duration(s) in this session")
     if stop:
         print(f"interrupted; continue with --resume (finished durations are kept in {folder})")
-        return EXIT_CODES.get(stop.signal, 130)
+        return stop.exit_code
     if shortest is None:
-        print(f"no duration in the sweep meets infidelity <= {o.target_infidelity:g} and "
-              f"leakage <= {o.target_leakage:g}")
+        longest = sweep.points[max(sweep.points)] if sweep.points else None
+        print("targets NOT met at any duration of the sweep"
+              + (f"; the longest, {format_quantity(longest.duration_s, 's')}: "
+                 f"{longest.missed}" if longest else ""))
         return 1
     output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots)
     print(f"shortest duration meeting the targets: {format_quantity(chosen, 's')} ({shortest} "
           f"samples); exported: infidelity {output.report['infidelity']:.3e}, leakage "
           f"{output.report['leakage']:.3e}; full result in {output.folder}")
     print(f"CAUTION: {output.report['caution']}")
+    print("targets met")
     return 0
