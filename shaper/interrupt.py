@@ -32,6 +32,9 @@ class StopFlag:
     def __init__(self):
         self.signal: int | None = None
         self.acknowledged = threading.Event()
+        # set once the command knows them: what to save and where to say so on a forced exit
+        self.rescue: Callable[[str], None] | None = None
+        self.log: Callable[[str], None] | None = None
 
     def __bool__(self) -> bool:
         return self.signal is not None
@@ -46,15 +49,17 @@ class StopFlag:
 
 
 @contextmanager
-def stop_on_signals(*, grace_s: float | None = None, rescue: Callable[[str], None] | None = None,
-                    log: Callable[[str], None] | None = None, exit=os._exit):
+def stop_on_signals(*, grace_s: float | None = None, exit=os._exit):
     """Install the handlers (main thread only); yield the :class:`StopFlag`.
+
+    Enter it before anything slow (importing JAX, reading the recipe): a signal that came
+    before the handlers would raise inside whatever ran, and a library may swallow it.
+    Set ``flag.rescue`` (called from a helper thread, without JAX, before a forced exit)
+    and ``flag.log`` (a line of text about it) once they are known.
 
     Args:
         grace_s: how long the loop may take to acknowledge the first signal (default
             :data:`GRACE_S`).
-        rescue: called (from a helper thread, without JAX) before a forced exit.
-        log: called with a line of text about a forced exit.
         exit: how to end the process (default ``os._exit``).
     """
     grace_s = GRACE_S if grace_s is None else grace_s
@@ -68,14 +73,14 @@ def stop_on_signals(*, grace_s: float | None = None, rescue: Callable[[str], Non
 
     def forced(signum: int, why: str) -> None:
         text = f"{signal.Signals(signum).name}: {why}"
-        if rescue is not None:
+        if flag.rescue is not None:
             try:
-                rescue(text)
+                flag.rescue(text)
             except Exception as exc:  # noqa: BLE001 - exit anyway
                 text += f"; saving the best pulse failed: {exc}"
-        if log is not None:
+        if flag.log is not None:
             try:
-                log(text)
+                flag.log(text)
             except Exception:  # noqa: BLE001
                 pass
         exit(EXIT_CODES.get(signum, 130))

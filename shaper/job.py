@@ -52,6 +52,8 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
     """
     if folder.exists() and not folder.is_dir():
         raise ResultError(f"{folder} is a file, not a folder; choose another --out")
+    if folder.is_dir():
+        atomic.lock_folder(folder)  # first: another live run there is the first thing to say
     if resume:
         if not any(folder.glob("checkpoint-*.npz")):
             raise ResultError(f"{folder}: no checkpoint to resume from (checkpoint-<i>.npz); "

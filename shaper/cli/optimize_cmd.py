@@ -92,6 +92,13 @@ class RunLog:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.interrupt import stop_on_signals
+
+    with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
+        return _run(args, stop)
+
+
+def _run(args: argparse.Namespace, stop) -> int:
     from shaper.errors import InputError
     from shaper.recipe import load_recipe
 
@@ -107,7 +114,6 @@ def run(args: argparse.Namespace) -> int:
     if not stall_limit > 0:
         raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
     recipe = load_recipe(args.recipe)
-    from shaper.interrupt import stop_on_signals
     from shaper.job import prepare_folder, rescue_writer
     from shaper.job import run as run_job
     from shaper.starts import with_budget
@@ -118,6 +124,9 @@ def run(args: argparse.Namespace) -> int:
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
     folder = Path(args.out) if args.out else Path("results") / recipe.name
+    if stop:  # stopped while starting: nothing to save yet
+        print("shaper optimize: interrupted before the run began", file=sys.stderr)
+        return stop.exit_code
     prepare_folder(folder, args.force, args.resume)
     log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
     log.line(f"{'resuming' if args.resume else 'starting'} {recipe.name} from {args.recipe}: "
@@ -134,7 +143,8 @@ def run(args: argparse.Namespace) -> int:
     logging.getLogger("shaper").addHandler(handler)
     watchdog = Watchdog(limit_s=stall_limit, log=log.line)
     watchdog.rescue = rescue_writer(folder, watchdog)
-    with watchdog, stop_on_signals(rescue=watchdog.rescue, log=log.line) as stop:
+    stop.rescue, stop.log = watchdog.rescue, log.line
+    with watchdog:
         try:
             output = run_job(recipe, out=folder, force=args.force, seed=args.seed,
                              progress=progress, plots_too=not args.no_plots, resume=args.resume,

@@ -27,6 +27,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.interrupt import stop_on_signals
+
+    with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
+        return _run(args, stop)
+
+
+def _run(args: argparse.Namespace, stop) -> int:
     from shaper.errors import InputError
     from shaper.recipe import load_recipe
     from shaper.sweep import parse_durations
@@ -41,7 +48,6 @@ def run(args: argparse.Namespace) -> int:
     from dataclasses import replace
 
     from shaper import atomic
-    from shaper.interrupt import stop_on_signals
     from shaper.job import finish
     from shaper.plots import plot_sweep
     from shaper.sweep import Sweep
@@ -54,11 +60,12 @@ def run(args: argparse.Namespace) -> int:
                                                                       flush=True))
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
+    if stop:
+        return stop.exit_code
     atomic.lock_folder(folder)
-    with stop_on_signals() as stop:
-        sweep = Sweep(recipe, folder, seed=args.seed, resume=args.resume, stop=stop, echo=echo,
-                      workers=workers if starts > 1 else 1)
-        shortest = sweep.run(durations)
+    sweep = Sweep(recipe, folder, seed=args.seed, resume=args.resume, stop=stop, echo=echo,
+                  workers=workers if starts > 1 else 1)
+    shortest = sweep.run(durations)
     table = sweep.table()
     atomic.write_text(folder / "sweep.md", f"# Duration sweep of {recipe.name}\n\n{table}")
     o = recipe.optimizer
