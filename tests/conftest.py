@@ -6,4 +6,4 @@ import tempfile
 os.environ.setdefault("SHAPER_CACHE_DIR", os.path.join(tempfile.gettempdir(),
                                                        "shaper-test-jax-cache"))
 
-import shaper._jax  # noqa: E402,F401  (jax_enable_x64 before any array is made)
+import shaper.physics._jax  # noqa: E402,F401  (jax_enable_x64 before any array is made)

@@ -7,7 +7,7 @@ import scipy.linalg
 
 
 def expm_product(drift, controls, samples, dt) -> np.ndarray:
-    """U = U_{n-1} ... U_0 with U_j = scipy.linalg.expm(-2 pi i dt H_j) (CONVENTIONS §1, §4)."""
+    """U = U_{n-1} ... U_0 with U_j = scipy.linalg.expm(-2 pi i dt H_j) (README, "Conventions")."""
     u = np.eye(drift.shape[0], dtype=complex)
     for row in np.asarray(samples, float):
         h = drift + np.tensordot(row, controls, axes=1)
@@ -31,7 +31,7 @@ def subspace_leakage(u, comp) -> float:
 
 def duffing(levels, detuning_hz, alpha_hz):
     """The Duffing transmon of Koch et al., Phys. Rev. A 76, 042319 (2007), drive frame,
-    built here by hand: drift and the I, Q operators of CONVENTIONS §2."""
+    built here by hand: drift and the I, Q operators of the README's "Conventions"."""
     n = np.arange(levels)
     drift = np.diag(detuning_hz * n + 0.5 * alpha_hz * n * (n - 1)).astype(complex)
     a = np.diag(np.sqrt(np.arange(1, levels)), 1).astype(complex)

@@ -4,7 +4,7 @@ import pytest
 
 from shaper import costs
 from shaper.errors import InputError
-from shaper.objective import make_objective
+from shaper.optimise.objective import make_objective
 from shaper.recipe import load_recipe
 
 DEMO = {"name": "c", "system": {"model": "transmon", "levels": 3, "qubit_frequency": "5 GHz",
@@ -50,3 +50,49 @@ def test_out_of_band_fraction_of_pure_tones():
         samples = jnp.asarray(np.column_stack([z.real, z.imag]))
         frac = float(costs.out_of_band(samples, dt, 100e6, np.array([[0, 1]]), np.array([], int)))
         assert frac == pytest.approx(expected, abs=1e-2)
+
+
+# every registered term switched on at once (two transmons, flux, bandwidth, an ensemble)
+EVERY_TERM = {
+    "name": "every", "system": {"model": "transmons", "transmon": [
+        {"name": "qa", "levels": 3, "qubit_frequency": "5 GHz", "anharmonicity": "-200 MHz",
+         "flux": True},
+        {"name": "qb", "levels": 3, "qubit_frequency": "5.3 GHz", "anharmonicity": "-200 MHz"}],
+        "coupling": [{"between": ["qa", "qb"], "strength": "5 MHz"}]},
+    "gate": {"target": "CZ", "virtual_z": True},
+    "pulse": {"duration": "10 ns", "sample_rate": "2 GS/s", "max_rabi": "40 MHz",
+              "max_flux": "500 MHz", "bandwidth": "150 MHz"},
+    "cost": {"leakage": 1.0, "smoothness": 0.1, "amplitude": 1.0,
+             "ensemble_scales": [0.98, 1.02]},
+}
+
+
+def test_every_registered_term_has_a_default_weight_and_a_recipe_key():
+    from shaper.recipe.schema import DEFAULT_WEIGHTS, KEYS
+
+    assert set(costs.TERMS) == set(DEFAULT_WEIGHTS)
+    assert set(DEFAULT_WEIGHTS) - {"infidelity"} <= set(KEYS["cost"])
+
+
+@pytest.mark.parametrize("where", ["zero", "limit"])
+def test_battery_of_every_registered_term(where):
+    # each term: finite value and finite float64 gradient at zero controls (levels 0 and 1
+    # degenerate: the case where naive derivatives give NaN) and deep at the amplitude
+    # limit; the second call does not compile again
+    objective = make_objective(load_recipe(EVERY_TERM))
+    assert set(objective.names) == set(costs.TERMS)
+    shape = (objective.layout.slices, objective.layout.controls)
+    x = jnp.zeros(shape) if where == "zero" else jnp.full(shape, 40.0)
+    w = jnp.asarray(objective.weights)
+    for _ in range(2):
+        (total, (parts, scores)), grad = objective.value_and_grad(x, objective.problem, w)
+    assert len(objective.traces) == 1
+    assert grad.dtype == jnp.float64 and total.dtype == jnp.float64
+    assert np.all(np.isfinite(np.asarray(grad)))
+    for name in costs.TERMS:
+        assert np.isfinite(float(parts[name])), name
+        # each term alone has a finite gradient too
+        alone = jnp.asarray([1.0 if n == name else 0.0 for n in objective.names])
+        (_, _), g = objective.value_and_grad(x, objective.problem, alone)
+        assert np.all(np.isfinite(np.asarray(g))), name
+    assert len(objective.traces) == 1

@@ -12,12 +12,12 @@ from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
 
 from shaper.cli.main import main
 from shaper.errors import WaveformError
-from shaper.export import make_waveform, resample, simulate_played
-from shaper.job import run
-from shaper.modulation import demodulate, modulate
+from shaper.io.waveform_import import read_any
+from shaper.io.waveio import read_waveform
+from shaper.jobs.export import make_waveform, resample, simulate_played
+from shaper.jobs.run import run
 from shaper.recipe import load_recipe
-from shaper.waveform_import import read_any
-from shaper.waveio import read_waveform
+from shaper.signal.modulation import demodulate, modulate
 
 ROOT = Path(__file__).parent.parent
 X = np.array([[0, 1], [1, 0]], complex)
@@ -71,7 +71,7 @@ def test_round_trip_within_half_a_dac_step(demo, tmp_path):
     for bits in (16, 12):
         settings = recipe.export.__class__(**{**recipe.export.__dict__, "dac_bits": bits})
         wave, _ = make_waveform(recipe, demo.result.samples, settings, recipe.sample_rate_hz)
-        from shaper.waveio import write_waveform
+        from shaper.io.waveio import write_waveform
         folder = tmp_path / str(bits)
         folder.mkdir()
         write_waveform(folder, "w", wave, recipe.system, recipe_name="x", recipe_sha256="0")

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from helpers import duffing, expm_product, pedersen_fidelity, random_hermitian, subspace_leakage
 
-from shaper.figures import (
+from shaper.physics.figures import (
     apply_frame,
     average_gate_fidelity,
     best_frame_angles,
@@ -13,8 +13,8 @@ from shaper.figures import (
     project,
     state_figures,
 )
-from shaper.propagator import propagate
-from shaper.targets import gate
+from shaper.physics.propagator import propagate
+from shaper.physics.targets import gate
 
 
 def rz(phi):
@@ -127,7 +127,7 @@ def test_state_transfer():
 def test_frame_angles_follow_the_documented_choice():
     # X-type gate: Z(a) X Z(b) = X Z(b - a) up to a global phase (a Pauli identity, common
     # practice, no source), so only b - a is fixed; the documented choice puts before = 0.
-    from shaper.figures import best_frame_angles, gate_figures
+    from shaper.physics.figures import best_frame_angles, gate_figures
 
     x = np.array([[0, 1], [1, 0]], complex)
 

@@ -3,12 +3,12 @@ import pytest
 from helpers import duffing
 
 from shaper.errors import InputError
-from shaper.systems import TransmonSpec, coupled_transmons, from_matrices, transmon
-from shaper.targets import gate, state_transfer
+from shaper.physics.systems import TransmonSpec, coupled_transmons, from_matrices, transmon
+from shaper.physics.targets import gate, state_transfer
 
 
 def test_transmon_matches_duffing_model_by_hand():
-    # Koch et al., Phys. Rev. A 76, 042319 (2007), Duffing form, drive frame (CONVENTIONS §2)
+    # Koch et al., Phys. Rev. A 76, 042319 (2007), Duffing form, drive frame (README, "Conventions")
     s = transmon(5, 5.1e9, -220e6, drive_frequency_hz=5.097e9)
     drift, controls = duffing(5, 3e6, -220e6)
     assert np.allclose(s.drift, drift, atol=1e-6)
@@ -33,7 +33,7 @@ def test_coupled_transmons_order_coupling_and_flux():
     # computational states |00>, |01>, |10>, |11> with the first transmon leftmost
     assert list(s.computational) == [0, 1, 3, 4]
     assert s.control_names == ("a_i", "a_q", "b_i", "b_q", "b_flux")
-    # <01| H |10> = g  (a^dag b + b^dag a, CONVENTIONS §3 / issue text)
+    # <01| H |10> = g  (a^dag b + b^dag a, README "Conventions")
     assert s.drift[1, 3] == pytest.approx(10e6)
     # |01> has b excited: detuning of b from the frame (a's frequency) is 500 MHz
     assert s.drift[1, 1].real == pytest.approx(0.5e9)

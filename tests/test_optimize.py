@@ -11,8 +11,8 @@ import pytest
 from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
 
 import shaper
+from shaper.optimise.starts import optimize
 from shaper.recipe import load_recipe
-from shaper.starts import optimize
 
 ROOT = Path(__file__).parent.parent
 DEMO = ROOT / "recipes" / "demo-x180.toml"

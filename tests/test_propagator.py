@@ -5,9 +5,9 @@ import pytest
 from helpers import duffing, expm_product, random_hermitian
 
 from shaper.errors import InputError
-from shaper.figures import gate_figures, project
-from shaper.propagator import propagate
-from shaper.targets import gate
+from shaper.physics.figures import gate_figures, project
+from shaper.physics.propagator import propagate
+from shaper.physics.targets import gate
 
 DT = 1 / 2.4e9
 
@@ -102,8 +102,9 @@ def test_gradient_against_finite_differences(case):
 
 
 def test_autodiff_through_eigh_would_fail_here():
-    # The reason for the custom derivative (ENGINE-NOTES): plain autodiff through eigh at a
-    # degenerate spectrum gives NaN. If this ever stops failing, the note can be revisited.
+    # The reason for the custom derivative (measured before the engine was written): plain
+    # autodiff through eigh at a degenerate spectrum gives NaN. If this ever stops failing,
+    # the note can be revisited.
     drift, controls = duffing(3, 0.0, -220e6)
 
     def naive(s):

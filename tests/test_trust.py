@@ -13,12 +13,12 @@ import numpy as np
 import pytest
 from helpers import duffing, expm_product, pedersen_fidelity
 
+from shaper.costs.problem import recipe_layout
 from shaper.errors import RecipeError
-from shaper.export import make_waveform
-from shaper.objective import recipe_layout
-from shaper.pulses import to_samples
+from shaper.jobs.export import make_waveform
+from shaper.optimise.starts import optimize
 from shaper.recipe import load_recipe
-from shaper.starts import optimize
+from shaper.signal.pulses import to_samples
 
 ROOT = Path(__file__).parent.parent
 Y = np.array([[0, -1j], [1j, 0]])
@@ -51,7 +51,7 @@ def test_a_robust_run_is_judged_on_every_member(tmp_path):
     # system only. Reference: each member re-simulated independently (scipy expm on the
     # hand-built Duffing model of Koch et al., Phys. Rev. A 76, 042319 (2007), detuned
     # and scaled), the figures of Pedersen et al., Phys. Lett. A 367, 47 (2007).
-    from shaper.job import finish
+    from shaper.jobs.run import finish
 
     result = optimize(ROBUST_Y)
     out = finish(result, tmp_path, plots_too=False)
@@ -109,7 +109,7 @@ def test_every_channel_keeps_its_own_limit_whatever_the_names(tmp_path, second):
     params = rng.normal(scale=30.0, size=(layout.slices, layout.controls))  # deep saturation
     samples = to_samples(params, layout)
     wave, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
-    from shaper import waveio
+    from shaper.io import waveio
     files = waveio.write_waveform(tmp_path, recipe.name, wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     assert all(tmp_path in f.resolve().parents for f in files)

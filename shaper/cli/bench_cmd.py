@@ -16,7 +16,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.bench import bench
+    from shaper.jobs.bench import bench
 
     bench(quick=args.quick, out=Path(args.out), methods=tuple(args.method or ("eigh", "pade")))
     return 0

@@ -26,11 +26,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.check import check_waveform
     from shaper.errors import InputError
+    from shaper.io.waveform_import import read_any
+    from shaper.jobs.check import check_waveform
     from shaper.recipe import load_recipe
-    from shaper.units import parse_quantity
-    from shaper.waveform_import import read_any
+    from shaper.recipe.units import parse_quantity
 
     recipe = load_recipe(args.recipe)
     rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
@@ -47,7 +47,7 @@ def run(args: argparse.Namespace) -> int:
                                      scale_span=args.scale_span)
     verdict["waveform"] = str(args.waveform)
     if args.plots:
-        from shaper.check import write_check_plots
+        from shaper.jobs.check import write_check_plots
         write_check_plots(Path(args.plots), verdict, curves)
     if args.json:
         print(json.dumps(verdict))

@@ -27,8 +27,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from shaper.errors import InputError
-    from shaper.export import reexport
-    from shaper.units import parse_quantity
+    from shaper.jobs.export import reexport
+    from shaper.recipe.units import parse_quantity
 
     if args.bits is not None and not 2 <= args.bits <= 32:
         raise InputError(f"--bits must be between 2 and 32, got {args.bits}")

@@ -80,7 +80,7 @@ class RunLog:
         self.path, self.echo = path, echo
 
     def line(self, text: str, echo: bool = True) -> None:
-        from shaper.atomic import append_line
+        from shaper.io.atomic import append_line
         append_line(self.path, f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}")
         if echo and self.echo is not None:
             print(text, file=self.echo, flush=True)
@@ -92,7 +92,7 @@ class RunLog:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.interrupt import stop_on_signals
+    from shaper.optimise.interrupt import stop_on_signals
 
     with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
         return _run(args, stop)
@@ -108,16 +108,17 @@ def _run(args: argparse.Namespace, stop) -> int:
             raise InputError(f"--{name.replace('_', '-')} must be at least 1, got {value}")
     if args.hours is not None and not args.hours > 0:
         raise InputError(f"--hours must be positive, got {args.hours}")
-    from shaper.units import parse_quantity
+    from shaper.recipe.units import parse_quantity
     stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit",
                                  bare_check=False)
     if not stall_limit > 0:
         raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
     recipe = load_recipe(args.recipe)
-    from shaper.job import prepare_folder, rescue_writer
-    from shaper.job import run as run_job
-    from shaper.starts import with_budget
-    from shaper.watchdog import Watchdog
+    from shaper.jobs.run import prepare_folder, rescue_writer
+    from shaper.jobs.run import run as run_job
+    from shaper.optimise.options import RunOptions
+    from shaper.optimise.starts import with_budget
+    from shaper.optimise.watchdog import Watchdog
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
@@ -146,11 +147,13 @@ def _run(args: argparse.Namespace, stop) -> int:
     stop.rescue, stop.log = watchdog.rescue, log.line
     with watchdog:
         try:
-            output = run_job(recipe, out=folder, force=args.force, seed=args.seed,
-                             progress=progress, plots_too=not args.no_plots, resume=args.resume,
-                             workers=workers if starts > 1 else 1, stop=stop, log=log,
-                             checkpoint_every=args.checkpoint_every,
-                             checkpoint_seconds=args.checkpoint_seconds, watchdog=watchdog)
+            options = RunOptions(seed=args.seed, folder=folder, resume=args.resume,
+                                 workers=workers if starts > 1 else 1,
+                                 checkpoint_every=args.checkpoint_every,
+                                 checkpoint_seconds=args.checkpoint_seconds, progress=progress,
+                                 on_start_done=log, stop=stop, watchdog=watchdog)
+            output = run_job(recipe, options, out=folder, force=args.force,
+                             plots_too=not args.no_plots)
         finally:
             progress.close()
             logging.getLogger("shaper").removeHandler(handler)

@@ -27,7 +27,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.interrupt import stop_on_signals
+    from shaper.optimise.interrupt import stop_on_signals
 
     with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
         return _run(args, stop)
@@ -35,8 +35,8 @@ def run(args: argparse.Namespace) -> int:
 
 def _run(args: argparse.Namespace, stop) -> int:
     from shaper.errors import InputError
+    from shaper.jobs.sweep import parse_durations
     from shaper.recipe import load_recipe
-    from shaper.sweep import parse_durations
 
     for name in ("starts", "workers"):
         value = getattr(args, name)
@@ -47,11 +47,11 @@ def _run(args: argparse.Namespace, stop) -> int:
     import os
     from dataclasses import replace
 
-    from shaper import atomic
-    from shaper.job import finish
-    from shaper.plots import plot_sweep
-    from shaper.sweep import Sweep
-    from shaper.units import format_quantity
+    from shaper.io import atomic
+    from shaper.jobs.plots import plot_sweep
+    from shaper.jobs.run import finish
+    from shaper.jobs.sweep import Sweep
+    from shaper.recipe.units import format_quantity
 
     if args.starts:
         recipe = replace(recipe, optimizer=replace(recipe.optimizer, starts=args.starts))

@@ -1,0 +1,159 @@
+"""The problem as it crosses ``jit``: the system, target and ensemble arrays of a recipe,
+and the figures of every member from one batched propagation.
+
+:class:`Problem` is built once per recipe (:func:`make_problem`); the cost terms
+(:mod:`shaper.costs.terms`) read the :class:`Evaluation` that :func:`evaluate_members`
+returns. A problem that could not fit in this machine's memory is refused here, before
+anything is allocated.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from shaper.physics import _jax  # noqa: F401
+from shaper.physics.figures import Figures, gate_figures, project, state_figures
+from shaper.physics.propagator import ordered_product, slice_unitaries
+from shaper.recipe import Recipe
+from shaper.signal.pulses import Layout, make_layout
+
+
+class Problem(NamedTuple):
+    """The arrays of one optimisation problem, as they cross ``jit``.
+
+    Shapes: d levels, k controls, d_c computational states, q qubits, e ensemble members.
+    """
+
+    drift: jax.Array            # (d, d) complex128, Hz
+    controls: jax.Array         # (k, d, d) complex128, dimensionless
+    dt: jax.Array               # () float64, seconds per AWG sample
+    computational: jax.Array    # (d_c,) int, indices of computational states
+    target: jax.Array           # (d_c, d_c) complex128 target gate (zeros for a transfer)
+    initial: jax.Array          # (d_c,) complex128 initial state of a transfer (else zeros)
+    final: jax.Array            # (d_c,) complex128 final state of a transfer (else zeros)
+    number_operators: jax.Array  # (q, d, d) complex128, level number per subsystem
+    detunings: jax.Array        # (m, q) float64, Hz: detuning offset of each member per qubit
+    scales: jax.Array           # (m,) float64: amplitude scale factor of each member
+    #                             member 0 is the nominal system (0 Hz, 1.0); members 1..m-1
+    #                             are the robustness ensemble, if the recipe has one
+    envelope: jax.Array         # (n,) float64 in [0, 1]: fixed factor per AWG sample
+    active: jax.Array           # (m,) float64, 1 or 0: propagator slices that take dt
+    #                             (0: padding to a shared size, an identity slice)
+
+
+class Evaluation(NamedTuple):
+    """The figures of every member of a problem, from one batched propagation."""
+
+    nominal: Figures  # member 0: the system as the recipe gives it
+    members: Figures  # every member, each field with a leading (m,) axis (row 0 = nominal)
+
+
+def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
+             virtual_z: bool, method: str = "eigh", drive: Callable | None = None) -> Figures:
+    """Fidelity and leakage of the samples on the problem's system (nominal parameters).
+
+    ``drive``, if given, maps the AWG's samples to what the propagator sees on the grid of
+    ``problem.dt`` (for IF exports: the held modulated samples on sub-steps).
+    """
+    if drive is not None:
+        samples = drive(samples)
+    dt = (problem.dt * problem.active)[:, None, None]
+    u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
+                                        method=method))
+    return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
+
+
+def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
+                     virtual_z: bool, method: str = "eigh",
+                     drive: Callable | None = None) -> Evaluation:
+    """Figures of the nominal system and of every ensemble member, in ONE batched propagation.
+
+    Member m sees ``drift + sum_q detunings[m, q] n_q`` and the samples times ``scales[m]``.
+    Batching all members with ``jax.vmap`` is not only cheaper than separate calls: it
+    keeps every compiled objective to a single batched eigendecomposition, which is what
+    avoids the LAPACK thread-pool deadlock described in DEVELOPERS.md ("One
+    eigendecomposition per program").
+    """
+    def one(detuning, scale):
+        drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
+        return evaluate(samples * scale, problem._replace(drift=drift), qubits=qubits,
+                        is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive)
+
+    members = jax.vmap(one)(problem.detunings, problem.scales)
+    return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], members), members=members)
+
+
+def figures_of(u: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
+               virtual_z: bool) -> Figures:
+    if is_gate:
+        return gate_figures(project(u, problem.computational), problem.target, qubits=qubits,
+                            virtual_z=virtual_z)
+    return state_figures(u, problem.initial, problem.final, problem.computational, qubits)
+
+
+def recipe_layout(recipe: Recipe) -> Layout:
+    return make_layout(recipe.system, recipe.limits_hz, recipe.samples, hold=recipe.hold,
+                       zero_ends=recipe.zero_ends, ramp_samples=recipe.ramp_samples)
+
+
+def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | None = None,
+                 steps: int = 1) -> Problem:
+    """The recipe's arrays; with a padded ``layout``, slices past ``real`` samples are identities.
+
+    ``steps`` > 1: the propagator runs on that many sub-steps per sample (IF exports).
+    """
+    layout = layout or recipe_layout(recipe)
+    real = layout.samples if real is None else real
+    active = np.repeat((np.arange(layout.samples) < real).astype(float), steps)
+    s, t = recipe.system, recipe.target
+    dc = len(s.computational)
+    subsystems = len(s.number_operators)
+    if has_ensemble(recipe):  # member 0 is the nominal system, the ensemble follows
+        ensemble_detunings = np.asarray(recipe.ensemble_detunings_hz, float).reshape(-1, subsystems)
+        ensemble_scales = np.asarray(recipe.ensemble_scales, float)
+    else:
+        ensemble_detunings, ensemble_scales = np.zeros((0, subsystems)), np.zeros(0)
+    zeros_vec = np.zeros(dc, complex)
+    return Problem(
+        drift=jnp.asarray(s.drift), controls=jnp.asarray(s.controls),
+        dt=jnp.asarray(recipe.dt), computational=jnp.asarray(s.computational),
+        target=jnp.asarray(t.unitary if t.is_gate else np.zeros((dc, dc), complex)),
+        initial=jnp.asarray(zeros_vec if t.is_gate else t.initial),
+        final=jnp.asarray(zeros_vec if t.is_gate else t.final),
+        number_operators=jnp.asarray(s.number_operators),
+        detunings=jnp.asarray(np.concatenate([np.zeros((1, subsystems)), ensemble_detunings]),
+                              dtype=jnp.float64),
+        scales=jnp.asarray(np.concatenate([[1.0], ensemble_scales]), dtype=jnp.float64),
+        envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active))
+
+
+def waveform_problem(recipe: Recipe, samples: int, *, steps: int = 1,
+                     dt: float | None = None) -> Problem:
+    """The recipe's system, target and ensemble for a waveform of ``samples`` samples.
+
+    A waveform file may be longer or shorter than the recipe's pulse (granularity
+    padding, a hold, another recipe's file): the recipe supplies the physics, the file
+    the samples. Every slice is active; ``dt`` (default the recipe's) is the sample
+    period, divided into ``steps`` propagator slices.
+    """
+    problem = make_problem(recipe)
+    period = recipe.dt if dt is None else dt
+    return problem._replace(dt=jnp.asarray(period / steps),
+                            envelope=jnp.ones(samples), active=jnp.ones(samples * steps))
+
+
+def has_ensemble(recipe: Recipe) -> bool:
+    """True when the recipe asks for robustness over detunings or amplitude scales."""
+    return (len(recipe.ensemble_scales) > 1 or bool(np.any(recipe.ensemble_detunings_hz != 0))
+            or bool(np.any(recipe.ensemble_scales != 1))) and recipe.weights["robustness"] > 0
+
+
+def qubit_count(recipe: Recipe) -> int:
+    return max(1, int(round(np.log2(len(recipe.system.computational)))))
+
+

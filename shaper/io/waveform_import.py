@@ -1,0 +1,209 @@
+"""Read a waveform from anywhere: our CSV + JSON, a plain CSV, or numpy ``.npy``/``.npz``.
+
+Files without a sidecar do not say their sample rate or full scale: the caller
+gives them (``shaper check ... --sample-rate 2.4GS/s --full-scale 60MHz``). Values are
+fractions of full scale in [-1, 1]; columns follow the recipe's control order
+(``<ch>_i``, ``<ch>_q``, baseband ``<ch>``), or are named in a header row.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+from shaper.errors import WaveformError
+from shaper.io.waveio import Waveform, read_lines, read_waveform
+from shaper.physics.systems import System
+
+
+def _check_values(path: Path, data: np.ndarray) -> None:
+    if data.size == 0 or data.ndim != 2 or data.shape[0] == 0:
+        raise WaveformError(f"{path}: empty: expected at least one sample of every column")
+    if not np.all(np.isfinite(data)):
+        rows = np.unique(np.nonzero(~np.isfinite(data))[0])
+        raise WaveformError(f"{path}: NaN or infinite values in row(s) "
+                            f"{', '.join(map(str, rows[:5]))}")
+    over = np.abs(data) > 1.0 + 1e-12
+    if np.any(over):
+        rows = np.unique(np.nonzero(over)[0])
+        raise WaveformError(f"{path}: values beyond full scale (|x| > 1, up to "
+                            f"{np.max(np.abs(data)):.6g}) in row(s) "
+                            f"{', '.join(map(str, rows[:5]))}; the file must hold fractions of "
+                            f"full scale")
+
+
+def _order(path: Path, names: list[str], data: np.ndarray, system: System) -> np.ndarray:
+    missing = [c for c in system.control_names if c not in names]
+    if missing:
+        raise WaveformError(f"{path}: missing column(s) {', '.join(missing)}; the recipe's "
+                            f"controls are {', '.join(system.control_names)}")
+    extra = [c for c in names if c not in system.control_names]
+    if extra:
+        raise WaveformError(f"{path}: unknown column(s) {', '.join(extra)}; the recipe's "
+                            f"controls are {', '.join(system.control_names)}")
+    return data[:, [names.index(c) for c in system.control_names]]
+
+
+def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None = None,
+             full_scale_hz: float | dict[str, float] | None = None) -> Waveform:
+    """Read a waveform file for ``system``; columns come back in its control order.
+
+    Args:
+        path: ``.csv`` (with a ``.json`` sidecar, or plain), ``.npy`` or ``.npz``.
+        system: the system the waveform will drive (its control names order the columns).
+        sample_rate_hz, full_scale_hz: required where the file does not carry them.
+
+    Raises:
+        WaveformError: unreadable, empty, NaN, beyond full scale, missing columns,
+            uneven time steps, a missing sample rate or full scale.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise WaveformError(f"{path}: no such file")
+    if path.suffix == ".csv" and path.with_suffix(".json").is_file():
+        wave = read_waveform(path)
+        if set(wave.full_scale_hz) != {c.name for c in system.channels}:
+            raise WaveformError(f"{path}: channels {sorted(wave.full_scale_hz)} do not match "
+                                f"the recipe's {sorted(c.name for c in system.channels)}")
+        fractions = _order(path, list(wave.column_names), wave.fractions, system)
+        return replace(wave, fractions=fractions, column_names=system.control_names)
+    meta_rate, meta_scale = None, None
+    if path.suffix == ".csv":
+        names, data, times = _read_plain_csv(path, system)
+    elif path.suffix == ".npy":
+        data = _load_numpy(path)
+        names, times = list(system.control_names), None
+    elif path.suffix == ".npz":
+        with _open_npz(path) as archive:
+            if "samples" not in archive:
+                raise WaveformError(f"{path}: expected an array named 'samples' (n, controls)")
+            data = _real(path, archive["samples"])
+            names = [str(c) for c in archive["columns"]] if "columns" in archive \
+                else list(system.control_names)
+            meta_rate = _scalar(path, archive, "sample_rate_hz")
+            meta_scale = _scalar(path, archive, "full_scale_hz")
+        times = None
+    else:
+        raise WaveformError(f"{path}: unknown waveform type {path.suffix!r}; use .csv, .npy "
+                            f"or .npz")
+    if data.ndim == 1 and len(system.control_names) == 1:
+        data = data[:, None]
+    if data.ndim != 2 or data.shape[1] != len(names):
+        raise WaveformError(f"{path}: expected {len(names)} column(s) "
+                            f"({', '.join(names)}), got shape {data.shape}")
+    _check_values(path, data)
+    rate = sample_rate_hz or meta_rate
+    scale = full_scale_hz if full_scale_hz is not None else meta_scale
+    if rate is None:
+        raise WaveformError(f"{path}: the file does not give its sample rate; pass "
+                            f"--sample-rate (e.g. 2.4GS/s)")
+    if scale is None:
+        raise WaveformError(f"{path}: the file does not give its full scale; pass "
+                            f"--full-scale (the Rabi frequency of 1.0, e.g. 60MHz)")
+    if times is not None and len(times) > 1 and not np.allclose(np.diff(times), 1 / rate,
+                                                                  rtol=1e-6, atol=0):
+        raise WaveformError(f"{path}: time steps are uneven or do not match the sample rate "
+                            f"{rate} Hz")
+    full = scale if isinstance(scale, dict) else {c.name: float(scale) for c in system.channels}
+    return Waveform(fractions=_order(path, names, data, system), sample_rate_hz=float(rate),
+                    full_scale_hz=full, column_names=system.control_names)
+
+
+def _real(path: Path, data) -> np.ndarray:
+    data = np.asarray(data)
+    if np.iscomplexobj(data):
+        raise WaveformError(f"{path}: complex values; store I and Q as separate real columns "
+                            f"(fractions of full scale), in the recipe's control order")
+    if data.dtype.kind not in "fiub":
+        raise WaveformError(f"{path}: expected numbers, got an array of {data.dtype}")
+    return data.astype(float)
+
+
+def _load_numpy(path: Path) -> np.ndarray:
+    try:
+        return _real(path, np.load(path, allow_pickle=False))
+    except (ValueError, OSError, EOFError) as exc:
+        raise WaveformError(f"{path}: not a numpy array file: {exc}") from None
+
+
+def _scalar(path: Path, archive, key: str) -> float | None:
+    if key not in archive:
+        return None
+    value = _real(path, archive[key])
+    if value.size != 1 or not np.isfinite(value).all() or not float(value.ravel()[0]) > 0:
+        raise WaveformError(f"{path}: {key} must be one positive number (SI units), got "
+                            f"{value.ravel()[:3].tolist()}")
+    return float(value.ravel()[0])
+
+
+def _open_npz(path: Path):
+    try:
+        return np.load(path, allow_pickle=False)
+    except (ValueError, OSError) as exc:
+        raise WaveformError(f"{path}: not a numpy .npz archive: {exc}") from None
+
+
+def _read_plain_csv(path: Path, system: System):
+    lines = [ln for ln in read_lines(path) if ln.strip()]
+    if not lines:
+        raise WaveformError(f"{path}: empty: expected rows of comma-separated numbers")
+    first = [c.strip() for c in lines[0].split(",")]
+    try:
+        [float(c) for c in first]
+        header, rows = None, lines
+    except ValueError:
+        header, rows = first, lines[1:]
+    try:
+        data = np.array([[float(v) for v in row.split(",")] for row in rows], float)
+    except ValueError:
+        raise WaveformError(f"{path}: every value after the header must be a number") from None
+    if data.size == 0:
+        raise WaveformError(f"{path}: empty: a header but no samples")
+    if data.ndim != 2 or len({len(r.split(",")) for r in rows}) != 1:
+        raise WaveformError(f"{path}: rows have different numbers of values")
+    names = header or list(system.control_names)
+    if header is None and data.shape[1] == len(names) + 1:
+        names = ["time_s"] + names
+    times = None
+    if names and names[0] == "time_s":
+        times, data, names = data[:, 0], data[:, 1:], names[1:]
+    return names, data, times
+
+
+def read_first_guess(path: str, recipe) -> np.ndarray:
+    """A waveform file as baseband samples in Hz on the recipe's grid (a first guess).
+
+    A relative path is looked up beside the recipe first, then in the working folder. Files
+    without a sidecar are read with the recipe's sample rate and full scale.
+
+    Raises:
+        WaveformError: the file's columns, sample rate or length do not fit the recipe.
+    """
+    candidate = Path(path)
+    if not candidate.is_absolute() and recipe.path:
+        beside = Path(recipe.path).parent / candidate
+        candidate = beside if beside.exists() else candidate
+    system = recipe.system
+    wave = read_any(candidate, system, sample_rate_hz=recipe.sample_rate_hz,
+                    full_scale_hz=dict(recipe.export.full_scale_hz))
+    if abs(wave.sample_rate_hz - recipe.sample_rate_hz) > 1e-9 * recipe.sample_rate_hz:
+        raise WaveformError(f"{candidate}: sample rate {wave.sample_rate_hz} Hz, the recipe's "
+                            f"is {recipe.sample_rate_hz} Hz")
+    samples = wave.to_hz(system)
+    if wave.if_frequency_hz:
+        from shaper.signal.modulation import demodulate
+        samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
+                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
+    rest = samples[wave.pulse_start + recipe.samples:]
+    if np.any(rest != 0):
+        raise WaveformError(f"{candidate}: the pulse goes on past the recipe's {recipe.samples} "
+                            f"samples (non-zero samples up to "
+                            f"{wave.pulse_start + recipe.samples + np.nonzero(rest)[0].max()}); "
+                            f"a first guess must have the recipe's length")
+    samples = samples[wave.pulse_start:wave.pulse_start + recipe.samples]
+    if samples.shape[0] != recipe.samples:
+        raise WaveformError(f"{candidate}: {samples.shape[0]} pulse samples, the recipe needs "
+                            f"{recipe.samples}")
+    return samples

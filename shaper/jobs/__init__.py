@@ -1,0 +1,3 @@
+"""Stage 6, the jobs a user runs: optimise-export-report (:mod:`~shaper.jobs.run`), check,
+export, sweep, bench; with the textbook comparison and the plots they write.
+"""

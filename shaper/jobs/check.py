@@ -1,0 +1,142 @@
+"""The verdict on any waveform: fidelity, leakage, level populations and fragility.
+
+``check_waveform`` simulates a waveform (from any source) on a recipe's system,
+optionally with more transmon levels than the recipe keeps, and reports the figures
+of the README's "Conventions" (figures of merit), the population of every level at the
+end and its maximum during the pulse, the virtual Z angles, pass or fail against the
+recipe's targets, and the infidelity's response to a detuning offset and an amplitude
+scale error.
+"""
+
+from __future__ import annotations
+
+import copy
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from shaper.costs import evaluate
+from shaper.costs.problem import qubit_count, waveform_problem
+from shaper.errors import InputError
+from shaper.io.waveio import Waveform
+from shaper.jobs.export import judge_waveform, member_figures, simulate_played
+from shaper.recipe import Recipe, load_recipe
+from shaper.signal.chain import for_waveform
+
+
+def with_levels(recipe: Recipe, levels: int) -> Recipe:
+    """The same recipe with every transmon keeping ``levels`` levels.
+
+    Raises:
+        InputError: the model is not a transmon model, or levels < 2.
+    """
+    raw = copy.deepcopy(recipe.raw)
+    model = raw["system"]["model"]
+    if levels < 2:
+        raise InputError(f"--levels must be at least 2, got {levels}")
+    if model == "transmon":
+        raw["system"]["levels"] = levels
+    elif model == "transmons":
+        for item in raw["system"]["transmon"]:
+            item["levels"] = levels
+    else:
+        raise InputError(f"--levels applies to transmon models; this recipe's model is "
+                         f"{model!r}, whose matrices fix the levels")
+    return load_recipe(raw)
+
+
+def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
+                 scales: np.ndarray) -> dict:
+    qubits = qubit_count(recipe)
+    samples = wave.to_hz(recipe.system)
+    chain = for_waveform(recipe, wave)
+    problem = waveform_problem(recipe, samples.shape[0], steps=chain.steps, dt=chain.period_s)
+    flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
+                 drive=None if chain.identity else chain)
+    x = jnp.asarray(samples)
+
+    def infidelity(delta, scale):
+        drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
+        return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
+
+    vs_detuning = jax.jit(jax.vmap(lambda d: infidelity(d, 1.0)))(jnp.asarray(detunings))
+    vs_scale = jax.jit(jax.vmap(lambda s: infidelity(0.0, s)))(jnp.asarray(scales))
+    slope_d, slope_s = jax.grad(infidelity, argnums=(0, 1))(0.0, 1.0)
+    return {"detuning_hz": detunings.tolist(),
+            "infidelity_vs_detuning": np.asarray(vs_detuning).tolist(),
+            "amplitude_scale": scales.tolist(),
+            "infidelity_vs_scale": np.asarray(vs_scale).tolist(),
+            "d_infidelity_d_detuning_per_mhz": float(slope_d) * 1e6,
+            "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
+
+
+def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
+                   detuning_span_hz: float = 5e6, scale_span: float = 0.05,
+                   points: int = 21) -> tuple[dict, dict]:
+    """Simulate ``wave`` on the recipe's system and judge it.
+
+    Args:
+        recipe: the system, target, targets (and virtual Z setting).
+        wave: the waveform, its columns in the recipe's control order.
+        levels: keep this many levels per transmon instead of the recipe's.
+        detuning_span_hz, scale_span: the sensitivity scans cover +-span.
+        points: points per scan.
+
+    Returns:
+        (verdict, curves): ``verdict`` is JSON-ready (fidelity, infidelity, leakage,
+        populations, sensitivity, pass); ``curves`` holds arrays for plots.
+    """
+    if levels is not None:
+        recipe = with_levels(recipe, levels)
+    system = recipe.system
+    samples = wave.to_hz(system)
+    dt = 1.0 / wave.sample_rate_hz
+    sim = simulate_played(recipe, wave)
+    labels = system.level_labels()
+    populations = {}
+    for j, idx in enumerate(system.computational):
+        final, peak = sim.populations[j, -1], sim.populations[j].max(axis=0)
+        populations[labels[idx]] = {"final": dict(zip(labels, final.tolist(), strict=True)),
+                                    "max": dict(zip(labels, peak.tolist(), strict=True))}
+    outside = np.ones(system.dimension, bool)
+    outside[system.computational] = False
+    worst_outside = float(sim.populations[:, :, outside].max()) if outside.any() else 0.0
+    sens = _sensitivity(recipe, wave,
+                        np.linspace(-detuning_span_hz, detuning_span_hz, points),
+                        np.linspace(1 - scale_span, 1 + scale_span, points))
+    o = recipe.optimizer
+    members = member_figures(recipe, wave)
+    judged = judge_waveform(recipe, wave, sim, members)
+    verdict = {
+        **sim.figures(),
+        "pass": judged.met,
+        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
+                    "max_out_of_band": recipe.max_out_of_band if recipe.bandwidth_hz else None,
+                    **judged.as_dict()},
+        "ensemble": None if members is None else {"infidelity": members[0],
+                                                  "leakage": members[1]},
+        "levels": list(system.dims),
+        "samples": int(samples.shape[0]),
+        "sample_rate_hz": wave.sample_rate_hz,
+        "max_population_outside_qubit_levels": worst_outside,
+        "populations": populations,
+        "sensitivity": sens,
+        "recipe": recipe.name,
+    }
+    return verdict, {"wave": wave, "dt": dt, "simulation": sim, "recipe": recipe}
+
+
+def write_check_plots(folder, verdict: dict, curves: dict) -> list:
+    """sensitivity.png plus the waveform, spectrum (f01, f12 marked) and population plots."""
+    from pathlib import Path
+
+    from shaper.jobs.plots import plot_sensitivity
+    from shaper.jobs.run import write_plots
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    files = write_plots(folder, curves["recipe"], curves["wave"], curves["simulation"], None,
+                        dt=curves["dt"])
+    plot_sensitivity(folder / "sensitivity.png", verdict["sensitivity"])
+    return files + [folder / "sensitivity.png"]

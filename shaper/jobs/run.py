@@ -1,0 +1,261 @@
+"""One whole job: optimise a recipe, export the waveform, re-check it, write the report.
+
+The figures in ``report.json`` are computed on the exported samples (after DAC
+quantisation and padding), re-simulated from the file's numbers, not taken from
+the optimiser (README, "Output files").
+"""
+
+from __future__ import annotations
+
+import platform
+import time
+from dataclasses import dataclass, replace
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+from shaper.costs.problem import recipe_layout
+from shaper.errors import ResultError
+from shaper.io import atomic, waveio
+from shaper.jobs import plots
+from shaper.jobs.baselines import textbook_pulses
+from shaper.jobs.export import judge_waveform, make_waveform, member_figures, simulate_played
+from shaper.optimise.options import RunOptions
+from shaper.optimise.starts import Result, optimize, read_history
+from shaper.physics.simulation import Simulation
+from shaper.recipe import Recipe, load_recipe
+from shaper.signal.pulses import to_samples
+
+
+def versions() -> dict[str, str]:
+    out = {"python": platform.python_version()}
+    for package in ("shaper", "numpy", "scipy", "jax", "jaxlib", "optax", "matplotlib"):
+        try:
+            out[package] = metadata.version(package)
+        except metadata.PackageNotFoundError:
+            out[package] = "not installed"
+    return out
+
+
+@dataclass
+class RunOutput:
+    result: Result
+    report: dict
+    folder: Path
+    files: list[Path]
+
+
+def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
+    """Create and lock the run folder; refuse to overwrite an earlier run unless ``force``.
+
+    The lock (:func:`shaper.io.atomic.lock_folder`) keeps a second run out of the folder while
+    this process lives.
+    """
+    if folder.exists() and not folder.is_dir():
+        raise ResultError(f"{folder} is a file, not a folder; choose another --out")
+    if folder.is_dir():
+        atomic.lock_folder(folder)  # first: another live run there is the first thing to say
+    if resume:
+        if not any(folder.glob("checkpoint-*.npz")):
+            raise ResultError(f"{folder}: no checkpoint to resume from (checkpoint-<i>.npz); "
+                              f"start the run without --resume")
+        atomic.lock_folder(folder)
+        report = folder / "report.json"
+        if report.exists() and not force:
+            old = atomic.read_json(report, ResultError, "unreadable report")
+            if old.get("optimizer", {}).get("stop_reason") != "interrupted":
+                raise ResultError(f"{folder} holds a finished run (report.json); there is "
+                                  f"nothing to resume. Pass --force to export it again")
+        return
+    if (folder / "report.json").exists() and not force:
+        raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
+                          f"or pass --force to overwrite it")
+    if any(folder.glob("checkpoint-*.npz")) and not force:
+        raise ResultError(f"{folder} holds checkpoints of an unfinished run; pass --resume to "
+                          f"continue it or --force to start again")
+    folder.mkdir(parents=True, exist_ok=True)
+    atomic.lock_folder(folder)
+
+
+def build_report(result: Result, exported: Simulation, internal: Simulation,
+                 waveform: waveio.Waveform, clipped: int, csv_name: str) -> dict:
+    recipe, best, o = result.recipe, result.best, result.recipe.optimizer
+    members = member_figures(recipe, waveform)
+    verdict = judge_waveform(recipe, waveform, exported, members)
+    band = verdict.judged.get("out_of_band")
+    return {
+        **exported.figures(),
+        "waveform": csv_name,
+        "sidecar": Path(csv_name).with_suffix(".json").name,
+        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
+                    "max_out_of_band": recipe.max_out_of_band if band is not None else None,
+                    "ensemble_targets": o.ensemble_targets if members else None,
+                    **verdict.as_dict()},
+        "ensemble": None if members is None else {
+            "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
+            "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
+            "infidelity": members[0], "leakage": members[1]},
+        "out_of_band_fraction": band,
+        "bandwidth_cutoff_hz": recipe.bandwidth_hz,
+        "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),
+        "clipped_samples": clipped,
+        "before_quantisation": internal.figures(),
+        "costs": best.parts,
+        "cost_weights": dict(zip(result.objective.names, result.objective.weights.tolist(),
+                                 strict=True)),
+        "optimizer": {"method": o.method, "iterations": best.iterations,
+                      "evaluations": best.evaluations, "stop_reason": best.stop_reason,
+                      "stop_detail": best.stop_detail,
+                      "seed": best.seed, "compile_time_s": result.compile_time_s,
+                      "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
+                                  "infidelity": s.infidelity, "leakage": s.leakage,
+                                  "iterations": s.iterations,
+                                  "stop_reason": s.stop_reason, "wall_time_s": s.wall_time_s}
+                                 for s in result.starts]},
+        "samples": int(waveform.fractions.shape[0]),
+        "pulse_samples": recipe.samples,
+        "duration_s": recipe.duration_s,
+        "sample_rate_hz": recipe.sample_rate_hz,
+        "wall_time_s": result.wall_time_s,
+        "recipe": {"name": recipe.name, "path": recipe.path, "sha256": recipe.sha256,
+                   "content": recipe.raw},
+        "versions": versions(),
+        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "caution": waveio.CAUTION,
+    }
+
+
+def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | None = None,
+        force: bool = False, plots_too: bool = True, **option_fields) -> RunOutput:
+    """Optimise, export and report. Writes into ``out`` (default ``results/<name>``).
+
+    ``options`` (:class:`~shaper.optimise.options.RunOptions`, or single fields as
+    keywords) say how to run; its folder is ``out``, where checkpoints go and ``resume``
+    continues from them. Its ``stop`` turns truthy on a signal: the run then writes the
+    best pulse so far and a report with stop reason "interrupted". Its ``watchdog`` is
+    beaten after every evaluation and every later stage; :func:`rescue_writer` gives its
+    rescue.
+    """
+    recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
+        recipe_or_path)
+    folder = Path(out) if out is not None else Path("results") / recipe.name
+    options = (options or RunOptions()).with_(folder=folder, **option_fields)
+    prepare_folder(folder, force, options.resume)
+    if force and not options.resume:
+        for old in list(folder.glob("checkpoint-*.npz")) + [folder / "history.jsonl"]:
+            old.unlink(missing_ok=True)
+    result = optimize(recipe, options)
+    return finish(result, folder, plots_too=plots_too, watchdog=options.watchdog)
+
+
+def rescue_writer(folder: Path, watchdog):
+    """The rescue of a stuck run: checkpoint and best pulse so far, without JAX.
+
+    Called from the watchdog's or the signal helper's thread while the main thread may be
+    stuck inside a computation, so it uses only NumPy and file writes: the checkpoint of
+    the current start (its best point; ``--resume`` continues from there), the best
+    pulse's waveform files, and ``rescue.json`` saying why and that the figures are the
+    optimiser's, not re-simulated.
+    """
+    def rescue(message: str) -> None:
+        tracker = getattr(watchdog, "tracker", None)
+        if tracker is None or tracker.best is None:
+            return
+        recipe, layout = tracker.s.recipe, tracker.s.objective.layout
+        value, best_x, parts, infidelity, leakage = tracker.best
+        if tracker.s.checkpoint_path is not None:
+            tracker.save(best_x)
+        samples = to_samples(np.asarray(best_x, float), layout)[:recipe.samples]
+        waveform, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
+        files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+                                      recipe_name=recipe.name, recipe_sha256=recipe.sha256)
+        atomic.write_json(folder / "rescue.json", {
+            "stop_reason": message, "waveform": files[0].name,
+            "figures_source": "the optimiser's best evaluation, before export; not "
+                              "re-simulated (the computation was stuck)",
+            "infidelity": infidelity, "leakage": leakage, "cost": value, "costs": parts,
+            "start": tracker.s.index, "iteration": tracker.iteration,
+            "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "caution": waveio.CAUTION})
+    return rescue
+
+
+def finish(result: Result, folder: Path, *, plots_too: bool = True,
+           watchdog=None) -> RunOutput:
+    """Export the result's samples, re-check what the AWG plays, write report and plots.
+
+    Nothing finished is lost to a later step: the waveform files are written first, the
+    report as soon as its figures exist, and the extras (the textbook comparison, the
+    plots) are added afterwards; an extra that fails is recorded in the report
+    (``extras_failed``) instead of ending the job.
+    """
+    recipe = result.recipe
+    folder.mkdir(parents=True, exist_ok=True)
+
+    def stage(what: str) -> None:
+        if watchdog is not None:
+            watchdog.beat(what)
+    stage("export")
+    waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
+                                      recipe.sample_rate_hz)
+    files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+                                  recipe_name=recipe.name, recipe_sha256=recipe.sha256)
+    exported = simulate_played(recipe, waveform)
+    stage("re-simulation of the export")
+    unquantised, _ = make_waveform(recipe, result.samples,
+                                   replace(recipe.export, dac_bits=None, granularity=1),
+                                   recipe.sample_rate_hz)
+    internal = simulate_played(recipe, unquantised)
+    report = build_report(result, exported, internal, waveform, clipped, files[0].name)
+    atomic.write_json(folder / "report.json", report)
+    (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
+    stage("report")
+    failed = {}
+    try:
+        report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
+                                                    result.objective.qubits)
+    except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
+        failed["textbook_pulses"] = f"{type(exc).__name__}: {exc}"
+    stage("textbook pulses")
+    if plots_too:
+        try:
+            history = read_history(folder, result.best.index) or result.history
+            files += write_plots(folder, recipe, waveform, exported, history)
+        except Exception as exc:  # noqa: BLE001
+            failed["plots"] = f"{type(exc).__name__}: {exc}"
+    if failed:
+        report["extras_failed"] = failed
+    atomic.write_json(folder / "report.json", report)
+    files.append(folder / "report.json")
+    return RunOutput(result=result, report=report, folder=folder, files=files)
+
+
+def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
+                history, *, dt: float | None = None) -> list[Path]:
+    """waveform.png, spectrum.png (transitions marked), populations.png, convergence.png,
+    each titled with the run, the gate and the figures of what was simulated."""
+    from shaper.jobs.export import baseband
+
+    system, dt = recipe.system, dt or recipe.dt
+    samples = waveform.to_hz(system)
+    title = (f"{recipe.name}: {recipe.target.label}, infidelity {simulation.infidelity:.2e}, "
+             f"leakage {simulation.leakage:.2e} (as exported)")
+    names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
+                                  "convergence.png")]
+    plots.plot_waveform(names[0], samples, dt, system.control_names,
+                        limits=list(recipe.limits_hz.values()), title=title)
+    markers = {}
+    for q, tf in system.transition_frequencies.items():
+        markers[f"{q} f01"] = tf["f01_hz"]
+        markers[f"{q} f12"] = tf["f12_hz"]
+    plots.plot_spectrum(names[1], baseband(recipe, waveform), dt, system.channels,
+                        cutoff_hz=recipe.bandwidth_hz, markers=markers, title=title,
+                        if_hz=waveform.if_frequency_hz)
+    labels = system.level_labels()
+    plots.plot_populations(names[2], simulation.populations, dt, labels,
+                           [labels[i] for i in system.computational], title=title)
+    if history:
+        plots.plot_convergence(names[3], history, title=title)
+    else:
+        names = names[:3]
+    return names

@@ -1,0 +1,240 @@
+"""Duration sweeps: the shortest gate that still meets the targets.
+
+Each duration is optimised (with the recipe's starts; the first warm-started from its
+shorter neighbour, stretched in time with its area kept), then the shortest passing grid
+point is refined by bisection on whole samples. Durations are padded to a few shared
+sizes (powers of two, in samples) with identity slices, so a sweep compiles once per
+size, not once per duration. Durations are whole samples: a requested duration that is
+not is moved to the nearest, and the sweep prints and records both. Each duration runs
+through the same starts runner as ``shaper optimize`` (workers, checkpoints in
+``duration-<n>/``), its pulse is written in the waveform format (``pulse-<n>.csv`` and
+its sidecar, which ``shaper check`` reads) and judged on that export by the one targets
+rule (:mod:`shaper.costs.verdict`). ``sweep.json`` is rewritten after every duration: a
+resumed sweep does not redo finished durations.
+"""
+
+from __future__ import annotations
+
+import copy
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from shaper.errors import InputError, ResultError
+from shaper.io import atomic, waveio
+from shaper.optimise.loops import StartResult
+from shaper.optimise.objective import Objective, make_objective
+from shaper.optimise.options import RunOptions
+from shaper.optimise.starts import Result, optimize
+from shaper.recipe import Recipe, load_recipe
+from shaper.recipe.units import format_quantity, parse_quantity
+
+
+def parse_durations(text: str) -> list[float]:
+    """``"6ns:30ns:2ns"`` (start:stop:step, stop included) or ``"10ns,12ns,20ns"``, in seconds.
+
+    Raises:
+        InputError: malformed, non-positive, or more than 500 points.
+    """
+    def one(part):
+        return parse_quantity(part.strip(), "time", key="--durations")
+    if ":" in text:
+        pieces = text.split(":")
+        if len(pieces) != 3:
+            raise InputError(f"--durations {text!r}: write start:stop:step, e.g. 6ns:30ns:2ns")
+        start, stop, step = (one(p) for p in pieces)
+        if step <= 0 or stop < start:
+            raise InputError(f"--durations {text!r}: needs start <= stop and a positive step")
+        values = list(np.arange(start, stop + step / 2, step))
+    else:
+        values = [one(p) for p in text.split(",") if p.strip()]
+    if not values or min(values) <= 0:
+        raise InputError(f"--durations {text!r}: durations must be positive")
+    if len(values) > 500:
+        raise InputError(f"--durations {text!r}: {len(values)} points; at most 500")
+    return sorted(values)
+
+
+def bucket(samples: int, hold: int) -> int:
+    """The shared padded size for ``samples``: the next power of two (a multiple of hold)."""
+    size = 1 << max(4, (samples - 1).bit_length())
+    return -(-size // hold) * hold
+
+
+def recipe_at(recipe: Recipe, samples: int) -> Recipe:
+    raw = copy.deepcopy(recipe.raw)
+    raw["pulse"]["duration"] = samples / recipe.sample_rate_hz
+    return load_recipe(raw)
+
+
+def stretch(samples_hz: np.ndarray, n: int) -> np.ndarray:
+    """A pulse stretched (or squeezed) in time to ``n`` samples with its area kept."""
+    old = samples_hz.shape[0]
+    x_old, x_new = (np.arange(old) + 0.5) / old, (np.arange(n) + 0.5) / n
+    return np.stack([np.interp(x_new, x_old, samples_hz[:, k]) for k in
+                     range(samples_hz.shape[1])], axis=1) * (old / n)
+
+
+@dataclass
+class SweepPoint:
+    """One duration of a sweep: figures of its exported waveform (``pulse-<samples>.csv``)."""
+
+    samples: int
+    duration_s: float          # the actual duration: a whole number of samples
+    infidelity: float
+    leakage: float
+    met: bool
+    iterations: int
+    wall_time_s: float
+    stop_reason: str
+    requested_s: float | None = None  # the duration asked for, if rounding changed it
+    missed: str = ""           # which targets were missed, in words
+
+
+class Sweep:
+    """One sweep over durations of a recipe, writing into ``folder``."""
+
+    def __init__(self, recipe: Recipe, folder: Path, *, seed: int | None = None,
+                 resume: bool = False, stop=None, echo=print, workers: int = 1):
+        self.recipe, self.folder, self.stop, self.echo = recipe, Path(folder), stop, echo
+        self.workers = workers
+        self.seed = recipe.optimizer.seed if seed is None else seed
+        self.objectives: dict[int, Objective] = {}
+        self.points: dict[int, SweepPoint] = {}
+        self.folder.mkdir(parents=True, exist_ok=True)
+        state = self.folder / "sweep.json"
+        if state.exists():
+            if not resume:
+                raise ResultError(f"{self.folder} already holds a sweep (sweep.json); pass "
+                                  f"--resume to continue it or choose another --out")
+            data = atomic.read_json(state, ResultError, "unreadable")
+            if data.get("recipe_sha256") != recipe.sha256:
+                raise ResultError(f"{state}: this sweep belongs to another recipe; start a new "
+                                  f"one in another folder")
+            self.points = {p["samples"]: SweepPoint(**p) for p in data["points"]}
+
+    @property
+    def compiles(self) -> int:
+        return sum(len(o.traces) for o in self.objectives.values())
+
+    def objective_for(self, recipe: Recipe) -> Objective:
+        size = bucket(recipe.samples, recipe.hold)
+        if recipe.export.if_frequency_hz:
+            return make_objective(recipe)  # IF sub-steps: no shared padding
+        if size not in self.objectives:
+            self.objectives[size] = make_objective(recipe, pad_to=size)
+            return self.objectives[size]
+        return self.objectives[size].for_recipe(recipe)
+
+    def samples_path(self, n: int) -> Path:
+        """The exported waveform of duration ``n`` (our CSV with its JSON sidecar)."""
+        return self.folder / f"pulse-{n}.csv"
+
+    def solve(self, n: int, warm: np.ndarray | None,
+              requested_s: float | None = None) -> tuple[SweepPoint, Result]:
+        """Optimise at ``n`` samples (or load the finished point); judge the export."""
+        if n in self.points and self.samples_path(n).exists():
+            return self.points[n], None
+        from shaper.jobs.export import judge_waveform, make_waveform, simulate_played
+
+        recipe = recipe_at(self.recipe, n)
+        objective = self.objective_for(recipe)
+        t0 = time.monotonic()
+        work = self.folder / f"duration-{n}"  # checkpoints and history of this duration
+        resume = any(work.glob("checkpoint-*.npz"))
+        result = optimize(recipe, RunOptions(seed=self.seed, folder=work, resume=resume,
+                                             workers=self.workers, stop=self.stop),
+                          objective=objective, first=None if warm is None else stretch(warm, n))
+        wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
+        played = simulate_played(recipe, wave)
+        verdict = judge_waveform(recipe, wave, played)
+        best = result.best
+        point = SweepPoint(samples=n, duration_s=n / recipe.sample_rate_hz,
+                           infidelity=played.infidelity, leakage=played.leakage,
+                           met=verdict.met, iterations=sum(s.iterations for s in result.starts),
+                           wall_time_s=time.monotonic() - t0, stop_reason=best.stop_reason,
+                           requested_s=requested_s,
+                           missed="" if verdict.met else verdict.summary())
+        if not self.stop:  # an interrupted point is not finished: it is redone on resume
+            waveio.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
+                                  recipe_name=recipe.name, recipe_sha256=recipe.sha256)
+            self.points[n] = point
+            self.save()
+        asked = "" if requested_s is None or abs(requested_s - point.duration_s) < 1e-15 \
+            else f" (asked {format_quantity(requested_s, 's')}: whole samples)"
+        self.echo(f"{format_quantity(point.duration_s, 's'):>10} ({n:4d} samples){asked}: "
+                  f"infidelity {point.infidelity:.3e}, leakage {point.leakage:.3e} (exported) "
+                  f"{'meets' if point.met else 'misses'} the targets "
+                  f"[{point.wall_time_s:.1f} s, compiles so far {self.compiles}]")
+        return point, result
+
+    def save(self) -> None:
+        atomic.write_json(self.folder / "sweep.json", {
+            "recipe": self.recipe.name, "recipe_sha256": self.recipe.sha256,
+            "points": [vars(p) for _, p in sorted(self.points.items())]})
+
+    def pulse(self, n: int) -> np.ndarray | None:
+        """The pulse of duration ``n`` in Hz (baseband, without padding), or None."""
+        from shaper.jobs.export import baseband
+
+        path = self.samples_path(n)
+        if not path.exists():
+            return None
+        recipe = recipe_at(self.recipe, n)
+        wave = waveio.read_waveform(path)
+        return baseband(recipe, wave)[wave.pulse_start:wave.pulse_start + n]
+
+    def run(self, durations_s: list[float]) -> int | None:
+        """Sweep the grid, refine by bisection; return the shortest passing sample count."""
+        rate, hold = self.recipe.sample_rate_hz, self.recipe.hold
+        asked = {}
+        for d in durations_s:  # whole samples (slices): say where that moved a duration
+            asked.setdefault(max(hold, int(round(d * rate / hold)) * hold), d)
+        grid = sorted(asked)
+        warm = None
+        first_pass = None
+        for i, n in enumerate(grid):
+            point, _ = self.solve(n, warm, asked[n])
+            if self.stop:
+                return None
+            warm = self.pulse(n)
+            if point.met and first_pass is None:
+                first_pass = i
+        if first_pass is None:
+            return None
+        lo = grid[first_pass - 1] if first_pass > 0 else None
+        hi = grid[first_pass]
+        while lo is not None and hi - lo > hold:
+            mid = lo + ((hi - lo) // (2 * hold)) * hold
+            point, _ = self.solve(mid, self.pulse(lo))
+            if self.stop:
+                return None
+            if point.met:
+                hi = mid
+            else:
+                lo = mid
+        return hi
+
+    def result_at(self, n: int) -> Result:
+        """A :class:`Result` for the finished point at ``n`` samples (for the full report)."""
+        recipe = recipe_at(self.recipe, n)
+        point, samples = self.points[n], self.pulse(n)
+        best = StartResult(seed=self.seed, params=None, cost=point.infidelity, parts={},
+                           infidelity=point.infidelity, leakage=point.leakage,
+                           iterations=point.iterations, evaluations=point.iterations,
+                           stop_reason=point.stop_reason, wall_time_s=point.wall_time_s)
+        return Result(recipe=recipe, objective=self.objective_for(recipe), best=best,
+                      starts=[best], samples=samples, compile_time_s=0.0,
+                      wall_time_s=point.wall_time_s)
+
+    def table(self) -> str:
+        lines = ["| duration | asked | samples | infidelity | leakage | meets targets | "
+                 "iterations | time (s) |", "|---|---|---|---|---|---|---|---|"]
+        for _, p in sorted(self.points.items()):
+            asked = "bisection" if p.requested_s is None else format_quantity(p.requested_s, "s")
+            lines.append(f"| {format_quantity(p.duration_s, 's')} | {asked} | {p.samples} | "
+                         f"{p.infidelity:.3e} | {p.leakage:.3e} | {'yes' if p.met else 'no'} | "
+                         f"{p.iterations} | {p.wall_time_s:.1f} |")
+        return "\n".join(lines) + "\n"

@@ -1,0 +1,94 @@
+"""From a recipe to one jitted value-and-gradient: the terms and the weights.
+
+The arrays of the problem come from :mod:`shaper.costs.problem`; the terms from the
+registry :data:`shaper.costs.terms.TERMS`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from typing import Any
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from shaper import costs
+from shaper.costs.problem import (
+    Problem,
+    make_problem,
+    qubit_count,
+    recipe_layout,
+)
+from shaper.recipe import Recipe
+from shaper.signal.chain import for_recipe
+from shaper.signal.pulses import Layout, padded, to_samples
+
+
+@dataclass(frozen=True)
+class Objective:
+    """The compiled objective of a recipe.
+
+    ``value_and_grad(params, problem, weights) -> ((total, (parts, scores)), gradient)`` is
+    jitted; ``params`` is ``(slices, k)`` float64, ``weights`` ``(len(names),)``, ``scores``
+    a :class:`~shaper.costs.Evaluation` (nominal figures and every ensemble member's).
+    """
+
+    problem: Problem
+    layout: Layout
+    names: tuple[str, ...]
+    weights: np.ndarray
+    value_and_grad: Any
+    loss: Any
+    qubits: int
+    traces: list  # one entry per trace of the loss: how often it was (re)compiled
+
+    def for_recipe(self, recipe: Recipe) -> Objective:
+        """This objective (same compiled code) on a recipe that differs only in duration.
+
+        The recipe's samples must fit this objective's padded size.
+        """
+        layout = padded(recipe_layout(recipe), self.layout.samples)
+        return dataclasses.replace(self, layout=layout,
+                                   problem=make_problem(recipe, layout, real=recipe.samples))
+
+
+def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
+    """Build the terms the recipe asks for and jit their weighted sum's value and gradient.
+
+    ``pad_to`` (AWG samples): pad the slice count to this shared size with identity slices,
+    so that recipes differing only in duration reuse the compiled code
+    (:meth:`Objective.for_recipe`). Not with an IF export.
+    """
+    layout = recipe_layout(recipe)
+    if pad_to is not None and not recipe.export.if_frequency_hz:
+        layout = padded(layout, pad_to)
+    qubits = qubit_count(recipe)
+    problem = make_problem(recipe, layout, real=recipe.samples)
+    chain = for_recipe(recipe)  # what the instrument plays, as the propagator sees it
+    drive = None
+    if not chain.identity:
+        drive = chain
+        problem = make_problem(recipe, layout, steps=chain.steps)._replace(
+            dt=jnp.asarray(chain.dt_s))
+    flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
+                 method=recipe.optimizer.propagator, drive=drive)
+    w = recipe.weights
+    terms = costs.terms_for(recipe, layout)
+    names = tuple(t.name for t in terms)
+    total = costs.combine(terms)
+
+    traces = []
+
+    def loss(params, problem, weights):
+        traces.append(params.shape)  # runs at trace time only
+        samples = to_samples(params, layout, problem.envelope)
+        scores = costs.evaluate_members(samples, problem, **flags)
+        value, parts = total(samples, problem, scores, weights)
+        return value, (parts, scores)
+
+    vg = jax.jit(jax.value_and_grad(loss, has_aux=True))
+    weights = np.array([w[n] for n in names], float)
+    return Objective(problem=problem, layout=layout, names=names, weights=weights,
+                     value_and_grad=vg, loss=loss, qubits=qubits, traces=traces)

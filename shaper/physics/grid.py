@@ -1,0 +1,22 @@
+"""The propagator's time grid where a DAC plays IF-modulated samples.
+
+A held modulated sample turns in the drive frame within its interval (see
+:mod:`shaper.signal.modulation`); the propagator resolves that on sub-steps. Pure
+arithmetic, no JAX: the recipe reader uses it to estimate a problem's memory.
+"""
+
+from __future__ import annotations
+
+import math
+
+MAX_PHASE_STEP = 0.005  # radians of IF phase per sub-step
+
+
+def substeps(if_hz: float, dt: float) -> int:
+    """Sub-steps per sample so that the IF phase moves at most MAX_PHASE_STEP per sub-step.
+
+    Examples:
+        >>> substeps(0.0, 1e-9), substeps(100e6, 1 / 2.4e9)
+        (1, 53)
+    """
+    return max(1, math.ceil(2 * math.pi * abs(if_hz) * dt / MAX_PHASE_STEP))

@@ -1,0 +1,90 @@
+"""Re-simulate a finished waveform: figures of merit and level populations over time.
+
+Used for reports and checks; no gradients here. The figures follow the README's "Conventions".
+"""
+
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from shaper.errors import InputError
+from shaper.physics.figures import gate_figures, state_figures
+from shaper.physics.figures import project as project_subspace
+from shaper.physics.propagator import propagate
+from shaper.physics.systems import System
+from shaper.physics.targets import Target
+
+
+@dataclass(frozen=True)
+class Simulation:
+    """What a waveform does on a system.
+
+    Attributes:
+        fidelity, infidelity, leakage: the figures of the README's "Conventions".
+        frame_before_rad, frame_after_rad: virtual Z angles per qubit (zeros without).
+        unitary: ``(d, d)`` total propagator.
+        populations: ``(d_c, n + 1, d)``: for each computational input state, the
+            population of every basis state after 0..n samples.
+    """
+
+    fidelity: float
+    infidelity: float
+    leakage: float
+    frame_before_rad: list[float]
+    frame_after_rad: list[float]
+    unitary: np.ndarray
+    populations: np.ndarray
+
+    def figures(self) -> dict:
+        """The scalar figures as a JSON-ready dict."""
+        return {"fidelity": self.fidelity, "infidelity": self.infidelity,
+                "leakage": self.leakage, "frame_before_rad": self.frame_before_rad,
+                "frame_after_rad": self.frame_after_rad}
+
+
+def simulate(system: System, target: Target, samples: np.ndarray, dt: float, *,
+             virtual_z: bool = False, method: str = "eigh") -> Simulation:
+    """Simulate ``samples`` ``(n, k)`` Hz on ``system`` and score them against ``target``.
+
+    One compiled program per shape (propagation, populations and figures together), so a
+    report or a check does not run the propagator operation by operation.
+    """
+    samples = np.asarray(samples, float)
+    if samples.ndim != 2 or samples.shape[1] != system.controls.shape[0] \
+            or not np.all(np.isfinite(samples)):
+        raise InputError(f"samples must be finite, of shape (n, {system.controls.shape[0]}); "
+                         f"got {samples.shape}")
+    qubits = max(1, int(round(np.log2(len(system.computational)))))
+    dc = len(system.computational)
+    zeros = np.zeros(dc, complex)
+    populations, fig, u = _run(
+        jnp.asarray(system.drift), jnp.asarray(system.controls), jnp.asarray(samples),
+        jnp.asarray(dt, float), jnp.asarray(system.computational),
+        jnp.asarray(target.unitary if target.is_gate else np.zeros((dc, dc), complex)),
+        jnp.asarray(zeros if target.is_gate else target.initial),
+        jnp.asarray(zeros if target.is_gate else target.final),
+        method=method, qubits=qubits, virtual_z=virtual_z, is_gate=target.is_gate)
+    fidelity = float(fig.fidelity)
+    return Simulation(fidelity=fidelity, infidelity=1.0 - fidelity, leakage=float(fig.leakage),
+                      frame_before_rad=[float(x) for x in fig.frame_before],
+                      frame_after_rad=[float(x) for x in fig.frame_after],
+                      unitary=np.asarray(u), populations=np.asarray(populations))
+
+
+@functools.partial(jax.jit, static_argnames=("method", "qubits", "virtual_z", "is_gate"))
+def _run(drift, controls, samples, dt, computational, target, initial, final, *, method,
+         qubits, virtual_z, is_gate):
+    history = propagate(drift, controls, samples, dt, method=method, history=True)
+    u = history[-1]
+    if is_gate:
+        fig = gate_figures(project_subspace(u, computational), target, qubits=qubits,
+                           virtual_z=virtual_z)
+    else:
+        fig = state_figures(u, initial, final, computational, qubits)
+    populations = jnp.abs(history[:, :, computational]) ** 2  # (n+1, d, d_c)
+    return jnp.transpose(populations, (2, 0, 1)), fig, u

@@ -1,0 +1,219 @@
+"""Recipes: one TOML file per job, read into frozen settings and system arrays.
+
+Every key, its unit and default is documented in the README ("Recipe reference").
+Any mistake raises :class:`~shaper.errors.RecipeError` naming the file and the key
+path, with the fix. Numbers with units go through :mod:`shaper.recipe.units`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from shaper.errors import RecipeError
+from shaper.physics.systems import System
+from shaper.physics.targets import Target
+from shaper.recipe.units import parse_quantity
+
+MODELS = ("transmon", "transmons", "matrices")
+GUESSES = ("gaussian", "drag", "cosine", "random")  # first guesses by name
+ENSEMBLE_RULES = ("every", "mean")  # how ensemble members meet the targets
+METHODS = ("lbfgs", "adam", "lbfgs-jit")
+PADDING = ("after", "before", "centre")
+
+# [cost]: the weight of each registered cost term (shaper.costs.terms.TERMS)
+DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothness": 0.0,
+                   "amplitude": 0.0, "robustness": 1.0}
+
+# allowed keys per section; a nested table's keys are listed under "section.sub"
+KEYS: dict[str, tuple[str, ...]] = {
+    "": ("name", "description", "system", "gate", "pulse", "cost", "optimizer", "export"),
+    "system": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
+               "qubit", "frame_frequency", "transmon", "coupling", "unit", "drift",
+               "drift_imag", "controls", "controls_imag", "dims", "computational"),
+    "system.transmon": ("name", "levels", "qubit_frequency", "anharmonicity", "flux"),
+    "system.coupling": ("between", "strength"),
+    "gate": ("target", "matrix", "matrix_imag", "initial_state", "final_state", "virtual_z"),
+    "pulse": ("duration", "sample_rate", "hold", "max_rabi", "max_flux", "bandwidth",
+              "max_out_of_band", "zero_ends", "ramp"),
+    "cost": tuple(k for k in DEFAULT_WEIGHTS if k != "infidelity")
+    + ("ensemble_detunings", "ensemble_scales"),
+    "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
+                  "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
+                  "drag_scale", "learning_rate", "propagator", "ensemble_targets"),
+    "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
+               "sideband"),
+}
+REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
+            "pulse": ("duration", "sample_rate", "max_rabi")}
+
+
+@dataclass(frozen=True, kw_only=True)
+class OptimizerSettings:
+    """How to search (``[optimizer]``); see the README for every key."""
+
+    method: str = "lbfgs"
+    max_iterations: int = 1000
+    target_infidelity: float = 1e-6
+    target_leakage: float = 1e-7
+    margin: float = 10.0
+    max_time_s: float = 3600.0
+    stall_iterations: int = 200
+    seed: int = 0
+    starts: int = 1
+    initial: str = "gaussian"
+    drag_scale: float = 1.0
+    learning_rate: float = 0.02
+    propagator: str = "eigh"
+    ensemble_targets: str = "every"  # or "mean": how the ensemble members meet the targets
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExportSettings:
+    """How to write the waveform (``[export]``)."""
+
+    full_scale_hz: dict[str, float]
+    dac_bits: int = 16
+    granularity: int = 1
+    padding: str = "after"
+    clip: bool = False
+    if_frequency_hz: float = 0.0
+    sideband: str = "lower"
+
+
+@dataclass(frozen=True, kw_only=True)
+class Recipe:
+    """A validated recipe: the system's arrays and every setting in SI units."""
+
+    name: str
+    path: str | None
+    sha256: str
+    system: System
+    target: Target
+    virtual_z: bool
+    duration_s: float
+    sample_rate_hz: float
+    samples: int
+    hold: int
+    limits_hz: dict[str, float]
+    bandwidth_hz: float | None
+    max_out_of_band: float
+    zero_ends: bool
+    ramp_samples: int
+    weights: dict[str, float]
+    ensemble_detunings_hz: np.ndarray
+    ensemble_scales: np.ndarray
+    optimizer: OptimizerSettings
+    export: ExportSettings
+    raw: dict = field(repr=False)
+
+    @property
+    def dt(self) -> float:
+        return 1.0 / self.sample_rate_hz
+
+
+class _Reader:
+    """Typed access to the raw TOML with errors that name file and key."""
+
+    def __init__(self, raw: dict, path: str | None):
+        self.raw, self.path = raw, path
+
+    def fail(self, key: str | None, message: str):
+        raise RecipeError(message, path=self.path, key=key)
+
+    def check_keys(self, table: dict, section: str, key_prefix: str | None = None) -> None:
+        prefix = key_prefix if key_prefix is not None else section
+        allowed = KEYS[section]
+        for key in table:
+            if key not in allowed:
+                close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.5)
+                hint = f"; did you mean {close[0]!r}?" if close else \
+                    f"; valid keys here: {', '.join(allowed)}"
+                self.fail(f"{prefix}.{key}" if prefix else key, f"unknown key{hint}")
+        for key in REQUIRED.get(section, ()):
+            if key not in table:
+                self.fail(f"{prefix}.{key}" if prefix else key, "missing required key")
+
+    def table(self, table: dict, key: str, where: str) -> dict:
+        value = table.get(key, {})
+        if not isinstance(value, dict):
+            self.fail(where, f"expected a table [{where}], got {value!r}")
+        return value
+
+    def number(self, table, key, where, default=None, *, kind=None, positive=False,
+               integer=False, minimum=None, bare_check=True):
+        if key not in table:
+            if default is None:
+                self.fail(where, "missing required key")
+            return default
+        value = table[key]
+        if kind:
+            value = parse_quantity(value, kind, key=where, path=self.path,
+                                   bare_check=bare_check)
+        elif isinstance(value, bool) or not isinstance(value, int | float):
+            self.fail(where, f"expected a number, got {value!r}")
+        if not math.isfinite(value):
+            self.fail(where, f"expected a finite number, got {value!r}")
+        if integer and (not isinstance(value, int) or isinstance(value, bool)):
+            self.fail(where, f"expected a whole number, got {value!r}")
+        if positive and value <= 0:
+            self.fail(where, f"must be positive, got {table[key]!r}")
+        if minimum is not None and value < minimum:
+            self.fail(where, f"must be at least {minimum}, got {table[key]!r}")
+        return value
+
+    def flag(self, table, key, where, default: bool) -> bool:
+        value = table.get(key, default)
+        if not isinstance(value, bool):
+            self.fail(where, f"expected true or false, got {value!r}")
+        return value
+
+    def choice(self, table, key, where, options, default=None) -> str:
+        value = table.get(key, default)
+        if value is None:
+            self.fail(where, "missing required key")
+        if value not in options:
+            self.fail(where, f"unknown value {value!r}; choose one of: {', '.join(options)}")
+        return value
+
+    def matrix(self, table, key, where, size=None, *, imag_key=None) -> np.ndarray:
+        value = table.get(key)
+        try:
+            real = np.array(value, dtype=float)
+            imag = np.array(table[imag_key], dtype=float) if imag_key and imag_key in table \
+                else np.zeros_like(real)
+        except (TypeError, ValueError):
+            self.fail(where, "expected a matrix: a list of equal-length rows of numbers")
+        if real.ndim != 2 or real.shape[0] != real.shape[1] or real.shape[0] < 2:
+            self.fail(where, f"expected a square matrix of at least 2x2, got shape {real.shape}")
+        if imag.shape != real.shape:
+            self.fail(f"{where}_imag", f"imaginary part has shape {imag.shape}, "
+                                       f"the real part {real.shape}")
+        if size is not None and real.shape[0] != size:
+            self.fail(where, f"expected a {size}x{size} matrix, got {real.shape[0]}x"
+                             f"{real.shape[1]}")
+        if not np.all(np.isfinite(real)) or not np.all(np.isfinite(imag)):
+            self.fail(where, "matrix entries must be finite numbers")
+        return real + 1j * imag
+
+    def per_channel(self, value, where, channels: list[str]) -> dict[str, float]:
+        if isinstance(value, dict):
+            unknown = [k for k in value if k not in channels]
+            if unknown:
+                self.fail(f"{where}.{unknown[0]}", f"no channel of that name; channels: "
+                                                   f"{', '.join(channels)}")
+            missing = [c for c in channels if c not in value]
+            if missing:
+                self.fail(where, f"no value for channel(s) {', '.join(missing)}")
+            out = {c: parse_quantity(value[c], "frequency", key=f"{where}.{c}", path=self.path)
+                   for c in channels}
+        else:
+            one = parse_quantity(value, "frequency", key=where, path=self.path)
+            out = dict.fromkeys(channels, one)
+        for c, v in out.items():
+            if not v > 0:
+                self.fail(where, f"must be positive, got {v} Hz for channel {c}")
+        return out
