@@ -96,3 +96,23 @@ def test_battery_of_every_registered_term(where):
         (_, _), g = objective.value_and_grad(x, objective.problem, alone)
         assert np.all(np.isfinite(np.asarray(g))), name
     assert len(objective.traces) == 1
+
+
+def test_an_objective_refuses_a_recipe_that_differs_in_more_than_duration():
+    objective = make_objective(load_recipe(DEMO))
+    shorter = {**DEMO, "pulse": {**DEMO["pulse"], "duration": "8 ns"}}
+    assert objective.for_recipe(load_recipe(shorter)).layout.samples == 20
+    other = {**DEMO, "pulse": {**DEMO["pulse"], "duration": "8 ns", "max_rabi": "50 MHz"}}
+    with pytest.raises(InputError, match="more than its duration"):
+        objective.for_recipe(load_recipe(other))
+
+
+def test_settings_guard_themselves():
+    import dataclasses
+
+    recipe = load_recipe(DEMO)
+    with pytest.raises(InputError, match="setting method cannot be 'newton'"):
+        dataclasses.replace(recipe.optimizer, method="newton")
+    with pytest.raises(InputError, match="setting dac_bits cannot be 64"):
+        dataclasses.replace(recipe.export, dac_bits=64)
+    assert dataclasses.replace(recipe.export, dac_bits=None).dac_bits is None

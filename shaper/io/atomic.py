@@ -15,7 +15,15 @@ from shaper.errors import EnvironmentFailure
 
 
 def _read_umask() -> int:
-    mask = os.umask(0)  # the only way to read it; done once, at import, not per write
+    """The process's umask, read without changing it where Linux says it (/proc)."""
+    try:
+        with open("/proc/self/status") as handle:
+            for line in handle:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0)  # elsewhere the only way; done once, at import, not per write
     os.umask(mask)
     return mask
 

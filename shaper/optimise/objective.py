@@ -21,7 +21,8 @@ from shaper.costs.problem import (
     qubit_count,
     recipe_layout,
 )
-from shaper.recipe import Recipe
+from shaper.errors import InputError
+from shaper.recipe import Recipe, digest
 from shaper.signal.chain import for_recipe
 from shaper.signal.pulses import Layout, padded, to_samples
 
@@ -43,15 +44,28 @@ class Objective:
     loss: Any
     qubits: int
     traces: list  # one entry per trace of the loss: how often it was (re)compiled
+    signature: str = ""  # digest of the recipe without its duration: what for_recipe needs
 
     def for_recipe(self, recipe: Recipe) -> Objective:
         """This objective (same compiled code) on a recipe that differs only in duration.
 
-        The recipe's samples must fit this objective's padded size.
+        Raises:
+            InputError: the recipe differs in more than its duration (another limit, system
+                or weight would silently keep the old one), or does not fit the padded size.
         """
+        if duration_free_digest(recipe) != self.signature:
+            raise InputError(f"recipe {recipe.name!r} differs from this objective's in more "
+                             f"than its duration; build an objective for it")
         layout = padded(recipe_layout(recipe), self.layout.samples)
         return dataclasses.replace(self, layout=layout,
                                    problem=make_problem(recipe, layout, real=recipe.samples))
+
+
+def duration_free_digest(recipe: Recipe) -> str:
+    """The recipe's digest with ``pulse.duration`` left out."""
+    raw = dict(recipe.raw)
+    raw["pulse"] = {k: v for k, v in raw.get("pulse", {}).items() if k != "duration"}
+    return digest(raw)
 
 
 def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
@@ -91,4 +105,5 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     vg = jax.jit(jax.value_and_grad(loss, has_aux=True))
     weights = np.array([w[n] for n in names], float)
     return Objective(problem=problem, layout=layout, names=names, weights=weights,
-                     value_and_grad=vg, loss=loss, qubits=qubits, traces=traces)
+                     value_and_grad=vg, loss=loss, qubits=qubits, traces=traces,
+                     signature=duration_free_digest(recipe))

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from shaper.errors import RecipeError
+from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
 from shaper.recipe.units import parse_quantity
@@ -51,6 +51,11 @@ REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
             "pulse": ("duration", "sample_rate", "max_rabi")}
 
 
+def _require(ok: bool, name: str, value) -> None:
+    if not ok:
+        raise InputError(f"setting {name} cannot be {value!r}")
+
+
 @dataclass(frozen=True, kw_only=True)
 class OptimizerSettings:
     """How to search (``[optimizer]``); see the README for every key."""
@@ -70,18 +75,44 @@ class OptimizerSettings:
     propagator: str = "eigh"
     ensemble_targets: str = "every"  # or "mean": how the ensemble members meet the targets
 
+    def __post_init__(self):  # settings guard themselves, however they were made
+        _require(self.method in METHODS, "method", self.method)
+        _require(self.propagator in ("eigh", "pade"), "propagator", self.propagator)
+        _require(self.ensemble_targets in ENSEMBLE_RULES, "ensemble_targets",
+                 self.ensemble_targets)
+        for name in ("max_iterations", "stall_iterations", "starts"):
+            _require(isinstance(getattr(self, name), int) and getattr(self, name) >= 1, name,
+                     getattr(self, name))
+        for name in ("target_infidelity", "target_leakage", "max_time_s", "learning_rate"):
+            _require(math.isfinite(getattr(self, name)) and getattr(self, name) > 0, name,
+                     getattr(self, name))
+        _require(self.margin >= 1, "margin", self.margin)
+
 
 @dataclass(frozen=True, kw_only=True)
 class ExportSettings:
     """How to write the waveform (``[export]``)."""
 
     full_scale_hz: dict[str, float]
-    dac_bits: int = 16
+    dac_bits: int | None = 16
     granularity: int = 1
     padding: str = "after"
     clip: bool = False
     if_frequency_hz: float = 0.0
     sideband: str = "lower"
+
+    def __post_init__(self):
+        # dac_bits None: keep full precision (the optimiser's own samples, for comparison)
+        _require(self.dac_bits is None or (isinstance(self.dac_bits, int)
+                                           and 2 <= self.dac_bits <= 32), "dac_bits",
+                 self.dac_bits)
+        _require(isinstance(self.granularity, int) and self.granularity >= 1, "granularity",
+                 self.granularity)
+        _require(self.padding in PADDING, "padding", self.padding)
+        _require(self.sideband in ("lower", "upper"), "sideband", self.sideband)
+        _require(math.isfinite(self.if_frequency_hz), "if_frequency_hz", self.if_frequency_hz)
+        _require(all(v > 0 and math.isfinite(v) for v in self.full_scale_hz.values()),
+                 "full_scale_hz", self.full_scale_hz)
 
 
 @dataclass(frozen=True, kw_only=True)
