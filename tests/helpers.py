@@ -41,3 +41,30 @@ def duffing(levels, detuning_hz, alpha_hz):
 def random_hermitian(rng, d, scale=1.0):
     a = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
     return scale * (a + a.conj().T) / 2
+
+
+# a run that cannot meet its target (5 MHz cannot make a pi pulse in 40 ns), so it goes
+# on until its iteration limit: long enough to be killed in the middle
+LONG = """name = "long"
+[system]
+model = "transmon"
+levels = 4
+qubit_frequency = "5 GHz"
+anharmonicity = "-200 MHz"
+[gate]
+target = "X"
+[pulse]
+duration = "40 ns"
+sample_rate = "5 GS/s"
+max_rabi = "5 MHz"
+[optimizer]
+method = "METHOD"
+max_iterations = ITERATIONS
+stall_iterations = 1000000
+"""
+
+
+def write_long(tmp_path, method, iterations):
+    path = tmp_path / f"long-{method}.toml"
+    path.write_text(LONG.replace("METHOD", method).replace("ITERATIONS", str(iterations)))
+    return path

@@ -284,3 +284,69 @@ def test_numpy_archives_read(tmp_path):
     np.save(tmp_path / "w.npy", data)
     wave = read_any(tmp_path / "w.npy", system, sample_rate_hz=2.4e9, full_scale_hz=60e6)
     assert np.allclose(wave.to_hz(system), data * 60e6)
+
+
+def test_check_judges_padded_held_and_foreign_length_files(tmp_path):
+    # the recipe supplies the physics, the file the samples: a waveform longer than the
+    # recipe's pulse (granularity padding), one on a coarser optimiser grid (pulse.hold),
+    # and another recipe's file are all judged (0 or 1), never a crash (4) or bad input (2)
+    detuned = ROOT / "recipes" / "detuned-x180.toml"
+    padded = run(detuned, out=tmp_path / "padded", plots_too=False)
+    assert padded.report["samples"] == 64 and padded.report["pulse_samples"] == 60
+    code, out, err = cli("check", detuned, padded.files[0], "--json")
+    assert code == 0, err
+    verdict = json.loads(out)
+    assert verdict["samples"] == 64
+    assert verdict["infidelity"] == pytest.approx(padded.report["infidelity"], abs=1e-12)
+    # canonical frame angles: the same pair in the report and in check (README)
+    assert verdict["frame_before_rad"] == pytest.approx(padded.report["frame_before_rad"],
+                                                        abs=1e-9)
+    assert verdict["frame_after_rad"] == pytest.approx(padded.report["frame_after_rad"],
+                                                       abs=1e-9)
+    held = dict(load_recipe(ROOT / "recipes" / "demo-x180.toml").raw)
+    held["pulse"] = {**held["pulse"], "hold": 4, "zero_ends": False}
+    held_run = run(held, out=tmp_path / "held", plots_too=False)
+    code, _, err = cli("check", ROOT / "recipes" / "demo-x180.toml", held_run.files[0])
+    assert code in (0, 1), err
+    # the demo's 48-sample pulse judged on the detuned chip: computed, it misses (exit 1)
+    code, out, err = cli("check", detuned, held_run.files[0], "--json")
+    assert code in (0, 1) and "Traceback" not in err, err
+
+
+def test_report_measures_the_band_as_the_cost_does_with_an_if(tmp_path):
+    # With an IF the report used to measure the modulated samples (8x the cost's value,
+    # so max_out_of_band could never be met); now both measure the baseband envelope.
+    raw = dict(load_recipe(ROOT / "recipes" / "demo-x180.toml").raw)
+    raw["pulse"] = {**raw["pulse"], "bandwidth": "120 MHz"}
+    raw["export"] = {"if_frequency": "100 MHz"}
+    out = run(raw, out=tmp_path / "if", plots_too=False)
+    optimiser = out.report["costs"]["bandwidth"]
+    exported = out.report["out_of_band_fraction"]
+    assert exported == pytest.approx(optimiser, rel=0.05, abs=1e-9)
+    assert out.report["targets"]["judged"]["out_of_band"] == exported
+
+
+def test_a_failing_extra_does_not_lose_the_result(tmp_path, monkeypatch):
+    import shaper.jobs.run as job
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("comparison failed")
+    monkeypatch.setattr(job, "textbook_pulses", broken)
+    out = run(ROOT / "recipes" / "demo-x180.toml", out=tmp_path / "r", plots_too=False)
+    report = json.loads((tmp_path / "r" / "report.json").read_text())
+    assert report["extras_failed"]["textbook_pulses"].startswith("RuntimeError")
+    assert report["infidelity"] == out.report["infidelity"] < 1e-6
+    assert (tmp_path / "r" / "demo-x180.csv").exists()
+
+
+def test_an_internal_error_is_one_line_and_exit_4(monkeypatch, tmp_path):
+    import shaper.cli.check_cmd as check_cmd
+
+    def bug(args):
+        raise ZeroDivisionError("division by zero")
+    monkeypatch.setattr(check_cmd, "run", bug)
+    code, out, err = cli("check", "a.toml", "b.csv")
+    assert code == 4 and "internal error: ZeroDivisionError" in err and "--debug" in err
+    assert "Traceback" not in err
+    with pytest.raises(ZeroDivisionError):
+        cli("--debug", "check", "a.toml", "b.csv")

@@ -390,3 +390,25 @@ def test_a_sample_rate_of_zero_on_the_command_line(tmp_path):
     code, out, err = run_cli("check", DEMO, tmp_path / "w.npy", "--sample-rate", "0 GS/s",
                              "--full-scale", "60 MHz")
     assert code == 2 and "--sample-rate must be positive" in err, err
+
+
+@pytest.mark.parametrize("args, key", [
+    (["export", "RUN", "--out", "OUT", "--if", "50"], "--if"),
+    (["sweep", "RECIPE", "--durations", "6:30:2"], "--durations"),
+    (["optimize", "RECIPE", "--stall-limit", "soon"], "--stall-limit"),
+])
+def test_unit_slips_on_the_command_line(tmp_path, args, key):
+    recipe = tmp_path / "r.toml"
+    recipe.write_text(BASE)
+    args = [str(recipe) if a == "RECIPE" else str(tmp_path) if a == "RUN"
+            else str(tmp_path / "o") if a == "OUT" else a for a in args]
+    code, out, err = run_cli(*args)
+    assert code == 2 and key in err and "Traceback" not in err, err
+
+
+def test_a_first_guess_longer_than_the_pulse_is_refused(tmp_path):
+    np.save(tmp_path / "long.npy", np.full((60, 2), 0.1))
+    recipe = tmp_path / "r.toml"
+    recipe.write_text(sub(BASE, "max_iterations = 5", 'initial = "long.npy"'))
+    code, out, err = run_cli("optimize", recipe, "--out", tmp_path / "o", "--quiet")
+    assert code == 2 and "past the recipe's 48 samples" in err, err

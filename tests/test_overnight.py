@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import duffing, expm_product, pedersen_fidelity
+from helpers import duffing, expm_product, pedersen_fidelity, write_long
 
 from shaper.errors import ResultError
 from shaper.io.waveio import read_waveform
@@ -19,33 +19,6 @@ from shaper.optimise.starts import optimize
 from shaper.recipe import load_recipe
 
 X = np.array([[0, 1], [1, 0]], complex)
-
-# a run that cannot meet its target (5 MHz cannot make a pi pulse in 40 ns), so it goes
-# on until its iteration limit: long enough to be killed in the middle
-LONG = """name = "long"
-[system]
-model = "transmon"
-levels = 4
-qubit_frequency = "5 GHz"
-anharmonicity = "-200 MHz"
-[gate]
-target = "X"
-[pulse]
-duration = "40 ns"
-sample_rate = "5 GS/s"
-max_rabi = "5 MHz"
-[optimizer]
-method = "METHOD"
-max_iterations = ITERATIONS
-stall_iterations = 1000000
-"""
-
-
-def write_long(tmp_path, method, iterations):
-    path = tmp_path / f"long-{method}.toml"
-    path.write_text(LONG.replace("METHOD", method).replace("ITERATIONS", str(iterations)))
-    return path
-
 
 def shaper_cmd(*args):
     return [sys.executable, "-m", "shaper", *map(str, args)]

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import duffing, expm_product, pedersen_fidelity
+from helpers import duffing, expm_product, pedersen_fidelity, write_long
 
 from shaper.costs.problem import recipe_layout
 from shaper.errors import RecipeError
@@ -139,25 +139,6 @@ def test_bundled_recipes_keep_every_channel_within_its_limit(path):
         assert np.all(np.abs(wave.fractions[:, list(ch.columns)]) <= 1.0)
 
 
-LONG = """name = "long"
-[system]
-model = "transmon"
-levels = 4
-qubit_frequency = "5 GHz"
-anharmonicity = "-200 MHz"
-[gate]
-target = "X"
-[pulse]
-duration = "40 ns"
-sample_rate = "5 GS/s"
-max_rabi = "5 MHz"
-[optimizer]
-method = "adam"
-max_iterations = 100000
-stall_iterations = 1000000
-"""
-
-
 def wait_for(predicate, timeout=120.0):
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
@@ -168,8 +149,7 @@ def wait_for(predicate, timeout=120.0):
 
 
 def test_a_second_run_on_the_same_folder_is_refused(tmp_path):
-    recipe = tmp_path / "long.toml"
-    recipe.write_text(LONG)
+    recipe = write_long(tmp_path, "adam", 100000)
     out = tmp_path / "out"
     first = subprocess.Popen(shaper_cmd("optimize", recipe, "--out", out, "--quiet",
                                         "--no-plots", "--checkpoint-every", "10"),
@@ -214,8 +194,7 @@ def alive(pid: int) -> bool:
 
 
 def test_workers_die_with_their_parent(tmp_path):
-    recipe = tmp_path / "long.toml"
-    recipe.write_text(LONG)
+    recipe = write_long(tmp_path, "adam", 100000)
     parent = subprocess.Popen(shaper_cmd("optimize", recipe, "--out", tmp_path / "out",
                                          "--quiet", "--no-plots", "--starts", 2, "--workers", 2),
                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -236,8 +215,7 @@ def test_workers_die_with_their_parent(tmp_path):
 def test_an_early_interrupt_is_never_swallowed(tmp_path, delay):
     # SIGINT at any moment of start-up (imports, compile, first evaluations): the run stops
     # with exit 130, it never completes as if nothing had happened
-    recipe = tmp_path / "long.toml"
-    recipe.write_text(LONG)
+    recipe = write_long(tmp_path, "adam", 100000)
     proc = subprocess.Popen(shaper_cmd("optimize", recipe, "--out", tmp_path / "out",
                                        "--quiet", "--no-plots"),
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
