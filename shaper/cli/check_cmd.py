@@ -23,6 +23,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--scale-span", type=float, default=0.05,
                         help="sensitivity scan +- this amplitude fraction (default 0.05)")
     parser.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
+    parser.add_argument("--t1", help="energy relaxation time per transmon, one for all or a "
+                                     "comma list (e.g. '40us' or '40us,35us'); adds the "
+                                     "open-system error budget")
+    parser.add_argument("--t2", help="coherence time per transmon, as --t1 (T2 <= 2 T1)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -33,6 +37,15 @@ def run(args: argparse.Namespace) -> int:
     from shaper.recipe.units import parse_quantity
 
     recipe = load_recipe(args.recipe)
+    if args.t1 or args.t2:
+        from shaper.jobs.check import with_coherence
+
+        def times(text, flag):
+            if not text:
+                return None
+            return [parse_quantity(part.strip(), "time", key=flag, bare_check=False)
+                    for part in text.split(",")]
+        recipe = with_coherence(recipe, times(args.t1, "--t1"), times(args.t2, "--t2"))
     rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
         if args.sample_rate else None
     scale = parse_quantity(args.full_scale, "frequency", key="--full-scale") \
@@ -71,6 +84,11 @@ def _print_summary(v: dict) -> None:
           f"at +-{100 * (max(s['amplitude_scale']) - 1):.3g} %: "
           f"{s['infidelity_vs_scale'][0]:.3e}, {s['infidelity_vs_scale'][-1]:.3e}")
     t = v["targets"]
+    o = v.get("open_system")
+    if o:
+        print(f"  with decoherence: infidelity {o['infidelity']:.3e} = coherent "
+              f"{o['coherent_error']:.3e} (the pulse) + incoherent {o['incoherent_error']:.3e} "
+              f"(T1/T2); leakage {o['leakage']:.3e}")
     if v.get("ensemble"):
         print(f"  ensemble: worst infidelity {max(v['ensemble']['infidelity']):.3e}, "
               f"worst leakage {max(v['ensemble']['leakage']):.3e} "

@@ -74,6 +74,12 @@ def _run(args: argparse.Namespace, stop) -> int:
         plot_sweep(folder / "sweep.png", [p for _, p in sorted(sweep.points.items())],
                    (o.target_infidelity, o.target_leakage), chosen)
     print(table)
+    lowest = sweep.lowest_total_error()
+    if lowest is not None:
+        point = sweep.points[lowest]
+        print(f"lowest total error with T1/T2: {format_quantity(point.duration_s, 's')} "
+              f"({lowest} samples): {point.total_error:.3e} (coherent {point.coherent_error:.2e}"
+              f", incoherent {point.incoherent_error:.2e})")
     print(f"compiles: {sweep.compiles} for {len(sweep.points)} duration(s) in this session")
     if stop:
         print(f"interrupted; continue with --resume (finished durations are kept in {folder})")

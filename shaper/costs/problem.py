@@ -18,6 +18,7 @@ import numpy as np
 
 from shaper.physics import _jax  # noqa: F401
 from shaper.physics.figures import Figures, gate_figures, project, state_figures
+from shaper.physics.lindblad import dissipator
 from shaper.physics.propagator import ordered_product, slice_unitaries
 from shaper.recipe import Recipe
 from shaper.signal.pulses import Layout, make_layout
@@ -44,6 +45,9 @@ class Problem(NamedTuple):
     envelope: jax.Array         # (n,) float64 in [0, 1]: fixed factor per AWG sample
     active: jax.Array           # (m,) float64, 1 or 0: propagator slices that take dt
     #                             (0: padding to a shared size, an identity slice)
+    noise: jax.Array = None     # (d^2, d^2) complex128, 1/s: the Lindblad dissipator of the
+    #                             system's collapse operators, with optimizer.open_system
+    #                             ((1, 1) zeros otherwise: a closed system)
 
 
 class Evaluation(NamedTuple):
@@ -54,14 +58,22 @@ class Evaluation(NamedTuple):
 
 
 def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
-             virtual_z: bool, method: str = "eigh", drive: Callable | None = None) -> Figures:
+             virtual_z: bool, method: str = "eigh", drive: Callable | None = None,
+             open_system: bool = False) -> Figures:
     """Fidelity and leakage of the samples on the problem's system (nominal parameters).
 
     ``drive``, if given, maps the AWG's samples to what the propagator sees on the grid of
     ``problem.dt`` (for IF exports: the held modulated samples on sub-steps).
+    ``open_system``: the figures of the channel under ``problem.noise`` (the Lindblad
+    propagation of :mod:`shaper.physics.lindblad`) instead of the unitary's.
     """
     if drive is not None:
         samples = drive(samples)
+    if open_system:
+        from shaper.physics.lindblad import open_figures
+        return open_figures(problem.drift, problem.controls, samples,
+                            problem.dt * problem.active, problem.noise, problem.computational,
+                            problem.target, qubits=qubits, virtual_z=virtual_z)
     dt = (problem.dt * problem.active)[:, None, None]
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                         method=method))
@@ -70,7 +82,7 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
 
 def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
                      virtual_z: bool, method: str = "eigh",
-                     drive: Callable | None = None) -> Evaluation:
+                     drive: Callable | None = None, open_system: bool = False) -> Evaluation:
     """Figures of the nominal system and of every ensemble member, in ONE batched propagation.
 
     Member m sees ``drift + sum_q detunings[m, q] n_q`` and the samples times ``scales[m]``.
@@ -82,7 +94,8 @@ def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_ga
     def one(detuning, scale):
         drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
         return evaluate(samples * scale, problem._replace(drift=drift), qubits=qubits,
-                        is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive)
+                        is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive,
+                        open_system=open_system)
 
     members = jax.vmap(one)(problem.detunings, problem.scales)
     return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], members), members=members)
@@ -129,7 +142,9 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
         detunings=jnp.asarray(np.concatenate([np.zeros((1, subsystems)), ensemble_detunings]),
                               dtype=jnp.float64),
         scales=jnp.asarray(np.concatenate([[1.0], ensemble_scales]), dtype=jnp.float64),
-        envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active))
+        envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active),
+        noise=jnp.asarray(dissipator(s.collapse, s.dimension) if recipe.optimizer.open_system
+                          else np.zeros((1, 1), complex)))
 
 
 def waveform_problem(recipe: Recipe, samples: int, *, steps: int = 1,

@@ -20,7 +20,7 @@ from shaper.costs import evaluate
 from shaper.costs.problem import qubit_count, waveform_problem
 from shaper.errors import InputError
 from shaper.io.waveio import Waveform
-from shaper.jobs.export import judge_waveform, member_figures, simulate_played
+from shaper.jobs.export import judge_waveform, member_figures, open_played, simulate_played
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.chain import for_waveform
 
@@ -43,6 +43,31 @@ def with_levels(recipe: Recipe, levels: int) -> Recipe:
     else:
         raise InputError(f"--levels applies to transmon models; this recipe's model is "
                          f"{model!r}, whose matrices fix the levels")
+    return load_recipe(raw)
+
+
+def with_coherence(recipe: Recipe, t1: list[float] | None, t2: list[float] | None) -> Recipe:
+    """The same recipe with coherence times (seconds) per transmon, one value for all or
+    one per transmon in recipe order.
+
+    Raises:
+        InputError: not a transmon model, or a list of the wrong length.
+    """
+    raw = copy.deepcopy(recipe.raw)
+    model = raw["system"]["model"]
+    tables = [raw["system"]] if model == "transmon" else raw["system"].get("transmon", []) \
+        if model == "transmons" else None
+    if tables is None:
+        raise InputError(f"--t1/--t2 apply to transmon models; this recipe's model is "
+                         f"{model!r}: give collapse operators in the recipe")
+    for flag, values in (("t1", t1), ("t2", t2)):
+        if values is None:
+            continue
+        if len(values) not in (1, len(tables)):
+            raise InputError(f"--{flag}: give one time for every transmon or one per transmon "
+                             f"({len(tables)}), got {len(values)}")
+        for k, table in enumerate(tables):
+            table[flag] = values[0] if len(values) == 1 else values[k]
     return load_recipe(raw)
 
 
@@ -116,6 +141,7 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
                     **judged.as_dict()},
         "ensemble": None if members is None else {"infidelity": members[0],
                                                   "leakage": members[1]},
+        "open_system": open_played(recipe, wave, sim),
         "levels": list(system.dims),
         "samples": int(samples.shape[0]),
         "sample_rate_hz": wave.sample_rate_hz,

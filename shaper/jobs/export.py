@@ -77,6 +77,22 @@ def simulate_played(recipe: Recipe, wave: waveio.Waveform) -> Simulation:
                    populations=fine.populations[:, ::2 * steps])
 
 
+def open_played(recipe: Recipe, wave: waveio.Waveform,
+                played: Simulation | None = None) -> dict | None:
+    """The error budget of a waveform as played on the open system (README,
+    "Decoherence"): channel infidelity and leakage, coherent and incoherent error.
+    None when the recipe's system has no coherence times or the target is a state."""
+    if not recipe.system.collapse or not recipe.target.is_gate:
+        return None
+    from shaper.physics.simulation import simulate_open
+
+    chain = for_waveform(recipe, wave)
+    played = played or simulate_played(recipe, wave)
+    result = simulate_open(recipe.system, recipe.target, chain(wave.to_hz(recipe.system)),
+                           chain.dt_s, virtual_z=recipe.virtual_z, closed=played)
+    return {**result.figures(), "coherence_times": recipe.system.coherence}
+
+
 def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
     """The waveform's samples in Hz without its IF (the envelope the optimiser shaped)."""
     samples = wave.to_hz(recipe.system)

@@ -151,10 +151,20 @@ def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=
     ax.semilogy(t, [max(p.leakage, 1e-16) for p in points], "s--", label="leakage")
     ax.axhline(targets[0], color="C0", linestyle=":", linewidth=0.9, label="target infidelity")
     ax.axhline(targets[1], color="C1", linestyle=":", linewidth=0.9, label="target leakage")
+    budget = [p for p in points if getattr(p, "total_error", None) is not None]
+    if budget:  # with coherence times: the three curves of the error budget
+        tb = [p.duration_s * 1e9 for p in budget]
+        ax.semilogy(tb, [max(p.incoherent_error, 1e-16) for p in budget], "^-", color="C3",
+                    label="incoherent error (T1/T2)")
+        ax.semilogy(tb, [max(p.total_error, 1e-16) for p in budget], "D-", color="k",
+                    label="total error (channel)")
+        best = min(budget, key=lambda p: p.total_error)
+        ax.axvline(best.duration_s * 1e9, color="k", linestyle="--", linewidth=0.9,
+                   label="lowest total error")
     if chosen_s:
         ax.axvline(chosen_s * 1e9, color="green", linewidth=0.9, label="shortest passing")
     ax.set_xlabel("duration (ns)")
-    ax.set_ylabel("infidelity, leakage (best start)")
+    ax.set_ylabel("error (best start, as exported)")
     ax.set_title("Best result per duration", fontsize=9)
     ax.legend(fontsize=8)
     _finish(fig, path, title)

@@ -20,7 +20,13 @@ from shaper.errors import ResultError
 from shaper.io import atomic, waveio
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
-from shaper.jobs.export import judge_waveform, make_waveform, member_figures, simulate_played
+from shaper.jobs.export import (
+    judge_waveform,
+    make_waveform,
+    member_figures,
+    open_played,
+    simulate_played,
+)
 from shaper.optimise.options import RunOptions
 from shaper.optimise.starts import Result, optimize, read_history
 from shaper.physics.simulation import Simulation
@@ -96,6 +102,7 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
             "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
             "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
             "infidelity": members[0], "leakage": members[1]},
+        "open_system": open_played(recipe, waveform, exported),
         "out_of_band_fraction": band,
         "bandwidth_cutoff_hz": recipe.bandwidth_hz,
         "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),

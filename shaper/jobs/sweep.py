@@ -91,6 +91,10 @@ class SweepPoint:
     stop_reason: str
     requested_s: float | None = None  # the duration asked for, if rounding changed it
     missed: str = ""           # which targets were missed, in words
+    # with coherence times: the error budget of the export (README, "Decoherence")
+    coherent_error: float | None = None
+    incoherent_error: float | None = None
+    total_error: float | None = None
 
 
 class Sweep:
@@ -137,7 +141,12 @@ class Sweep:
         """Optimise at ``n`` samples (or load the finished point); judge the export."""
         if n in self.points and self.samples_path(n).exists():
             return self.points[n], None
-        from shaper.jobs.export import judge_waveform, make_waveform, simulate_played
+        from shaper.jobs.export import (
+            judge_waveform,
+            make_waveform,
+            open_played,
+            simulate_played,
+        )
 
         recipe = recipe_at(self.recipe, n)
         objective = self.objective_for(recipe)
@@ -150,13 +159,17 @@ class Sweep:
         wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
         played = simulate_played(recipe, wave)
         verdict = judge_waveform(recipe, wave, played)
+        budget = open_played(recipe, wave, played)
         best = result.best
         point = SweepPoint(samples=n, duration_s=n / recipe.sample_rate_hz,
                            infidelity=played.infidelity, leakage=played.leakage,
                            met=verdict.met, iterations=sum(s.iterations for s in result.starts),
                            wall_time_s=time.monotonic() - t0, stop_reason=best.stop_reason,
                            requested_s=requested_s,
-                           missed="" if verdict.met else verdict.summary())
+                           missed="" if verdict.met else verdict.summary(),
+                           coherent_error=budget and budget["coherent_error"],
+                           incoherent_error=budget and budget["incoherent_error"],
+                           total_error=budget and budget["infidelity"])
         if not self.stop:  # an interrupted point is not finished: it is redone on resume
             waveio.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
@@ -229,12 +242,23 @@ class Sweep:
                       starts=[best], samples=samples, compile_time_s=0.0,
                       wall_time_s=point.wall_time_s)
 
+    def lowest_total_error(self) -> int | None:
+        """With coherence times: the duration (samples) whose total error is lowest."""
+        scored = [(p.total_error, n) for n, p in self.points.items() if p.total_error is not None]
+        return min(scored)[1] if scored else None
+
     def table(self) -> str:
-        lines = ["| duration | asked | samples | infidelity | leakage | meets targets | "
-                 "iterations | time (s) |", "|---|---|---|---|---|---|---|---|"]
+        budget = any(p.total_error is not None for p in self.points.values())
+        head = "| duration | asked | samples | infidelity | leakage | meets targets | "
+        if budget:
+            head += "incoherent error | total error (T1/T2) | "
+        lines = [head + "iterations | time (s) |",
+                 "|---|---|---|---|---|---|" + ("---|---|" if budget else "") + "---|---|"]
         for _, p in sorted(self.points.items()):
             asked = "bisection" if p.requested_s is None else format_quantity(p.requested_s, "s")
+            extra = f"{p.incoherent_error:.3e} | {p.total_error:.3e} | " \
+                if budget and p.total_error is not None else ("| | " if budget else "")
             lines.append(f"| {format_quantity(p.duration_s, 's')} | {asked} | {p.samples} | "
                          f"{p.infidelity:.3e} | {p.leakage:.3e} | {'yes' if p.met else 'no'} | "
-                         f"{p.iterations} | {p.wall_time_s:.1f} |")
+                         f"{extra}{p.iterations} | {p.wall_time_s:.1f} |")
         return "\n".join(lines) + "\n"

@@ -87,7 +87,8 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
         problem = make_problem(recipe, layout, steps=chain.steps)._replace(
             dt=jnp.asarray(chain.dt_s))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
-                 method=recipe.optimizer.propagator, drive=drive)
+                 method=recipe.optimizer.propagator, drive=drive,
+                 open_system=recipe.optimizer.open_system)
     w = recipe.weights
     terms = costs.terms_for(recipe, layout)
     names = tuple(t.name for t in terms)

@@ -113,11 +113,13 @@ def best_frame_angles(p: ArrayLike, target: ArrayLike, qubits: int, *,
 
     thetas, values = jax.vmap(run)(jnp.asarray(_STARTS))
     theta = thetas[jnp.argmax(values)]
-    return canonical_angles(theta[qubits:], theta[:qubits], c, bits)
+    return canonical_angles(theta[qubits:], theta[:qubits],
+                            lambda b, a: jnp.abs(jnp.sum(c * _frame_phases(a, bits)[:, None]
+                                                         * _frame_phases(b, bits)[None, :])))
 
 
-def canonical_angles(before: jax.Array, after: jax.Array, c: jax.Array,
-                     bits: jax.Array) -> tuple[jax.Array, jax.Array]:
+def canonical_angles(before: jax.Array, after: jax.Array,
+                     overlap) -> tuple[jax.Array, jax.Array]:
     """One documented choice among equally good frame angles.
 
     For many gates only a combination of a qubit's two angles matters: for an X-type gate
@@ -126,11 +128,10 @@ def canonical_angles(before: jax.Array, after: jax.Array, c: jax.Array,
     search may stop anywhere on it. The choice made here, the same in the report, check
     and export: wherever a qubit's angles are free along a direction, its ``before`` angle
     is 0 and ``after`` carries the rest; every angle is wrapped to (-pi, pi].
-    ``c`` is ``conj(target) * P`` and ``bits`` the computational states' bits.
+    ``overlap(before, after)`` is the angle-dependent part of the fidelity (of the unitary,
+    or of the channel).
     """
-    def trace(b, a):
-        return jnp.abs(jnp.sum(c * _frame_phases(a, bits)[:, None]
-                               * _frame_phases(b, bits)[None, :]))
+    trace = overlap
 
     def wrap(x):
         return jnp.angle(jnp.exp(1j * x))

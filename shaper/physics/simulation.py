@@ -88,3 +88,62 @@ def _run(drift, controls, samples, dt, computational, target, initial, final, *,
         fig = state_figures(u, initial, final, computational, qubits)
     populations = jnp.abs(history[:, :, computational]) ** 2  # (n+1, d, d_c)
     return jnp.transpose(populations, (2, 0, 1)), fig, u
+
+
+@dataclass(frozen=True)
+class OpenSimulation:
+    """The error budget of a waveform on an open system (README, "Decoherence").
+
+    ``infidelity`` and ``leakage`` are those of the channel (the Lindblad evolution of
+    the same samples); ``coherent_error`` is the closed-system infidelity of the same
+    samples (the pulse's fault), ``incoherent_error`` the rest (the chip's).
+    """
+
+    fidelity: float
+    infidelity: float
+    leakage: float
+    coherent_error: float
+    incoherent_error: float
+    frame_before_rad: list[float]
+    frame_after_rad: list[float]
+
+    def figures(self) -> dict:
+        return dict(self.__dict__)
+
+
+def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float, *,
+                  virtual_z: bool = False, closed: Simulation | None = None) -> OpenSimulation:
+    """The channel figures of ``samples`` on ``system`` with its collapse operators.
+
+    ``closed``: the closed-system simulation of the same samples, if already made.
+
+    Raises:
+        InputError: the system has no collapse operators, or the target is a state.
+    """
+    from shaper.physics.lindblad import dissipator
+
+    if not system.collapse:
+        raise InputError("no coherence times: give t1/t2 (or collapse operators) to simulate "
+                         "the open system")
+    if not target.is_gate:
+        raise InputError("open-system figures are those of a gate; this target is a state")
+    closed = closed or simulate(system, target, samples, dt, virtual_z=virtual_z)
+    qubits = max(1, int(round(np.log2(len(system.computational)))))
+    noise = dissipator(system.collapse, system.dimension)
+    fig = _open(jnp.asarray(system.drift), jnp.asarray(system.controls),
+                jnp.asarray(np.asarray(samples, float)), jnp.asarray(dt, float),
+                jnp.asarray(noise), jnp.asarray(system.computational),
+                jnp.asarray(target.unitary), qubits=qubits, virtual_z=virtual_z)
+    fidelity = float(fig.fidelity)
+    return OpenSimulation(fidelity=fidelity, infidelity=1.0 - fidelity,
+                          leakage=float(fig.leakage), coherent_error=closed.infidelity,
+                          incoherent_error=(1.0 - fidelity) - closed.infidelity,
+                          frame_before_rad=[float(x) for x in fig.frame_before],
+                          frame_after_rad=[float(x) for x in fig.frame_after])
+
+
+@functools.partial(jax.jit, static_argnames=("qubits", "virtual_z"))
+def _open(drift, controls, samples, dt, noise, computational, target, *, qubits, virtual_z):
+    from shaper.physics.lindblad import open_figures
+    return open_figures(drift, controls, samples, dt, noise, computational, target,
+                        qubits=qubits, virtual_z=virtual_z)

@@ -61,6 +61,10 @@ class System:
     qubit_names: tuple[str, ...]
     number_operators: np.ndarray
     transition_frequencies: dict = field(default_factory=dict)
+    # open system (README, "Decoherence"): collapse operators L_k, each scaled so that the
+    # Lindblad term is L rho L^dag - {L^dag L, rho}/2 in 1/s; empty: a closed system
+    collapse: tuple = ()
+    coherence: dict = field(default_factory=dict)  # per qubit: {"t1_s", "t2_s"} given
 
     def __post_init__(self):
         check_names(self)
@@ -151,6 +155,42 @@ def assert_hermitian(matrix: np.ndarray, name: str) -> None:
                          f"conjugate transpose")
 
 
+def transmon_collapse(levels: int, t1_s: float | None, t2_s: float | None, *,
+                      index: int = 0, dims: Sequence[int] | None = None) -> list[np.ndarray]:
+    """Collapse operators of one transmon (embedded in ``dims``) for its T1 and T2.
+
+    Level n decays to n - 1 at rate n / T1: ``L = a / sqrt(T1)`` (the harmonic-oscillator
+    scaling of the Duffing model; common practice, no source). Pure dephasing couples to
+    the number operator: ``L = sqrt(2 / T_phi) n`` with ``1 / T_phi = 1 / T2 - 1 / (2 T1)``,
+    so the coherence between levels m and n decays at ``(m - n)^2 / T_phi`` besides the
+    decay, and the 0-1 coherence at exactly 1 / T2. T2 alone (no T1) is pure dephasing.
+
+    Raises:
+        InputError: a time that is not a positive finite number, or T2 > 2 T1.
+
+    Examples:
+        >>> [op.shape for op in transmon_collapse(3, 40e-6, 30e-6)]
+        [(3, 3), (3, 3)]
+    """
+    dims = tuple(dims or (levels,))
+    for value, name in ((t1_s, "t1"), (t2_s, "t2")):
+        if value is not None and not (isinstance(value, int | float) and np.isfinite(value)
+                                      and value > 0):
+            raise InputError(f"{name} must be a positive time, got {value!r}")
+    if t1_s is not None and t2_s is not None and t2_s > 2 * t1_s * (1 + 1e-12):
+        raise InputError(f"t2 = {t2_s:g} s is longer than 2 t1 = {2 * t1_s:g} s, which no "
+                         f"qubit reaches (T2 <= 2 T1)")
+    out = []
+    if t1_s is not None:
+        out.append(_embed(_lowering(levels) / np.sqrt(t1_s), index, dims))
+    if t2_s is not None:
+        rate_phi = 1.0 / t2_s - (0.0 if t1_s is None else 0.5 / t1_s)
+        if rate_phi > 0:
+            n = np.diag(np.arange(levels)).astype(complex)
+            out.append(_embed(np.sqrt(2 * rate_phi) * n, index, dims))
+    return out
+
+
 def _lowering(levels: int) -> np.ndarray:
     return np.diag(np.sqrt(np.arange(1, levels)), k=1).astype(complex)
 
@@ -177,15 +217,19 @@ class TransmonSpec:
     qubit_frequency_hz: float
     anharmonicity_hz: float = 0.0
     flux: bool = False  # add a baseband control on its number operator
+    t1_s: float | None = None  # energy relaxation time (None: no decay)
+    t2_s: float | None = None  # coherence time of the 0-1 superposition (None: T2 = 2 T1)
 
     def __post_init__(self):
         if not isinstance(self.levels, int | np.integer) or self.levels < 2:
             raise InputError(f"transmon {self.name!r}: levels must be a whole number >= 2 "
                              f"(0 and 1 are the qubit), got {self.levels!r}")
+        transmon_collapse(self.levels, self.t1_s, self.t2_s)  # checks the times
 
 
 def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
-             drive_frequency_hz: float | None = None, name: str = "q0") -> System:
+             drive_frequency_hz: float | None = None, name: str = "q0",
+             t1_s: float | None = None, t2_s: float | None = None) -> System:
     """One transmon (Duffing oscillator) driven by an I/Q pair, in the drive frame.
 
     Args:
@@ -194,6 +238,7 @@ def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
         anharmonicity_hz: alpha, negative for a transmon (f_12 = f_q + alpha).
         drive_frequency_hz: f_d, the frame; default resonant (f_q).
         name: the channel and qubit name.
+        t1_s, t2_s: coherence times (seconds), optional (:func:`transmon_collapse`).
 
     Returns:
         A :class:`System` with controls ``<name>_i`` = (a + a^dag)/2 and
@@ -207,7 +252,7 @@ def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
         ('q0_i', 'q0_q')
     """
     spec = TransmonSpec(name=name, levels=levels, qubit_frequency_hz=qubit_frequency_hz,
-                        anharmonicity_hz=anharmonicity_hz)
+                        anharmonicity_hz=anharmonicity_hz, t1_s=t1_s, t2_s=t2_s)
     return coupled_transmons([spec], [], frame_frequency_hz=drive_frequency_hz)
 
 
@@ -264,7 +309,13 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
         la = _embed(_lowering(dims[ia]), ia, dims)
         lb = _embed(_lowering(dims[ib]), ib, dims)
         drift += g * (la.conj().T @ lb + lb.conj().T @ la)
-    return System(drift=drift, controls=np.array(controls), control_names=tuple(control_names),
+    collapse, coherence = [], {}
+    for q, t in enumerate(transmons):
+        collapse += transmon_collapse(t.levels, t.t1_s, t.t2_s, index=q, dims=dims)
+        if t.t1_s is not None or t.t2_s is not None:
+            coherence[t.name] = {"t1_s": t.t1_s, "t2_s": t.t2_s}
+    return System(collapse=tuple(collapse), coherence=coherence, drift=drift,
+                  controls=np.array(controls), control_names=tuple(control_names),
                   channels=tuple(channels), dims=dims,
                   computational=_computational_indices(dims),
                   qubit_names=tuple(names), number_operators=np.array(numbers),
@@ -274,7 +325,8 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
 def from_matrices(drift: np.ndarray, controls: Mapping[str, np.ndarray], *,
                   dims: Sequence[int] | None = None,
                   computational: Sequence[int] | None = None,
-                  qubit_names: Sequence[str] | None = None) -> System:
+                  qubit_names: Sequence[str] | None = None,
+                  collapse: Mapping[str, np.ndarray] | None = None) -> System:
     """Any system given as matrices (Hz).
 
     Controls named ``<c>_i`` and ``<c>_q`` form one I/Q channel ``<c>``; every other
@@ -287,6 +339,8 @@ def from_matrices(drift: np.ndarray, controls: Mapping[str, np.ndarray], *,
         computational: indices of the computational basis states; default: the states
             with every subsystem in level 0 or 1.
         qubit_names: one per subsystem; default q0, q1, ...
+        collapse: name -> collapse operator ``L`` (``sqrt(rate)`` times a matrix, 1/sqrt(s)),
+            for an open system.
 
     Raises:
         InputError: a matrix is not square, not Hermitian, of another size, or the
@@ -333,6 +387,14 @@ def from_matrices(drift: np.ndarray, controls: Mapping[str, np.ndarray], *,
     qubit_names = tuple(qubit_names or (f"q{i}" for i in range(len(dims))))
     numbers = np.array([_embed(np.diag(np.arange(dim)).astype(complex), i, dims)
                         for i, dim in enumerate(dims)])
-    return System(drift=drift, controls=np.array(ops), control_names=tuple(names),
+    ops_collapse = []
+    for cname, op in (collapse or {}).items():
+        op = np.asarray(op, dtype=complex)
+        if op.shape != (d, d) or not np.all(np.isfinite(op)):
+            raise InputError(f"collapse operator {cname!r} has shape {op.shape}, the drift is "
+                             f"({d}, {d})")
+        ops_collapse.append(op)
+    return System(collapse=tuple(ops_collapse), drift=drift, controls=np.array(ops),
+                  control_names=tuple(names),
                   channels=tuple(channels), dims=dims, computational=comp,
                   qubit_names=qubit_names, number_operators=numbers)

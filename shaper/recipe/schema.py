@@ -33,8 +33,10 @@ KEYS: dict[str, tuple[str, ...]] = {
     "": ("name", "description", "system", "gate", "pulse", "cost", "optimizer", "export"),
     "system": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
                "qubit", "frame_frequency", "transmon", "coupling", "unit", "drift",
-               "drift_imag", "controls", "controls_imag", "dims", "computational"),
-    "system.transmon": ("name", "levels", "qubit_frequency", "anharmonicity", "flux"),
+               "drift_imag", "controls", "controls_imag", "dims", "computational", "t1", "t2",
+               "collapse", "collapse_rate"),
+    "system.transmon": ("name", "levels", "qubit_frequency", "anharmonicity", "flux", "t1",
+                        "t2"),
     "system.coupling": ("between", "strength"),
     "gate": ("target", "matrix", "matrix_imag", "initial_state", "final_state", "virtual_z"),
     "pulse": ("duration", "sample_rate", "hold", "max_rabi", "max_flux", "bandwidth",
@@ -43,7 +45,8 @@ KEYS: dict[str, tuple[str, ...]] = {
     + ("ensemble_detunings", "ensemble_scales"),
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
                   "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
-                  "drag_scale", "learning_rate", "propagator", "ensemble_targets"),
+                  "drag_scale", "learning_rate", "propagator", "ensemble_targets",
+                  "open_system"),
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
                "sideband"),
 }
@@ -74,6 +77,7 @@ class OptimizerSettings:
     learning_rate: float = 0.02
     propagator: str = "eigh"
     ensemble_targets: str = "every"  # or "mean": how the ensemble members meet the targets
+    open_system: bool = False  # optimise the channel fidelity with the coherence times
 
     def __post_init__(self):  # settings guard themselves, however they were made
         _require(self.method in METHODS, "method", self.method)

@@ -46,6 +46,11 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     export = _export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
                      pulse["sample_rate_hz"])
     _fits_in_memory(r, system, pulse, len(scales), export)
+    if optimizer.open_system and not system.collapse:
+        r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
+                                        "operators with rates) to optimise the channel")
+    if optimizer.open_system and not target.is_gate:
+        r.fail("optimizer.open_system", "optimises a gate's channel; this target is a state")
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
                   virtual_z=virtual_z, weights=weights, ensemble_detunings_hz=detunings,
                   ensemble_scales=scales, optimizer=optimizer, export=export, raw=raw, **pulse)
@@ -98,11 +103,24 @@ def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
 # which [system] keys each model reads; any other key would be silently ignored
 MODEL_KEYS = {
     "transmon": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
-                 "qubit"),
+                 "qubit", "t1", "t2"),
     "transmons": ("model", "transmon", "coupling", "frame_frequency"),
     "matrices": ("model", "unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
-                 "computational"),
+                 "computational", "collapse", "collapse_rate"),
 }
+
+
+def _coherence(r: _Reader, t: dict, where: str) -> dict:
+    """``t1`` and ``t2`` (times, optional) as TransmonSpec keywords."""
+    out = {}
+    for key in ("t1", "t2"):
+        if key in t:
+            out[f"{key}_s"] = r.number(t, key, f"{where}.{key}", kind="time", positive=True,
+                                       bare_check=False)
+    if "t1_s" in out and "t2_s" in out and out["t2_s"] > 2 * out["t1_s"] * (1 + 1e-12):
+        r.fail(f"{where}.t2", f"t2 = {t['t2']!r} is longer than 2 t1 = 2 x {t['t1']!r}, which "
+                              f"no qubit reaches (T2 <= 2 T1)")
+    return out
 
 
 def _system(r: _Reader, t: dict) -> System:
@@ -130,7 +148,8 @@ def _system(r: _Reader, t: dict) -> System:
             if not isinstance(name, str) or not NAME.fullmatch(name):
                 r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
                                        f"got {str(name)[:80]!r}")
-            return transmon(levels, fq, alpha, drive_frequency_hz=fd, name=name)
+            return transmon(levels, fq, alpha, drive_frequency_hz=fd, name=name,
+                            **_coherence(r, t, "system"))
         if model == "transmons":
             return _transmons(r, t)
         return _matrices(r, t)
@@ -160,7 +179,7 @@ def _transmons(r: _Reader, t: dict) -> System:
                                         kind="frequency", positive=True),
             anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
                                       kind="frequency"),
-            flux=r.flag(item, "flux", f"{where}.flux", False)))
+            flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where)))
     couplings = []
     for i, item in enumerate(t.get("coupling", [])):
         where = f"system.coupling[{i}]"
@@ -209,8 +228,22 @@ def _matrices(r: _Reader, t: dict) -> System:
         if val is not None and not (isinstance(val, list) and all(
                 isinstance(x, int) and not isinstance(x, bool) for x in val)):
             r.fail(f"system.{key}", f"expected a list of whole numbers, got {val!r}")
+    collapse = {}
+    rates = r.table(t, "collapse_rate", "system.collapse_rate")
+    for name, _ in r.table(t, "collapse", "system.collapse").items():
+        where = f"system.collapse.{name}"
+        op = r.matrix(t["collapse"], name, where, size=drift.shape[0])
+        if name not in rates:
+            r.fail(f"system.collapse_rate.{name}", "missing: every collapse operator needs a "
+                                                   "rate (a frequency, e.g. \"25 kHz\" = 1/40us)")
+        rate = r.number(rates, name, f"system.collapse_rate.{name}", kind="frequency",
+                        positive=True, bare_check=False)
+        collapse[name] = np.sqrt(rate) * op
+    for name in rates:
+        if name not in collapse:
+            r.fail(f"system.collapse_rate.{name}", f"no operator system.collapse.{name}")
     try:
-        return from_matrices(drift, ops, dims=dims, computational=comp)
+        return from_matrices(drift, ops, dims=dims, computational=comp, collapse=collapse)
     except InputError as exc:
         r.fail("system", str(exc))
 
@@ -339,7 +372,8 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         propagator=r.choice(t, "propagator", "optimizer.propagator", ("eigh", "pade"),
                             d.propagator),
         ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",
-                                  ENSEMBLE_RULES, d.ensemble_targets))
+                                  ENSEMBLE_RULES, d.ensemble_targets),
+        open_system=r.flag(t, "open_system", "optimizer.open_system", d.open_system))
 
 
 def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],

@@ -1,0 +1,234 @@
+"""Decoherence: the Lindblad propagation, the channel's figures, the error budget."""
+
+import contextlib
+import io
+import json
+from pathlib import Path
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import pytest
+import scipy.integrate
+from helpers import duffing, expm_product, pedersen_fidelity
+
+from shaper.cli.main import main
+from shaper.physics.lindblad import (
+    channel_block,
+    channel_figures,
+    dissipator,
+    propagate_open,
+)
+from shaper.physics.systems import transmon_collapse
+from shaper.recipe import load_recipe
+
+ROOT = Path(__file__).parent.parent
+DEMO_CSV = ROOT / "results" / "demo-x180" / "demo-x180.csv"
+X = np.array([[0, 1], [1, 0]], complex)
+
+
+def run_cli(*args):
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main([str(a) for a in args])
+    return code, out.getvalue(), err.getvalue()
+
+
+@pytest.mark.parametrize("t, t1, t2", [(20e-9, 40e-6, 30e-6), (5e-6, 10e-6, 8e-6),
+                                       (1e-6, 2e-6, 3.9e-6)])
+def test_idle_qubit_fidelity_formula(t, t1, t2):
+    """An idle qubit for time t: F_avg = (3 + exp(-t/T1) + 2 exp(-t/T2)) / 6.
+
+    Derivation: amplitude damping with gamma = 1 - exp(-t/T1) has Kraus operators
+    K0 = diag(1, sqrt(1 - gamma)), K1 = sqrt(gamma) |0><1|; with extra pure dephasing the
+    coherence is multiplied by exp(-t/T2) in total. The channel's Pauli transfer diagonal
+    is then (1, e^{-t/T2}, e^{-t/T2}, e^{-t/T1}) (the Z row also gets an offset, which does
+    not enter), so its entanglement fidelity is F_e = (1 + 2 e^{-t/T2} + e^{-t/T1}) / 4 and
+    Nielsen's relation F_avg = (d F_e + 1)/(d + 1) (Nielsen, Phys. Lett. A 303, 249 (2002))
+    gives the formula with d = 2.
+    """
+    noise = dissipator(transmon_collapse(2, t1, t2), 2)
+    s = propagate_open(np.zeros((2, 2)), np.zeros((1, 2, 2)), np.zeros((1, 1)), t, noise)
+    fidelity, leak = channel_figures(channel_block(s, [0, 1], 2), np.eye(2))
+    expected = (3 + np.exp(-t / t1) + 2 * np.exp(-t / t2)) / 6
+    assert float(fidelity) == pytest.approx(expected, abs=1e-13)
+    assert abs(float(leak)) < 1e-14
+
+
+def lindblad_rhs(drift, controls, collapse):
+    """The master equation written out on the density matrix (Lindblad, Commun. Math.
+    Phys. 48, 119 (1976)), with H/h in Hz: an independent right-hand side for solve_ivp."""
+    def rhs(_, y, u):
+        d = drift.shape[0]
+        rho = y.view(complex).reshape(d, d)
+        h = drift + np.tensordot(u, controls, axes=1)
+        out = -2j * np.pi * (h @ rho - rho @ h)
+        for op in collapse:
+            ldl = op.conj().T @ op
+            out += op @ rho @ op.conj().T - 0.5 * (ldl @ rho + rho @ ldl)
+        return out.reshape(-1).view(float)
+    return rhs
+
+
+def test_superoperator_agrees_with_an_ode_solver():
+    # a driven 3-level transmon, random piecewise-constant samples, T1 = 5 us, T2 = 4 us
+    # (short, so that decoherence matters at 1e-3 in 20 ns): every basis input evolved by
+    # scipy's solve_ivp at tight tolerance, slice by slice
+    rng = np.random.default_rng(3)
+    drift, controls = duffing(3, 1e6, -220e6)
+    collapse = transmon_collapse(3, 5e-6, 4e-6)
+    samples = rng.normal(scale=40e6, size=(12, 2))
+    dt = 1.5e-9
+    s = np.asarray(propagate_open(drift, controls, samples, dt, dissipator(collapse, 3)))
+    rhs = lindblad_rhs(drift, controls, collapse)
+    for i in range(3):
+        for j in range(3):
+            rho = np.zeros((3, 3), complex)
+            rho[i, j] = 1.0
+            y = rho.reshape(-1).view(float)
+            for row in samples:
+                sol = scipy.integrate.solve_ivp(rhs, (0, dt), y, args=(row,), method="DOP853",
+                                                rtol=1e-12, atol=1e-14)
+                y = sol.y[:, -1]
+            final = y.view(complex).reshape(3, 3)
+            mine = s[:, i + 3 * j].reshape(3, 3).T  # column-stacked vec back to a matrix
+            assert np.max(np.abs(mine - final)) < 1e-9
+
+
+def test_long_coherence_reproduces_the_closed_system_and_gradients_are_exact():
+    # T1, T2 -> infinity: the channel is conj(U) kron U, its figures Pedersen's (reference:
+    # scipy expm product); and the open objective's gradient against finite differences
+    rng = np.random.default_rng(4)
+    drift, controls = duffing(4, 0.0, -220e6)
+    samples = rng.normal(scale=30e6, size=(16, 2))
+    dt = 1 / 2.4e9
+    s = propagate_open(drift, controls, samples, dt, dissipator(transmon_collapse(4, 1e9, 1e9),
+                                                                4))
+    fidelity, leak = channel_figures(channel_block(s, [0, 1], 4), X)
+    u = expm_product(drift, controls, samples, dt)
+    assert float(fidelity) == pytest.approx(pedersen_fidelity(u[:2, :2], X), abs=1e-12)
+    p = u[:2, :2]
+    assert float(leak) == pytest.approx(1 - np.trace(p @ p.conj().T).real / 2, abs=1e-12)
+
+    noise = dissipator(transmon_collapse(4, 20e-6, 15e-6), 4)
+
+    def infidelity(x):
+        s = propagate_open(drift, controls, x, dt, noise)
+        return 1.0 - channel_figures(channel_block(s, [0, 1], 4), X)[0]
+    x = jnp.asarray(samples)
+    grad = np.asarray(jax.grad(infidelity)(x))
+    h = 1e3  # Hz; central differences
+    for k, c in [(0, 0), (5, 1), (11, 0), (15, 1)]:
+        e = np.zeros_like(samples)
+        e[k, c] = h
+        fd = (float(infidelity(x + e)) - float(infidelity(x - e))) / (2 * h)
+        assert grad[k, c] == pytest.approx(fd, rel=1e-5, abs=1e-16)
+
+
+def test_incoherent_error_of_an_optimised_gate_matches_the_first_order_estimate(tmp_path):
+    # From memory (common practice): for a qubit gate of length t the decoherence adds
+    # 1 - F ~ t/(3 T1) + t/(3 T_phi) to first order (the average over the Bloch sphere of
+    # decay and dephasing). The bundled demo pulse (20 ns, optimised on the closed system),
+    # T1 = 30 us and T2 = 40 us, on its 4-level transmon: within 20 %.
+    recipe = tmp_path / "r.toml"
+    text = (ROOT / "recipes" / "demo-x180.toml").read_text()
+    recipe.write_text(text.replace('anharmonicity = "-220 MHz"',
+                                   'anharmonicity = "-220 MHz"\nt1 = "30 us"\nt2 = "40 us"'))
+    code, out, err = run_cli("check", recipe, DEMO_CSV, "--json")
+    assert code == 0, err
+    budget = json.loads(out)["open_system"]
+    t, t1, t2 = 20e-9, 30e-6, 40e-6
+    t_phi = 1 / (1 / t2 - 1 / (2 * t1))
+    estimate = t / (3 * t1) + t / (3 * t_phi)
+    assert budget["incoherent_error"] == pytest.approx(estimate, rel=0.2)
+    assert budget["coherent_error"] == pytest.approx(json.loads(out)["infidelity"], abs=1e-12)
+    assert budget["infidelity"] == pytest.approx(budget["coherent_error"]
+                                                 + budget["incoherent_error"], abs=1e-15)
+
+
+def test_check_takes_coherence_times_on_the_command_line():
+    code, out, err = run_cli("check", ROOT / "recipes" / "demo-x180.toml", DEMO_CSV, "--t1",
+                             "40us", "--t2", "30us")
+    assert code == 0, err
+    assert "with decoherence: infidelity" in out and "incoherent" in out
+    code, out, err = run_cli("check", ROOT / "recipes" / "demo-x180.toml", DEMO_CSV, "--t1",
+                             "40us", "--t2", "90us")
+    assert code == 2 and "T2 <= 2 T1" in err
+
+
+def test_optimising_the_channel_is_at_least_as_good_on_the_channel(tmp_path):
+    # optimizer.open_system: the optimiser's objective is the channel fidelity; on the
+    # channel it must do at least as well as a pulse optimised for the closed system
+    from shaper.optimise.starts import optimize
+    from shaper.physics.simulation import simulate_open
+
+    raw = dict(load_recipe(ROOT / "recipes" / "demo-x180.toml").raw)
+    raw["system"] = {**raw["system"], "levels": 3, "t1": "20 us", "t2": "15 us"}
+    raw["optimizer"] = {"max_iterations": 40, "target_infidelity": 1e-12,
+                        "target_leakage": 1e-12}
+    closed = optimize(raw)
+    raw["optimizer"] = {**raw["optimizer"], "open_system": True}
+    opened = optimize(raw, first=closed.samples)
+    recipe = load_recipe(raw)
+    a = simulate_open(recipe.system, recipe.target, closed.samples, recipe.dt)
+    b = simulate_open(recipe.system, recipe.target, opened.samples, recipe.dt)
+    assert b.infidelity <= a.infidelity * (1 + 1e-9)
+
+
+BAD = [
+    ('t1 = "-40 us"', "system.t1"),
+    ('t1 = "40 us"\nt2 = "81 us"', "system.t2"),
+    ('t2 = "nan us"', "system.t2"),
+]
+
+
+@pytest.mark.parametrize("extra, key", BAD)
+def test_bad_coherence_times_name_the_key(tmp_path, extra, key):
+    recipe = tmp_path / "r.toml"
+    text = (ROOT / "recipes" / "demo-x180.toml").read_text()
+    recipe.write_text(text.replace('anharmonicity = "-220 MHz"',
+                                   f'anharmonicity = "-220 MHz"\n{extra}'))
+    code, out, err = run_cli("optimize", recipe, "--out", tmp_path / "o", "--quiet")
+    assert code == 2 and key in err and "Traceback" not in err, err
+
+
+MATRICES = """name = "mat"
+[system]
+model = "matrices"
+unit = "MHz"
+drift = [[0, 0, 0], [0, 0, 0], [0, 0, -200]]
+controls.drive_i = [[0, 0.5, 0], [0.5, 0, 0.7], [0, 0.7, 0]]
+controls.drive_q = [[0, 0, 0], [0, 0, 0], [0, 0, 0]]
+COLLAPSE
+[gate]
+target = "X"
+[pulse]
+duration = "20 ns"
+sample_rate = "2.4 GS/s"
+max_rabi = "20 MHz"
+"""
+
+
+@pytest.mark.parametrize("collapse, key", [
+    ("collapse.decay = [[0, 1], [0, 0]]\ncollapse_rate.decay = \"25 kHz\"",
+     "system.collapse.decay"),
+    ("collapse.decay = [[0, 1, 0], [0, 0, 1], [0, 0, 0]]", "system.collapse_rate.decay"),
+    ("collapse_rate.decay = \"25 kHz\"", "system.collapse_rate.decay"),
+    ("collapse.decay = [[0, 1, 0], [0, 0, 1], [0, 0, 0]]\ncollapse_rate.decay = \"-1 kHz\"",
+     "system.collapse_rate.decay"),
+])
+def test_bad_collapse_operators_name_the_key(tmp_path, collapse, key):
+    recipe = tmp_path / "m.toml"
+    recipe.write_text(MATRICES.replace("COLLAPSE", collapse))
+    code, out, err = run_cli("optimize", recipe, "--out", tmp_path / "o", "--quiet")
+    assert code == 2 and key in err and "Traceback" not in err, err
+
+
+def test_collapse_operators_of_a_matrices_model_match_the_transmon_ones():
+    # the same qutrit given as matrices with its decay operator and rate: the same channel
+    # as the transmon model with that T1 (1/T1 = 25 kHz -> T1 = 40 us)
+    text = MATRICES.replace("COLLAPSE", "collapse.decay = [[0, 1, 0], [0, 0, 1.4142135623730951]"
+                                        ", [0, 0, 0]]\ncollapse_rate.decay = \"25 kHz\"")
+    system = load_recipe(__import__("tomllib").loads(text)).system
+    reference = transmon_collapse(3, 40e-6, None)
+    assert np.allclose(system.collapse[0], reference[0], atol=1e-12)
