@@ -72,7 +72,8 @@ def _run(args: argparse.Namespace, stop) -> int:
     chosen = shortest / recipe.sample_rate_hz if shortest else None
     if not args.no_plots and sweep.points:
         plot_sweep(folder / "sweep.png", [p for _, p in sorted(sweep.points.items())],
-                   (o.target_infidelity, o.target_leakage), chosen)
+                   (o.target_infidelity, o.target_leakage), chosen,
+                   title=f"{recipe.name}: {recipe.target.label} at every duration")
     print(table)
     lowest = sweep.lowest_total_error()
     if lowest is not None:
