@@ -412,3 +412,46 @@ def test_a_first_guess_longer_than_the_pulse_is_refused(tmp_path):
     recipe.write_text(sub(BASE, "max_iterations = 5", 'initial = "long.npy"'))
     code, out, err = run_cli("optimize", recipe, "--out", tmp_path / "o", "--quiet")
     assert code == 2 and "past the recipe's 48 samples" in err, err
+
+
+def test_more_filesystem_faults(tmp_path, monkeypatch):
+    recipe = tmp_path / "recipe.toml"
+    recipe.write_text(sub(BASE, "max_iterations = 5", "max_iterations = 2"))
+    # a path through a file
+    (tmp_path / "plain").write_text("x")
+    code, _, err = run_cli("optimize", recipe, "--out", tmp_path / "plain" / "run", "--quiet")
+    assert code == 2 and "part of its path is a file" in err, err
+    # a run.log planted as a symbolic link is not followed: the target stays untouched
+    outside = tmp_path / "outside.txt"
+    outside.write_text("keep\n")
+    (tmp_path / "planted").mkdir()
+    (tmp_path / "planted" / "run.log").symlink_to(outside)
+    code, _, err = run_cli("optimize", recipe, "--out", tmp_path / "planted", "--quiet",
+                           "--no-plots")
+    assert code == 3 and "run.log" in err and "Traceback" not in err, err
+    assert outside.read_text() == "keep\n"
+    # a full disk while writing: exit 3 with the reason, one line
+    import errno
+
+    from shaper.io import atomic
+
+    def full(path, data):
+        raise OSError(errno.ENOSPC, "No space left on device", str(path))
+    monkeypatch.setattr(atomic, "write_bytes", full)
+    code, _, err = run_cli("optimize", recipe, "--out", tmp_path / "full", "--quiet",
+                           "--no-plots")
+    assert code == 3 and "No space left on device" in err and "Traceback" not in err, err
+    monkeypatch.undo()
+    # resuming a finished run is refused without --force
+    code, _, err = run_cli("optimize", recipe, "--out", tmp_path / "done", "--quiet",
+                           "--no-plots")
+    assert code in (0, 1), err
+    code, _, err = run_cli("optimize", recipe, "--out", tmp_path / "done", "--quiet",
+                           "--resume")
+    assert code == 2 and "finished run" in err, err
+
+
+def test_the_filesystem_table_is_large_enough():
+    # FILESYSTEM above plus the four of test_more_filesystem_faults and the folder lock
+    # (tests/test_trust.py)
+    assert len(FILESYSTEM) + 4 + 1 >= 10

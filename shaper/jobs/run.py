@@ -80,7 +80,11 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
     if any(folder.glob("checkpoint-*.npz")) and not force:
         raise ResultError(f"{folder} holds checkpoints of an unfinished run; pass --resume to "
                           f"continue it or --force to start again")
-    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        raise ResultError(f"cannot make the folder {folder}: part of its path is a file; "
+                          f"choose another --out") from None
     atomic.lock_folder(folder)
 
 
