@@ -17,7 +17,9 @@ from shaper.physics.lindblad import (
     channel_block,
     channel_figures,
     dissipator,
+    norm_bound,
     propagate_open,
+    squarings,
 )
 from shaper.physics.systems import transmon_collapse
 from shaper.recipe import load_recipe
@@ -111,9 +113,10 @@ def test_long_coherence_reproduces_the_closed_system_and_gradients_are_exact():
     assert float(leak) == pytest.approx(1 - np.trace(p @ p.conj().T).real / 2, abs=1e-12)
 
     noise = dissipator(transmon_collapse(4, 20e-6, 15e-6), 4)
+    scalings = squarings(norm_bound(drift, controls, [60e6, 60e6], noise, dt))
 
     def infidelity(x):
-        s = propagate_open(drift, controls, x, dt, noise)
+        s = propagate_open(drift, controls, x, dt, noise, scalings=scalings)
         return 1.0 - channel_figures(channel_block(s, [0, 1], 4), X)[0]
     x = jnp.asarray(samples)
     grad = np.asarray(jax.grad(infidelity)(x))

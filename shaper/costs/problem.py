@@ -59,13 +59,14 @@ class Evaluation(NamedTuple):
 
 def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
              virtual_z: bool, method: str = "eigh", drive: Callable | None = None,
-             open_system: bool = False) -> Figures:
+             open_system: bool = False, open_scalings: int | None = None) -> Figures:
     """Fidelity and leakage of the samples on the problem's system (nominal parameters).
 
     ``drive``, if given, maps the AWG's samples to what the propagator sees on the grid of
     ``problem.dt`` (for IF exports: the held modulated samples on sub-steps).
     ``open_system``: the figures of the channel under ``problem.noise`` (the Lindblad
-    propagation of :mod:`shaper.physics.lindblad`) instead of the unitary's.
+    propagation of :mod:`shaper.physics.lindblad`) instead of the unitary's;
+    ``open_scalings`` (static) covers every slice (:func:`open_scalings`).
     """
     if drive is not None:
         samples = drive(samples)
@@ -73,7 +74,8 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
         from shaper.physics.lindblad import open_figures
         return open_figures(problem.drift, problem.controls, samples,
                             problem.dt * problem.active, problem.noise, problem.computational,
-                            problem.target, qubits=qubits, virtual_z=virtual_z)
+                            problem.target, qubits=qubits, virtual_z=virtual_z,
+                            scalings=open_scalings)
     dt = (problem.dt * problem.active)[:, None, None]
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                         method=method))
@@ -82,7 +84,8 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
 
 def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
                      virtual_z: bool, method: str = "eigh",
-                     drive: Callable | None = None, open_system: bool = False) -> Evaluation:
+                     drive: Callable | None = None, open_system: bool = False,
+                     open_scalings: int | None = None) -> Evaluation:
     """Figures of the nominal system and of every ensemble member, in ONE batched propagation.
 
     Member m sees ``drift + sum_q detunings[m, q] n_q`` and the samples times ``scales[m]``.
@@ -95,7 +98,7 @@ def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_ga
         drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
         return evaluate(samples * scale, problem._replace(drift=drift), qubits=qubits,
                         is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive,
-                        open_system=open_system)
+                        open_system=open_system, open_scalings=open_scalings)
 
     members = jax.vmap(one)(problem.detunings, problem.scales)
     return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], members), members=members)
@@ -145,6 +148,21 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
         envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active),
         noise=jnp.asarray(dissipator(s.collapse, s.dimension) if recipe.optimizer.open_system
                           else np.zeros((1, 1), complex)))
+
+
+def open_scalings(recipe: Recipe, layout: Layout, dt: float) -> int | None:
+    """The Taylor squarings the open-system objective needs for any samples within the
+    recipe's limits and ensemble (None: a closed system)."""
+    if not recipe.optimizer.open_system:
+        return None
+    from shaper.physics.lindblad import dissipator, norm_bound, squarings
+
+    s = recipe.system
+    bound = norm_bound(s.drift, s.controls, layout.column_limits(),
+                       dissipator(s.collapse, s.dimension), dt,
+                       detuning_hz=float(np.max(np.abs(recipe.ensemble_detunings_hz), initial=0)),
+                       scale=float(np.max(recipe.ensemble_scales, initial=1.0)))
+    return squarings(bound)
 
 
 def waveform_problem(recipe: Recipe, samples: int, *, steps: int = 1,

@@ -18,6 +18,7 @@ from shaper import costs
 from shaper.costs.problem import (
     Problem,
     make_problem,
+    open_scalings,
     qubit_count,
     recipe_layout,
 )
@@ -88,7 +89,8 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
             dt=jnp.asarray(chain.dt_s))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  method=recipe.optimizer.propagator, drive=drive,
-                 open_system=recipe.optimizer.open_system)
+                 open_system=recipe.optimizer.open_system,
+                 open_scalings=open_scalings(recipe, layout, chain.dt_s))
     w = recipe.weights
     terms = costs.terms_for(recipe, layout)
     names = tuple(t.name for t in terms)

@@ -120,7 +120,7 @@ def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float
     Raises:
         InputError: the system has no collapse operators, or the target is a state.
     """
-    from shaper.physics.lindblad import dissipator
+    from shaper.physics.lindblad import dissipator, scalings_for
 
     if not system.collapse:
         raise InputError("no coherence times: give t1/t2 (or collapse operators) to simulate "
@@ -130,10 +130,11 @@ def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float
     closed = closed or simulate(system, target, samples, dt, virtual_z=virtual_z)
     qubits = max(1, int(round(np.log2(len(system.computational)))))
     noise = dissipator(system.collapse, system.dimension)
-    fig = _open(jnp.asarray(system.drift), jnp.asarray(system.controls),
-                jnp.asarray(np.asarray(samples, float)), jnp.asarray(dt, float),
-                jnp.asarray(noise), jnp.asarray(system.computational),
-                jnp.asarray(target.unitary), qubits=qubits, virtual_z=virtual_z)
+    samples = np.asarray(samples, float)
+    fig = _open(jnp.asarray(system.drift), jnp.asarray(system.controls), jnp.asarray(samples),
+                jnp.asarray(dt, float), jnp.asarray(noise), jnp.asarray(system.computational),
+                jnp.asarray(target.unitary), qubits=qubits, virtual_z=virtual_z,
+                scalings=scalings_for(system.drift, system.controls, samples, dt, noise))
     fidelity = float(fig.fidelity)
     return OpenSimulation(fidelity=fidelity, infidelity=1.0 - fidelity,
                           leakage=float(fig.leakage), coherent_error=closed.infidelity,
@@ -142,8 +143,9 @@ def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float
                           frame_after_rad=[float(x) for x in fig.frame_after])
 
 
-@functools.partial(jax.jit, static_argnames=("qubits", "virtual_z"))
-def _open(drift, controls, samples, dt, noise, computational, target, *, qubits, virtual_z):
+@functools.partial(jax.jit, static_argnames=("qubits", "virtual_z", "scalings"))
+def _open(drift, controls, samples, dt, noise, computational, target, *, qubits, virtual_z,
+          scalings):
     from shaper.physics.lindblad import open_figures
     return open_figures(drift, controls, samples, dt, noise, computational, target,
-                        qubits=qubits, virtual_z=virtual_z)
+                        qubits=qubits, virtual_z=virtual_z, scalings=scalings)
