@@ -6,6 +6,8 @@ last beat with the limit ``max(limit_s, factor x median evaluation time)``:
 
 - past ``quiet_s`` it writes a line "no evaluation completed for N s" to the log every
   ``quiet_s``, so a stall is visible while it happens;
+- before the first completed evaluation (importing, compiling) the limit is at least
+  :data:`STARTUP_S`, so a slow first compile is not taken for a stall;
 - past the limit it calls the run's rescue (checkpoint and best pulse so far, written
   with NumPy only: the stuck computation may hold every JAX thread), logs a message
   naming the stall, and ends the process with exit code 3 (:data:`STALLED`), bypassing
@@ -27,6 +29,7 @@ from collections.abc import Callable
 STALLED = 3  # exit code of a run the watchdog stopped (an environment failure)
 DEFAULT_LIMIT_S = 600.0
 DEFAULT_FACTOR = 100.0
+STARTUP_S = 600.0  # before the first evaluation (imports, compiling) the limit is at least this
 
 
 class Watchdog:
@@ -54,6 +57,7 @@ class Watchdog:
         self.durations: deque[float] = deque(maxlen=200)
         self.last = time.monotonic()
         self.what = "starting"
+        self.evaluated = False  # has any evaluation completed yet?
         self.fired = False
         self._told = 0.0
         self._done = threading.Event()
@@ -64,6 +68,7 @@ class Watchdog:
         now = time.monotonic()
         if what == "evaluation" and self.what == "evaluation":
             self.durations.append(now - self.last)
+        self.evaluated = self.evaluated or what == "evaluation"
         self.last, self.what, self._told = now, what, 0.0
 
     def silence_s(self) -> float:
@@ -73,7 +78,8 @@ class Watchdog:
     def limit(self) -> float:
         """The silence that counts as a stall now (seconds)."""
         median = statistics.median(self.durations) if self.durations else 0.0
-        return max(self.limit_s, self.factor * median)
+        floor = self.limit_s if self.evaluated else max(self.limit_s, STARTUP_S)
+        return max(floor, self.factor * median)
 
     def check(self) -> bool:
         """One look at the clock; True when the watchdog fired (then it has exited)."""
