@@ -235,3 +235,9 @@ def test_collapse_operators_of_a_matrices_model_match_the_transmon_ones():
     system = load_recipe(__import__("tomllib").loads(text)).system
     reference = transmon_collapse(3, 40e-6, None)
     assert np.allclose(system.collapse[0], reference[0], atol=1e-12)
+
+
+def test_a_bare_coherence_time_is_a_unit_slip():
+    code, out, err = run_cli("check", ROOT / "recipes" / "demo-x180.toml", DEMO_CSV, "--t1",
+                             "40")
+    assert code == 2 and "did you mean '40 us'" in err, err

@@ -43,7 +43,7 @@ def run(args: argparse.Namespace) -> int:
         def times(text, flag):
             if not text:
                 return None
-            return [parse_quantity(part.strip(), "time", key=flag, bare_check=False)
+            return [parse_quantity(part.strip(), "time", key=flag, hint="us")
                     for part in text.split(",")]
         recipe = with_coherence(recipe, times(args.t1, "--t1"), times(args.t2, "--t2"))
     rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \

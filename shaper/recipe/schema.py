@@ -179,7 +179,7 @@ class _Reader:
         return value
 
     def number(self, table, key, where, default=None, *, kind=None, positive=False,
-               integer=False, minimum=None, bare_check=True):
+               integer=False, minimum=None, bare_check=True, hint=None):
         if key not in table:
             if default is None:
                 self.fail(where, "missing required key")
@@ -187,7 +187,7 @@ class _Reader:
         value = table[key]
         if kind:
             value = parse_quantity(value, kind, key=where, path=self.path,
-                                   bare_check=bare_check)
+                                   bare_check=bare_check, hint=hint)
         elif isinstance(value, bool) or not isinstance(value, int | float):
             self.fail(where, f"expected a number, got {value!r}")
         if not math.isfinite(value):

@@ -116,7 +116,7 @@ def _coherence(r: _Reader, t: dict, where: str) -> dict:
     for key in ("t1", "t2"):
         if key in t:
             out[f"{key}_s"] = r.number(t, key, f"{where}.{key}", kind="time", positive=True,
-                                       bare_check=False)
+                                       hint="us")
     if "t1_s" in out and "t2_s" in out and out["t2_s"] > 2 * out["t1_s"] * (1 + 1e-12):
         r.fail(f"{where}.t2", f"t2 = {t['t2']!r} is longer than 2 t1 = 2 x {t['t1']!r}, which "
                               f"no qubit reaches (T2 <= 2 T1)")

@@ -47,7 +47,7 @@ _PLAUSIBLE_BARE = {
 
 
 def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
-                   bare_check: bool = True) -> float:
+                   bare_check: bool = True, hint: str | None = None) -> float:
     """Read a number with a unit and return it in SI units.
 
     Args:
@@ -58,6 +58,7 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
         bare_check: refuse a number without a unit that is implausible for the kind (a
             frequency below 1 kHz, a sample rate below 1 kS/s, a time above 10 ms), with
             "did you mean ..."; off for budgets such as ``optimizer.max_time``.
+        hint: the unit to suggest for a bare number (default by kind: MHz, GS/s, ns).
 
     Returns:
         The value in seconds, hertz or samples per second.
@@ -78,7 +79,7 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
         raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
                           path=path, key=key)
     if isinstance(value, int | float):
-        return _checked(float(value), kind, key, path, bare=bare_check)
+        return _checked(float(value), kind, key, path, bare=bare_check, hint=hint)
     if not isinstance(value, str):
         raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
                           path=path, key=key)
@@ -88,7 +89,7 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
                           path=path, key=key)
     number, unit = float(match.group(1)), (match.group(2) or "")
     if not unit:
-        return _checked(number, kind, key, path, bare=bare_check)
+        return _checked(number, kind, key, path, bare=bare_check, hint=hint)
     if unit not in UNITS:
         known = ", ".join(u for u, (k, _) in UNITS.items()
                           if k in _ACCEPTS[kind] and "μ" not in u and "µ" not in u)
@@ -101,10 +102,12 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
     return _checked(number * scale, kind, key, path, bare=False)
 
 
-def _checked(value: float, kind: str, key: str, path: str | None, *, bare: bool) -> float:
+def _checked(value: float, kind: str, key: str, path: str | None, *, bare: bool,
+             hint: str | None = None) -> float:
     if not math.isfinite(value):
         raise RecipeError(f"expected a finite {kind}, got {value!r}", path=path, key=key)
     plausible, unit = _PLAUSIBLE_BARE[kind]
+    unit = hint or unit
     if bare and not plausible(value):
         where = "command line" if key.startswith("-") else "recipe"
         raise RecipeError(f"{value:g} without a unit reads as {value:g} "
