@@ -286,31 +286,27 @@ def test_numpy_archives_read(tmp_path):
     assert np.allclose(wave.to_hz(system), data * 60e6)
 
 
-def test_check_judges_padded_held_and_foreign_length_files(tmp_path):
-    # the recipe supplies the physics, the file the samples: a waveform longer than the
-    # recipe's pulse (granularity padding), one on a coarser optimiser grid (pulse.hold),
-    # and another recipe's file are all judged (0 or 1), never a crash (4) or bad input (2)
+def test_check_judges_padded_and_foreign_length_files():
+    # the recipe supplies the physics, the file the samples: a bundled export longer than its
+    # recipe's pulse (granularity padding: 64 samples for 60) and other recipes' files, one
+    # shorter and one of another length, are judged (0 or 1), never a crash (4) or bad input
     detuned = ROOT / "recipes" / "detuned-x180.toml"
-    padded = run(detuned, out=tmp_path / "padded", plots_too=False)
-    assert padded.report["samples"] == 64 and padded.report["pulse_samples"] == 60
-    code, out, err = cli("check", detuned, padded.files[0], "--json")
+    folder = ROOT / "results" / "detuned-x180"
+    report = json.loads((folder / "report.json").read_text())
+    assert report["samples"] == 64 and report["pulse_samples"] == 60
+    code, out, err = cli("check", detuned, folder / "detuned-x180.csv", "--json")
     assert code == 0, err
     verdict = json.loads(out)
     assert verdict["samples"] == 64
-    assert verdict["infidelity"] == pytest.approx(padded.report["infidelity"], abs=1e-12)
+    assert verdict["infidelity"] == pytest.approx(report["infidelity"], abs=1e-12)
     # canonical frame angles: the same pair in the report and in check (README)
-    assert verdict["frame_before_rad"] == pytest.approx(padded.report["frame_before_rad"],
-                                                        abs=1e-9)
-    assert verdict["frame_after_rad"] == pytest.approx(padded.report["frame_after_rad"],
-                                                       abs=1e-9)
-    held = dict(load_recipe(ROOT / "recipes" / "demo-x180.toml").raw)
-    held["pulse"] = {**held["pulse"], "hold": 4, "zero_ends": False}
-    held_run = run(held, out=tmp_path / "held", plots_too=False)
-    code, _, err = cli("check", ROOT / "recipes" / "demo-x180.toml", held_run.files[0])
-    assert code in (0, 1), err
-    # the demo's 48-sample pulse judged on the detuned chip: computed, it misses (exit 1)
-    code, out, err = cli("check", detuned, held_run.files[0], "--json")
-    assert code in (0, 1) and "Traceback" not in err, err
+    assert verdict["frame_before_rad"] == pytest.approx(report["frame_before_rad"], abs=1e-9)
+    assert verdict["frame_after_rad"] == pytest.approx(report["frame_after_rad"], abs=1e-9)
+    for other in ("demo-x180", "short-x180"):
+        code, out, err = cli("check", detuned, ROOT / "results" / other / f"{other}.csv",
+                             "--json")
+        assert code in (0, 1) and "Traceback" not in err, err
+        assert json.loads(out)["samples"] != 60
 
 
 def test_report_measures_the_band_as_the_cost_does_with_an_if(tmp_path):

@@ -114,8 +114,12 @@ def _run(args: argparse.Namespace, stop) -> int:
     if not stall_limit > 0:
         raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
     recipe = load_recipe(args.recipe)
-    from shaper.jobs.run import prepare_folder, rescue_writer
-    from shaper.jobs.run import run as run_job
+    folder = Path(args.out) if args.out else Path("results") / recipe.name
+    if stop:  # stopped while starting: nothing to save yet
+        print("shaper optimize: interrupted before the run began", file=sys.stderr)
+        return stop.exit_code
+    from shaper.io.runfolder import prepare_folder
+    prepare_folder(folder, args.force, args.resume)  # refuses at once, before JAX is loaded
     from shaper.optimise.options import RunOptions
     from shaper.optimise.starts import with_budget
     from shaper.optimise.watchdog import Watchdog
@@ -124,11 +128,8 @@ def _run(args: argparse.Namespace, stop) -> int:
                          starts=args.starts)
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
-    folder = Path(args.out) if args.out else Path("results") / recipe.name
-    if stop:  # stopped while starting: nothing to save yet
-        print("shaper optimize: interrupted before the run began", file=sys.stderr)
-        return stop.exit_code
-    prepare_folder(folder, args.force, args.resume)
+    from shaper.jobs.run import rescue_writer
+    from shaper.jobs.run import run as run_job
     log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
     log.line(f"{'resuming' if args.resume else 'starting'} {recipe.name} from {args.recipe}: "
              f"{starts} start(s) on {workers if starts > 1 else 1} process(es)")

@@ -87,7 +87,8 @@ def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
 
     vs_detuning = jax.jit(jax.vmap(lambda d: infidelity(d, 1.0)))(jnp.asarray(detunings))
     vs_scale = jax.jit(jax.vmap(lambda s: infidelity(0.0, s)))(jnp.asarray(scales))
-    slope_d, slope_s = jax.grad(infidelity, argnums=(0, 1))(0.0, 1.0)
+    # three programs, one eigendecomposition each (DEVELOPERS.md): never op by op
+    slope_d, slope_s = jax.jit(jax.grad(infidelity, argnums=(0, 1)))(0.0, 1.0)
     return {"detuning_hz": detunings.tolist(),
             "infidelity_vs_detuning": np.asarray(vs_detuning).tolist(),
             "amplitude_scale": scales.tolist(),
