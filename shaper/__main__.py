@@ -1,5 +1,8 @@
 import sys
 
-from shaper.cli.main import main
+try:  # a SIGINT while the command is still being imported is an interrupt, not a traceback
+    from shaper.cli.main import main
+except KeyboardInterrupt:
+    sys.exit(130)
 
 sys.exit(main())
