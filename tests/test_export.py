@@ -13,7 +13,7 @@ from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
 from shaper.cli.main import main
 from shaper.errors import WaveformError
 from shaper.io.waveform_import import read_any
-from shaper.io.waveio import read_waveform
+from shaper.io.waveio import read_waveform, write_waveform
 from shaper.jobs.export import make_waveform, resample, simulate_played
 from shaper.jobs.run import run
 from shaper.recipe import load_recipe
@@ -286,7 +286,7 @@ def test_numpy_archives_read(tmp_path):
     assert np.allclose(wave.to_hz(system), data * 60e6)
 
 
-def test_check_judges_padded_and_foreign_length_files():
+def test_check_judges_padded_held_and_foreign_length_files(tmp_path):
     # the recipe supplies the physics, the file the samples: a bundled export longer than its
     # recipe's pulse (granularity padding: 64 samples for 60) and other recipes' files, one
     # shorter and one of another length, are judged (0 or 1), never a crash (4) or bad input
@@ -307,6 +307,20 @@ def test_check_judges_padded_and_foreign_length_files():
                              "--json")
         assert code in (0, 1) and "Traceback" not in err, err
         assert json.loads(out)["samples"] != 60
+    # held: the demo's samples each held for two samples of a 4.8 GS/s AWG play the same
+    # pulse, so the same figures (a DAC's zero-order hold, common practice)
+    from dataclasses import replace as dc_replace
+
+    demo_recipe = load_recipe(ROOT / "recipes" / "demo-x180.toml")
+    wave = read_waveform(ROOT / "results" / "demo-x180" / "demo-x180.csv")
+    held = dc_replace(wave, fractions=np.repeat(wave.fractions, 2, axis=0),
+                      sample_rate_hz=2 * wave.sample_rate_hz)
+    files = write_waveform(tmp_path, "held", held, demo_recipe.system, recipe_name="held",
+                           recipe_sha256="0")
+    code, out, err = cli("check", ROOT / "recipes" / "demo-x180.toml", files[0], "--json")
+    assert code == 0, err
+    demo_report = json.loads((ROOT / "results" / "demo-x180" / "report.json").read_text())
+    assert json.loads(out)["infidelity"] == pytest.approx(demo_report["infidelity"], abs=1e-12)
 
 
 def test_report_measures_the_band_as_the_cost_does_with_an_if(tmp_path):
