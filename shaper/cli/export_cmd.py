@@ -53,6 +53,6 @@ def run(args: argparse.Namespace) -> int:
     if report["clipped_samples"]:
         print(f"  {report['clipped_samples']} sample(s) clipped at full scale")
     print(f"CAUTION: {report['caution']}")
-    from shaper.cli.optimize_cmd import targets_line
-    print(targets_line(report["targets"]))
+    from shaper.costs.verdict import summary
+    print(summary(report["targets"]))
     return 0 if report["targets"]["met"] else 1

@@ -172,15 +172,8 @@ def _run(args: argparse.Namespace, stop) -> int:
           f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s)")
     print("wrote " + ", ".join(p.name for p in output.files) + f" in {output.folder}")
     print(f"CAUTION: {r['caution']}")
-    print(targets_line(r["targets"]))
+    from shaper.costs.verdict import summary
+    print(summary(r["targets"]))
     if stop:
         return stop.exit_code
     return 0 if r["targets"]["met"] else 1
-
-
-def targets_line(targets: dict) -> str:
-    """The final line of a command that judges a result: met, or each missed target."""
-    if targets["met"]:
-        return "targets met"
-    return "targets NOT met: " + "; ".join(
-        f"{m['name']} {m['value']:.3e} > {m['limit']:g}" for m in targets["missed"])

@@ -32,9 +32,6 @@ class Miss:
     value: float
     limit: float
 
-    def __str__(self) -> str:
-        return f"{self.name} {self.value:.3e} > {self.limit:.3g}"
-
 
 @dataclass(frozen=True)
 class Verdict:
@@ -45,14 +42,21 @@ class Verdict:
     judged: dict[str, float]
 
     def summary(self) -> str:
-        if self.met:
-            return "targets met"
-        return "targets NOT met: " + "; ".join(str(m) for m in self.missed)
+        return summary(self.as_dict())
 
     def as_dict(self) -> dict:
         return {"met": self.met, "judged": self.judged,
                 "missed": [{"name": m.name, "value": m.value, "limit": m.limit}
                            for m in self.missed]}
+
+
+def summary(targets: dict) -> str:
+    """The line a command ends with: "targets met", or every missed target with its value
+    and limit (``targets`` as in a report: ``met`` and ``missed``)."""
+    if targets["met"]:
+        return "targets met"
+    return "targets NOT met: " + "; ".join(
+        f"{m['name']} {m['value']:.3e} > {m['limit']:g}" for m in targets["missed"])
 
 
 def judge(recipe, *, infidelity: float, leakage: float,
