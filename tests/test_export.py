@@ -66,6 +66,12 @@ def demo(tmp_path_factory):
     return run(ROOT / "recipes" / "demo-x180.toml", out=out, plots_too=False)
 
 
+def test_the_library_run_writes_its_log(demo):
+    log = (demo.folder / "run.log").read_text()
+    assert "starting demo-x180" in log and "start 0 (seed 0)" in log
+    assert "finished: targets met" in log
+
+
 def test_round_trip_within_half_a_dac_step(demo, tmp_path):
     recipe = load_recipe(ROOT / "recipes" / "demo-x180.toml")
     for bits in (16, 12):

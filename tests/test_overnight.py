@@ -206,6 +206,9 @@ def test_sweep_finds_a_gate_shorter_than_any_gaussian(tmp_path):
     assert raw["pulse"]["max_rabi"] == "400 MHz"
     assert shaper_main(["check", str(tmp_path / "r.toml"),
                         str(tmp_path / "s" / f"pulse-{shortest}.csv")]) == 0
+    # the library writes the sweep's summary itself, not only the command line
+    assert "| duration |" in (tmp_path / "s" / "sweep.md").read_text()
+    assert (tmp_path / "s" / "sweep.png").exists()
     # resuming redoes nothing
     again = Sweep(recipe, tmp_path / "s", resume=True, echo=lambda text: None)
     assert again.run(grid) == shortest and again.compiles == 0

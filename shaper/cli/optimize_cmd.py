@@ -73,24 +73,6 @@ class Progress:
             self.bar.close()
 
 
-class RunLog:
-    """``run.log`` in the run folder: one timestamped line per event, flushed at once."""
-
-    def __init__(self, path: Path, echo=None):
-        self.path, self.echo = path, echo
-
-    def line(self, text: str, echo: bool = True) -> None:
-        from shaper.io.atomic import append_line
-        append_line(self.path, f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}")
-        if echo and self.echo is not None:
-            print(text, file=self.echo, flush=True)
-
-    def __call__(self, start) -> None:  # a start has finished
-        self.line(f"start {start.index} (seed {start.seed}): infidelity {start.infidelity:.3e}, "
-                  f"leakage {start.leakage:.3e}, {start.iterations} iterations, "
-                  f"{start.stop_reason}")
-
-
 def run(args: argparse.Namespace) -> int:
     from shaper.optimise.interrupt import stop_on_signals
 
@@ -128,6 +110,7 @@ def _run(args: argparse.Namespace, stop) -> int:
                          starts=args.starts)
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
+    from shaper.io.runlog import RunLog
     from shaper.jobs.run import rescue_writer
     from shaper.jobs.run import run as run_job
     log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
@@ -160,7 +143,6 @@ def _run(args: argparse.Namespace, stop) -> int:
             logging.getLogger("shaper").removeHandler(handler)
     r = output.report
     reason = r["optimizer"]["stop_reason"]
-    log.line(f"finished: {reason}; infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e}")
     if len(r["optimizer"]["starts"]) > 1:
         print("start  seed  infidelity  leakage     iterations  stop")
         for s in r["optimizer"]["starts"]:

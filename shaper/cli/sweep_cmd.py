@@ -48,7 +48,6 @@ def _run(args: argparse.Namespace, stop) -> int:
     from dataclasses import replace
 
     from shaper.io import atomic
-    from shaper.jobs.plots import plot_sweep
     from shaper.jobs.run import finish
     from shaper.jobs.sweep import Sweep
     from shaper.recipe.units import format_quantity
@@ -65,16 +64,9 @@ def _run(args: argparse.Namespace, stop) -> int:
     atomic.lock_folder(folder)
     sweep = Sweep(recipe, folder, seed=args.seed, resume=args.resume, stop=stop, echo=echo,
                   workers=workers if starts > 1 else 1)
-    shortest = sweep.run(durations)
-    table = sweep.table()
-    atomic.write_text(folder / "sweep.md", f"# Duration sweep of {recipe.name}\n\n{table}")
-    o = recipe.optimizer
+    shortest = sweep.run(durations, plots=not args.no_plots)
     chosen = shortest / recipe.sample_rate_hz if shortest else None
-    if not args.no_plots and sweep.points:
-        plot_sweep(folder / "sweep.png", [p for _, p in sorted(sweep.points.items())],
-                   (o.target_infidelity, o.target_leakage), chosen,
-                   title=f"{recipe.name}: {recipe.target.label} at every duration")
-    print(table)
+    print(sweep.table())
     lowest = sweep.lowest_total_error()
     if lowest is not None:
         point = sweep.points[lowest]

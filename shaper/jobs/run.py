@@ -16,8 +16,10 @@ from pathlib import Path
 import numpy as np
 
 from shaper.costs.problem import recipe_layout
+from shaper.costs.verdict import summary
 from shaper.io import atomic, waveio
 from shaper.io.runfolder import prepare_folder
+from shaper.io.runlog import RunLog
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
 from shaper.jobs.export import (
@@ -120,8 +122,24 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     if force and not options.resume:
         for old in list(folder.glob("checkpoint-*.npz")) + [folder / "history.jsonl"]:
             old.unlink(missing_ok=True)
+    log = options.on_start_done if isinstance(options.on_start_done, RunLog) \
+        else RunLog(folder / "run.log")
+    if not isinstance(options.on_start_done, RunLog):  # the library logs like the CLI
+        log.line(f"{'resuming' if options.resume else 'starting'} {recipe.name}: "
+                 f"{recipe.optimizer.starts} start(s)")
+        caller = options.on_start_done
+
+        def on_start_done(start):
+            log(start)
+            if caller is not None:
+                caller(start)
+        options = options.with_(on_start_done=on_start_done)
     result = optimize(recipe, options)
-    return finish(result, folder, plots_too=plots_too, watchdog=options.watchdog)
+    output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog)
+    r = output.report
+    log.line(f"finished: {r['optimizer']['stop_reason']}; infidelity {r['infidelity']:.3e}, "
+             f"leakage {r['leakage']:.3e}; {summary(r['targets'])}", echo=False)
+    return output
 
 
 def rescue_writer(folder: Path, watchdog):

@@ -199,8 +199,33 @@ class Sweep:
         wave = waveio.read_waveform(path)
         return baseband(recipe, wave)[wave.pulse_start:wave.pulse_start + n]
 
-    def run(self, durations_s: list[float]) -> int | None:
-        """Sweep the grid, refine by bisection; return the shortest passing sample count."""
+    def run(self, durations_s: list[float], *, plots: bool = True) -> int | None:
+        """Sweep the grid, refine by bisection; return the shortest passing sample count.
+
+        Writes ``sweep.json`` after every duration and, at the end (also when stopped),
+        ``sweep.md`` and, with ``plots``, ``sweep.png``.
+        """
+        try:
+            return self._run(durations_s)
+        finally:
+            self.write_summary(plots=plots)
+
+    def write_summary(self, *, plots: bool = True) -> None:
+        """``sweep.md`` (the table) and ``sweep.png`` (the curves) of the points so far."""
+        shortest = min((n for n, p in self.points.items() if p.met), default=None)
+        atomic.write_text(self.folder / "sweep.md",
+                          f"# Duration sweep of {self.recipe.name}\n\n{self.table()}")
+        if plots and self.points:
+            from shaper.jobs.plots import plot_sweep
+
+            o = self.recipe.optimizer
+            plot_sweep(self.folder / "sweep.png", [p for _, p in sorted(self.points.items())],
+                       (o.target_infidelity, o.target_leakage),
+                       shortest / self.recipe.sample_rate_hz if shortest else None,
+                       title=f"{self.recipe.name}: {self.recipe.target.label} at every "
+                             f"duration")
+
+    def _run(self, durations_s: list[float]) -> int | None:
         rate, hold = self.recipe.sample_rate_hz, self.recipe.hold
         asked = {}
         for d in durations_s:  # whole samples (slices): say where that moved a duration
