@@ -68,3 +68,16 @@ def write_long(tmp_path, method, iterations):
     path = tmp_path / f"long-{method}.toml"
     path.write_text(LONG.replace("METHOD", method).replace("ITERATIONS", str(iterations)))
     return path
+
+
+def run_cli(*args):
+    """Run the command's entry point in this process; return (code, stdout, stderr)."""
+    import contextlib
+    import io
+
+    from shaper.cli.main import main
+
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main([str(a) for a in args])
+    return code, out.getvalue(), err.getvalue()

@@ -1,7 +1,5 @@
 """Decoherence: the Lindblad propagation, the channel's figures, the error budget."""
 
-import contextlib
-import io
 import json
 from pathlib import Path
 
@@ -10,9 +8,8 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 import scipy.integrate
-from helpers import duffing, expm_product, pedersen_fidelity
+from helpers import duffing, expm_product, pedersen_fidelity, run_cli
 
-from shaper.cli.main import main
 from shaper.physics.lindblad import (
     channel_block,
     channel_figures,
@@ -29,11 +26,6 @@ DEMO_CSV = ROOT / "results" / "demo-x180" / "demo-x180.csv"
 X = np.array([[0, 1], [1, 0]], complex)
 
 
-def run_cli(*args):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = main([str(a) for a in args])
-    return code, out.getvalue(), err.getvalue()
 
 
 @pytest.mark.parametrize("t, t1, t2", [(20e-9, 40e-6, 30e-6), (5e-6, 10e-6, 8e-6),

@@ -1,7 +1,5 @@
 """Export, import and check: waveforms a lab can load, and a verdict on any waveform."""
 
-import contextlib
-import io
 import json
 import subprocess
 from pathlib import Path
@@ -9,8 +7,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
+from helpers import run_cli as cli
 
-from shaper.cli.main import main
 from shaper.errors import WaveformError
 from shaper.io.waveform_import import read_any
 from shaper.io.waveio import read_waveform, write_waveform
@@ -23,12 +21,6 @@ ROOT = Path(__file__).parent.parent
 X = np.array([[0, 1], [1, 0]], complex)
 
 
-def cli(*args):
-    """Run the command's entry point in this process; return (code, stdout, stderr)."""
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = main([str(a) for a in args])
-    return code, out.getvalue(), err.getvalue()
 
 
 def recipe_file(tmp_path, levels, alpha="-200 MHz", duration="10 ns", rate="2 GS/s",

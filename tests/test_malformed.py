@@ -1,8 +1,6 @@
 """Bad input of every kind: each is refused with exit code 2 (3 for the machine's part),
 one line that names the file and the key, and no traceback."""
 
-import contextlib
-import io
 import json
 import os
 import shutil
@@ -10,8 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from shaper.cli.main import main
+from helpers import run_cli
 
 BASE = """name = "probe"
 description = "a robust X gate"
@@ -191,11 +188,6 @@ CASES = [
 ]
 
 
-def run_cli(*args):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = main([str(a) for a in args])
-    return code, out.getvalue(), err.getvalue()
 
 
 def test_the_table_is_large_enough():
