@@ -81,3 +81,20 @@ def run_cli(*args):
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
         code = main([str(a) for a in args])
     return code, out.getvalue(), err.getvalue()
+
+
+# a qutrit given as matrices (MHz), for the recipe-reading tests
+QUTRIT_MATRICES = """name = "mat"
+[system]
+model = "matrices"
+unit = "MHz"
+drift = [[0, 0, 0], [0, 0, 0], [0, 0, -200]]
+controls.drive_i = [[0, 0.5, 0], [0.5, 0, 0.7], [0, 0.7, 0]]
+controls.drive_q = [[0, 0, 0], [0, 0, 0], [0, 0, 0]]
+[gate]
+target = "X"
+[pulse]
+duration = "20 ns"
+sample_rate = "2.4 GS/s"
+max_rabi = "20 MHz"
+"""

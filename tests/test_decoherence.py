@@ -1,6 +1,7 @@
 """Decoherence: the Lindblad propagation, the channel's figures, the error budget."""
 
 import json
+import tomllib
 from pathlib import Path
 
 import jax
@@ -8,7 +9,7 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 import scipy.integrate
-from helpers import duffing, expm_product, pedersen_fidelity, run_cli
+from helpers import QUTRIT_MATRICES, duffing, expm_product, pedersen_fidelity, run_cli
 
 from shaper.physics.lindblad import (
     channel_block,
@@ -187,21 +188,11 @@ def test_bad_coherence_times_name_the_key(tmp_path, extra, key):
     assert code == 2 and key in err and "Traceback" not in err, err
 
 
-MATRICES = """name = "mat"
-[system]
-model = "matrices"
-unit = "MHz"
-drift = [[0, 0, 0], [0, 0, 0], [0, 0, -200]]
-controls.drive_i = [[0, 0.5, 0], [0.5, 0, 0.7], [0, 0.7, 0]]
-controls.drive_q = [[0, 0, 0], [0, 0, 0], [0, 0, 0]]
-COLLAPSE
-[gate]
-target = "X"
-[pulse]
-duration = "20 ns"
-sample_rate = "2.4 GS/s"
-max_rabi = "20 MHz"
-"""
+
+
+def with_collapse(lines: str) -> str:
+    """The qutrit of the recipe tests with collapse operators added to its [system]."""
+    return QUTRIT_MATRICES.replace("[gate]", f"{lines}\n[gate]", 1)
 
 
 @pytest.mark.parametrize("collapse, key", [
@@ -214,7 +205,7 @@ max_rabi = "20 MHz"
 ])
 def test_bad_collapse_operators_name_the_key(tmp_path, collapse, key):
     recipe = tmp_path / "m.toml"
-    recipe.write_text(MATRICES.replace("COLLAPSE", collapse))
+    recipe.write_text(with_collapse(collapse))
     code, out, err = run_cli("optimize", recipe, "--out", tmp_path / "o", "--quiet")
     assert code == 2 and key in err and "Traceback" not in err, err
 
@@ -222,9 +213,9 @@ def test_bad_collapse_operators_name_the_key(tmp_path, collapse, key):
 def test_collapse_operators_of_a_matrices_model_match_the_transmon_ones():
     # the same qutrit given as matrices with its decay operator and rate: the same channel
     # as the transmon model with that T1 (1/T1 = 25 kHz -> T1 = 40 us)
-    text = MATRICES.replace("COLLAPSE", "collapse.decay = [[0, 1, 0], [0, 0, 1.4142135623730951]"
-                                        ", [0, 0, 0]]\ncollapse_rate.decay = \"25 kHz\"")
-    system = load_recipe(__import__("tomllib").loads(text)).system
+    text = with_collapse("collapse.decay = [[0, 1, 0], [0, 0, 1.4142135623730951], [0, 0, 0]]"
+                         "\ncollapse_rate.decay = \"25 kHz\"")
+    system = load_recipe(tomllib.loads(text)).system
     reference = transmon_collapse(3, 40e-6, None)
     assert np.allclose(system.collapse[0], reference[0], atol=1e-12)
 

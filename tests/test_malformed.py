@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import run_cli
+from helpers import QUTRIT_MATRICES, run_cli
 
 BASE = """name = "probe"
 description = "a robust X gate"
@@ -57,20 +57,7 @@ max_rabi = "40 MHz"
 max_flux = "900 MHz"
 """
 
-MATRICES = """name = "mat"
-[system]
-model = "matrices"
-unit = "MHz"
-drift = [[0, 0, 0], [0, 0, 0], [0, 0, -200]]
-controls.drive_i = [[0, 0.5, 0], [0.5, 0, 0.7], [0, 0.7, 0]]
-controls.drive_q = [[0, 0, 0], [0, 0, 0], [0, 0, 0]]
-[gate]
-target = "X"
-[pulse]
-duration = "20 ns"
-sample_rate = "2.4 GS/s"
-max_rabi = "20 MHz"
-"""
+MATRICES = QUTRIT_MATRICES
 
 
 def sub(text, old, new):

@@ -82,9 +82,8 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     qubits = qubit_count(recipe)
     problem = make_problem(recipe, layout, real=recipe.samples)
     chain = for_recipe(recipe)  # what the instrument plays, as the propagator sees it
-    drive = None
-    if not chain.identity:
-        drive = chain
+    drive = None if chain.identity else chain
+    if drive is not None:
         problem = make_problem(recipe, layout, steps=chain.steps)._replace(
             dt=jnp.asarray(chain.dt_s))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
