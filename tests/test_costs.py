@@ -29,7 +29,7 @@ def test_duplicate_names_refused():
 def test_changing_weights_does_not_recompile():
     objective = make_objective(load_recipe(DEMO))
     assert objective.names == ("infidelity", "bandwidth", "smoothness")
-    x = jnp.zeros((objective.layout.slices, objective.layout.controls)) + 0.1
+    x = jnp.zeros(objective.layout.shape) + 0.1
     objective.value_and_grad(x, objective.problem, jnp.asarray([1.0, 1.0, 0.1]))
     (total, (parts, _)), _ = objective.value_and_grad(x, objective.problem,
                                                       jnp.asarray([1.0, 5.0, 0.0]))
@@ -81,7 +81,7 @@ def test_battery_of_every_registered_term(where):
     # limit; the second call does not compile again
     objective = make_objective(load_recipe(EVERY_TERM))
     assert set(objective.names) == set(costs.TERMS)
-    shape = (objective.layout.slices, objective.layout.controls)
+    shape = objective.layout.shape
     x = jnp.zeros(shape) if where == "zero" else jnp.full(shape, 40.0)
     w = jnp.asarray(objective.weights)
     for _ in range(2):

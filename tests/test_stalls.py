@@ -86,7 +86,7 @@ def test_every_compiled_objective_runs_one_eigendecomposition(tmp_path):
     # evaluation depends on its line search).
     recipe = load_recipe(probe(tmp_path, "scales"))
     objective = make_objective(recipe)
-    x = jnp.zeros((objective.layout.slices, objective.layout.controls))
+    x = jnp.zeros(objective.layout.shape)
     w = jnp.asarray(objective.weights)
     text = objective.value_and_grad.lower(x, objective.problem, w).compile().as_text()
     assert lapack_calls(text) == ["lapack_zheevd_ffi"]
@@ -111,7 +111,7 @@ from shaper.recipe import load_recipe
 o = make_objective(load_recipe({str(probe(tmp_path, 'detunings'))!r}))
 rng = np.random.default_rng(1)
 for i in range(300):
-    (v, aux), g = o.value_and_grad(rng.normal(size=(o.layout.slices, o.layout.controls)),
+    (v, aux), g = o.value_and_grad(rng.normal(size=o.layout.shape),
                                    o.problem, o.weights)
     assert np.isfinite(float(v))
 print("done")

@@ -106,7 +106,7 @@ def test_every_channel_keeps_its_own_limit_whatever_the_names(tmp_path, second):
         return
     layout = recipe_layout(recipe)
     rng = np.random.default_rng(0)
-    params = rng.normal(scale=30.0, size=(layout.slices, layout.controls))  # deep saturation
+    params = rng.normal(scale=30.0, size=layout.shape)  # deep saturation
     samples = to_samples(params, layout)
     wave, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
     from shaper.io import waveio
@@ -128,7 +128,7 @@ def test_every_channel_keeps_its_own_limit_whatever_the_names(tmp_path, second):
 def test_bundled_recipes_keep_every_channel_within_its_limit(path):
     recipe = load_recipe(path)
     layout = recipe_layout(recipe)
-    params = np.random.default_rng(1).normal(scale=30.0, size=(layout.slices, layout.controls))
+    params = np.random.default_rng(1).normal(scale=30.0, size=layout.shape)
     wave, _ = make_waveform(recipe, to_samples(params, layout), recipe.export,
                             recipe.sample_rate_hz)
     hz = wave.to_hz(recipe.system)

@@ -89,6 +89,9 @@ def _print_summary(v: dict) -> None:
         print(f"  with decoherence: infidelity {o['infidelity']:.3e} = coherent "
               f"{o['coherent_error']:.3e} (the pulse) + incoherent {o['incoherent_error']:.3e} "
               f"(T1/T2); leakage {o['leakage']:.3e}")
+    from shaper.jobs.export import line_summary
+    for text in line_summary(v.get("line")):
+        print(text)
     if v.get("ensemble"):
         print(f"  ensemble: worst infidelity {max(v['ensemble']['infidelity']):.3e}, "
               f"worst leakage {max(v['ensemble']['leakage']):.3e} "

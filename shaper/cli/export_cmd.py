@@ -20,6 +20,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--padding", choices=("after", "before", "centre"))
     parser.add_argument("--clip", action="store_true",
                         help="clip samples over full scale (counted in export.json)")
+    parser.add_argument("--predistort", action="store_true",
+                        help="invert the recipe's [line] in the samples (for a pulse optimised "
+                             "without the line in the loop: export.predistort)")
+    parser.add_argument("--codes", action="store_true",
+                        help="write integer DAC codes instead of fractions of full scale")
     parser.add_argument("--bare", action="store_true",
                         help="numbers only: one file per channel, no header, no sidecar")
     parser.add_argument("--force", action="store_true", help="overwrite an earlier export")
@@ -43,13 +48,17 @@ def run(args: argparse.Namespace) -> int:
     report = reexport(args.run, out=args.out, sample_rate_hz=rate, bits=args.bits, if_hz=if_hz,
                       sideband=args.sideband, granularity=args.granularity,
                       padding=args.padding, clip=True if args.clip else None, bare=args.bare,
-                      force=args.force)
+                      force=args.force, predistort=args.predistort,
+                      codes=True if args.codes else None)
     run_fig = report["at_run_rate"]
     print(f"exported {report['samples']} samples at {report['sample_rate_hz'] / 1e9:g} GS/s "
           f"({report['resampling']}), {report['dac_bits']}-bit, IF "
           f"{report['if_frequency_hz'] / 1e6:g} MHz: {', '.join(report['files'])} in {args.out}")
     print(f"  as played: infidelity {report['infidelity']:.3e}, leakage {report['leakage']:.3e}"
           f" (the run at its own rate: {run_fig['infidelity']:.3e}, {run_fig['leakage']:.3e})")
+    from shaper.jobs.export import line_summary
+    for text in line_summary(report.get("line"), report.get("mixer")):
+        print(text)
     if report["clipped_samples"]:
         print(f"  {report['clipped_samples']} sample(s) clipped at full scale")
     print(f"CAUTION: {report['caution']}")

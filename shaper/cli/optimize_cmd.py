@@ -150,6 +150,9 @@ def _run(args: argparse.Namespace, stop) -> int:
                   f"   {s['iterations']:9d}  {s['stop_reason']}")
     print(f"{recipe.name}: infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e} "
           f"(on the exported {r['samples']} samples, {recipe.export.dac_bits}-bit DAC)")
+    from shaper.jobs.export import line_summary
+    for text in line_summary(r.get("line"), r.get("mixer")):
+        print(text)
     print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; wall time "
           f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s)")
     print("wrote " + ", ".join(p.name for p in output.files) + f" in {output.folder}")

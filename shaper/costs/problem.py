@@ -114,7 +114,8 @@ def figures_of(u: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
 
 def recipe_layout(recipe: Recipe) -> Layout:
     return make_layout(recipe.system, recipe.limits_hz, recipe.samples, hold=recipe.hold,
-                       zero_ends=recipe.zero_ends, ramp_samples=recipe.ramp_samples)
+                       zero_ends=recipe.zero_ends, ramp_samples=recipe.ramp_samples,
+                       ranges_hz=recipe.flux_ranges_hz)
 
 
 def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | None = None,

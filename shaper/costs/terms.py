@@ -42,13 +42,14 @@ def leakage() -> CostTerm:
     return CostTerm("leakage", lambda samples, problem, scores: scores.nominal.leakage)
 
 
-def out_of_band(samples: jax.Array, dt: jax.Array, cutoff_hz: float,
+def out_of_band(samples: jax.Array, dt: jax.Array, cutoff_hz,
                 iq_columns: np.ndarray, baseband_columns: np.ndarray,
                 *, padding: int = 4) -> jax.Array:
     """Fraction of the pulse energy at |f| > cutoff (FFT of the zero-padded samples).
 
     I/Q channels are transformed as ``I + iQ`` (so the sidebands are told apart),
-    baseband channels as real signals.
+    baseband channels as real signals. ``cutoff_hz``: one cutoff, or one per signal (the
+    I/Q pairs in order, then the baseband columns).
     """
     n = samples.shape[0]
     signals = [samples[:, i] + 1j * samples[:, q] for i, q in iq_columns]
@@ -57,13 +58,31 @@ def out_of_band(samples: jax.Array, dt: jax.Array, cutoff_hz: float,
     f = jnp.fft.fft(x, n=padding * n, axis=-1)
     spectrum = jnp.real(f) ** 2 + jnp.imag(f) ** 2  # |f|^2 without abs: smooth at 0
     freqs = np.fft.fftfreq(padding * n)  # cycles per sample; times 1/dt gives Hz
-    above = jnp.abs(freqs / dt) > cutoff_hz
+    cutoffs = np.broadcast_to(np.asarray(cutoff_hz, float), (len(signals),))
+    above = jnp.abs(freqs[None, :] / dt) > cutoffs[:, None]
     total = jnp.sum(spectrum)
     safe = jnp.where(total > 0, total, 1.0)  # double where: value and gradient 0 at no pulse
-    return jnp.where(total > 0, jnp.sum(jnp.where(above[None, :], spectrum, 0.0)) / safe, 0.0)
+    return jnp.where(total > 0, jnp.sum(jnp.where(above, spectrum, 0.0)) / safe, 0.0)
 
 
-def bandwidth(cutoff_hz: float, iq_columns: Sequence, baseband_columns: Sequence, *,
+def band_limited(recipe: Recipe, layout: Layout) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The driven I/Q pairs and baseband columns with a bandwidth limit, and their cutoffs
+    (Hz, pairs first): what :func:`out_of_band` measures for a recipe."""
+    limits = recipe.bandwidth_hz or {}
+    iq, bb, cutoffs = [], [], []
+    driven = set(layout.free_columns.tolist())
+    for ch in recipe.system.channels:
+        if ch.name in limits and ch.kind == "iq" and ch.columns[0] in driven:
+            iq.append(ch.columns)
+            cutoffs.append(limits[ch.name])
+    for ch in recipe.system.channels:
+        if ch.name in limits and ch.kind != "iq" and ch.columns[0] in driven:
+            bb.append(ch.columns[0])
+            cutoffs.append(limits[ch.name])
+    return np.array(iq, int).reshape(-1, 2), np.array(bb, int), np.array(cutoffs, float)
+
+
+def bandwidth(cutoff_hz, iq_columns: Sequence, baseband_columns: Sequence, *,
               sample_period_s: float | None = None) -> CostTerm:
     """The fraction of the pulse energy above ``cutoff_hz`` (see :func:`out_of_band`).
 
@@ -71,7 +90,7 @@ def bandwidth(cutoff_hz: float, iq_columns: Sequence, baseband_columns: Sequence
     propagator runs on sub-steps).
     """
     iq, bb = np.asarray(iq_columns, int).reshape(-1, 2), np.asarray(baseband_columns, int)
-    if not cutoff_hz > 0:
+    if not np.all(np.asarray(cutoff_hz, float) > 0):
         raise InputError(f"the bandwidth cutoff must be positive, got {cutoff_hz} Hz")
     return CostTerm("bandwidth", lambda samples, problem, scores: out_of_band(
         samples, problem.dt if sample_period_s is None else sample_period_s, cutoff_hz, iq, bb))
@@ -124,6 +143,11 @@ class Registered(NamedTuple):
     enabled: Callable[[Recipe], bool]
 
 
+def _cutoffs_first(limited):
+    iq, bb, cutoffs = limited
+    return cutoffs, iq, bb
+
+
 def _weighted(name: str) -> Callable[[Recipe], bool]:
     return lambda recipe: recipe.weights[name] > 0
 
@@ -135,7 +159,7 @@ TERMS: dict[str, Registered] = {
     "leakage": Registered(leakage, lambda r, layout: leakage(), _weighted("leakage")),
     "bandwidth": Registered(
         bandwidth,
-        lambda r, layout: bandwidth(r.bandwidth_hz, layout.iq_columns, layout.baseband_columns,
+        lambda r, layout: bandwidth(*_cutoffs_first(band_limited(r, layout)),
                                     sample_period_s=r.dt),
         lambda r: bool(r.bandwidth_hz) and r.weights["bandwidth"] > 0),
     "smoothness": Registered(smoothness, lambda r, layout: smoothness(layout.column_limits()),

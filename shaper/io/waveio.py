@@ -45,6 +45,10 @@ class Waveform:
     bits: int | None = None
     if_frequency_hz: float = 0.0  # the I/Q carry this IF (signal.modulation), 0: baseband
     sideband: str = "lower"
+    predistorted: bool = False  # the samples invert the recipe's line (signal.line)
+    mixer_corrected: bool = False  # the samples correct the recipe's mixer (signal.mixer)
+    codes: bool = False  # the CSV holds integer DAC codes (fraction x (2^(bits-1) - 1))
+    predistortion_residual: float | None = None  # line output vs intended, rel. to its peak
 
     def to_hz(self, system: System) -> np.ndarray:
         """The samples in Hz, ``(n, k)``, in the system's control order."""
@@ -140,8 +144,14 @@ def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: Sy
             paths.append(path)
         return paths
     header = ",".join(("time_s",) + tuple(waveform.column_names))
-    lines = [header] + [f"{row[0]:.12e}," + ",".join(f"{v:.12g}" for v in row[1:])
-                        for row in table]
+    if waveform.codes:  # integers: exact, since the fractions sit on the DAC's levels
+        levels = 2 ** (waveform.bits - 1) - 1
+        codes = np.rint(waveform.fractions * levels).astype(np.int64)
+        lines = [header] + [f"{t:.12e}," + ",".join(str(v) for v in row)
+                            for t, row in zip(time_s, codes, strict=True)]
+    else:
+        lines = [header] + [f"{row[0]:.12e}," + ",".join(f"{v:.12g}" for v in row[1:])
+                            for row in table]
     csv_path = atomic.inside(folder, folder / f"{name}.csv")
     json_path = atomic.inside(folder, folder / f"{name}.json")
     channels = {}
@@ -156,7 +166,13 @@ def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: Sy
     meta = {"format": FORMAT, "caution": CAUTION, "sample_rate_hz": waveform.sample_rate_hz,
             "samples": n, "pulse_start_sample": waveform.pulse_start,
             "pulse_start_s": waveform.pulse_start / waveform.sample_rate_hz,
-            "channels": channels, "recipe": recipe_name, "recipe_sha256": recipe_sha256}
+            "channels": channels, "recipe": recipe_name, "recipe_sha256": recipe_sha256,
+            "values": "dac_codes" if waveform.codes else "fractions",
+            "predistorted": waveform.predistorted, "mixer_corrected": waveform.mixer_corrected}
+    if waveform.codes:
+        meta["dac_code_of_full_scale"] = 2 ** (waveform.bits - 1) - 1
+    if waveform.predistortion_residual is not None:
+        meta["predistortion_residual"] = waveform.predistortion_residual
     atomic.write_text(csv_path, "\n".join(lines) + "\n")
     atomic.write_json(json_path, meta)
     return [csv_path, json_path]
@@ -199,6 +215,13 @@ def read_waveform(csv_path: str | Path) -> Waveform:
                                              atol=0):
         raise WaveformError(f"{csv_path}: time steps are uneven or do not match the sidecar's "
                             f"sample rate {rate} Hz")
+    values = side.choice(meta, "values", ("fractions", "dac_codes"), "fractions", "")
+    if values == "dac_codes":
+        levels = side.whole(meta, "dac_code_of_full_scale", minimum=1, maximum=2 ** 31 - 1)
+        if np.any(data[:, 1:] != np.rint(data[:, 1:])):
+            raise WaveformError(f"{csv_path}: the sidecar says DAC codes, but not every value "
+                                f"is a whole number")
+        data[:, 1:] /= levels
     if np.any(np.abs(data[:, 1:]) > 1.0 + 1e-12):
         raise WaveformError(f"{csv_path}: values beyond full scale (|x| > 1)")
     channels = meta.get("channels")
@@ -232,7 +255,10 @@ def read_waveform(csv_path: str | Path) -> Waveform:
                     pulse_start=start,
                     bits=bits.pop() if len(bits) == 1 else None,
                     if_frequency_hz=ifs.pop() if ifs else 0.0,
-                    sideband=sidebands.pop() if sidebands else "lower")
+                    sideband=sidebands.pop() if sidebands else "lower",
+                    predistorted=side.flag(meta, "predistorted"),
+                    mixer_corrected=side.flag(meta, "mixer_corrected"),
+                    codes=values == "dac_codes")
 
 
 def read_lines(path: Path) -> list[str]:
@@ -289,5 +315,12 @@ class Sidecar:
     def choice(self, table: dict, key: str, options, default: str, where: str) -> str:
         value = table.get(key, default)
         if value not in options:
-            self.fail(f"{where}.{key}", f"expected one of {', '.join(options)}, got {value!r}")
+            self.fail(f"{where}.{key}" if where else key,
+                      f"expected one of {', '.join(options)}, got {value!r}")
+        return value
+
+    def flag(self, table: dict, key: str, default: bool = False) -> bool:
+        value = table.get(key, default)
+        if not isinstance(value, bool):
+            self.fail(key, f"expected true or false, got {value!r}")
         return value

@@ -20,7 +20,13 @@ from shaper.costs import evaluate
 from shaper.costs.problem import qubit_count, waveform_problem
 from shaper.errors import InputError
 from shaper.io.waveio import Waveform
-from shaper.jobs.export import judge_waveform, member_figures, open_played, simulate_played
+from shaper.jobs.export import (
+    judge_waveform,
+    line_figures,
+    member_figures,
+    open_played,
+    simulate_played,
+)
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.chain import for_waveform
 
@@ -143,6 +149,7 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
         "ensemble": None if members is None else {"infidelity": members[0],
                                                   "leakage": members[1]},
         "open_system": open_played(recipe, wave, sim),
+        "line": line_figures(recipe, wave, sim),
         "levels": list(system.dims),
         "samples": int(samples.shape[0]),
         "sample_rate_hz": wave.sample_rate_hz,

@@ -17,12 +17,13 @@ import numpy as np
 
 from shaper.costs.problem import has_ensemble, qubit_count, recipe_layout, waveform_problem
 from shaper.costs.verdict import Verdict, judge
-from shaper.errors import ResultError, WaveformError
+from shaper.errors import InputError, ResultError, WaveformError
 from shaper.io import atomic, waveio
 from shaper.physics.simulation import Simulation, simulate
 from shaper.recipe import ExportSettings, Recipe, load_recipe
 from shaper.recipe.units import format_quantity
-from shaper.signal.chain import for_waveform
+from shaper.signal.chain import for_waveform, line_columns
+from shaper.signal.mixer import Mixer
 from shaper.signal.modulation import modulate
 
 
@@ -30,11 +31,16 @@ def make_waveform(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
                   sample_rate_hz: float) -> tuple[waveio.Waveform, int]:
     """Samples (Hz, baseband, pulse only) -> the waveform file's contents.
 
+    In order: pad, IF-modulate, pre-distort (``settings.predistort``: invert the recipe's
+    line, :func:`shaper.signal.line.predistort`), correct the mixer (``settings.mixer``,
+    :mod:`shaper.signal.mixer`), scale to full scale, quantise.
+
     Returns:
         (waveform, number of samples clipped).
 
     Raises:
-        WaveformError: a sample over full scale and ``settings.clip`` is off.
+        WaveformError: a sample over full scale and ``settings.clip`` is off, or a
+            pre-distorted or mixer-corrected sample over full scale (never clipped).
     """
     system = recipe.system
     padded, start = waveio.pad(np.asarray(samples_hz, float), settings.granularity,
@@ -42,9 +48,27 @@ def make_waveform(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
     if settings.if_frequency_hz:
         padded = modulate(padded, recipe.system.iq_columns(), settings.if_frequency_hz,
                           1 / sample_rate_hz, settings.sideband, start=start)
+    residual = None
+    if settings.predistort:
+        padded, residual = _predistorted(recipe, padded, sample_rate_hz)
+    mixer = Mixer.for_recipe(recipe, settings.full_scale_hz) if settings.mixer else None
+    if mixer is not None:
+        padded = mixer.corrected(padded)
+    if residual is not None or mixer is not None:
+        scales = waveio.column_scales(system, settings.full_scale_hz)
+        peak = np.max(np.abs(padded) / scales[None, :], axis=0, initial=0.0)
+        for c in np.flatnonzero(peak > 1 + 1e-12):
+            what = " and ".join(w for w, on in (("pre-distortion", residual is not None),
+                                                ("the mixer correction", mixer is not None))
+                                if on)
+            raise WaveformError(f"{what} needs {peak[c]:.3f} of full scale on column "
+                                f"{system.control_names[c]}; it is never clipped: lower "
+                                f"the pulse's limit (pulse.max_rabi / max_flux) or raise "
+                                f"export.full_scale")
     fractions, clipped = waveio.to_fractions(padded, system, settings.full_scale_hz,
                                              clip=settings.clip)
     bound = np.array([min(1.0, recipe.limits_hz[c.name] / settings.full_scale_hz[c.name])
+                      if residual is None and mixer is None else 1.0
                       for c in system.channels if c.kind == "iq"])
     if settings.dac_bits:  # None: keep full precision (the optimiser's own samples)
         fractions = waveio.quantise(fractions, settings.dac_bits, bound=bound,
@@ -53,28 +77,134 @@ def make_waveform(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
                            full_scale_hz=dict(settings.full_scale_hz),
                            column_names=system.control_names, pulse_start=start,
                            bits=settings.dac_bits, if_frequency_hz=settings.if_frequency_hz,
-                           sideband=settings.sideband), clipped
+                           sideband=settings.sideband, predistorted=settings.predistort,
+                           mixer_corrected=mixer is not None,
+                           codes=settings.codes and settings.dac_bits is not None,
+                           predistortion_residual=residual), clipped
 
 
-def simulate_played(recipe: Recipe, wave: waveio.Waveform) -> Simulation:
+def _predistorted(recipe: Recipe, played: np.ndarray, rate: float) -> tuple[np.ndarray, float]:
+    """Every lined column inverted through its line; the worst residual of them."""
+    from shaper.signal.line import predistort
+
+    out, worst = np.array(played, float), 0.0
+    names = recipe.system.control_names
+    for column, stages in line_columns(recipe):
+        if not np.any(played[:, column]):
+            continue
+        out[:, column], residual = predistort(played[:, column], stages, 1 / rate,
+                                              max(recipe.line.oversample, 1),
+                                              channel=names[column])
+        worst = max(worst, residual)
+    return out, worst
+
+
+def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
+    """The samples (Hz) the file means the chip to see, averaged per sample: its own, with
+    any mixer correction and pre-distortion undone (still carrying the IF)."""
+    samples = wave.to_hz(recipe.system)
+    if wave.mixer_corrected:
+        samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
+    if wave.predistorted:
+        from shaper.signal.line import sample_matrix
+        for column, stages in line_columns(recipe):
+            samples[:, column] = sample_matrix(stages, 1 / wave.sample_rate_hz,
+                                               max(recipe.line.oversample, 1),
+                                               samples.shape[0]) @ samples[:, column]
+    return samples
+
+
+def simulate_played(recipe: Recipe, wave: waveio.Waveform, *, line: bool = True,
+                    mixer: bool = True, extrapolate: bool = True) -> Simulation:
     """Figures of a waveform as the instrument plays it, on the recipe's system.
 
-    With an IF, the held modulated samples are simulated on ``s`` and ``2s`` sub-steps per
-    sample and the figures extrapolated (Richardson; the sub-step error falls as 1/s^2),
-    which makes them exact to about 1e-12 here.
+    The chain (:mod:`shaper.signal.chain`) includes the recipe's mixer and line unless
+    ``mixer``/``line`` is False. Where the chain runs on sub-steps (an IF, a line), the
+    figures on ``s`` and ``2s`` sub-steps per sample are extrapolated (Richardson; the
+    sub-step error falls as 1/s^2), which makes them exact to about 1e-12 here;
+    ``extrapolate=False`` gives the figures on the chain's own ``s`` (what the optimiser
+    saw).
     """
     samples = wave.to_hz(recipe.system)
-    chain = for_waveform(recipe, wave)
+    chain = for_waveform(recipe, wave, line=line, mixer=mixer)
     flags = dict(virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator)
     if chain.identity:
         return simulate(recipe.system, recipe.target, samples, chain.dt_s, **flags)
+    steps = chain.steps
+    if not extrapolate:
+        coarse = simulate(recipe.system, recipe.target, chain(samples), chain.dt_s, **flags)
+        return replace(coarse, populations=coarse.populations[:, ::steps])
     coarse, fine = (simulate(recipe.system, recipe.target, c(samples), c.dt_s, **flags)
                     for c in (chain, chain.finer(2)))
-    steps = chain.steps
     fidelity = fine.fidelity + (fine.fidelity - coarse.fidelity) / 3
     leak = fine.leakage + (fine.leakage - coarse.leakage) / 3
     return replace(fine, fidelity=fidelity, infidelity=1 - fidelity, leakage=leak,
                    populations=fine.populations[:, ::2 * steps])
+
+
+def line_figures(recipe: Recipe, wave: waveio.Waveform, played: Simulation) -> dict | None:
+    """The report's ``line`` block: the figures with the line (``played``), without it, and
+    on the optimiser's own fine grid (its convergence). None without a line."""
+    if not recipe.line.active:
+        return None
+    ideal = simulate_played(recipe, wave, line=False)
+    own = simulate_played(recipe, wave, extrapolate=False)
+    return {"channels": {name: [stage_summary(s) for s in stages]
+                         for name, stages in recipe.line.stages.items()},
+            "oversample": recipe.line.oversample,
+            "in_the_loop": not recipe.export.predistort,
+            "with_line": {"infidelity": played.infidelity, "leakage": played.leakage},
+            "without_line": {"infidelity": ideal.infidelity, "leakage": ideal.leakage},
+            "at_oversample": {"infidelity": own.infidelity, "leakage": own.leakage},
+            "predistorted": wave.predistorted,
+            "predistortion_residual": wave.predistortion_residual}
+
+
+def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettings,
+                  rate: float) -> dict | None:
+    """Figures of the same pulse exported *without* the mixer correction and played through
+    the recipe's mixer: what the correction is worth. None without a mixer."""
+    if not settings.mixer:
+        return None
+    plain, _ = make_waveform(recipe, samples_hz, replace(settings, mixer={}), rate)
+    played = simulate_played(recipe, plain)
+    return {"channels": {c: vars(m) for c, m in settings.mixer.items()},
+            "uncorrected": {"infidelity": played.infidelity, "leakage": played.leakage}}
+
+
+def line_summary(line: dict | None, mixer: dict | None = None) -> list[str]:
+    """The lines the commands print about the line and mixer blocks of a report."""
+    out = []
+    if line:
+        w, wo = line["with_line"], line["without_line"]
+        how = "pre-distorted at export" if line["predistorted"] else (
+            "in the loop" if line["in_the_loop"] else "not corrected")
+        out.append(f"  through the line model ({how}): infidelity {w['infidelity']:.3e}, "
+                   f"leakage {w['leakage']:.3e}; the same file on an ideal line: "
+                   f"{wo['infidelity']:.3e}, {wo['leakage']:.3e}")
+        if line["predistorted"]:
+            out.append(f"  pre-distortion residual {line['predistortion_residual']:.2e} of the "
+                       f"peak (the line's output against the intended samples)")
+    if mixer:
+        u = mixer["uncorrected"]
+        out.append(f"  mixer corrected in the samples; uncorrected it would give infidelity "
+                   f"{u['infidelity']:.3e}, leakage {u['leakage']:.3e}")
+    return out
+
+
+def stage_summary(stage) -> dict:
+    """A line stage as the report shows it (SI units)."""
+    out = {"kind": stage.kind}
+    if stage.order:
+        out["order"] = stage.order
+    if stage.cutoff_hz:
+        out["cutoff_hz"] = stage.cutoff_hz
+    if stage.amplitudes:
+        out["amplitudes"] = list(stage.amplitudes)
+        out["time_constants_s"] = list(stage.time_constants_s)
+    if stage.source:
+        out.update(file=stage.source, response=stage.response)
+    return out
 
 
 def open_played(recipe: Recipe, wave: waveio.Waveform,
@@ -94,8 +224,9 @@ def open_played(recipe: Recipe, wave: waveio.Waveform,
 
 
 def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """The waveform's samples in Hz without its IF (the envelope the optimiser shaped)."""
-    samples = wave.to_hz(recipe.system)
+    """The waveform's samples in Hz without its IF (the envelope the optimiser shaped; for a
+    pre-distorted or mixer-corrected file, what it means the chip to see)."""
+    samples = intended(recipe, wave)
     if wave.if_frequency_hz:
         from shaper.signal.modulation import demodulate
         samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
@@ -110,9 +241,9 @@ def band_fraction(recipe: Recipe, wave: waveio.Waveform) -> float | None:
     if not recipe.bandwidth_hz:
         return None
     from shaper.costs import out_of_band
-    layout = recipe_layout(recipe)
-    return float(out_of_band(baseband(recipe, wave), 1 / wave.sample_rate_hz,
-                             recipe.bandwidth_hz, layout.iq_columns, layout.baseband_columns))
+    from shaper.costs.terms import band_limited
+    iq, bb, cutoffs = band_limited(recipe, recipe_layout(recipe))
+    return float(out_of_band(baseband(recipe, wave), 1 / wave.sample_rate_hz, cutoffs, iq, bb))
 
 
 def member_figures(recipe: Recipe, wave: waveio.Waveform) -> tuple[list, list] | None:
@@ -197,20 +328,36 @@ def _at_rate(recipe: Recipe, rate: float, n: int) -> Recipe:
 
 
 def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideband=None,
-             granularity=None, padding=None, clip=None, bare=False, force=False) -> dict:
+             granularity=None, padding=None, clip=None, bare=False, force=False,
+             predistort=False, codes=None) -> dict:
     """Write an earlier run's pulse for another instrument; return the export report.
 
     The export report holds the figures at the run's own rate and of what the new file
-    plays (after resampling, IF modulation, quantisation and padding).
+    plays (after resampling, IF modulation, pre-distortion, mixer correction, quantisation
+    and padding). ``predistort``: invert the recipe's line in the new file.
+
+    Raises:
+        InputError: ``predistort`` without a line, or for a run that was optimised with the
+            line in the loop (its samples already account for the line).
     """
     recipe, samples, _, _ = load_run(run_path)
+    if predistort and not recipe.export.predistort:
+        if not recipe.line.active:
+            raise InputError("--predistort needs a [line] in the run's recipe; this one has "
+                             "none")
+        raise InputError("--predistort: this run was optimised with its line in the loop, so "
+                         "its samples already account for the line; pre-distorting them "
+                         "would correct twice (set export.predistort = true in the recipe to "
+                         "optimise the ideal pulse and invert the line at export)")
     out = Path(out)
     if (out / "export.json").exists() and not force:
         raise ResultError(f"{out} already holds an export (export.json); choose another --out "
                           f"or pass --force")
     out.mkdir(parents=True, exist_ok=True)
-    original = simulate(recipe.system, recipe.target, samples, recipe.dt,
-                        virtual_z=recipe.virtual_z)
+    own, _ = make_waveform(recipe, samples, replace(recipe.export, dac_bits=None,
+                                                    granularity=1, clip=True),
+                           recipe.sample_rate_hz)
+    original = simulate_played(recipe, own)
     rate = sample_rate_hz or recipe.sample_rate_hz
     method = "none"
     if rate != recipe.sample_rate_hz:
@@ -222,7 +369,8 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
                        sideband=sideband or recipe.export.sideband,
                        granularity=granularity or recipe.export.granularity,
                        padding=padding or recipe.export.padding,
-                       clip=recipe.export.clip if clip is None else clip)
+                       clip=recipe.export.clip if clip is None else clip,
+                       codes=recipe.export.codes if codes is None else codes)
     if abs(settings.if_frequency_hz) >= rate / 2:
         raise WaveformError(f"the IF {format_quantity(settings.if_frequency_hz, 'Hz')} is not "
                             f"below the Nyquist frequency {format_quantity(rate / 2, 'Hz')}")
@@ -235,6 +383,9 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
               "sample_rate_hz": rate, "resampling": method, "samples": wave.fractions.shape[0],
               "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,
               "sideband": settings.sideband, "clipped_samples": clipped,
+              "values": "dac_codes" if wave.codes else "fractions",
+              "line": line_figures(target, wave, played),
+              "mixer": mixer_figures(target, samples, settings, rate),
               "at_run_rate": original.figures(), "source": str(run_path),
               "targets": {"infidelity": recipe.optimizer.target_infidelity,
                           "leakage": recipe.optimizer.target_leakage, **verdict.as_dict()},

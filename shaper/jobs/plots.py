@@ -51,7 +51,7 @@ def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=N
 
 
 def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
-                  cutoff_hz: float | None = None, markers: dict | None = None,
+                  cutoff_hz: dict[str, float] | None = None, markers: dict | None = None,
                   title: str | None = None, if_hz: float = 0.0) -> None:
     """Power spectrum per channel (I + iQ for I/Q channels) with the cutoff and transitions.
 
@@ -67,14 +67,16 @@ def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
         signal = samples_hz[:, cols[0]] + (1j * samples_hz[:, cols[1]] if len(cols) == 2 else 0)
         power = np.abs(np.fft.fftshift(np.fft.fft(signal, pad))) ** 2
         ax.semilogy(freqs, power / max(power.max(), 1e-300) + 1e-16, label=ch.name)
-    if cutoff_hz:
+    cutoffs = sorted(set((cutoff_hz or {}).values()))
+    for k, cutoff in enumerate(cutoffs):  # one pair of lines per distinct channel cutoff
         for sign in (-1, 1):
-            ax.axvline(sign * cutoff_hz / 1e6, color="red", linestyle="--", linewidth=0.9,
-                       label="bandwidth cutoff" if sign > 0 else None)
+            ax.axvline(sign * cutoff / 1e6, color="red", linestyle="--", linewidth=0.9,
+                       label="bandwidth cutoff" if sign > 0 and k == 0 else None)
     for label, f in (markers or {}).items():
         ax.axvline(f / 1e6, color="purple", linestyle=":", linewidth=0.9)
         ax.text(f / 1e6, 1e-13, " " + label, rotation=90, fontsize=7, color="purple")
-    span = max(4 * (cutoff_hz or 0), 4 * max([abs(f) for f in (markers or {}).values()] or [0]),
+    span = max(4 * max(cutoffs, default=0),
+               4 * max([abs(f) for f in (markers or {}).values()] or [0]),
                5 / (n * dt)) / 1e6
     ax.set_xlim(-span, span)
     ax.set_ylim(1e-14, 2)

@@ -24,8 +24,10 @@ from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
 from shaper.jobs.export import (
     judge_waveform,
+    line_figures,
     make_waveform,
     member_figures,
+    mixer_figures,
     open_played,
     simulate_played,
 )
@@ -73,6 +75,8 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
             "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
             "infidelity": members[0], "leakage": members[1]},
         "open_system": open_played(recipe, waveform, exported),
+        "line": line_figures(recipe, waveform, exported),
+        "mixer": mixer_figures(recipe, result.samples, recipe.export, recipe.sample_rate_hz),
         "out_of_band_fraction": band,
         "bandwidth_cutoff_hz": recipe.bandwidth_hz,
         "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),

@@ -30,6 +30,7 @@ from shaper.optimise.options import RunOptions
 from shaper.optimise.starts import Result, optimize
 from shaper.recipe import Recipe, load_recipe
 from shaper.recipe.units import format_quantity, parse_quantity
+from shaper.signal.chain import for_recipe
 
 
 def parse_durations(text: str) -> list[float]:
@@ -125,8 +126,8 @@ class Sweep:
 
     def objective_for(self, recipe: Recipe) -> Objective:
         size = bucket(recipe.samples, recipe.hold)
-        if recipe.export.if_frequency_hz:
-            return make_objective(recipe)  # IF sub-steps: no shared padding
+        if not for_recipe(recipe).identity:
+            return make_objective(recipe)  # IF or line sub-steps: no shared padding
         if size not in self.objectives:
             self.objectives[size] = make_objective(recipe, pad_to=size)
             return self.objectives[size]

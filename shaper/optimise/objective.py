@@ -74,14 +74,14 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
 
     ``pad_to`` (AWG samples): pad the slice count to this shared size with identity slices,
     so that recipes differing only in duration reuse the compiled code
-    (:meth:`Objective.for_recipe`). Not with an IF export.
+    (:meth:`Objective.for_recipe`). Not with an IF export or a line (their sub-steps).
     """
+    chain = for_recipe(recipe)  # what reaches the chip, as the propagator sees it
     layout = recipe_layout(recipe)
-    if pad_to is not None and not recipe.export.if_frequency_hz:
+    if pad_to is not None and chain.identity:
         layout = padded(layout, pad_to)
     qubits = qubit_count(recipe)
     problem = make_problem(recipe, layout, real=recipe.samples)
-    chain = for_recipe(recipe)  # what the instrument plays, as the propagator sees it
     drive = None if chain.identity else chain
     if drive is not None:
         problem = make_problem(recipe, layout, steps=chain.steps)._replace(

@@ -108,7 +108,7 @@ def run_one(recipe: Recipe, objective: Objective, index: int, seed: int, options
 def compile_now(objective: Objective) -> float:
     """Compile the value and gradient once, outside the loops' clocks; return the seconds."""
     c0 = time.monotonic()
-    probe = jnp.zeros((objective.layout.slices, objective.layout.controls))
+    probe = jnp.zeros(objective.layout.shape)
     jax.block_until_ready(objective.value_and_grad(probe, objective.problem,
                                                    jnp.asarray(objective.weights)))
     return time.monotonic() - c0

@@ -16,6 +16,7 @@ import numpy as np
 from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
+from shaper.recipe.lines import LineSettings
 from shaper.recipe.units import parse_quantity
 
 MODELS = ("transmon", "transmons", "matrices")
@@ -30,7 +31,8 @@ DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothn
 
 # allowed keys per section; a nested table's keys are listed under "section.sub"
 KEYS: dict[str, tuple[str, ...]] = {
-    "": ("name", "description", "system", "gate", "pulse", "cost", "optimizer", "export"),
+    "": ("name", "description", "system", "gate", "pulse", "cost", "optimizer", "export",
+         "line"),
     "system": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
                "qubit", "frame_frequency", "transmon", "coupling", "unit", "drift",
                "drift_imag", "controls", "controls_imag", "dims", "computational", "t1", "t2",
@@ -39,8 +41,8 @@ KEYS: dict[str, tuple[str, ...]] = {
                         "t2"),
     "system.coupling": ("between", "strength"),
     "gate": ("target", "matrix", "matrix_imag", "initial_state", "final_state", "virtual_z"),
-    "pulse": ("duration", "sample_rate", "hold", "max_rabi", "max_flux", "bandwidth",
-              "max_out_of_band", "zero_ends", "ramp"),
+    "pulse": ("duration", "sample_rate", "hold", "max_rabi", "max_flux", "flux_range",
+              "bandwidth", "max_out_of_band", "zero_ends", "ramp"),
     "cost": tuple(k for k in DEFAULT_WEIGHTS if k != "infidelity")
     + ("ensemble_detunings", "ensemble_scales"),
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
@@ -48,7 +50,8 @@ KEYS: dict[str, tuple[str, ...]] = {
                   "drag_scale", "learning_rate", "propagator", "ensemble_targets",
                   "open_system"),
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
-               "sideband"),
+               "sideband", "predistort", "mixer", "codes"),
+    "export.mixer": ("gain", "phase_deg", "offset_i", "offset_q"),
 }
 REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
             "pulse": ("duration", "sample_rate", "max_rabi")}
@@ -93,6 +96,25 @@ class OptimizerSettings:
         _require(self.margin >= 1, "margin", self.margin)
 
 
+@dataclass(frozen=True)
+class MixerSettings:
+    """One I/Q channel's mixer (``[export.mixer.<channel>]``): gain ratio Q/I, phase error
+    (degrees), DC offsets (fractions of full scale); see :mod:`shaper.signal.mixer`."""
+
+    gain: float = 1.0
+    phase_deg: float = 0.0
+    offset_i: float = 0.0
+    offset_q: float = 0.0
+
+    def __post_init__(self):
+        _require(math.isfinite(self.gain) and 0.5 <= self.gain <= 2.0, "mixer gain", self.gain)
+        _require(math.isfinite(self.phase_deg) and abs(self.phase_deg) <= 30, "mixer phase_deg",
+                 self.phase_deg)
+        for name in ("offset_i", "offset_q"):
+            value = getattr(self, name)
+            _require(math.isfinite(value) and abs(value) <= 0.5, f"mixer {name}", value)
+
+
 @dataclass(frozen=True, kw_only=True)
 class ExportSettings:
     """How to write the waveform (``[export]``)."""
@@ -104,6 +126,9 @@ class ExportSettings:
     clip: bool = False
     if_frequency_hz: float = 0.0
     sideband: str = "lower"
+    predistort: bool = False  # invert the recipe's line in the exported samples
+    mixer: dict[str, MixerSettings] = field(default_factory=dict)  # corrected per channel
+    codes: bool = False  # write integer DAC codes instead of fractions of full scale
 
     def __post_init__(self):
         # dac_bits None: keep full precision (the optimiser's own samples, for comparison)
@@ -117,6 +142,8 @@ class ExportSettings:
         _require(math.isfinite(self.if_frequency_hz), "if_frequency_hz", self.if_frequency_hz)
         _require(all(v > 0 and math.isfinite(v) for v in self.full_scale_hz.values()),
                  "full_scale_hz", self.full_scale_hz)
+        _require(not self.codes or self.dac_bits is not None, "codes (needs dac_bits)",
+                 self.codes)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -133,8 +160,9 @@ class Recipe:
     sample_rate_hz: float
     samples: int
     hold: int
-    limits_hz: dict[str, float]
-    bandwidth_hz: float | None
+    limits_hz: dict[str, float]  # per channel: max |I + iQ| or max |flux| (0: not driven)
+    bandwidth_hz: dict[str, float] | None  # per channel with a bandwidth limit
+    flux_ranges_hz: dict[str, tuple[float, float]]  # per baseband channel: (lowest, highest)
     max_out_of_band: float
     zero_ends: bool
     ramp_samples: int
@@ -143,6 +171,7 @@ class Recipe:
     ensemble_scales: np.ndarray
     optimizer: OptimizerSettings
     export: ExportSettings
+    line: LineSettings = field(default_factory=LineSettings)
     raw: dict = field(repr=False)
 
     @property
@@ -234,7 +263,8 @@ class _Reader:
             self.fail(where, "matrix entries must be finite numbers")
         return real + 1j * imag
 
-    def per_channel(self, value, where, channels: list[str]) -> dict[str, float]:
+    def per_channel(self, value, where, channels: list[str], *,
+                    allow_zero: bool = False) -> dict[str, float]:
         if isinstance(value, dict):
             unknown = [k for k in value if k not in channels]
             if unknown:
@@ -249,6 +279,8 @@ class _Reader:
             one = parse_quantity(value, "frequency", key=where, path=self.path)
             out = dict.fromkeys(channels, one)
         for c, v in out.items():
-            if not v > 0:
-                self.fail(where, f"must be positive, got {v} Hz for channel {c}")
+            if not (v > 0 or (allow_zero and v == 0)):
+                allowed = "positive (or 0: the channel is not driven)" if allow_zero \
+                    else "positive"
+                self.fail(where, f"must be {allowed}, got {v} Hz for channel {c}")
         return out

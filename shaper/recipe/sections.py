@@ -15,14 +15,17 @@ from shaper.physics.systems import (
     transmon,
 )
 from shaper.physics.targets import Target, gate, state_transfer
+from shaper.recipe.lines import read_line
 from shaper.recipe.schema import (
     DEFAULT_WEIGHTS,
     ENSEMBLE_RULES,
     GUESSES,
+    KEYS,
     METHODS,
     MODELS,
     PADDING,
     ExportSettings,
+    MixerSettings,
     OptimizerSettings,
     Recipe,
     _Reader,
@@ -45,6 +48,10 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     optimizer = _optimizer(r, r.table(raw, "optimizer", "optimizer"))
     export = _export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
                      pulse["sample_rate_hz"])
+    line = read_line(r, r.table(raw, "line", "line"), [c.name for c in system.channels],
+                     pulse["sample_rate_hz"])
+    if export.predistort and not line.active:
+        r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
     _fits_in_memory(r, system, pulse, len(scales), export)
     if optimizer.open_system and not system.collapse:
         r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
@@ -53,7 +60,8 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
         r.fail("optimizer.open_system", "optimises a gate's channel; this target is a state")
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
                   virtual_z=virtual_z, weights=weights, ensemble_detunings_hz=detunings,
-                  ensemble_scales=scales, optimizer=optimizer, export=export, raw=raw, **pulse)
+                  ensemble_scales=scales, optimizer=optimizer, export=export, line=line,
+                  raw=raw, **pulse)
 
 
 # Bytes per (slice x d^2) that one value-and-gradient holds at once: eigenvectors,
@@ -298,25 +306,90 @@ def _pulse(r: _Reader, t: dict, system: System) -> dict:
                                  f"nearest valid durations: {shown}")
     iq = [c.name for c in system.channels if c.kind == "iq"]
     bb = [c.name for c in system.channels if c.kind == "baseband"]
-    limits = r.per_channel(t["max_rabi"], "pulse.max_rabi", iq) if iq else {}
+    # a limit of 0 switches a channel off: not driven, no parameters, zero samples
+    limits = r.per_channel(t["max_rabi"], "pulse.max_rabi", iq, allow_zero=True) if iq else {}
+    ranges = _flux_ranges(r, t.get("flux_range"), bb) if "flux_range" in t else {}
     if bb:
-        if "max_flux" not in t:
+        if "max_flux" not in t and len(ranges) < len(bb):
             r.fail("pulse.max_flux", f"missing required key: the baseband channel(s) "
-                                     f"{', '.join(bb)} need a limit")
-        limits.update(r.per_channel(t["max_flux"], "pulse.max_flux", bb))
+                                     f"{', '.join(c for c in bb if c not in ranges)} need a "
+                                     f"limit (or a pulse.flux_range)")
+        if "max_flux" in t:
+            limits.update(r.per_channel(t["max_flux"], "pulse.max_flux", bb, allow_zero=True))
+    for c in bb:
+        if c in ranges:
+            limits[c] = max(-ranges[c][0], ranges[c][1])
+        else:
+            ranges[c] = (-limits[c], limits[c])
+    if not any(v > 0 for v in limits.values()):
+        r.fail("pulse.max_rabi", "every channel is switched off (limit 0): nothing drives the "
+                                 "system")
     ramp_s = r.number(t, "ramp", "pulse.ramp", 0.0, kind="time", minimum=0.0)
     ramp = round(ramp_s * rate)
     if 2 * ramp > n:
         r.fail("pulse.ramp", f"two ramps of {ramp} samples do not fit in {n} samples")
-    cutoff = r.number(t, "bandwidth", "pulse.bandwidth", 0.0, kind="frequency", minimum=0.0)
-    if cutoff >= rate / 2:
-        r.fail("pulse.bandwidth", f"the cutoff must lie below the Nyquist frequency "
-                                  f"{format_quantity(rate / 2, 'Hz')}")
     return dict(duration_s=n / rate, sample_rate_hz=rate, samples=n, hold=hold,
-                limits_hz=limits, bandwidth_hz=cutoff or None,
+                limits_hz=limits, flux_ranges_hz=ranges,
+                bandwidth_hz=_bandwidths(r, t.get("bandwidth"), limits, rate),
                 max_out_of_band=r.number(t, "max_out_of_band", "pulse.max_out_of_band", 1e-3,
                                          minimum=0.0),
                 zero_ends=r.flag(t, "zero_ends", "pulse.zero_ends", True), ramp_samples=ramp)
+
+
+def _flux_ranges(r: _Reader, value, bb: list[str]) -> dict[str, tuple[float, float]]:
+    """``pulse.flux_range``: ``[lowest, highest]`` for every flux line, or a table per line.
+
+    The idle point (0) must lie within the range: the pulse starts and ends there.
+    """
+    where = "pulse.flux_range"
+    if not bb:
+        r.fail(where, "this system has no flux (baseband) channel")
+    if isinstance(value, dict):
+        for k in value:
+            if k not in bb:
+                r.fail(f"{where}.{k}", f"no flux channel of that name; flux channels: "
+                                       f"{', '.join(bb)}")
+        items = [(f"{where}.{k}", k, v) for k, v in value.items()]
+    else:
+        items = [(where, c, value) for c in bb]
+    out = {}
+    for key, c, pair in items:
+        if not isinstance(pair, list) or len(pair) != 2:
+            r.fail(key, f"expected [lowest, highest], e.g. [\"-900 MHz\", 0], got {pair!r}")
+        lo, hi = (parse_quantity(v, "frequency", key=f"{key}[{i}]", path=r.path)
+                  for i, v in enumerate(pair))
+        if not lo <= 0 <= hi or not hi > lo:
+            r.fail(key, f"expected lowest <= 0 <= highest with lowest < highest (the flux "
+                        f"rests at 0 before and after the pulse), got [{lo:g}, {hi:g}] Hz")
+        out[c] = (lo, hi)
+    return out
+
+
+def _bandwidths(r: _Reader, value, limits: dict[str, float],
+                rate: float) -> dict[str, float] | None:
+    """``pulse.bandwidth``: one cutoff for every driven channel, or a table per channel."""
+    if value is None:
+        return None
+    where = "pulse.bandwidth"
+    if isinstance(value, dict):
+        for k in value:
+            if k not in limits:
+                r.fail(f"{where}.{k}", f"no channel of that name; channels: "
+                                       f"{', '.join(limits)}")
+        items = {k: (f"{where}.{k}", v) for k, v in value.items()}
+    else:
+        items = {c: (where, value) for c, lim in limits.items() if lim > 0}
+    out = {}
+    for c, (key, v) in items.items():
+        cutoff = parse_quantity(v, "frequency", key=key, path=r.path)
+        if not cutoff >= 0:
+            r.fail(key, f"must be a positive frequency (or 0: no limit), got {v!r}")
+        if cutoff >= rate / 2:
+            r.fail(key, f"the cutoff must lie below the Nyquist frequency "
+                        f"{format_quantity(rate / 2, 'Hz')}")
+        if cutoff > 0 and limits[c] > 0:
+            out[c] = cutoff
+    return out or None
 
 
 def _cost(r: _Reader, t: dict, system: System):
@@ -380,8 +453,10 @@ def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],
             rate: float) -> ExportSettings:
     r.check_keys(t, "export")
     channels = [c.name for c in system.channels]
+    # a channel that is not driven still has a column: give it any positive full scale
+    fallback = max(limits.values())
     full = r.per_channel(t["full_scale"], "export.full_scale", channels) \
-        if "full_scale" in t else dict(limits)
+        if "full_scale" in t else {c: limits[c] or fallback for c in channels}
     for c in channels:
         if limits[c] > full[c] * (1 + 1e-12):
             key = "pulse.max_flux" if c.endswith("_flux") else "pulse.max_rabi"
@@ -402,4 +477,35 @@ def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],
         padding=r.choice(t, "padding", "export.padding", PADDING, "after"),
         clip=r.flag(t, "clip", "export.clip", False),
         if_frequency_hz=if_hz,
-        sideband=r.choice(t, "sideband", "export.sideband", ("lower", "upper"), "lower"))
+        sideband=r.choice(t, "sideband", "export.sideband", ("lower", "upper"), "lower"),
+        predistort=r.flag(t, "predistort", "export.predistort", False),
+        mixer=_mixers(r, r.table(t, "mixer", "export.mixer"), system),
+        codes=r.flag(t, "codes", "export.codes", False))
+
+
+def _mixers(r: _Reader, t: dict, system) -> dict[str, MixerSettings]:
+    """``[export.mixer.<channel>]``: the imperfections the export corrects, per I/Q channel."""
+    iq = [c.name for c in system.channels if c.kind == "iq"]
+    out = {}
+    for name, table in t.items():
+        where = f"export.mixer.{name}"
+        if name not in iq:
+            r.fail(where, f"no I/Q channel of that name; I/Q channels: {', '.join(iq)}")
+        if not isinstance(table, dict):
+            r.fail(where, f"expected a table of {', '.join(KEYS['export.mixer'])}")
+        r.check_keys(table, "export.mixer", where)
+        d = MixerSettings()
+        values = {k: r.number(table, k, f"{where}.{k}", getattr(d, k))
+                  for k in KEYS["export.mixer"]}
+        if not 0.5 <= values["gain"] <= 2.0:
+            r.fail(f"{where}.gain", f"expected the Q/I gain ratio between 0.5 and 2, got "
+                                    f"{values['gain']}")
+        if abs(values["phase_deg"]) > 30:
+            r.fail(f"{where}.phase_deg", f"expected a phase error within +-30 degrees, got "
+                                         f"{values['phase_deg']}")
+        for k in ("offset_i", "offset_q"):
+            if abs(values[k]) > 0.5:
+                r.fail(f"{where}.{k}", f"expected a DC offset within +-0.5 of full scale, got "
+                                       f"{values[k]}")
+        out[name] = MixerSettings(**values)
+    return out

@@ -1,12 +1,22 @@
-"""The one signal chain: AWG samples -> what the propagator sees.
+"""The one signal chain: AWG samples -> what the propagator sees (README, "The signal chain").
 
 Every consumer asks this chain; nothing rebuilds it: the optimiser (the recipe's baseband
-samples, modulated with the recipe's IF and held by the DAC), ``shaper check``, the
-report and ``shaper export`` (a waveform file's samples, which already carry their IF).
-Without an IF the chain is the identity on the AWG grid. With one, the DAC holds the
-*modulated* value over each sample, which the propagator resolves on
-:func:`~shaper.physics.grid.substeps` sub-steps per sample (see
-:mod:`shaper.signal.modulation` for the sign convention).
+samples, modulated with the recipe's IF), ``shaper check``, the report and ``shaper
+export`` (a waveform file's samples, which already carry their IF and any corrections).
+In order:
+
+1. IF modulation of baseband samples (skipped for a waveform file: it carries its IF);
+2. the I/Q mixer's imperfections (gain, phase, DC offsets; :mod:`shaper.signal.mixer`),
+   for waveform files whose recipe describes the mixer;
+3. the DAC's hold on ``steps`` propagator slices per sample;
+4. the line of each DAC output (:mod:`shaper.signal.line`), if the recipe has one;
+5. back to the drive frame: each held modulated slice turns with the IF phase
+   (:mod:`shaper.signal.modulation` for the sign convention).
+
+The mixer's map mixes I and Q of one channel and the line is the same linear
+time-invariant filter on both, with unit gain at DC, so the two commute: the order
+of 2 and 4 does not change the result. Without IF, mixer and line the chain is the
+identity on the AWG grid.
 """
 
 from __future__ import annotations
@@ -16,7 +26,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from shaper.physics.grid import substeps
-from shaper.signal.modulation import held_drive, modulate
+from shaper.recipe.lines import Stage
+from shaper.signal.line import apply, cell_response
+from shaper.signal.mixer import Mixer
+from shaper.signal.modulation import modulate, to_drive_frame
 
 
 @dataclass(frozen=True)
@@ -31,7 +44,9 @@ class Chain:
         start: index of the pulse's first sample (time zero of the IF).
         modulated: the input already carries the IF (a waveform file); otherwise the
             chain modulates baseband samples first (the optimiser's).
-        steps: propagator slices per AWG sample (default: enough for the IF).
+        line: ``(column, stages)`` per control column that has a line.
+        mixer: the I/Q mixer's imperfections (None: ideal).
+        steps: propagator slices per AWG sample (default: enough for the IF and the line).
     """
 
     iq_columns: np.ndarray
@@ -40,12 +55,15 @@ class Chain:
     sideband: str = "lower"
     start: int = 0
     modulated: bool = False
+    line: tuple[tuple[int, tuple[Stage, ...]], ...] = ()
+    oversample: int = 1
+    mixer: Mixer | None = None
     steps: int = field(default=0)
 
     def __post_init__(self):
         if not self.steps:
-            object.__setattr__(self, "steps", substeps(self.if_hz, self.period_s)
-                               if self.if_hz else 1)
+            steps = substeps(self.if_hz, self.period_s) if self.if_hz else 1
+            object.__setattr__(self, "steps", max(steps, self.oversample if self.line else 1))
 
     @property
     def dt_s(self) -> float:
@@ -54,30 +72,74 @@ class Chain:
 
     @property
     def identity(self) -> bool:
-        return not self.if_hz
+        return not self.if_hz and not self.line and self.mixer is None
 
     def __call__(self, samples):
         """The propagator's samples ``(n * steps, k)`` (NumPy or JAX in, the same out)."""
         if self.identity:
             return samples
-        played = samples if self.modulated else modulate(
-            samples, self.iq_columns, self.if_hz, self.period_s, self.sideband, start=self.start)
-        return held_drive(played, self.iq_columns, self.if_hz, self.period_s, self.sideband,
-                          steps=self.steps, start=self.start)
+        played = samples
+        if self.if_hz and not self.modulated:
+            played = modulate(samples, self.iq_columns, self.if_hz, self.period_s,
+                              self.sideband, start=self.start)
+        if self.mixer is not None:
+            played = self.mixer.plays(played)
+        xp = np if isinstance(played, np.ndarray) else _jnp()
+        fine = xp.repeat(played, self.steps, axis=0)
+        if self.line:
+            lines = dict(self.line)
+            columns = []
+            for c in range(fine.shape[1]):
+                if c in lines:
+                    g, lead = cell_response(lines[c], self.period_s, self.steps, fine.shape[0])
+                    columns.append(apply(fine[:, c], g, lead))
+                else:
+                    columns.append(fine[:, c])
+            fine = xp.stack(columns, axis=1)
+        if self.if_hz:
+            fine = to_drive_frame(fine, self.iq_columns, self.if_hz, self.period_s,
+                                  self.sideband, steps=self.steps, start=self.start)
+        return fine
 
     def finer(self, factor: int) -> Chain:
         """The same chain on ``factor`` times more sub-steps (for extrapolation)."""
         return Chain(self.iq_columns, self.period_s, self.if_hz, self.sideband, self.start,
-                     self.modulated, self.steps * factor)
+                     self.modulated, self.line, self.oversample, self.mixer,
+                     self.steps * factor)
 
 
-def for_recipe(recipe) -> Chain:
-    """The optimiser's chain: the recipe's baseband samples as its export will play them."""
+def _jnp():
+    import jax.numpy as jnp
+    return jnp
+
+
+def line_columns(recipe) -> tuple[tuple[int, tuple[Stage, ...]], ...]:
+    """``(column, stages)`` for every control column whose channel has a line."""
+    stages = recipe.line.stages
+    return tuple((c, stages[ch.name]) for ch in recipe.system.channels
+                 if stages.get(ch.name) for c in ch.columns)
+
+
+def for_recipe(recipe, *, line: bool = True) -> Chain:
+    """The optimiser's chain: the recipe's baseband samples as they reach the chip.
+
+    The line is left out when the recipe pre-distorts (``export.predistort``: the export
+    inverts the line, so the chip sees the samples themselves) or when ``line`` is False.
+    """
+    lined = line and not recipe.export.predistort
     return Chain(recipe.system.iq_columns(), recipe.dt, recipe.export.if_frequency_hz,
-                 recipe.export.sideband)
+                 recipe.export.sideband, line=line_columns(recipe) if lined else (),
+                 oversample=recipe.line.oversample)
 
 
-def for_waveform(recipe, wave) -> Chain:
-    """A waveform file's chain: its samples already carry their IF."""
+def for_waveform(recipe, wave, *, line: bool = True, mixer: bool = True) -> Chain:
+    """A waveform file's chain: its samples already carry their IF (and any corrections).
+
+    ``line=False``/``mixer=False`` leave the recipe's line or mixer out (the figures
+    "without the line" of the report).
+    """
+    model = Mixer.for_recipe(recipe, wave.full_scale_hz) if mixer else None
     return Chain(recipe.system.iq_columns(), 1.0 / wave.sample_rate_hz, wave.if_frequency_hz,
-                 wave.sideband, wave.pulse_start, modulated=True)
+                 wave.sideband, wave.pulse_start, modulated=True,
+                 line=line_columns(recipe) if line else (), oversample=recipe.line.oversample,
+                 mixer=model)

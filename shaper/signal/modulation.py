@@ -73,8 +73,15 @@ def held_drive(modulated, iq_columns, if_hz: float, dt: float, sideband: str = "
         ``dt / steps``. Baseband columns are simply repeated.
     """
     steps = steps or substeps(if_hz, dt)
-    n = modulated.shape[0]
     xp = np if isinstance(modulated, np.ndarray) else jnp
-    fine = xp.repeat(modulated, steps, axis=0)
-    t = (np.arange(n * steps) + 0.5) * (dt / steps) - start * dt
+    return to_drive_frame(xp.repeat(modulated, steps, axis=0), iq_columns, if_hz, dt,
+                          sideband, steps=steps, start=start)
+
+
+def to_drive_frame(fine, iq_columns, if_hz: float, dt: float, sideband: str = "lower", *,
+                   steps: int, start: int = 0):
+    """What the DAC's modulated outputs ``fine`` (on ``steps`` slices per sample of ``dt``,
+    after the hold and any line) are in the drive frame: each I/Q pair turned back by the
+    IF phase at the middle of each slice."""
+    t = (np.arange(fine.shape[0]) + 0.5) * (dt / steps) - start * dt
     return _rotate(fine, iq_columns, -sign_of(sideband) * 2 * np.pi * if_hz * t)

@@ -5,13 +5,19 @@ grid (each value held for ``hold`` AWG samples). They become samples in Hz by
 
 - an I/Q channel with limit A: ``I + iQ = A tanh(r)/r (x_I + i x_Q)``, r = |x|,
   so ``|I + iQ| < A`` holds exactly for every sample, not just on average;
-- a baseband channel with limit B: ``u = B tanh(x)``;
+- a baseband channel with range [lo, hi] (``lo <= 0 <= hi``; default ``-B, B``):
+  ``u = c + w tanh(x)`` with ``c = (hi + lo)/2``, ``w = (hi - lo)/2``, so a one-sided flux
+  line never leaves its side;
 - then a fixed envelope (zero first and last sample, optional sin^2 ramps).
+
+A channel whose limit is 0 is not driven: it has no parameters and its samples are 0.
+Parameters are ``(m, f)`` with ``f`` the driven control columns (:attr:`Layout.free_columns`).
 """
 
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 
 import jax.numpy as jnp
@@ -32,6 +38,8 @@ class Layout:
         iq_limits_hz: ``(p,)`` maximum |I + iQ| per I/Q channel, Hz.
         baseband_columns: ``(b,)`` control columns of baseband channels.
         baseband_limits_hz: ``(b,)`` maximum |u| per baseband channel, Hz.
+        baseband_ranges_hz: ``(b, 2)`` lowest and highest u per baseband channel, Hz.
+        free_columns: ``(f,)`` the driven control columns, in order: one parameter each.
         envelope: ``(n,)`` fixed factor in [0, 1] per AWG sample.
         hold: AWG samples per optimiser slice.
         controls: number of control columns k.
@@ -41,6 +49,8 @@ class Layout:
     iq_limits_hz: np.ndarray
     baseband_columns: np.ndarray
     baseband_limits_hz: np.ndarray
+    baseband_ranges_hz: np.ndarray
+    free_columns: np.ndarray
     envelope: np.ndarray
     hold: int
     controls: int
@@ -48,6 +58,15 @@ class Layout:
     @property
     def samples(self) -> int:
         return int(self.envelope.shape[0])
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        """The parameters' shape: (slices, driven control columns)."""
+        return self.slices, len(self.free_columns)
+
+    def parameter_of(self, columns) -> np.ndarray:
+        """The parameter index of each (driven) control column."""
+        return np.searchsorted(self.free_columns, np.asarray(columns, int))
 
     @property
     def slices(self) -> int:
@@ -63,20 +82,27 @@ class Layout:
 
 
 def make_layout(system: System, limits_hz: dict[str, float], samples: int, *, hold: int = 1,
-                zero_ends: bool = True, ramp_samples: int = 0) -> Layout:
-    """Build the :class:`Layout` for a system and per-channel limits (Hz)."""
+                zero_ends: bool = True, ramp_samples: int = 0,
+                ranges_hz: dict[str, tuple[float, float]] | None = None) -> Layout:
+    """Build the :class:`Layout` for a system and per-channel limits (Hz; 0: not driven) and
+    flux ranges (default: symmetric about 0 within the limit)."""
     if samples % hold:
         raise InputError(f"{samples} samples are not a whole number of slices of {hold}")
-    iq, iq_lim, bb, bb_lim = [], [], [], []
+    ranges_hz = ranges_hz or {}
+    iq, iq_lim, bb, bb_lim, bb_range = [], [], [], [], []
     for ch in system.channels:
         if ch.name not in limits_hz:
             raise InputError(f"no amplitude limit for channel {ch.name!r}")
+        limit = limits_hz[ch.name]
+        if not limit > 0:
+            continue  # not driven
         if ch.kind == "iq":
             iq.append(ch.columns)
-            iq_lim.append(limits_hz[ch.name])
+            iq_lim.append(limit)
         else:
             bb.append(ch.columns[0])
-            bb_lim.append(limits_hz[ch.name])
+            bb_lim.append(limit)
+            bb_range.append(ranges_hz.get(ch.name, (-limit, limit)))
     envelope = np.ones(samples)
     if ramp_samples:
         ramp = np.sin(0.5 * np.pi * (np.arange(ramp_samples) + 0.5) / ramp_samples) ** 2
@@ -84,9 +110,11 @@ def make_layout(system: System, limits_hz: dict[str, float], samples: int, *, ho
         envelope[samples - ramp_samples:] = ramp[::-1]
     if zero_ends and samples > 2:
         envelope[0] = envelope[-1] = 0.0
-    return Layout(np.array(iq, int).reshape(-1, 2), np.array(iq_lim, float),
-                  np.array(bb, int), np.array(bb_lim, float), envelope, int(hold),
-                  len(system.control_names))
+    iq = np.array(iq, int).reshape(-1, 2)
+    return Layout(iq, np.array(iq_lim, float), np.array(bb, int), np.array(bb_lim, float),
+                  np.array(bb_range, float).reshape(-1, 2),
+                  np.sort(np.concatenate([iq.ravel(), np.array(bb, int)])), envelope,
+                  int(hold), len(system.control_names))
 
 
 def padded(layout: Layout, samples: int) -> Layout:
@@ -105,7 +133,7 @@ def _tanh_over_r(r2, xp=jnp):
 
 
 def to_samples(params, layout: Layout, envelope=None):
-    """Parameters ``(m, k)`` -> samples ``(m * hold, k)`` in Hz, within the limits.
+    """Parameters ``(m, f)`` -> samples ``(m * hold, k)`` in Hz, within the limits.
 
     ``envelope`` (an array argument, so that it can change without recompiling) replaces
     ``layout.envelope``. NumPy parameters give NumPy samples without touching JAX (the
@@ -114,12 +142,14 @@ def to_samples(params, layout: Layout, envelope=None):
     xp = np if isinstance(params, np.ndarray) else jnp
     columns = [xp.zeros(params.shape[0])] * layout.controls
     if len(layout.iq_columns):
-        xy = params[:, layout.iq_columns]  # (m, p, 2)
+        xy = params[:, layout.parameter_of(layout.iq_columns)]  # (m, p, 2)
         scale = _tanh_over_r(xp.sum(xy ** 2, axis=-1), xp) * layout.iq_limits_hz
         for j, (i, q) in enumerate(layout.iq_columns):
             columns[i], columns[q] = xy[:, j, 0] * scale[:, j], xy[:, j, 1] * scale[:, j]
-    for c, limit in zip(layout.baseband_columns, layout.baseband_limits_hz, strict=True):
-        columns[c] = xp.tanh(params[:, c]) * limit
+    for c, (low, high) in zip(layout.baseband_columns, layout.baseband_ranges_hz, strict=True):
+        x = params[:, layout.parameter_of(c)]
+        centre, width = 0.5 * (high + low), 0.5 * (high - low)
+        columns[c] = xp.tanh(x) * width + centre if centre else xp.tanh(x) * width
     envelope = layout.envelope if envelope is None else envelope
     return xp.repeat(xp.stack(columns, axis=1), layout.hold, axis=0) * envelope[:, None]
 
@@ -130,14 +160,20 @@ def to_params(samples: np.ndarray, layout: Layout, *, headroom: float = 0.98) ->
     env = layout.envelope[:, None]
     held = np.where(env > 1e-9, samples / np.where(env > 1e-9, env, 1.0), 0.0)
     held = held.reshape(layout.slices, layout.hold, -1).mean(axis=1)
-    params = np.zeros_like(held)
+    params = np.zeros(layout.shape)
     for (i, q), lim in zip(layout.iq_columns, layout.iq_limits_hz, strict=True):
         z = (held[:, i] + 1j * held[:, q]) / lim
         rho = np.minimum(np.abs(z), headroom)
         gain = np.where(rho > 0, np.arctanh(rho) / np.where(rho > 0, np.abs(z), 1.0), 1.0)
-        params[:, i], params[:, q] = (z * gain).real, (z * gain).imag
-    for col, lim in zip(layout.baseband_columns, layout.baseband_limits_hz, strict=True):
-        params[:, col] = np.arctanh(np.clip(held[:, col] / lim, -headroom, headroom))
+        pi, pq = layout.parameter_of([i, q])
+        params[:, pi], params[:, pq] = (z * gain).real, (z * gain).imag
+    for col, (low, high) in zip(layout.baseband_columns, layout.baseband_ranges_hz, strict=True):
+        centre, width = 0.5 * (high + low), 0.5 * (high - low)
+        # a one-sided line rests at one end of its range, where tanh is flat: start it a
+        # step inside (|x| <= 1, slope >= 0.42) so that the gradient can move it
+        cap = min(headroom, math.tanh(1.0)) if centre else headroom
+        params[:, layout.parameter_of(col)] = np.arctanh(
+            np.clip((held[:, col] - centre) / width, -cap, cap))
     return params
 
 
@@ -195,8 +231,9 @@ def first_guess(kind: str, system: System, layout: Layout, dt: float, *, area: f
         shape = (1 - np.cos(2 * np.pi * t)) / (np.sum(1 - np.cos(2 * np.pi * t)) * dt)
     else:
         raise InputError(f"unknown first guess {kind!r}; choose one of {', '.join(GUESSES)}")
+    driven = set(layout.iq_columns.ravel().tolist())
     for ch in system.channels:
-        if ch.kind != "iq":
+        if ch.kind != "iq" or ch.columns[0] not in driven:
             continue
         i, q = ch.columns
         main = area * shape

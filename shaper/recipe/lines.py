@@ -1,0 +1,181 @@
+"""The ``[line]`` section: what stands between each DAC output and the chip (README, "The line").
+
+Each channel may list stages, applied in order to each of its DAC outputs (I and Q alike,
+or the flux line's one): analog low-pass filters (``bessel``, ``butterworth``,
+``gaussian``: kind, order, cutoff), a sum of exponential settling terms (``exponential``:
+amplitudes and time constants, as labs fit a step response), or a measured response from
+a file (``measured``: a CSV of ``time_s,value``, a step or impulse response). This module
+reads and checks the settings; :mod:`shaper.signal.line` turns them into responses.
+Nothing here imports JAX or SciPy.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from shaper.recipe.units import format_quantity, parse_quantity
+
+KINDS = ("bessel", "butterworth", "gaussian", "exponential", "measured")
+LOWPASS = ("bessel", "butterworth", "gaussian")
+STAGE_KEYS = {"bessel": ("kind", "order", "cutoff"), "butterworth": ("kind", "order", "cutoff"),
+              "gaussian": ("kind", "cutoff"),
+              "exponential": ("kind", "amplitudes", "time_constants"),
+              "measured": ("kind", "file", "response")}
+if TYPE_CHECKING:
+    from shaper.recipe.schema import _Reader
+
+MAX_ORDER = 8
+MAX_OVERSAMPLE = 64
+MAX_MEASURED_ROWS = 1_000_000
+
+
+@dataclass(frozen=True)
+class Stage:
+    """One linear, time-invariant stage of a line (all numbers SI).
+
+    ``measured`` stages hold the file's samples (``times_s``, ``values``) as tuples so that a
+    stage is hashable (the responses are cached per stage and grid).
+    """
+
+    kind: str
+    order: int = 0
+    cutoff_hz: float = 0.0
+    amplitudes: tuple[float, ...] = ()
+    time_constants_s: tuple[float, ...] = ()
+    response: str = "step"  # measured: "step" or "impulse"
+    source: str = ""  # measured: the file it came from
+    times_s: tuple[float, ...] = field(default=(), repr=False)
+    values: tuple[float, ...] = field(default=(), repr=False)
+
+
+@dataclass(frozen=True)
+class LineSettings:
+    """The ``[line]`` section: stages per channel name, and the fine grid's oversampling."""
+
+    stages: dict[str, tuple[Stage, ...]] = field(default_factory=dict)
+    oversample: int = 4  # propagator slices per AWG sample where a line is set
+
+    @property
+    def active(self) -> bool:
+        return any(self.stages.values())
+
+
+def read_line(r: _Reader, t: dict, channels: list[str], sample_rate_hz: float) -> LineSettings:
+    """Read ``[line]``: ``oversample`` and one list of stage tables per channel name."""
+    stages = {}
+    for key, value in t.items():
+        if key == "oversample":
+            continue
+        if key not in channels:
+            r.fail(f"line.{key}", f"no channel of that name; channels: {', '.join(channels)} "
+                                  f"(and the key oversample)")
+        if isinstance(value, dict):
+            value = [value]
+        if not isinstance(value, list) or not value:
+            r.fail(f"line.{key}", f"expected one or more stage tables ([[line.{key}]]), got "
+                                  f"{str(value)[:60]!r}")
+        stages[key] = tuple(_stage(r, s, f"line.{key}[{i}]", sample_rate_hz)
+                            for i, s in enumerate(value))
+    oversample = r.number(t, "oversample", "line.oversample", 4, integer=True, minimum=1)
+    if oversample > MAX_OVERSAMPLE:
+        r.fail("line.oversample", f"must be at most {MAX_OVERSAMPLE}, got {oversample}")
+    return LineSettings(stages=stages, oversample=oversample)
+
+
+def _stage(r: _Reader, s, where: str, rate: float) -> Stage:
+    if not isinstance(s, dict):
+        r.fail(where, f"expected a stage table with a kind, got {str(s)[:60]!r}")
+    kind = r.choice(s, "kind", f"{where}.kind", KINDS)
+    allowed = STAGE_KEYS[kind]
+    for key in s:
+        if key not in allowed:
+            r.fail(f"{where}.{key}", f"not a key of a {kind} stage; its keys: "
+                                     f"{', '.join(allowed)}")
+    if kind in LOWPASS:
+        cutoff = r.number(s, "cutoff", f"{where}.cutoff", kind="frequency", positive=True)
+        if cutoff >= rate / 2:
+            r.fail(f"{where}.cutoff", f"{format_quantity(cutoff, 'Hz')} is at or above the "
+                                      f"Nyquist frequency {format_quantity(rate / 2, 'Hz')} of "
+                                      f"the sample rate; the fine grid cannot resolve it")
+        order = 0
+        if kind != "gaussian":
+            order = r.number(s, "order", f"{where}.order", integer=True, minimum=1)
+            if order > MAX_ORDER:
+                r.fail(f"{where}.order", f"must be at most {MAX_ORDER}, got {order}")
+        return Stage(kind, order=order, cutoff_hz=cutoff)
+    if kind == "exponential":
+        amps, taus = s.get("amplitudes"), s.get("time_constants")
+        for key, val in (("amplitudes", amps), ("time_constants", taus)):
+            if not isinstance(val, list) or not val:
+                r.fail(f"{where}.{key}", f"expected a non-empty list, got {val!r}")
+        if len(amps) != len(taus):
+            r.fail(f"{where}.time_constants", f"{len(taus)} time constants for {len(amps)} "
+                                              f"amplitudes; give one per amplitude")
+        amplitudes = []
+        for i, a in enumerate(amps):
+            if isinstance(a, bool) or not isinstance(a, int | float) or not math.isfinite(a) \
+                    or not -1 < a < 1:
+                r.fail(f"{where}.amplitudes[{i}]", f"expected a fraction of the step between "
+                                                   f"-1 and 1, got {a!r}")
+            amplitudes.append(float(a))
+        if not 1 + sum(amplitudes) > 0:
+            r.fail(f"{where}.amplitudes", "the step response would start at or below zero "
+                                          "(1 + sum of amplitudes <= 0)")
+        constants = tuple(parse_quantity(v, "time", key=f"{where}.time_constants[{i}]",
+                                         path=r.path) for i, v in enumerate(taus))
+        for i, tau in enumerate(constants):
+            if not tau > 0:
+                r.fail(f"{where}.time_constants[{i}]", f"must be a positive time, got {tau}")
+        return Stage(kind, amplitudes=tuple(amplitudes), time_constants_s=constants)
+    return _measured(r, s, where)
+
+
+def _measured(r: _Reader, s: dict, where: str) -> Stage:
+    response = r.choice(s, "response", f"{where}.response", ("step", "impulse"), "step")
+    name = s.get("file")
+    if not isinstance(name, str) or not name:
+        r.fail(f"{where}.file", f"expected the path of a CSV file (time_s,value), got {name!r}")
+    base = Path(r.path).parent if r.path else Path.cwd()
+    path = (base / name).resolve()
+    try:
+        lines = path.read_text().splitlines()
+    except (OSError, UnicodeDecodeError) as e:
+        reason = e.strerror if isinstance(e, OSError) else "not text"
+        r.fail(f"{where}.file", f"cannot read {path}: {reason}")
+    header = [h.strip() for h in lines[0].split(",")] if lines else []
+    if header != ["time_s", "value"]:
+        r.fail(f"{where}.file", f"{path}: the first row must be the header time_s,value, got "
+                                f"{lines[0][:60] if lines else 'an empty file'!r}")
+    if len(lines) > MAX_MEASURED_ROWS:
+        r.fail(f"{where}.file", f"{path}: more than {MAX_MEASURED_ROWS} rows")
+    rows = []
+    for i, line in enumerate(lines[1:], start=2):
+        if not line.strip():
+            continue
+        parts = line.split(",")
+        try:
+            rows.append((float(parts[0]), float(parts[1])) if len(parts) == 2 else None)
+        except ValueError:
+            rows.append(None)
+        if rows[-1] is None or not all(math.isfinite(v) for v in rows[-1]):
+            r.fail(f"{where}.file", f"{path}, line {i}: expected two finite numbers "
+                                    f"(time_s,value), got {line[:60]!r}")
+    if len(rows) < 3:
+        r.fail(f"{where}.file", f"{path}: needs at least 3 samples, has {len(rows)}")
+    times = [t for t, _ in rows]
+    step = times[1] - times[0]
+    if abs(times[0]) > 1e-6 * abs(step) or not step > 0 or any(
+            abs((b - a) - step) > 1e-6 * step for a, b in zip(times, times[1:], strict=False)):
+        r.fail(f"{where}.file", f"{path}: time_s must start at 0 and rise in even steps (one "
+                                f"sample rate); resample the measurement first")
+    values = [v for _, v in rows]
+    scale = values[-1] if response == "step" else sum(values) * step
+    if not abs(scale) > 0:
+        r.fail(f"{where}.file", f"{path}: the response settles to zero; a {response} response "
+                                f"is normalised to unit gain at DC and needs a non-zero "
+                                f"{'final value' if response == 'step' else 'area'}")
+    return Stage("measured", response=response, source=str(path), times_s=tuple(times),
+                 values=tuple(values))
