@@ -6,7 +6,8 @@ or the flux line's one): analog low-pass filters (``bessel``, ``butterworth``,
 amplitudes and time constants, as labs fit a step response), or a measured response from
 a file (``measured``: a CSV of ``time_s,value``, a step or impulse response). This module
 reads and checks the settings; :mod:`shaper.signal.line` turns them into responses.
-Nothing here imports JAX or SciPy.
+Nothing here imports JAX or SciPy. ``r`` below is the recipe's typed reader
+(:class:`shaper.recipe.schema._Reader`, which imports this module's settings).
 """
 
 from __future__ import annotations
@@ -14,7 +15,6 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from shaper.recipe.units import format_quantity, parse_quantity
 
@@ -24,9 +24,6 @@ STAGE_KEYS = {"bessel": ("kind", "order", "cutoff"), "butterworth": ("kind", "or
               "gaussian": ("kind", "cutoff"),
               "exponential": ("kind", "amplitudes", "time_constants"),
               "measured": ("kind", "file", "response")}
-if TYPE_CHECKING:
-    from shaper.recipe.schema import _Reader
-
 MAX_ORDER = 8
 MAX_OVERSAMPLE = 64
 MAX_MEASURED_ROWS = 1_000_000
@@ -63,7 +60,7 @@ class LineSettings:
         return any(self.stages.values())
 
 
-def read_line(r: _Reader, t: dict, channels: list[str], sample_rate_hz: float) -> LineSettings:
+def read_line(r, t: dict, channels: list[str], sample_rate_hz: float) -> LineSettings:
     """Read ``[line]``: ``oversample`` and one list of stage tables per channel name."""
     stages = {}
     for key, value in t.items():
@@ -85,7 +82,7 @@ def read_line(r: _Reader, t: dict, channels: list[str], sample_rate_hz: float) -
     return LineSettings(stages=stages, oversample=oversample)
 
 
-def _stage(r: _Reader, s, where: str, rate: float) -> Stage:
+def _stage(r, s, where: str, rate: float) -> Stage:
     if not isinstance(s, dict):
         r.fail(where, f"expected a stage table with a kind, got {str(s)[:60]!r}")
     kind = r.choice(s, "kind", f"{where}.kind", KINDS)
@@ -133,7 +130,7 @@ def _stage(r: _Reader, s, where: str, rate: float) -> Stage:
     return _measured(r, s, where)
 
 
-def _measured(r: _Reader, s: dict, where: str) -> Stage:
+def _measured(r, s: dict, where: str) -> Stage:
     response = r.choice(s, "response", f"{where}.response", ("step", "impulse"), "step")
     name = s.get("file")
     if not isinstance(name, str) or not name:
