@@ -151,6 +151,14 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
                           else np.zeros((1, 1), complex)))
 
 
+def chain_problem(recipe: Recipe, chain, layout: Layout | None = None) -> Problem:
+    """The recipe's problem on the grid of its signal chain (:mod:`shaper.signal.chain`):
+    ``chain.steps`` propagator slices of ``chain.dt_s`` per AWG sample."""
+    if chain.identity:
+        return make_problem(recipe, layout, real=recipe.samples)
+    return make_problem(recipe, layout, steps=chain.steps)._replace(dt=jnp.asarray(chain.dt_s))
+
+
 def open_scalings(recipe: Recipe, layout: Layout, dt: float) -> int | None:
     """The Taylor squarings the open-system objective needs for any samples within the
     recipe's limits and ensemble (None: a closed system)."""

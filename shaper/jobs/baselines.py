@@ -43,9 +43,11 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
         return {}
     if recipe.system.dimension > MAX_LEVELS:
         return {"skipped": f"more than {MAX_LEVELS} levels: not worth the time"}
-    from shaper.costs.problem import make_problem
+    from shaper.costs.problem import chain_problem
+    from shaper.signal.chain import for_recipe
 
-    problem = make_problem(recipe)  # baseband, on the AWG grid
+    chain = for_recipe(recipe)  # played as the optimised pulse is: IF, line
+    problem = chain_problem(recipe, chain)
     channel = recipe.system.channels[0]
     tf = freqs[channel.name]
     alpha = tf["f12_hz"] - tf["f01_hz"]
@@ -67,7 +69,7 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     @jax.jit
     def figures(theta):
         f = evaluate(samples(theta), problem, qubits=1, is_gate=True,
-                     virtual_z=recipe.virtual_z)
+                     virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
         return f.fidelity, f.leakage
 
     def loss(theta):

@@ -11,12 +11,12 @@ from dataclasses import dataclass
 from typing import Any
 
 import jax
-import jax.numpy as jnp
 import numpy as np
 
 from shaper import costs
 from shaper.costs.problem import (
     Problem,
+    chain_problem,
     make_problem,
     open_scalings,
     qubit_count,
@@ -81,11 +81,8 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     if pad_to is not None and chain.identity:
         layout = padded(layout, pad_to)
     qubits = qubit_count(recipe)
-    problem = make_problem(recipe, layout, real=recipe.samples)
+    problem = chain_problem(recipe, chain, layout)
     drive = None if chain.identity else chain
-    if drive is not None:
-        problem = make_problem(recipe, layout, steps=chain.steps)._replace(
-            dt=jnp.asarray(chain.dt_s))
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  method=recipe.optimizer.propagator, drive=drive,
                  open_system=recipe.optimizer.open_system,

@@ -52,7 +52,8 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                      pulse["sample_rate_hz"])
     if export.predistort and not line.active:
         r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
-    _fits_in_memory(r, system, pulse, len(scales), export)
+    _fits_in_memory(r, system, pulse, len(scales), export,
+                    line.oversample if line.active and not export.predistort else 1)
     if optimizer.open_system and not system.collapse:
         r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
                                         "operators with rates) to optimise the channel")
@@ -85,7 +86,7 @@ def available_memory() -> int:
 
 
 def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
-                    export: ExportSettings) -> None:
+                    export: ExportSettings, oversample: int = 1) -> None:
     """Refuse, before anything is allocated, a problem that cannot fit in this machine."""
     from shaper.physics.grid import substeps
 
@@ -95,8 +96,8 @@ def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
         r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
                                      f"{exported} samples, more than any AWG memory "
                                      f"({MAX_EXPORT_SAMPLES}); check the granularity")
-    steps = substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"]) \
-        if export.if_frequency_hz else 1
+    steps = max(oversample, substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"])
+                if export.if_frequency_hz else 1)
     d = system.dimension
     need = (members + 1) * n * steps * d * d * BYTES_PER_ENTRY
     have = available_memory()
