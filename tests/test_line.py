@@ -246,6 +246,49 @@ def test_gradient_through_the_filter_matches_finite_differences(tmp_path):
     assert abs(fd - exact) < 1e-7 * max(1.0, abs(exact))
 
 
+def settled(samples, amplitudes, taus, sub=64):
+    """Independent forward model of a line of settling terms: each jump of the held samples
+    starts the step response 1 + sum A exp(-t/tau) (the lab's fit), on ``sub`` points per
+    sample (their midpoints). Returns the fine output ``(n * sub,)``."""
+    n = samples.shape[0]
+    tt = (np.arange(n * sub) + 0.5) / (RATE * sub)
+    step = 1 + sum(a * np.exp(-tt / tau) for a, tau in zip(amplitudes, taus, strict=True))
+    jumps = np.diff(np.concatenate([[0.0], samples]))
+    out = np.zeros(n * sub)
+    for k in np.flatnonzero(jumps):
+        out[k * sub:] += jumps[k] * step[:n * sub - k * sub]
+    return out
+
+
+def test_predistorted_export_plays_the_ideal_pulse_through_the_line(tmp_path):
+    amps, taus = (0.05, -0.02), (3e-9, 30e-9)
+    path = _with(tmp_path, "pre", DEMO, f"""
+[[line.q0]]
+kind = "exponential"
+amplitudes = {list(amps)}
+time_constants = ["3 ns", "30 ns"]
+[export]
+predistort = true
+""")
+    out = run(path, out=tmp_path / "out", plots_too=False)
+    wave = read_waveform(out.folder / "pre.csv")
+    assert wave.predistorted and out.report["line"]["predistorted"]
+    assert out.report["line"]["predistortion_residual"] < 1e-4
+    samples = wave.to_hz(load_recipe(path).system)
+    sub = 64
+    fine = np.stack([settled(samples[:, c], amps, taus, sub) for c in range(2)], axis=1)
+    drift, controls = duffing(4, 0.0, -220e6)
+    u = np.eye(4, dtype=complex)
+    for row in fine:
+        u = scipy.linalg.expm(-2j * np.pi / (RATE * sub) * (
+            drift + row[0] * controls[0] + row[1] * controls[1])) @ u
+    infidelity = 1 - pedersen_fidelity(u[:2, :2], np.array([[0, 1], [1, 0]], complex))
+    assert infidelity < 1e-5  # the ideal pulse reached 1e-6 at the AWG grid
+    assert abs(infidelity - out.report["infidelity"]) < 1e-6
+    # without the pre-distortion the same pulse through the line is far worse
+    assert out.report["line"]["without_line"]["infidelity"] > 10 * infidelity
+
+
 def test_predistortion_of_a_flux_step_through_two_settling_terms():
     # the lab's practice: invert the fitted settling terms so that the line's output is
     # the intended step (common practice, no source); output averaged over each sample
@@ -256,14 +299,9 @@ def test_predistortion_of_a_flux_step_through_two_settling_terms():
     samples, residual = lines.predistort(intended, stages, 1 / RATE, 4, channel="qb_flux")
     matrix = lines.sample_matrix(stages, 1 / RATE, 4, n)
     # independent forward model: the step response 1 + sum A exp(-t/tau), sampled on a
-    # 64-point grid per sample and averaged, convolved with the held differences
+    # 64-point grid per sample and averaged
     sub = 64
-    tt = (np.arange(n * sub) + 0.5) / (RATE * sub)
-    step = 1 + 0.04 * np.exp(-tt / 6e-9) - 0.015 * np.exp(-tt / 40e-9)
-    jumps = np.diff(np.concatenate([[0.0], samples]))
-    out = np.zeros(n * sub)
-    for k in np.flatnonzero(jumps):
-        out[k * sub:] += jumps[k] * step[:n * sub - k * sub]
+    out = settled(samples, (0.04, -0.015), (6e-9, 40e-9), sub)
     per_sample = out.reshape(n, sub).mean(axis=1)
     assert np.max(np.abs(per_sample[21:] - intended[21:])) < 1e-4 * 0.3
     assert residual < 1e-12 and np.allclose(matrix @ samples, intended, atol=1e-12)

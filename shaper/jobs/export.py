@@ -48,7 +48,7 @@ def make_waveform(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
     if settings.if_frequency_hz:
         padded = modulate(padded, recipe.system.iq_columns(), settings.if_frequency_hz,
                           1 / sample_rate_hz, settings.sideband, start=start)
-    residual = None
+    residual, wanted = None, padded
     if settings.predistort:
         padded, residual = _predistorted(recipe, padded, sample_rate_hz)
     mixer = Mixer.for_recipe(recipe, settings.full_scale_hz) if settings.mixer else None
@@ -73,6 +73,8 @@ def make_waveform(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
     if settings.dac_bits:  # None: keep full precision (the optimiser's own samples)
         fractions = waveio.quantise(fractions, settings.dac_bits, bound=bound,
                                     pairs=recipe.system.iq_columns())
+    if residual is not None:  # as the file plays: after quantisation (and the mixer)
+        residual = _residual(recipe, fractions, settings, sample_rate_hz, wanted)
     return waveio.Waveform(fractions=fractions, sample_rate_hz=sample_rate_hz,
                            full_scale_hz=dict(settings.full_scale_hz),
                            column_names=system.control_names, pulse_start=start,
@@ -88,15 +90,48 @@ def _predistorted(recipe: Recipe, played: np.ndarray, rate: float) -> tuple[np.n
     from shaper.signal.line import predistort
 
     out, worst = np.array(played, float), 0.0
-    names = recipe.system.control_names
+    channel_of = {c: ch.name for ch in recipe.system.channels for c in ch.columns}
     for column, stages in line_columns(recipe):
         if not np.any(played[:, column]):
             continue
         out[:, column], residual = predistort(played[:, column], stages, 1 / rate,
                                               max(recipe.line.oversample, 1),
-                                              channel=names[column])
+                                              channel=channel_of[column])
         worst = max(worst, residual)
     return out, worst
+
+
+def _residual(recipe: Recipe, fractions: np.ndarray, settings: ExportSettings, rate: float,
+              wanted: np.ndarray) -> float:
+    """Largest error of the line's output (per sample) against ``wanted``, relative to the
+    largest intended sample of the lined columns, for the quantised samples as the mixer
+    plays them."""
+    from shaper.signal.line import sample_matrix
+
+    played = fractions * waveio.column_scales(recipe.system, settings.full_scale_hz)[None, :]
+    if settings.mixer:
+        played = Mixer.for_recipe(recipe, settings.full_scale_hz).plays(played)
+    worst, peak = 0.0, 0.0
+    for column, stages in line_columns(recipe):
+        peak = max(peak, float(np.max(np.abs(wanted[:, column]), initial=0.0)))
+        out = sample_matrix(stages, 1 / rate, max(recipe.line.oversample, 1),
+                            played.shape[0]) @ played[:, column]
+        worst = max(worst, float(np.max(np.abs(out - wanted[:, column]))))
+    return worst / peak if peak > 0 else 0.0
+
+
+def check_predistortion(recipe: Recipe) -> None:
+    """Refuse, before optimising, a line that pre-distortion cannot invert: a unit step of
+    the exported length goes through every lined channel's inverse.
+
+    Raises:
+        InputError: naming the channel's ``line.<channel>`` key.
+    """
+    if not recipe.export.predistort:
+        return
+    n = -(-recipe.samples // recipe.export.granularity) * recipe.export.granularity
+    step = np.ones((n, len(recipe.system.control_names)))
+    _predistorted(recipe, step, recipe.sample_rate_hz)
 
 
 def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:

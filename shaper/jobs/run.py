@@ -23,6 +23,7 @@ from shaper.io.runlog import RunLog
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
 from shaper.jobs.export import (
+    check_predistortion,
     judge_waveform,
     line_figures,
     make_waveform,
@@ -120,6 +121,7 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     """
     recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
         recipe_or_path)
+    check_predistortion(recipe)  # an impossible inverse is refused before the night's work
     folder = Path(out) if out is not None else Path("results") / recipe.name
     options = (options or RunOptions()).with_(folder=folder, **option_fields)
     prepare_folder(folder, force, options.resume)

@@ -200,5 +200,8 @@ def predistort(intended: np.ndarray, stages: tuple[Stage, ...], period_s: float,
     if not np.all(np.isfinite(out)) or residual > 1e-6 or growth > 1e3:
         raise InputError(f"line.{channel}: the inverse of this line is unstable (peak "
                          f"{growth:.3g}x the intended waveform, residual {residual:.3g}); "
-                         f"pre-distortion cannot correct it")
+                         f"pre-distortion cannot correct it. A low-pass that rolls off "
+                         f"below the sample rate has no stable inverse at the AWG's rate: "
+                         f"keep such a line in the optimiser's loop (export.predistort = "
+                         f"false)")
     return out, residual
