@@ -106,6 +106,8 @@ class Sweep:
         self.recipe, self.folder, self.stop, self.echo = recipe, Path(folder), stop, echo
         self.workers = workers
         self.seed = recipe.optimizer.seed if seed is None else seed
+        # compiled objectives: by padded size, or (IF or line sub-steps: no shared padding)
+        # by the duration's own sample count, negated
         self.objectives: dict[int, Objective] = {}
         self.points: dict[int, SweepPoint] = {}
         self.folder.mkdir(parents=True, exist_ok=True)
@@ -127,7 +129,10 @@ class Sweep:
     def objective_for(self, recipe: Recipe) -> Objective:
         size = bucket(recipe.samples, recipe.hold)
         if not for_recipe(recipe).identity:
-            return make_objective(recipe)  # IF or line sub-steps: no shared padding
+            key = -recipe.samples
+            if key not in self.objectives:
+                self.objectives[key] = make_objective(recipe)
+            return self.objectives[key]
         if size not in self.objectives:
             self.objectives[size] = make_objective(recipe, pad_to=size)
             return self.objectives[size]
