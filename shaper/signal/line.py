@@ -26,8 +26,6 @@ import functools
 import math
 
 import numpy as np
-from scipy import linalg, signal
-from scipy.special import ndtr
 
 from shaper.errors import InputError
 from shaper.recipe.lines import Stage
@@ -36,6 +34,8 @@ from shaper.recipe.lines import Stage
 def analog(stages: tuple[Stage, ...], h: float) -> tuple[np.ndarray, np.ndarray]:
     """The rational stages' combined transfer function ``(b, a)`` in ``s' = s h`` (time in
     units of the fine cell, which keeps the polynomials well scaled)."""
+    from scipy import signal  # here: importing scipy.signal costs every command ~0.3 s
+
     b, a = np.array([1.0]), np.array([1.0])
     for st in stages:
         if st.kind in ("bessel", "butterworth"):
@@ -60,6 +60,8 @@ def analog(stages: tuple[Stage, ...], h: float) -> tuple[np.ndarray, np.ndarray]
 
 def rational_cells(b: np.ndarray, a: np.ndarray, cells: int) -> np.ndarray:
     """Mean output over each unit cell for a unit input held over cell 0 (``(cells,)``)."""
+    from scipy import linalg, signal
+
     out = np.zeros(cells)
     if len(a) == 1:  # a pure gain
         out[0] = b[-1] / a[0]
@@ -85,6 +87,7 @@ def rational_cells(b: np.ndarray, a: np.ndarray, cells: int) -> np.ndarray:
 
 def _integrated_gauss(x):
     """An antiderivative of the normal CDF: x Phi(x) + phi(x)."""
+    from scipy.special import ndtr
     return x * ndtr(x) + np.exp(-0.5 * x * x) / math.sqrt(2 * math.pi)
 
 
@@ -165,6 +168,8 @@ def sample_matrix(stages: tuple[Stage, ...], period_s: float, steps: int,
                   samples: int) -> np.ndarray:
     """``(samples, samples)`` map from held AWG samples to the line's output averaged over
     each AWG sample (Toeplitz; lower triangular for a causal line)."""
+    from scipy import linalg
+
     g, lead = cell_response(stages, period_s, steps, samples * steps)
     before = -(-lead // steps)  # whole AWG samples the response reaches back
     held = np.convolve(np.concatenate([np.zeros(before * steps - lead), g]), np.ones(steps))
@@ -185,6 +190,8 @@ def predistort(intended: np.ndarray, stages: tuple[Stage, ...], period_s: float,
     Raises:
         InputError: the inverse is unstable or ill-conditioned for this line.
     """
+    from scipy import linalg
+
     matrix = sample_matrix(stages, period_s, steps, intended.shape[0])
     if np.allclose(matrix, np.tril(matrix), rtol=0, atol=1e-15 * np.abs(matrix).max()):
         diagonal = matrix[0, 0]
