@@ -2,7 +2,8 @@
 
 One-qubit gates follow the usual matrices (Nielsen and Chuang, Quantum
 Computation and Quantum Information, 2000, ch. 4); X/2 and Y/2 are rotations by
-pi/2 about x and y, ``exp(-i pi/4 sigma)``. Two-qubit gates act on |q0 q1> with
+pi/2 about x and y, ``exp(-i pi/4 sigma)``; -X/2 and -Y/2 by
+-pi/2. Two-qubit gates act on |q0 q1> with
 q0 most significant (README, "Conventions"); CNOT's control is q0.
 """
 
@@ -24,6 +25,8 @@ GATES: dict[str, np.ndarray] = {
     "Z": np.diag([1, -1]),
     "X/2": _S2 * np.array([[1, -1j], [-1j, 1]]),
     "Y/2": _S2 * np.array([[1, -1], [1, 1]]),
+    "-X/2": _S2 * np.array([[1, 1j], [1j, 1]]),
+    "-Y/2": _S2 * np.array([[1, 1], [-1, 1]]),
     "H": _S2 * np.array([[1, 1], [1, -1]]),
     "S": np.diag([1, 1j]),
     "T": np.diag([1, np.exp(1j * np.pi / 4)]),
@@ -61,8 +64,8 @@ class Target:
 
 def gate_names() -> list[str]:
     """The names :func:`gate` knows, for error messages and docs."""
-    return ["I", "X", "Y", "Z", "X/2", "Y/2", "H", "S", "T", "CZ", "CNOT", "iSWAP",
-            "sqrt(iSWAP)"]
+    return ["I", "X", "Y", "Z", "X/2", "Y/2", "-X/2", "-Y/2", "H", "S", "T", "CZ", "CNOT",
+            "iSWAP", "sqrt(iSWAP)"]
 
 
 def _lookup(name: str) -> np.ndarray:

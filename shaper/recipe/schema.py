@@ -40,7 +40,8 @@ KEYS: dict[str, tuple[str, ...]] = {
     "system.transmon": ("name", "levels", "qubit_frequency", "anharmonicity", "flux", "t1",
                         "t2"),
     "system.coupling": ("between", "strength"),
-    "gate": ("target", "matrix", "matrix_imag", "initial_state", "final_state", "virtual_z"),
+    "gate": ("target", "targets", "matrix", "matrix_imag", "initial_state", "final_state",
+             "virtual_z"),
     "pulse": ("duration", "sample_rate", "hold", "max_rabi", "max_flux", "flux_range",
               "bandwidth", "max_out_of_band", "zero_ends", "ramp"),
     "cost": tuple(k for k in DEFAULT_WEIGHTS if k != "infidelity")
@@ -156,6 +157,7 @@ class Recipe:
     system: System
     target: Target
     virtual_z: bool
+    gate_set: tuple[str, ...] = ()  # [gate] targets: every gate of a set (target: the first)
     duration_s: float
     sample_rate_hz: float
     samples: int

@@ -42,7 +42,9 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
         r.fail("name", f"expected {NAME_RULE} (it names the output folder and files), "
                        f"got {str(name)[:80]!r}")
     system = _system(r, r.table(raw, "system", "system"))
-    target, virtual_z = _gate(r, r.table(raw, "gate", "gate"), system)
+    gate_table = r.table(raw, "gate", "gate")
+    gate_set = _gate_set(r, gate_table, system)
+    target, virtual_z = _gate(r, gate_table, system)
     pulse = _pulse(r, r.table(raw, "pulse", "pulse"), system)
     weights, detunings, scales = _cost(r, r.table(raw, "cost", "cost"), system)
     optimizer = _optimizer(r, r.table(raw, "optimizer", "optimizer"))
@@ -60,7 +62,8 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     if optimizer.open_system and not target.is_gate:
         r.fail("optimizer.open_system", "optimises a gate's channel; this target is a state")
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
-                  virtual_z=virtual_z, weights=weights, ensemble_detunings_hz=detunings,
+                  virtual_z=virtual_z, gate_set=gate_set, weights=weights,
+                  ensemble_detunings_hz=detunings,
                   ensemble_scales=scales, optimizer=optimizer, export=export, line=line,
                   raw=raw, **pulse)
 
@@ -257,11 +260,34 @@ def _matrices(r: _Reader, t: dict) -> System:
         r.fail("system", str(exc))
 
 
+def _gate_set(r: _Reader, t: dict, system: System) -> tuple[str, ...]:
+    """``[gate] targets``: the gates of a set, each checked as a target of this system."""
+    if "targets" not in t:
+        return ()
+    if "target" in t:
+        r.fail("gate.targets", "give either target (one gate) or targets (a set), not both")
+    names = t["targets"]
+    if not isinstance(names, list) or not names or not all(isinstance(n, str) for n in names):
+        r.fail("gate.targets", f"expected a list of gate names, e.g. [\"X\", \"X/2\", "
+                               f"\"Y\"], got {str(names)[:60]!r}")
+    if len(set(names)) != len(names):
+        r.fail("gate.targets", f"names a gate twice: {names}")
+    qubits = int(np.log2(len(system.computational)))
+    for i, name in enumerate(names):
+        try:
+            gate(name, qubits=qubits)
+        except InputError as exc:
+            r.fail(f"gate.targets[{i}]", str(exc))
+    return tuple(names)
+
+
 def _gate(r: _Reader, t: dict, system: System) -> tuple[Target, bool]:
     r.check_keys(t, "gate")
     spec = t.get("target")
+    if spec is None and isinstance(t.get("targets"), list) and t["targets"]:
+        spec = t["targets"][0]  # a gate set: the recipe's own target is its first gate
     if spec is None:
-        r.fail("gate.target", "missing required key")
+        r.fail("gate.target", "missing required key (or targets, for a set of gates)")
     virtual_z = r.flag(t, "virtual_z", "gate.virtual_z", False)
     qubits = int(np.log2(len(system.computational)))
     try:
