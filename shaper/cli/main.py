@@ -12,6 +12,8 @@ from importlib import import_module, metadata
 COMMANDS = {
     "optimize": ("shaper.cli.optimize_cmd", "optimise the pulse a recipe describes and export it"),
     "sweep": ("shaper.cli.sweep_cmd", "find the shortest duration that meets the targets"),
+    "chip": ("shaper.cli.chip_cmd", "every gate of a chip at its shortest duration, locally "
+                                    "or on a Dask cluster"),
     "check": ("shaper.cli.check_cmd", "simulate any waveform on a recipe's system and judge it"),
     "export": ("shaper.cli.export_cmd", "re-export an earlier run for another instrument"),
     "bench": ("shaper.cli.bench_cmd", "time the propagator's value and gradient against a "

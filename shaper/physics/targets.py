@@ -133,3 +133,28 @@ def state_transfer(initial: Sequence[complex], final: Sequence[complex]) -> Targ
             raise InputError(f"the {name} state must be a finite, non-zero vector")
     return Target(label="state transfer", initial=a / np.linalg.norm(a),
                   final=b / np.linalg.norm(b))
+
+
+# gate -> (the gate it is derived from, the drive phase in degrees)
+DERIVED = {"Y": ("X", 90.0), "Y/2": ("X/2", 90.0), "-X/2": ("X/2", 180.0),
+           "-Y/2": ("X/2", 270.0)}
+
+
+def slug(label: str) -> str:
+    """A file-safe name for a gate label: ``X/2`` -> ``x_half``, ``-Y/2`` -> ``my_half``."""
+    return label.strip().lower().replace("/2", "_half").replace("-", "m").replace(
+        "(", "").replace(")", "")
+
+
+def plan(labels, qubits: int) -> list[tuple[str, list[tuple[str, float]]]]:
+    """The gates to optimise, in order, each with the gates derived from it ``(label,
+    phase_deg)``. Derivation needs one qubit; a parent not asked for is optimised anyway."""
+    bases: dict[str, list[tuple[str, float]]] = {}
+    for label in labels:
+        key = label.strip().upper()
+        if qubits == 1 and key in DERIVED:
+            parent, phase = DERIVED[key]
+            bases.setdefault(parent, []).append((key, phase))
+        else:
+            bases.setdefault(key, [])
+    return list(bases.items())

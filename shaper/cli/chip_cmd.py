@@ -1,0 +1,57 @@
+"""``shaper chip CHIP.toml``: every qubit's gate set and every pair's gate, then one summary."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from pathlib import Path
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("chip", help="the chip file (TOML): qubits, couplings, gate template")
+    parser.add_argument("--out", help="folder for the run (default: results/<chip name>)")
+    parser.add_argument("--workers", type=int,
+                        help="local worker processes (default: one per core)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="run the tasks on a Dask distributed scheduler, e.g. "
+                             "tcp://10.0.0.5:8786 (pip install \".[cluster]\")")
+    parser.add_argument("--resume", action="store_true",
+                        help="continue a run in --out: finished gates are kept")
+    parser.add_argument("--force", action="store_true", help="start over in --out")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def run(args: argparse.Namespace) -> int:
+    from shaper.errors import InputError
+    from shaper.recipe.chip import load_chip
+
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers must be at least 1, got {args.workers}")
+    if args.scheduler and args.workers:
+        raise InputError("--workers is for local runs; a Dask cluster has its own workers")
+    chip = load_chip(args.chip)
+    folder = Path(args.out) if args.out else Path("results") / chip.name
+    from shaper.io import atomic
+    from shaper.jobs.chip import DaskExecutor, LocalExecutor, run_chip
+
+    atomic.lock_folder(folder)
+    executor = DaskExecutor(args.scheduler) if args.scheduler else \
+        LocalExecutor(args.workers or os.cpu_count() or 1)
+    try:
+        rows = run_chip(chip, folder, executor=executor, resume=args.resume, force=args.force,
+                        echo=lambda text: print(text, file=sys.stderr, flush=True),
+                        progress=not args.quiet)
+    finally:
+        executor.close()
+    print((folder / "chip.md").read_text(), end="")
+    print(f"wrote chip.csv, chip.md, chip-durations.png, chip-errors.png and chip.html in "
+          f"{folder}")
+    from shaper.io.waveio import CAUTION
+    print(f"CAUTION: {CAUTION}")
+    failing = [f"{r.subject} {r.gate}" for r in rows if not r.met]
+    if failing:
+        print(f"targets NOT met by {len(failing)} gate(s): {', '.join(failing)}")
+        return 1
+    print(f"targets met by all {len(rows)} gates")
+    return 0

@@ -1,0 +1,185 @@
+"""A whole chip: every qubit's gate set and every pair's two-qubit gate at its shortest
+duration, on local worker processes or a Dask cluster (README, "Chips").
+
+Each task (:class:`shaper.recipe.chip.Task`) is one duration sweep
+(:class:`shaper.jobs.sweep.Sweep`) of one gate that must be played, followed by the
+gates derived from it (:mod:`shaper.jobs.gateset`); :func:`run_task` does it in
+whatever process the executor chose and returns the rows. The coordinator records
+each finished task in ``chip.json`` (atomically, with the digest of what it computed),
+so a resumed run keeps finished gates and redoes only those whose qubit or template
+changed. Tasks are deterministic (seeds from the template), so the local and the Dask
+run give the same table.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+from dataclasses import asdict
+from pathlib import Path
+
+from shaper.errors import EnvironmentFailure, ResultError
+from shaper.io import atomic
+from shaper.jobs.gateset import GateRow, write_table
+from shaper.recipe.chip import Chip, Task
+
+
+def run_task(task: Task, root: str) -> list[dict]:
+    """One task, in a worker: the sweep, the shortest passing pulse's export, the derived
+    gates. Returns the rows (as dictionaries) with paths relative to ``root``."""
+    if "jax" not in sys.modules:  # a fresh worker: one thread, as the starts' workers
+        from shaper.optimise.parallel import _PINNED
+        os.environ.update(_PINNED)
+    from shaper.jobs.gateset import derive, optimised_row
+    from shaper.jobs.run import finish
+    from shaper.jobs.sweep import Sweep, parse_durations
+    from shaper.recipe import load_recipe
+
+    root_path = Path(root)
+    folder = root_path / "gates" / task.id
+    recipe = load_recipe(task.recipe)
+    sweep = Sweep(recipe, folder / "sweep", resume=True, echo=lambda text: None)
+    shortest = sweep.run(parse_durations(task.durations), plots=False)
+    n = shortest if shortest is not None else max(sweep.points)
+    output = finish(sweep.result_at(n), folder / "shortest", plots_too=False)
+    result = output.result
+    rows = [optimised_row(result.recipe, output.report, folder / "shortest", root_path)]
+    for label, phase in task.derived:
+        row = derive(result.recipe, result.samples, label, phase, folder / "derived")
+        row.waveform = str((folder / "derived" / Path(row.waveform).name).relative_to(
+            root_path))
+        rows.append(row)
+    for row in rows:
+        row.subject = task.subject
+    return [asdict(r) for r in rows]
+
+
+class LocalExecutor:
+    """Worker processes on this machine (spawned, one thread each)."""
+
+    def __init__(self, workers: int):
+        from concurrent.futures import ProcessPoolExecutor
+        from multiprocessing import get_context
+
+        from shaper.optimise.parallel import pin_threads
+        self.pool = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
+                                        initializer=pin_threads, initargs=(os.getpid(),))
+        self.description = f"{workers} local worker process(es)"
+
+    def submit(self, fn, *args):
+        return self.pool.submit(fn, *args)
+
+    def completed(self, futures):
+        from concurrent.futures import as_completed
+        return as_completed(futures)
+
+    def close(self):
+        self.pool.shutdown(cancel_futures=True)
+
+
+class DaskExecutor:
+    """The same tasks on a Dask distributed cluster (``pip install ".[cluster]"``). The
+    workers must see ``root`` (a shared filesystem, as on a batch system)."""
+
+    def __init__(self, address: str, timeout_s: float = 10.0):
+        try:
+            from distributed import Client
+        except ImportError:
+            raise EnvironmentFailure("--scheduler needs Dask: pip install \".[cluster]\" "
+                                     "(dask.distributed)") from None
+        try:
+            self.client = Client(address, timeout=timeout_s, set_as_default=False)
+        except (OSError, TimeoutError) as exc:
+            raise EnvironmentFailure(f"cannot reach the Dask scheduler at {address!r} within "
+                                     f"{timeout_s:g} s: {exc}") from None
+        workers = len(self.client.scheduler_info().get("workers", {}))
+        self.description = f"the Dask scheduler at {address} ({workers} worker(s))"
+
+    def submit(self, fn, *args):
+        return self.client.submit(fn, *args, pure=False)
+
+    def completed(self, futures):
+        from distributed import as_completed
+        return as_completed(futures)
+
+    def close(self):
+        self.client.close()
+
+
+def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bool = False,
+             echo=print, progress: bool = True) -> list[GateRow]:
+    """Run every task not finished yet; write the summary; return every row.
+
+    Raises:
+        ResultError: ``out`` holds another chip's run, or a run that ``resume``/``force``
+            should continue or replace.
+    """
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    state_path = out / "chip.json"
+    state = {"chip": chip.name, "chip_sha256": chip.sha256, "tasks": {}}
+    if state_path.exists() and not force:
+        if not resume:
+            raise ResultError(f"{out} already holds a chip run (chip.json); pass --resume to "
+                              f"continue it or --force to start over")
+        state = atomic.read_json(state_path, ResultError, "unreadable")
+        if state.get("chip") != chip.name:
+            raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
+                              f"{chip.name!r}")
+    done = {t.id: state["tasks"][t.id]["rows"] for t in chip.tasks
+            if state["tasks"].get(t.id, {}).get("digest") == t.digest}
+    todo = [t for t in chip.tasks if t.id not in done]
+    echo(f"chip {chip.name}: {len(chip.qubits)} qubit(s), {len(chip.pairs)} pair(s), "
+         f"{len(chip.tasks)} optimisation(s); {len(done)} finished earlier and kept, "
+         f"{len(todo)} to run on {executor.description}")
+    bar = None
+    if progress and todo:
+        from tqdm import tqdm
+        bar = tqdm(total=len(todo), unit="gate", file=sys.stderr, dynamic_ncols=True,
+                   bar_format="{l_bar}{bar}| {n_fmt}/{total_fmt} [{elapsed} < {remaining}]")
+    started = time.monotonic()
+    futures = {executor.submit(run_task, t, str(out)): t for t in todo}
+    try:
+        for future in executor.completed(list(futures)):
+            task = futures[future]
+            rows = future.result()
+            state["tasks"][task.id] = {"digest": task.digest, "rows": rows,
+                                       "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+            atomic.write_json(state_path, state)
+            done[task.id] = rows
+            for row in rows:
+                line = _row_line(row)
+                if bar is not None:
+                    bar.write(line, file=sys.stderr)
+                else:
+                    echo(line)
+            if bar is not None:
+                bar.update(1)
+    finally:
+        if bar is not None:
+            bar.close()
+    rows = [GateRow(**r) for t in chip.tasks for r in done[t.id]]
+    state["wall_time_s"] = time.monotonic() - started
+    atomic.write_json(state_path, state)
+    write_summary(chip, out, rows)
+    return rows
+
+
+def _row_line(row: dict) -> str:
+    how = f"from {row['derived_from']}" if row["derived_from"] else "optimised"
+    return (f"{row['subject']} {row['gate']} ({how}): {row['duration_s'] * 1e9:.3f} ns, "
+            f"infidelity {row['infidelity']:.2e}, leakage {row['leakage']:.2e}, "
+            f"{'met' if row['met'] else 'NOT met'}")
+
+
+def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
+    """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png`` and the
+    self-contained ``chip.html`` (images embedded: open it in any browser, no server)."""
+    from shaper.jobs.chip_page import write_page, write_plots
+
+    files = write_table(out, "chip", rows)
+    images = write_plots(out, chip, rows)
+    files += images
+    files.append(write_page(out / "chip.html", chip, rows, images))
+    return files

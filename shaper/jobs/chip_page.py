@@ -1,0 +1,107 @@
+"""The morning page of a chip run: plots and one self-contained HTML file.
+
+``chip.html`` embeds its images (PNG as data URIs) and styles, so it opens from the disk
+in any browser, with no server and nothing fetched. It states whether every gate met
+its targets, lists the failing ones first, and shows the full table.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import time
+from pathlib import Path
+
+import numpy as np
+
+from shaper.io import atomic
+from shaper.io.waveio import CAUTION
+from shaper.jobs.plots import _figure, _finish
+
+
+def write_plots(out: Path, chip, rows) -> list[Path]:
+    """``chip-durations.png`` (shortest duration of each gate, per subject) and
+    ``chip-errors.png`` (infidelity and leakage of each gate, log scale)."""
+    subjects = list(dict.fromkeys(r.subject for r in rows))
+    gates = list(dict.fromkeys(r.gate for r in rows))
+    paths = []
+    for name, what in (("chip-durations.png", "duration"), ("chip-errors.png", "error")):
+        fig, (ax,) = _figure(max(6.0, 0.9 * len(subjects) + 2), 3.6)
+        width = 0.8 / max(1, len(gates))
+        for k, gate in enumerate(gates):
+            xs, ys, leak = [], [], []
+            for j, subject in enumerate(subjects):
+                for r in rows:
+                    if r.subject == subject and r.gate == gate:
+                        xs.append(j + (k - (len(gates) - 1) / 2) * width)
+                        ys.append(r.duration_s * 1e9 if what == "duration" else r.infidelity)
+                        leak.append(r.leakage)
+            if what == "duration":
+                ax.bar(xs, ys, width=width, label=gate)
+            else:
+                ax.bar(xs, np.maximum(ys, 1e-12), width=width, label=f"{gate}")
+                ax.plot(xs, np.maximum(leak, 1e-12), "k.", markersize=4)
+        ax.set_xticks(range(len(subjects)), subjects, rotation=30, fontsize=8)
+        if what == "duration":
+            ax.set_ylabel("shortest duration (ns)")
+        else:
+            ax.set_yscale("log")
+            ax.set_ylabel("infidelity (bars), leakage (dots)")
+        ax.legend(fontsize=7, ncol=min(len(gates), 6))
+        path = out / name
+        _finish(fig, path, f"chip {chip.name}: {'durations' if what == 'duration' else 'errors'}"
+                           f" of every gate")
+        paths.append(path)
+    return paths
+
+
+STYLE = """body{font-family:sans-serif;margin:1.5em;color:#222}
+table{border-collapse:collapse;font-size:0.9em}th,td{border:1px solid #bbb;padding:3px 8px}
+th{background:#eee}tr.fail td{background:#fdd}.ok{color:#060}.bad{color:#a00}
+img{max-width:100%;margin:0.5em 0}.caution{border-left:4px solid #c80;padding:0.3em 0.8em}"""
+
+
+def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
+    """Write ``chip.html``: status, failing gates, the table, the plots, the caution."""
+    failing = [r for r in rows if not r.met]
+    status = ("every gate met its targets" if not failing else
+              f"{len(failing)} of {len(rows)} gate(s) missed their targets")
+    head = ["subject", "gate", "from", "duration (ns)", "infidelity", "leakage", "met",
+            "frame before / after (rad)", "waveform"]
+    lines = []
+    for r in failing + [r for r in rows if r.met]:
+        frames = " ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / " + " ".join(
+            f"{v:.3f}" for v in r.frame_after_rad) if r.frame_before_rad else ""
+        cells = [r.subject, r.gate, r.derived_from or "optimised", f"{r.duration_s * 1e9:.3f}",
+                 f"{r.infidelity:.2e}", f"{r.leakage:.2e}", "yes" if r.met else "NO", frames,
+                 r.waveform]
+        css = "" if r.met else ' class="fail"'
+        lines.append(f"<tr{css}>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells)
+                     + "</tr>")
+    pictures = "".join(
+        f'<img alt="{html.escape(p.name)}" src="data:image/png;base64,'
+        f'{base64.b64encode(p.read_bytes()).decode()}">' for p in images)
+    page = f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>chip {html.escape(chip.name)}</title>
+<style>{STYLE}</style></head>
+<body data-gates="{len(rows)}" data-failing="{len(failing)}">
+<h1>Chip {html.escape(chip.name)}</h1>
+<p class="{'ok' if not failing else 'bad'}" id="status">{html.escape(status)}</p>
+<p>{len(chip.qubits)} qubit(s), {len(chip.pairs)} pair(s); written
+{html.escape(time.strftime('%Y-%m-%d %H:%M:%S %z'))}.</p>
+<table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
+<tbody>{''.join(lines)}</tbody></table>
+<div id="plots">{pictures}</div>
+<p class="caution">{html.escape(CAUTION)}</p>
+<script>
+window.addEventListener("load", function () {{
+  var images = document.querySelectorAll("#plots img");
+  var decoded = Array.prototype.every.call(images, function (i) {{
+    return i.complete && i.naturalWidth > 0; }});
+  document.body.setAttribute("data-images", decoded ? "decoded" : "broken");
+}});
+</script>
+</body></html>
+"""
+    atomic.write_text(path, page)
+    return path

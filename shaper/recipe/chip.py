@@ -1,0 +1,226 @@
+"""Chip descriptions: one TOML file for a whole device, read into one recipe per gate task.
+
+A chip lists its qubits (frequency, anharmonicity, levels, drive limit, coherence times
+where known, fixed or flux-tunable) and couplings, and a gate template: the gates every
+qubit needs, the two-qubit gate of every coupled pair, the durations to sweep and the
+recipe tables every gate's recipe starts from (README, "Chips"). Each task is an ordinary
+recipe, checked by the recipe reader, so a chip error names the chip's own key. Nothing
+here imports JAX.
+"""
+
+from __future__ import annotations
+
+import copy
+import difflib
+import hashlib
+import json
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from shaper.errors import RecipeError
+from shaper.physics.systems import NAME, NAME_RULE
+from shaper.physics.targets import plan, slug
+from shaper.recipe.schema import _Reader
+
+CHIP_KEYS = {
+    "": ("name", "description", "gates", "template", "qubit", "coupling"),
+    "gates": ("single", "single_durations", "pair", "pair_durations"),
+    "template": ("pulse", "cost", "optimizer", "export", "line"),
+    "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
+              "max_flux", "flux_range"),
+    "coupling": ("between", "strength"),
+}
+MAX_QUBITS = 200
+
+
+@dataclass(frozen=True)
+class Task:
+    """One optimisation of a chip run: a sweep over ``durations`` of ``recipe`` (a raw
+    recipe whose target is ``parent``), with the gates ``derived`` from it."""
+
+    id: str
+    subject: str  # the qubit, or "qa-qb" for a pair
+    parent: str
+    derived: tuple[tuple[str, float], ...]
+    recipe: dict
+    durations: str
+
+    @property
+    def digest(self) -> str:
+        """What the task computes: a changed qubit or template changes it (and redoes it)."""
+        text = json.dumps({"recipe": self.recipe, "durations": self.durations,
+                           "derived": self.derived}, sort_keys=True)
+        return hashlib.sha256(text.encode()).hexdigest()
+
+
+@dataclass(frozen=True)
+class Chip:
+    name: str
+    path: str | None
+    sha256: str
+    qubits: tuple[str, ...]
+    pairs: tuple[tuple[str, str], ...]
+    tasks: tuple[Task, ...]
+
+
+def _check(r: _Reader, table: dict, section: str, where: str) -> None:
+    allowed = CHIP_KEYS[section]
+    for key in table:
+        if key not in allowed:
+            close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.5)
+            hint = f"; did you mean {close[0]!r}?" if close else \
+                f"; valid keys here: {', '.join(allowed)}"
+            r.fail(f"{where}.{key}" if where else key, f"unknown key{hint}")
+
+
+def load_chip(path: str | Path) -> Chip:
+    """Read and check a chip file; build (and check) every task's recipe.
+
+    Raises:
+        RecipeError: naming the chip file and the key.
+    """
+    path = Path(path)
+    try:
+        text = path.read_bytes()
+        raw = tomllib.loads(text.decode("utf-8"))
+    except OSError as exc:
+        raise RecipeError(f"cannot read the chip file: {exc.strerror}", path=str(path)) \
+            from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise RecipeError(f"not valid TOML: {exc}", path=str(path)) from None
+    r = _Reader(raw, str(path))
+    _check(r, raw, "", "")
+    name = raw.get("name")
+    if not isinstance(name, str) or not NAME.fullmatch(name):
+        r.fail("name", f"expected {NAME_RULE}, got {str(name)[:60]!r}")
+    gates = r.table(raw, "gates", "gates")
+    _check(r, gates, "gates", "gates")
+    template = r.table(raw, "template", "template")
+    _check(r, template, "template", "template")
+    for key, value in template.items():
+        if not isinstance(value, dict):
+            r.fail(f"template.{key}", f"expected a table [template.{key}]")
+    qubits = raw.get("qubit")
+    if not isinstance(qubits, list) or not qubits:
+        r.fail("qubit", "expected one or more [[qubit]] tables")
+    if len(qubits) > MAX_QUBITS:
+        r.fail("qubit", f"{len(qubits)} qubits; at most {MAX_QUBITS}")
+    specs = {}
+    for i, q in enumerate(qubits):
+        where = f"qubit[{i}]"
+        if not isinstance(q, dict):
+            r.fail(where, "expected a table")
+        _check(r, q, "qubit", where)
+        qname = q.get("name")
+        if not isinstance(qname, str) or not NAME.fullmatch(qname):
+            r.fail(f"{where}.name", f"expected {NAME_RULE}, got {qname!r}")
+        if qname in specs:
+            r.fail(f"{where}.name", f"qubit {qname!r} is listed twice; names must differ")
+        for key in ("frequency", "anharmonicity", "max_rabi"):
+            if key not in q:
+                r.fail(f"{where}.{key}", f"missing required key (qubit {qname!r})")
+        if q.get("flux") and "max_flux" not in q and "flux_range" not in q:
+            r.fail(f"{where}.max_flux", f"qubit {qname!r} is tunable (flux = true) and needs "
+                                        f"a flux limit: max_flux or flux_range")
+        specs[qname] = q
+    pairs = []
+    couplings = raw.get("coupling", [])
+    if not isinstance(couplings, list):
+        r.fail("coupling", "expected [[coupling]] tables")
+    for i, c in enumerate(couplings):
+        where = f"coupling[{i}]"
+        if not isinstance(c, dict):
+            r.fail(where, "expected a table")
+        _check(r, c, "coupling", where)
+        between = c.get("between")
+        if not isinstance(between, list) or len(between) != 2:
+            r.fail(f"{where}.between", f"expected two qubit names, got {between!r}")
+        for nm in between:
+            if nm not in specs:
+                r.fail(f"{where}.between", f"no qubit named {nm!r}; qubits: "
+                                           f"{', '.join(specs)}")
+        if between[0] == between[1] or tuple(between) in pairs or tuple(between[::-1]) in pairs:
+            r.fail(f"{where}.between", f"{between}: a pair of two different qubits, once")
+        if "strength" not in c:
+            r.fail(f"{where}.strength", "missing required key")
+        pairs.append((between[0], between[1]))
+    single = gates.get("single", ["X", "X/2", "Y", "Y/2", "-X/2"])
+    if not isinstance(single, list) or not all(isinstance(g, str) for g in single):
+        r.fail("gates.single", f"expected a list of one-qubit gate names, got {single!r}")
+    for key in ("single_durations", "pair_durations"):
+        if key in gates and not isinstance(gates[key], str):
+            r.fail(f"gates.{key}", "expected durations as text, e.g. \"12ns:24ns:4ns\"")
+    tasks = _tasks(r, raw, specs, pairs, single, gates, template, couplings)
+    return Chip(name=name, path=str(path), sha256=hashlib.sha256(text).hexdigest(),
+                qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks))
+
+
+def _transmon(q: dict) -> dict:
+    out = {"name": q["name"], "levels": q.get("levels", 3), "qubit_frequency": q["frequency"],
+           "anharmonicity": q["anharmonicity"]}
+    for key in ("t1", "t2"):
+        if key in q:
+            out[key] = q[key]
+    return out
+
+
+def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
+    from shaper.recipe.load import load_recipe
+
+    name = raw["name"]
+    tasks = []
+
+    def checked(recipe: dict, where: str) -> dict:
+        try:
+            load_recipe(recipe)
+        except RecipeError as exc:
+            r.fail(where, f"the gate recipe built from it is wrong: {exc.key}: {exc.detail}")
+        return recipe
+
+    base = {k: copy.deepcopy(v) for k, v in template.items()}
+    durations = gates.get("single_durations", "12ns:24ns:4ns")
+    for i, (qname, q) in enumerate(specs.items()):
+        for parent, derived in plan(single, 1):
+            transmon = _transmon(q)
+            system = {"model": "transmon", "levels": transmon["levels"],
+                      "qubit_frequency": q["frequency"], "anharmonicity": q["anharmonicity"],
+                      "qubit": qname, **{k: q[k] for k in ("t1", "t2") if k in q}}
+            recipe = {"name": f"{name}-{qname}-{slug(parent)}", "system": system,
+                      "gate": {"target": parent},
+                      "pulse": {**base.get("pulse", {}), "duration": "20 ns",
+                                "max_rabi": q["max_rabi"]},
+                      **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+            recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
+            tasks.append(Task(f"{qname}-{slug(parent)}", qname, parent, tuple(derived),
+                              checked(recipe, f"qubit[{i}]"), durations))
+    pair_gate = gates.get("pair", "CZ")
+    pair_durations = gates.get("pair_durations", "40ns:80ns:10ns")
+    for i, (a, b) in enumerate(pairs):
+        qa, qb = specs[a], specs[b]
+        if not (qa.get("flux") or qb.get("flux")):
+            r.fail(f"coupling[{i}].between", f"{a} and {b} are both fixed-frequency; a flux "
+                                             f"CZ needs a tunable qubit (flux = true)")
+        transmons = []
+        for q in (qa, qb):
+            t = _transmon(q)
+            if q.get("flux"):
+                t["flux"] = True
+            transmons.append(t)
+        pulse = {**base.get("pulse", {}), "duration": "40 ns",
+                 "max_rabi": {a: 0, b: 0}}  # the flux makes the gate; the drives stay off
+        pulse.setdefault("sample_rate", "2.4 GS/s")
+        for key in ("max_flux", "flux_range"):
+            values = {q["name"] + "_flux": q[key] for q in (qa, qb) if q.get("flux") and key in q}
+            if values:
+                pulse[key] = values
+        recipe = {"name": f"{name}-{a}-{b}-{slug(pair_gate)}",
+                  "system": {"model": "transmons", "transmon": transmons,
+                             "coupling": [{"between": [a, b],
+                                           "strength": couplings[i]["strength"]}]},
+                  "gate": {"target": pair_gate, "virtual_z": True}, "pulse": pulse,
+                  **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+        tasks.append(Task(f"{a}-{b}-{slug(pair_gate)}", f"{a}-{b}", pair_gate, (),
+                          checked(recipe, f"coupling[{i}]"), pair_durations))
+    return tasks
+
