@@ -89,7 +89,7 @@ class DaskExecutor:
             raise EnvironmentFailure("--scheduler needs Dask: pip install \".[cluster]\" "
                                      "(dask.distributed)") from None
         try:
-            self.client = Client(address, timeout=timeout_s, set_as_default=False)
+            self.client = Client(address, timeout=timeout_s)
         except (OSError, TimeoutError) as exc:
             raise EnvironmentFailure(f"cannot reach the Dask scheduler at {address!r} within "
                                      f"{timeout_s:g} s: {exc}") from None
