@@ -24,13 +24,16 @@ class Channel:
     """One instrument output: an I/Q pair (``kind="iq"``) or one real baseband line.
 
     ``columns`` are the indices of its controls in ``System.controls``: (I, Q) or (u,).
-    ``subsystem`` is the index of the subsystem it acts on, or None.
+    ``subsystem`` is the index of the subsystem it acts on, or None. A drive whose carrier
+    is not the frame's (``offset_hz``) turns in the frame: its held envelope is multiplied
+    by ``exp(-2 pi i offset t)`` (:mod:`shaper.signal.chain`).
     """
 
     name: str
     kind: str  # "iq" or "baseband"
     columns: tuple[int, ...]
     subsystem: int | None = None
+    offset_hz: float = 0.0  # an I/Q drive's carrier minus the frame frequency (0: in frame)
 
 
 @dataclass(frozen=True)
@@ -258,7 +261,8 @@ def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
 
 def coupled_transmons(transmons: Sequence[TransmonSpec],
                       couplings: Sequence[tuple[str, str, float]] = (), *,
-                      frame_frequency_hz: float | None = None) -> System:
+                      frame_frequency_hz: float | None = None,
+                      drives: Sequence[tuple[str, str, float]] = ()) -> System:
     """Transmons with exchange couplings, in one frame rotating at the drive frequency.
 
     ``H/h = sum_q [(f_q - f_frame) n_q + alpha_q/2 n_q(n_q - 1)]
@@ -269,9 +273,13 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
         transmons: the transmons, first one leftmost in the tensor product.
         couplings: ``(name_a, name_b, g_hz)`` triples.
         frame_frequency_hz: the common frame; default the first transmon's frequency.
+        drives: extra I/Q drives ``(name, transmon, carrier_hz)``: a line of that transmon
+            carrying another frequency (e.g. the target's, for cross-resonance), with the
+            transmon's drive operators and a carrier offset from the frame.
 
     Returns:
-        A :class:`System`; control names ``<q>_i``, ``<q>_q`` and ``<q>_flux``.
+        A :class:`System`; control names ``<q>_i``, ``<q>_q``, ``<q>_flux`` and
+        ``<drive>_i``, ``<drive>_q``.
     """
     if not transmons:
         raise InputError("at least one transmon is needed")
@@ -294,6 +302,16 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
         controls += [0.5 * (a + a.conj().T), 0.5j * (a.conj().T - a)]
         control_names += [f"{t.name}_i", f"{t.name}_q"]
         channels.append(Channel(t.name, "iq", (start, start + 1), q))
+    for name, on, carrier in drives:
+        if on not in names:
+            raise InputError(f"drive {name!r} is on transmon {on!r}, which is not one of "
+                             f"{names}")
+        q = names.index(on)
+        a = _embed(_lowering(dims[q]), q, dims)
+        start = len(controls)
+        controls += [0.5 * (a + a.conj().T), 0.5j * (a.conj().T - a)]
+        control_names += [f"{name}_i", f"{name}_q"]
+        channels.append(Channel(name, "iq", (start, start + 1), q, offset_hz=carrier - frame))
     for q, t in enumerate(transmons):
         if t.flux:
             channels.append(Channel(f"{t.name}_flux", "baseband", (len(controls),), q))

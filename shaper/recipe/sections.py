@@ -116,7 +116,7 @@ def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
 MODEL_KEYS = {
     "transmon": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
                  "qubit", "t1", "t2"),
-    "transmons": ("model", "transmon", "coupling", "frame_frequency"),
+    "transmons": ("model", "transmon", "coupling", "frame_frequency", "drive"),
     "matrices": ("model", "unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
                  "computational", "collapse", "collapse_rate"),
 }
@@ -206,7 +206,22 @@ def _transmons(r: _Reader, t: dict) -> System:
                                                      kind="frequency")))
     frame = r.number(t, "frame_frequency", "system.frame_frequency",
                      specs[0].qubit_frequency_hz, kind="frequency", positive=True)
-    return coupled_transmons(specs, couplings, frame_frequency_hz=frame)
+    drives = []
+    for i, item in enumerate(t.get("drive", [])):
+        where = f"system.drive[{i}]"
+        if not isinstance(item, dict):
+            r.fail(where, "expected a table with keys name, transmon and frequency")
+        r.check_keys(item, "system.drive", where)
+        for key in ("name", "transmon"):
+            if not isinstance(item.get(key), str):
+                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
+        drives.append((item["name"], item["transmon"],
+                       r.number(item, "frequency", f"{where}.frequency", kind="frequency",
+                                positive=True)))
+    try:
+        return coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
+    except InputError as exc:
+        r.fail("system.drive" if "drive" in str(exc) else "system", str(exc))
 
 
 def _matrices(r: _Reader, t: dict) -> System:

@@ -11,7 +11,11 @@ In order:
 3. the DAC's hold on ``steps`` propagator slices per sample;
 4. the line of each DAC output (:mod:`shaper.signal.line`), if the recipe has one;
 5. back to the drive frame: each held modulated slice turns with the IF phase
-   (:mod:`shaper.signal.modulation` for the sign convention).
+   (:mod:`shaper.signal.modulation` for the sign convention);
+6. a drive whose carrier is not the frame's (``Channel.offset_hz``, e.g. a
+   cross-resonance tone on the control's line at the target's frequency) turns in the
+   frame by ``exp(-2 pi i offset t)`` at the middle of each slice: the instrument
+   synthesises that carrier, the DAC holds its envelope.
 
 The mixer's map mixes I and Q of one channel and the line is the same linear
 time-invariant filter on both, with unit gain at DC, so the two commute: the order
@@ -25,7 +29,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from shaper.physics.grid import substeps
+from shaper.physics.grid import carrier_substeps, substeps
 from shaper.recipe.lines import Stage
 from shaper.signal.line import apply, cell_response
 from shaper.signal.mixer import Mixer
@@ -58,12 +62,15 @@ class Chain:
     line: tuple[tuple[int, tuple[Stage, ...]], ...] = ()
     oversample: int = 1
     mixer: Mixer | None = None
+    carriers: tuple[tuple[int, int, float], ...] = ()  # (I column, Q column, offset Hz)
     steps: int = field(default=0)
 
     def __post_init__(self):
         if not self.steps:
             steps = substeps(self.if_hz, self.period_s) if self.if_hz else 1
-            object.__setattr__(self, "steps", max(steps, self.oversample if self.line else 1))
+            steps = max([steps, self.oversample if self.line else 1]
+                        + [carrier_substeps(f, self.period_s) for _, _, f in self.carriers])
+            object.__setattr__(self, "steps", steps)
 
     @property
     def dt_s(self) -> float:
@@ -72,7 +79,7 @@ class Chain:
 
     @property
     def identity(self) -> bool:
-        return not self.if_hz and not self.line and self.mixer is None
+        return not self.if_hz and not self.line and self.mixer is None and not self.carriers
 
     def __call__(self, samples):
         """The propagator's samples ``(n * steps, k)`` (NumPy or JAX in, the same out)."""
@@ -99,12 +106,15 @@ class Chain:
         if self.if_hz:
             fine = to_drive_frame(fine, self.iq_columns, self.if_hz, self.period_s,
                                   self.sideband, steps=self.steps, start=self.start)
+        for i, q, offset in self.carriers:
+            fine = to_drive_frame(fine, [(i, q)], offset, self.period_s, "lower",
+                                  steps=self.steps, start=self.start)
         return fine
 
     def finer(self, factor: int) -> Chain:
         """The same chain on ``factor`` times more sub-steps (for extrapolation)."""
         return Chain(self.iq_columns, self.period_s, self.if_hz, self.sideband, self.start,
-                     self.modulated, self.line, self.oversample, self.mixer,
+                     self.modulated, self.line, self.oversample, self.mixer, self.carriers,
                      self.steps * factor)
 
 
@@ -120,6 +130,12 @@ def line_columns(recipe) -> tuple[tuple[int, tuple[Stage, ...]], ...]:
                  if stages.get(ch.name) for c in ch.columns)
 
 
+def carriers(system) -> tuple[tuple[int, int, float], ...]:
+    """``(I column, Q column, offset Hz)`` of every drive whose carrier is off the frame."""
+    return tuple((c.columns[0], c.columns[1], c.offset_hz) for c in system.channels
+                 if c.kind == "iq" and c.offset_hz)
+
+
 def for_recipe(recipe, *, line: bool = True) -> Chain:
     """The optimiser's chain: the recipe's baseband samples as they reach the chip.
 
@@ -129,7 +145,7 @@ def for_recipe(recipe, *, line: bool = True) -> Chain:
     lined = line and not recipe.export.predistort
     return Chain(recipe.system.iq_columns(), recipe.dt, recipe.export.if_frequency_hz,
                  recipe.export.sideband, line=line_columns(recipe) if lined else (),
-                 oversample=recipe.line.oversample)
+                 oversample=recipe.line.oversample, carriers=carriers(recipe.system))
 
 
 def for_waveform(recipe, wave, *, line: bool = True, mixer: bool = True) -> Chain:
@@ -142,4 +158,4 @@ def for_waveform(recipe, wave, *, line: bool = True, mixer: bool = True) -> Chai
     return Chain(recipe.system.iq_columns(), 1.0 / wave.sample_rate_hz, wave.if_frequency_hz,
                  wave.sideband, wave.pulse_start, modulated=True,
                  line=line_columns(recipe) if line else (), oversample=recipe.line.oversample,
-                 mixer=model)
+                 mixer=model, carriers=carriers(recipe.system))
