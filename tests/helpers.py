@@ -2,8 +2,19 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import scipy.linalg
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def demo_text(name: str) -> str:
+    """The bundled demo recipe (recipes/demo-x180.toml) under another name: a base for
+    recipes that add a section to it."""
+    return (ROOT / "recipes" / "demo-x180.toml").read_text().replace(
+        'name = "demo-x180"', f'name = "{name}"')
 
 
 def expm_product(drift, controls, samples, dt) -> np.ndarray:

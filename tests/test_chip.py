@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import duffing, expm_product, pedersen_fidelity
+from helpers import demo_text, duffing, expm_product, pedersen_fidelity
 from helpers import run_cli as cli
 
 from shaper.errors import EnvironmentFailure, RecipeError
@@ -67,19 +67,9 @@ between = ["qb", "qc"]
 strength = "10 MHz"
 """
 
-SET = """name = "set"
-[system]
-model = "transmon"
-levels = 4
-qubit_frequency = "5.1 GHz"
-anharmonicity = "-220 MHz"
-[gate]
-targets = ["X", "X/2", "Y", "Y/2", "-X/2", "-Y/2"]
-virtual_z = true
-[pulse]
-duration = "15 ns"
-sample_rate = "2.4 GS/s"
-max_rabi = "60 MHz"
+SET = demo_text("set").replace('target = "X"', 'targets = ["X", "X/2", "Y", "Y/2", '
+                                '"-X/2", "-Y/2"]\nvirtual_z = true').replace(
+    'duration = "20 ns"', 'duration = "15 ns"') + """
 [optimizer]
 target_infidelity = 1e-5
 target_leakage = 1e-6

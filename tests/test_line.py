@@ -15,7 +15,7 @@ import pytest
 import scipy.integrate
 import scipy.linalg
 import scipy.signal
-from helpers import duffing, pedersen_fidelity, subspace_leakage
+from helpers import demo_text, duffing, pedersen_fidelity, subspace_leakage
 from helpers import run_cli as cli
 
 from shaper.errors import InputError, RecipeError
@@ -32,19 +32,7 @@ from shaper.signal.mixer import Mixer
 ROOT = Path(__file__).resolve().parents[1]
 RATE = 2.4e9
 
-DEMO = """name = "NAME"
-[system]
-model = "transmon"
-levels = 4
-qubit_frequency = "5.1 GHz"
-anharmonicity = "-220 MHz"
-[gate]
-target = "X"
-[pulse]
-duration = "20 ns"
-sample_rate = "2.4 GS/s"
-max_rabi = "60 MHz"
-"""
+DEMO = demo_text("NAME")
 BESSEL = """
 [line]
 oversample = 4

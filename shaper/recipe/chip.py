@@ -11,7 +11,6 @@ here imports JAX.
 from __future__ import annotations
 
 import copy
-import difflib
 import hashlib
 import json
 import tomllib
@@ -25,7 +24,8 @@ from shaper.recipe.schema import _Reader
 
 CHIP_KEYS = {
     "": ("name", "description", "gates", "template", "qubit", "coupling"),
-    "gates": ("single", "single_durations", "pair", "pair_durations"),
+    "gates": ("single", "single_durations", "pair", "pair_durations", "fixed_pair",
+              "fixed_pair_durations", "cross_resonance_rabi"),
     "template": ("pulse", "cost", "optimizer", "export", "line"),
     "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
               "max_flux", "flux_range"),
@@ -65,13 +65,7 @@ class Chip:
 
 
 def _check(r: _Reader, table: dict, section: str, where: str) -> None:
-    allowed = CHIP_KEYS[section]
-    for key in table:
-        if key not in allowed:
-            close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.5)
-            hint = f"; did you mean {close[0]!r}?" if close else \
-                f"; valid keys here: {', '.join(allowed)}"
-            r.fail(f"{where}.{key}" if where else key, f"unknown key{hint}")
+    r.check_keys(table, section, where, keys=CHIP_KEYS)
 
 
 def load_chip(path: str | Path) -> Chip:
@@ -165,6 +159,28 @@ def _transmon(q: dict) -> dict:
     return out
 
 
+def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task:
+    """A fixed-frequency pair: the first qubit controls, a tone at the second's frequency on
+    its line (cross-resonance), the second's own drive; the frame at the second's frequency
+    (README, "Two-qubit gates on fixed-frequency pairs")."""
+    a, b = qa["name"], qb["name"]
+    gate = gates.get("fixed_pair", "CNOT")
+    recipe = {"name": f"{name}-{a}-{b}-{slug(gate)}",
+              "system": {"model": "transmons", "frame_frequency": qb["frequency"],
+                         "transmon": [_transmon(qa), _transmon(qb)],
+                         "coupling": [{"between": [a, b], "strength": coupling["strength"]}],
+                         "drive": [{"name": f"{a}_cr", "transmon": a,
+                                    "frequency": qb["frequency"]}]},
+              "gate": {"target": gate, "virtual_z": True},
+              "pulse": {**base.get("pulse", {}), "duration": "160 ns",
+                        "max_rabi": {a: 0, b: qb["max_rabi"],
+                                     f"{a}_cr": gates.get("cross_resonance_rabi", "100 MHz")}},
+              **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+    recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
+    return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (), checked(recipe, f"coupling[{i}]"),
+                gates.get("fixed_pair_durations", "120ns:200ns:40ns"))
+
+
 def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
     from shaper.recipe.load import load_recipe
 
@@ -199,8 +215,9 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
     for i, (a, b) in enumerate(pairs):
         qa, qb = specs[a], specs[b]
         if not (qa.get("flux") or qb.get("flux")):
-            r.fail(f"coupling[{i}].between", f"{a} and {b} are both fixed-frequency; a flux "
-                                             f"CZ needs a tunable qubit (flux = true)")
+            tasks.append(_cross_resonance(r, name, i, qa, qb, couplings[i], gates, base,
+                                          checked))
+            continue
         transmons = []
         for q in (qa, qb):
             t = _transmon(q)

@@ -191,16 +191,19 @@ class _Reader:
     def fail(self, key: str | None, message: str):
         raise RecipeError(message, path=self.path, key=key)
 
-    def check_keys(self, table: dict, section: str, key_prefix: str | None = None) -> None:
+    def check_keys(self, table: dict, section: str, key_prefix: str | None = None, *,
+                   keys: dict[str, tuple[str, ...]] | None = None) -> None:
+        """Refuse unknown keys (suggesting the closest) and missing required ones of
+        ``section`` (in ``keys``, default the recipe's :data:`KEYS`)."""
         prefix = key_prefix if key_prefix is not None else section
-        allowed = KEYS[section]
+        allowed = (keys or KEYS)[section]
         for key in table:
             if key not in allowed:
                 close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.5)
                 hint = f"; did you mean {close[0]!r}?" if close else \
                     f"; valid keys here: {', '.join(allowed)}"
                 self.fail(f"{prefix}.{key}" if prefix else key, f"unknown key{hint}")
-        for key in REQUIRED.get(section, ()):
+        for key in (REQUIRED.get(section, ()) if keys is None else ()):
             if key not in table:
                 self.fail(f"{prefix}.{key}" if prefix else key, "missing required key")
 
