@@ -25,9 +25,11 @@ from shaper.jobs.gateset import GateRow, write_table
 from shaper.recipe.chip import Chip, Task
 
 
-def run_task(task: Task, root: str) -> list[dict]:
+def run_task(task: Task, root: str) -> dict:
     """One task, in a worker: the sweep, the shortest passing pulse's export, the derived
-    gates. Returns the rows (as dictionaries) with paths relative to ``root``."""
+    gates. Returns ``rows`` (dictionaries, paths relative to ``root``), ``compiles`` (of
+    the objective, in this task) and ``wall_time_s``."""
+    started = time.monotonic()
     if "jax" not in sys.modules:  # a fresh worker: one thread, as the starts' workers
         from shaper.optimise.parallel import _PINNED
         os.environ.update(_PINNED)
@@ -52,7 +54,8 @@ def run_task(task: Task, root: str) -> list[dict]:
         rows.append(row)
     for row in rows:
         row.subject = task.subject
-    return [asdict(r) for r in rows]
+    return {"rows": [asdict(r) for r in rows], "compiles": sweep.compiles,
+            "wall_time_s": time.monotonic() - started}
 
 
 class LocalExecutor:
@@ -143,8 +146,11 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
     try:
         for future in executor.completed(list(futures)):
             task = futures[future]
-            rows = future.result()
+            outcome = future.result()
+            rows = outcome["rows"]
             state["tasks"][task.id] = {"digest": task.digest, "rows": rows,
+                                       "compiles": outcome["compiles"],
+                                       "wall_time_s": outcome["wall_time_s"],
                                        "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
             atomic.write_json(state_path, state)
             done[task.id] = rows
