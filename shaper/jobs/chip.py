@@ -14,6 +14,7 @@ run give the same table.
 from __future__ import annotations
 
 import os
+import shutil
 import sys
 import time
 from dataclasses import asdict
@@ -40,6 +41,12 @@ def run_task(task: Task, root: str) -> dict:
 
     root_path = Path(root)
     folder = root_path / "gates" / task.id
+    marker = folder / "task.json"
+    if folder.exists() and (not marker.exists() or atomic.read_json(
+            marker, ResultError, "unreadable").get("digest") != task.digest):
+        shutil.rmtree(folder)  # another qubit or template: its earlier work does not apply
+    folder.mkdir(parents=True, exist_ok=True)
+    atomic.write_json(marker, {"task": task.id, "digest": task.digest})
     recipe = load_recipe(task.recipe)
     sweep = Sweep(recipe, folder / "sweep", resume=True, echo=lambda text: None)
     shortest = sweep.run(parse_durations(task.durations), plots=False)
@@ -130,6 +137,8 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
         if state.get("chip") != chip.name:
             raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
                               f"{chip.name!r}")
+    if force and (out / "gates").exists():
+        shutil.rmtree(out / "gates")  # start over: no task resumes its earlier sweep
     done = {t.id: state["tasks"][t.id]["rows"] for t in chip.tasks
             if state["tasks"].get(t.id, {}).get("digest") == t.digest}
     todo = [t for t in chip.tasks if t.id not in done]
