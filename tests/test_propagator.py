@@ -167,3 +167,17 @@ def test_bad_input(kwargs, match):
     args.update(kwargs)
     with pytest.raises(InputError, match=match):
         propagate(**args, method=method)
+
+
+def test_bench_runs_and_leaves_the_compile_cache_setting_alone(tmp_path):
+    # the benchmark's own reference (scipy expm_frechet) must agree with the engine's
+    # exact gradient; it turns the persistent compile cache off while it times compiles
+    import jax
+
+    from shaper.jobs.bench import Case, bench
+    was = jax.config.jax_enable_compilation_cache
+    rows = bench(out=tmp_path, methods=("eigh",), echo=lambda text: None,
+                 only=[Case("transmon 3 levels", (3,), 24)])
+    assert jax.config.jax_enable_compilation_cache == was
+    assert rows[0]["eigh"]["gradient_difference"] < 1e-10
+    assert (tmp_path / "bench.md").read_text().count("| transmon 3 levels | 3 | 24 |") == 1

@@ -169,17 +169,18 @@ def markdown(rows: list[dict], methods, meta: dict) -> str:
 
 
 def bench(*, quick: bool = False, out: Path | None = Path("results"),
-          methods=("eigh", "pade"), echo=print) -> list[dict]:
-    """Run every case, print the table, write ``bench.json`` and ``bench.md`` into ``out``."""
+          methods=("eigh", "pade"), echo=print, only: list[Case] | None = None) -> list[dict]:
+    """Run every case (or ``only`` these), print the table, write ``bench.json`` and
+    ``bench.md`` into ``out``."""
     import jax
 
     from shaper.physics import _jax  # noqa: F401
 
-    was = jax.config.read("jax_enable_compilation_cache")
+    was = jax.config.jax_enable_compilation_cache
     jax.config.update("jax_enable_compilation_cache", False)  # measure real compiles...
     try:
         rows = []
-        for case in cases(quick):
+        for case in only or cases(quick):
             row = run_case(case, methods=methods, repeats=5 if quick else 20,
                            reference_repeats=2 if quick else 5)
             rows.append(row)
