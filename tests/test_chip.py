@@ -110,6 +110,16 @@ def test_derived_gates_meet_the_targets_by_independent_resimulation(tmp_path):
             < 1e-9
 
 
+@pytest.mark.parametrize("command", ["sweep", "check"])
+def test_one_gate_commands_refuse_a_gate_set(tmp_path, command):
+    path = tmp_path / "set.toml"
+    path.write_text(SET)
+    args = ["--durations", "10ns"] if command == "sweep" else [ROOT / "results" / "demo-x180"
+                                                                / "demo-x180.csv"]
+    code, _, err = cli(command, path, *args)
+    assert code == 2 and "gate.targets" in err and "works on one gate" in err
+
+
 def _rows(folder: Path) -> list[dict]:
     return list(csv.DictReader((folder / "chip.csv").read_text().splitlines()))
 

@@ -36,7 +36,7 @@ def run(args: argparse.Namespace) -> int:
     from shaper.recipe import load_recipe
     from shaper.recipe.units import parse_quantity
 
-    recipe = load_recipe(args.recipe)
+    recipe = load_recipe(args.recipe).one_gate("shaper check")
     if args.t1 or args.t2:
         from shaper.jobs.check import with_coherence
 

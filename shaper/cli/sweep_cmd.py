@@ -42,7 +42,7 @@ def _run(args: argparse.Namespace, stop) -> int:
         value = getattr(args, name)
         if value is not None and value < (1 if name == "starts" else 0):
             raise InputError(f"--{name} must be at least 1, got {value}")
-    recipe = load_recipe(args.recipe)
+    recipe = load_recipe(args.recipe).one_gate("shaper sweep")
     durations = parse_durations(args.durations)
     import os
     from dataclasses import replace

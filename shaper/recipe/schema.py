@@ -181,6 +181,19 @@ class Recipe:
     def dt(self) -> float:
         return 1.0 / self.sample_rate_hz
 
+    def one_gate(self, command: str) -> Recipe:
+        """This recipe, refused if it lists a gate set: ``command`` works on one gate.
+
+        Raises:
+            RecipeError: naming ``gate.targets``.
+        """
+        if len(self.gate_set) > 1:
+            raise RecipeError(f"lists a gate set ({', '.join(self.gate_set)}); {command} works "
+                              f"on one gate: give gate.target, or run the set with shaper "
+                              f"optimize (or shaper chip, for the shortest durations)",
+                              path=self.path, key="gate.targets")
+        return self
+
 
 class _Reader:
     """Typed access to the raw TOML with errors that name file and key."""
