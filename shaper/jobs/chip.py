@@ -22,7 +22,7 @@ from pathlib import Path
 
 from shaper.errors import EnvironmentFailure, ResultError
 from shaper.io import atomic
-from shaper.jobs.gateset import GateRow, write_table
+from shaper.jobs.gateset import GateRow, describe, write_table
 from shaper.recipe.chip import Chip, Task
 
 
@@ -164,7 +164,7 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
             atomic.write_json(state_path, state)
             done[task.id] = rows
             for row in rows:
-                line = _row_line(row)
+                line = describe(GateRow(**row))
                 if bar is not None:
                     bar.write(line, file=sys.stderr)
                 else:
@@ -179,13 +179,6 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
     atomic.write_json(state_path, state)
     write_summary(chip, out, rows)
     return rows
-
-
-def _row_line(row: dict) -> str:
-    how = f"from {row['derived_from']}" if row["derived_from"] else "optimised"
-    return (f"{row['subject']} {row['gate']} ({how}): {row['duration_s'] * 1e9:.3f} ns, "
-            f"infidelity {row['infidelity']:.2e}, leakage {row['leakage']:.2e}, "
-            f"{'met' if row['met'] else 'NOT met'}")
 
 
 def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:

@@ -106,7 +106,7 @@ def _residual(recipe: Recipe, fractions: np.ndarray, settings: ExportSettings, r
     """Largest error of the line's output (per sample) against ``wanted``, relative to the
     largest intended sample of the lined columns, for the quantised samples as the mixer
     plays them."""
-    from shaper.signal.line import sample_matrix
+    from shaper.signal.line import through_line
 
     played = fractions * waveio.column_scales(recipe.system, settings.full_scale_hz)[None, :]
     if settings.mixer:
@@ -114,8 +114,8 @@ def _residual(recipe: Recipe, fractions: np.ndarray, settings: ExportSettings, r
     worst, peak = 0.0, 0.0
     for column, stages in line_columns(recipe):
         peak = max(peak, float(np.max(np.abs(wanted[:, column]), initial=0.0)))
-        out = sample_matrix(stages, 1 / rate, max(recipe.line.oversample, 1),
-                            played.shape[0]) @ played[:, column]
+        out = through_line(played[:, column], stages, 1 / rate,
+                           max(recipe.line.oversample, 1))
         worst = max(worst, float(np.max(np.abs(out - wanted[:, column]))))
     return worst / peak if peak > 0 else 0.0
 
@@ -141,11 +141,11 @@ def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
     if wave.mixer_corrected:
         samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
     if wave.predistorted:
-        from shaper.signal.line import sample_matrix
+        from shaper.signal.line import through_line
         for column, stages in line_columns(recipe):
-            samples[:, column] = sample_matrix(stages, 1 / wave.sample_rate_hz,
-                                               max(recipe.line.oversample, 1),
-                                               samples.shape[0]) @ samples[:, column]
+            samples[:, column] = through_line(samples[:, column], stages,
+                                              1 / wave.sample_rate_hz,
+                                              max(recipe.line.oversample, 1))
     return samples
 
 

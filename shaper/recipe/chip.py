@@ -101,11 +101,7 @@ def load_chip(path: str | Path) -> Chip:
     if len(qubits) > MAX_QUBITS:
         r.fail("qubit", f"{len(qubits)} qubits; at most {MAX_QUBITS}")
     specs = {}
-    for i, q in enumerate(qubits):
-        where = f"qubit[{i}]"
-        if not isinstance(q, dict):
-            r.fail(where, "expected a table")
-        _check(r, q, "qubit", where)
+    for where, q in r.tables(raw, "qubit", "qubit", "qubit", keys=CHIP_KEYS):
         qname = q.get("name")
         if not isinstance(qname, str) or not NAME.fullmatch(qname):
             r.fail(f"{where}.name", f"expected {NAME_RULE}, got {qname!r}")
@@ -120,13 +116,7 @@ def load_chip(path: str | Path) -> Chip:
         specs[qname] = q
     pairs = []
     couplings = raw.get("coupling", [])
-    if not isinstance(couplings, list):
-        r.fail("coupling", "expected [[coupling]] tables")
-    for i, c in enumerate(couplings):
-        where = f"coupling[{i}]"
-        if not isinstance(c, dict):
-            r.fail(where, "expected a table")
-        _check(r, c, "coupling", where)
+    for where, c in r.tables(raw, "coupling", "coupling", "coupling", keys=CHIP_KEYS):
         between = c.get("between")
         if not isinstance(between, list) or len(between) != 2:
             r.fail(f"{where}.between", f"expected two qubit names, got {between!r}")

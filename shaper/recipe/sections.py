@@ -174,11 +174,8 @@ def _transmons(r: _Reader, t: dict) -> System:
     if not isinstance(items, list) or not items:
         r.fail("system.transmon", "expected one [[system.transmon]] table per transmon")
     specs = []
-    for i, item in enumerate(items):
-        where = f"system.transmon[{i}]"
-        if not isinstance(item, dict):
-            r.fail(where, "expected a table")
-        r.check_keys(item, "system.transmon", where)
+    for i, (where, item) in enumerate(r.tables(t, "transmon", "system.transmon",
+                                               "system.transmon")):
         name = item.get("name", f"q{i}")
         if not isinstance(name, str) or not NAME.fullmatch(name):
             r.fail(f"{where}.name", f"expected {NAME_RULE}, got {str(name)[:80]!r}")
@@ -193,11 +190,7 @@ def _transmons(r: _Reader, t: dict) -> System:
                                       kind="frequency"),
             flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where)))
     couplings = []
-    for i, item in enumerate(t.get("coupling", [])):
-        where = f"system.coupling[{i}]"
-        if not isinstance(item, dict):
-            r.fail(where, "expected a table with keys between and strength")
-        r.check_keys(item, "system.coupling", where)
+    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
         pair = item.get("between")
         if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
                                                                  for p in pair)):
@@ -207,11 +200,7 @@ def _transmons(r: _Reader, t: dict) -> System:
     frame = r.number(t, "frame_frequency", "system.frame_frequency",
                      specs[0].qubit_frequency_hz, kind="frequency", positive=True)
     drives = []
-    for i, item in enumerate(t.get("drive", [])):
-        where = f"system.drive[{i}]"
-        if not isinstance(item, dict):
-            r.fail(where, "expected a table with keys name, transmon and frequency")
-        r.check_keys(item, "system.drive", where)
+    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
         for key in ("name", "transmon"):
             if not isinstance(item.get(key), str):
                 r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")

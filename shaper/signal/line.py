@@ -164,47 +164,79 @@ def apply(fine, g: np.ndarray, lead: int):
     return out[lead:lead + n]
 
 
-def sample_matrix(stages: tuple[Stage, ...], period_s: float, steps: int,
-                  samples: int) -> np.ndarray:
-    """``(samples, samples)`` map from held AWG samples to the line's output averaged over
-    each AWG sample (Toeplitz; lower triangular for a causal line)."""
-    from scipy import linalg
+def sample_response(stages: tuple[Stage, ...], period_s: float, steps: int,
+                    samples: int) -> tuple[np.ndarray, int]:
+    """The line's output averaged over each AWG sample for one unit held sample.
 
+    Returns ``(q, before)``: ``q[before + m]`` is the mean output over sample ``m`` (from
+    ``-before``, where a non-causal response reaches back, to ``samples - 1``).
+    """
     g, lead = cell_response(stages, period_s, steps, samples * steps)
     before = -(-lead // steps)  # whole AWG samples the response reaches back
     held = np.convolve(np.concatenate([np.zeros(before * steps - lead), g]), np.ones(steps))
     held = np.concatenate([held, np.zeros(steps)])[:(before + samples) * steps]
-    q = held.reshape(before + samples, steps).mean(axis=1)  # sample offsets -before..
+    return held.reshape(before + samples, steps).mean(axis=1), before
+
+
+def through_line(held: np.ndarray, stages: tuple[Stage, ...], period_s: float,
+                 steps: int) -> np.ndarray:
+    """The line's output averaged over each AWG sample, for held samples ``(n,)`` (by FFT
+    convolution: no ``n x n`` matrix, whatever the length)."""
+    q, before = sample_response(stages, period_s, steps, held.shape[0])
+    return apply(np.asarray(held, float), q, before)
+
+
+def sample_matrix(stages: tuple[Stage, ...], period_s: float, steps: int,
+                  samples: int) -> np.ndarray:
+    """The same map as a dense ``(samples, samples)`` Toeplitz matrix (lower triangular for
+    a causal line): for inspection and for inverting a non-causal line of modest length."""
+    from scipy import linalg
+
+    q, before = sample_response(stages, period_s, steps, samples)
     row = np.zeros(samples)
     row[:before + 1] = q[before::-1][:samples]
     return linalg.toeplitz(q[before:], row)
+
+
+MAX_DENSE_SAMPLES = 8000  # a non-causal line is inverted by least squares on a dense matrix
 
 
 def predistort(intended: np.ndarray, stages: tuple[Stage, ...], period_s: float, steps: int,
                *, channel: str) -> tuple[np.ndarray, float]:
     """The held samples whose line output, averaged over each sample, equals ``intended``.
 
+    A causal line is inverted exactly by forward substitution (``scipy.signal.lfilter``
+    with the per-sample response as its denominator: O(n) memory); a non-causal one
+    (a zero-phase Gaussian) by least squares, up to :data:`MAX_DENSE_SAMPLES` samples.
+
     Returns ``(samples, residual)`` with the residual the largest error of the line's
     output against ``intended``, relative to its peak.
 
     Raises:
-        InputError: the inverse is unstable or ill-conditioned for this line.
+        InputError: the inverse is unstable or ill-conditioned for this line, or too long.
     """
-    from scipy import linalg
+    from scipy import linalg, signal
 
-    matrix = sample_matrix(stages, period_s, steps, intended.shape[0])
-    if np.allclose(matrix, np.tril(matrix), rtol=0, atol=1e-15 * np.abs(matrix).max()):
-        diagonal = matrix[0, 0]
-        if not diagonal > 1e-6:
+    n = intended.shape[0]
+    q, before = sample_response(stages, period_s, steps, n)
+    if before == 0:
+        if not q[0] > 1e-6:
             raise InputError(f"line.{channel}: the line passes almost nothing within one "
-                             f"sample ({diagonal:.3g}); it cannot be inverted sample by sample")
-        out = linalg.solve_triangular(matrix, intended, lower=True)
+                             f"sample ({q[0]:.3g}); it cannot be inverted sample by sample")
+        # the response's tail below 1e-15 of its peak changes nothing: drop it (speed)
+        last = int(np.max(np.flatnonzero(np.abs(q) > 1e-15 * np.max(np.abs(q)))))
+        with np.errstate(over="ignore", invalid="ignore"):
+            out = signal.lfilter([1.0], q[:last + 1], intended)
+    elif n <= MAX_DENSE_SAMPLES:
+        out = linalg.lstsq(sample_matrix(stages, period_s, steps, n), intended)[0]
     else:
-        out = linalg.lstsq(matrix, intended)[0]
+        raise InputError(f"line.{channel}: a non-causal (Gaussian) line is pre-distorted on "
+                         f"at most {MAX_DENSE_SAMPLES} samples, this waveform has {n}")
     peak = max(float(np.max(np.abs(intended))), 1e-300)
-    residual = float(np.max(np.abs(matrix @ out - intended))) / peak
-    growth = float(np.max(np.abs(out))) / peak
-    if not np.all(np.isfinite(out)) or residual > 1e-6 or growth > 1e3:
+    with np.errstate(over="ignore", invalid="ignore"):
+        residual = float(np.max(np.abs(apply(out, q, before) - intended))) / peak
+        growth = float(np.max(np.abs(out))) / peak
+    if not np.all(np.isfinite(out)) or not residual <= 1e-6 or not growth <= 1e3:
         raise InputError(f"line.{channel}: the inverse of this line is unstable (peak "
                          f"{growth:.3g}x the intended waveform, residual {residual:.3g}); "
                          f"pre-distortion cannot correct it. A low-pass that rolls off "

@@ -10,7 +10,7 @@ the held value equals the ideal modulated signal at the centre of its interval a
 padding never turns the drive axis.
 
 The DAC holds ``I' + iQ'`` over each sample; in the drive frame the envelope then
-turns within the sample: ``(I' + iQ')_k exp(-+2 pi i f_IF t)``. :func:`held_drive`
+turns within the sample: ``(I' + iQ')_k exp(-+2 pi i f_IF t)``. :func:`to_drive_frame`
 gives that envelope on a sub-sample grid, fine enough for the figures to be exact
 to well below 1e-9 (see ``substeps``).
 """
@@ -62,20 +62,6 @@ def demodulate(samples, iq_columns, if_hz: float, dt: float, sideband: str = "lo
     """The inverse of :func:`modulate`."""
     t = (np.arange(samples.shape[0]) - start + 0.5) * dt
     return _rotate(samples, iq_columns, -sign_of(sideband) * 2 * np.pi * if_hz * t)
-
-
-def held_drive(modulated, iq_columns, if_hz: float, dt: float, sideband: str = "lower",
-               steps: int | None = None, start: int = 0):
-    """The drive-frame samples of held modulated samples, on a grid of ``dt / steps``.
-
-    Returns:
-        ``(n * steps, k)`` samples (Hz if the input is in Hz), to propagate with
-        ``dt / steps``. Baseband columns are simply repeated.
-    """
-    steps = steps or substeps(if_hz, dt)
-    xp = np if isinstance(modulated, np.ndarray) else jnp
-    return to_drive_frame(xp.repeat(modulated, steps, axis=0), iq_columns, if_hz, dt,
-                          sideband, steps=steps, start=start)
 
 
 def to_drive_frame(fine, iq_columns, if_hz: float, dt: float, sideband: str = "lower", *,
