@@ -333,7 +333,8 @@ offset_q = -0.002
     samples = np.zeros((48, 2))
     samples[1:-1] = rng.normal(scale=15e6, size=(46, 2))
     wave, _ = make_waveform(recipe, samples, recipe.export, RATE)
-    # the mixer model (README, "Mixer corrections") plays the corrected file as intended
+    # the mixer model (README, "Mixer corrections"; the product of the Q path with the
+    # shifted oscillator, common practice, no source) plays the corrected file as intended
     played = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(wave.to_hz(recipe.system))
     assert np.max(np.abs(played - samples)) < 1.0 / 32767 * 100e6  # half a DAC step, twice
     a, b = wave.to_hz(recipe.system).T  # the corrected DAC values, by the formula by hand

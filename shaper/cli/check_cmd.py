@@ -14,6 +14,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("recipe", help="the recipe (system, gate, targets)")
     parser.add_argument("waveform", help="a .csv (ours, with its .json, or plain), .npy or .npz")
     parser.add_argument("--levels", type=int, help="levels per transmon (default: the recipe's)")
+    parser.add_argument("--gate", help="with a gate-set recipe: the gate the waveform plays, "
+                                       "e.g. Y/2")
     parser.add_argument("--json", action="store_true", help="print one JSON object only")
     parser.add_argument("--sample-rate", help="for files without a sidecar, e.g. 2.4GS/s")
     parser.add_argument("--full-scale", help="for files without a sidecar: the Rabi frequency "
@@ -36,7 +38,15 @@ def run(args: argparse.Namespace) -> int:
     from shaper.recipe import load_recipe
     from shaper.recipe.units import parse_quantity
 
-    recipe = load_recipe(args.recipe).one_gate("shaper check")
+    recipe = load_recipe(args.recipe)
+    if args.gate:
+        from shaper.jobs.gateset import for_gate
+        wanted = args.gate.strip().upper()
+        if wanted not in [g.upper() for g in recipe.gate_set]:
+            raise InputError(f"--gate {args.gate!r}: the recipe's gate set is "
+                             f"{', '.join(recipe.gate_set) or 'empty (it has one target)'}")
+        recipe = for_gate(recipe, wanted)
+    recipe = recipe.one_gate("shaper check", "pass --gate")
     if args.t1 or args.t2:
         from shaper.jobs.check import with_coherence
 

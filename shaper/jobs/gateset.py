@@ -27,14 +27,15 @@ from shaper.physics.targets import DERIVED, plan, slug  # noqa: F401 (part of th
 from shaper.recipe import Recipe, load_recipe
 
 
-def for_gate(recipe: Recipe, label: str, *, samples: int | None = None) -> Recipe:
-    """The set's recipe for one of its gates (named ``<set>-<gate>``), optionally at another
-    length."""
+def for_gate(recipe: Recipe, label: str, *, samples: int | None = None,
+             name: str | None = None) -> Recipe:
+    """The set's recipe for one of its gates (named ``<set>-<gate>`` unless ``name``),
+    optionally at another length."""
     raw = copy.deepcopy(recipe.raw)
     gate = {k: v for k, v in raw.get("gate", {}).items() if k != "targets"}
     gate["target"] = label
     raw["gate"] = gate
-    raw["name"] = f"{recipe.name}-{slug(label)}"
+    raw["name"] = name or f"{recipe.name}-{slug(label)}"
     if samples is not None:
         raw["pulse"]["duration"] = samples / recipe.sample_rate_hz
     return load_recipe(raw)
@@ -75,7 +76,9 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
     judge it on what the instrument plays."""
     from shaper.jobs.export import judge_waveform, make_waveform, simulate_played
 
-    recipe = for_gate(parent, label, samples=samples_hz.shape[0])
+    family = parent.name.removesuffix(f"-{slug(parent.target.label)}")  # the set's name
+    recipe = for_gate(parent, label, samples=samples_hz.shape[0],
+                      name=f"{family}-{slug(label)}")
     samples = rotated(recipe, samples_hz, phase_deg)
     wave, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
     folder.mkdir(parents=True, exist_ok=True)
@@ -150,16 +153,17 @@ def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = Tru
         folder = out / slug(parent_label)
         output = run(parent, options, out=folder, force=force, plots_too=plots)
         rows.append(optimised_row(parent, output.report, folder, out))
-        echo(_line(rows[-1]))
+        echo(describe(rows[-1]))
         for label, phase in derived:
             rows.append(derive(parent, output.result.samples, label, phase,
                                out / slug(label)))
-            echo(_line(rows[-1]))
+            echo(describe(rows[-1]))
     write_table(out, "gateset", rows)
     return rows
 
 
-def _line(row: GateRow) -> str:
+def describe(row: GateRow) -> str:
+    """One line for a finished gate (the commands print it as each gate finishes)."""
     how = f"from {row.derived_from} at {row.phase_deg:g} deg" if row.derived_from \
         else "optimised"
     return (f"{row.subject + ' ' if row.subject else ''}{row.gate} ({how}): "

@@ -130,7 +130,7 @@ class ExportSettings:
     sideband: str = "lower"
     predistort: bool = False  # invert the recipe's line in the exported samples
     mixer: dict[str, MixerSettings] = field(default_factory=dict)  # corrected per channel
-    codes: bool = False  # write integer DAC codes instead of fractions of full scale
+    codes: bool = False  # write integer DAC codes (with dac_bits; unquantised: fractions)
 
     def __post_init__(self):
         # dac_bits None: keep full precision (the optimiser's own samples, for comparison)
@@ -144,8 +144,6 @@ class ExportSettings:
         _require(math.isfinite(self.if_frequency_hz), "if_frequency_hz", self.if_frequency_hz)
         _require(all(v > 0 and math.isfinite(v) for v in self.full_scale_hz.values()),
                  "full_scale_hz", self.full_scale_hz)
-        _require(not self.codes or self.dac_bits is not None, "codes (needs dac_bits)",
-                 self.codes)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -181,7 +179,7 @@ class Recipe:
     def dt(self) -> float:
         return 1.0 / self.sample_rate_hz
 
-    def one_gate(self, command: str) -> Recipe:
+    def one_gate(self, command: str, hint: str = "give gate.target") -> Recipe:
         """This recipe, refused if it lists a gate set: ``command`` works on one gate.
 
         Raises:
@@ -189,8 +187,8 @@ class Recipe:
         """
         if len(self.gate_set) > 1:
             raise RecipeError(f"lists a gate set ({', '.join(self.gate_set)}); {command} works "
-                              f"on one gate: give gate.target, or run the set with shaper "
-                              f"optimize (or shaper chip, for the shortest durations)",
+                              f"on one gate: {hint}, or run the set with shaper optimize (or "
+                              f"shaper chip, for the shortest durations)",
                               path=self.path, key="gate.targets")
         return self
 
@@ -219,6 +217,21 @@ class _Reader:
         for key in (REQUIRED.get(section, ()) if keys is None else ()):
             if key not in table:
                 self.fail(f"{prefix}.{key}" if prefix else key, "missing required key")
+
+    def tables(self, table: dict, key: str, where: str, section: str, *,
+               keys: dict[str, tuple[str, ...]] | None = None):
+        """The tables of the array ``key`` (``[[...]]``, default none), each checked against
+        ``section``'s keys; yields ``(where, item)`` with ``where`` like ``coupling[2]``."""
+        value = table.get(key, [])
+        if not isinstance(value, list):
+            self.fail(where, f"expected [[{where}]] tables, got {str(value)[:60]!r}")
+        allowed = (keys or KEYS)[section]
+        for i, item in enumerate(value):
+            here = f"{where}[{i}]"
+            if not isinstance(item, dict):
+                self.fail(here, f"expected a table with keys {', '.join(allowed)}")
+            self.check_keys(item, section, here, keys=keys)
+            yield here, item
 
     def table(self, table: dict, key: str, where: str) -> dict:
         value = table.get(key, {})
