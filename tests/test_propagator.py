@@ -1,3 +1,5 @@
+from pathlib import Path
+
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -8,6 +10,8 @@ from shaper.errors import InputError
 from shaper.physics.figures import gate_figures, project
 from shaper.physics.propagator import propagate
 from shaper.physics.targets import gate
+
+ROOT = Path(__file__).resolve().parent.parent
 
 DT = 1 / 2.4e9
 
@@ -177,7 +181,22 @@ def test_bench_runs_and_leaves_the_compile_cache_setting_alone(tmp_path):
     from shaper.jobs.bench import Case, bench
     was = jax.config.jax_enable_compilation_cache
     rows = bench(out=tmp_path, methods=("eigh",), echo=lambda text: None,
-                 only=[Case("transmon 3 levels", (3,), 24)])
+                 only=[Case("transmon 3 levels", (3,), 24)], recipe=None)
     assert jax.config.jax_enable_compilation_cache == was
     assert rows[0]["eigh"]["gradient_difference"] < 1e-10
     assert (tmp_path / "bench.md").read_text().count("| transmon 3 levels | 3 | 24 |") == 1
+
+
+def test_bench_rows_a_user_feels_run_whole_commands(tmp_path):
+    # not a timing test: the rows must run the real commands and objectives and report
+    # ratios of things measured in this run (the numbers live in results/bench.md)
+    from shaper.jobs.bench_user import objective_rows, startup_rows
+    recipe = ROOT / "recipes" / "demo-x180.toml"
+    objectives = objective_rows(recipe, repeats=2)
+    assert [r["what"] for r in objectives] == ["ensemble of 9 (detunings x scales) / nominal",
+                                               "open system (T1, T2) / closed"]
+    assert all(r["ratio"] > 0 and r["ms"] > 0 for r in objectives)
+    startup = startup_rows(recipe, repeats=1, full=False)
+    assert [r["command"] for r in startup] == ["optimize (cold cache)", "optimize (warm cache)"]
+    for r in startup:
+        assert r["ratio"] == pytest.approx(r["seconds"] / r["floor_s"])

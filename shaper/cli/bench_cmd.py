@@ -8,15 +8,18 @@ from pathlib import Path
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quick", action="store_true",
-                        help="n = 100 and 400 only, fewer repeats (under a minute)")
+                        help="n = 100 and 400, eigh only, fewer repeats (under a minute)")
     parser.add_argument("--out", default="results",
                         help="folder for bench.json and bench.md (default: results)")
     parser.add_argument("--method", action="append", choices=("eigh", "pade"),
-                        help="propagator method(s) to time (default: both)")
+                        help="propagator method(s) to time (default: both; eigh with --quick)")
+    parser.add_argument("--recipe", default="recipes/demo-x180.toml",
+                        help="recipe of the start-up, ensemble and open-system rows (default: "
+                             "the bundled demo, from the repository's root)")
 
 
 def run(args: argparse.Namespace) -> int:
     from shaper.jobs.bench import bench
 
-    bench(quick=args.quick, out=Path(args.out), methods=tuple(args.method or ("eigh", "pade")))
+    bench(quick=args.quick, out=Path(args.out), methods=args.method, recipe=Path(args.recipe))
     return 0

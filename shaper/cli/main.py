@@ -43,6 +43,27 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def entry() -> None:
+    """The ``shaper`` command: :func:`main`, then a quick exit.
+
+    Once JAX has run, the interpreter's own teardown (XLA's client and thread pools,
+    every module's objects) takes 0.6-0.8 s on a 2-core machine after the command's work
+    is done and written. Every file a command writes is closed (atomically renamed)
+    before :func:`main` returns, so the process flushes its streams and logs and leaves
+    without that teardown.
+    """
+    code = main()
+    if "jax" not in sys.modules:
+        sys.exit(code)
+    import logging
+    import os
+
+    logging.shutdown()
+    sys.stdout.flush()
+    sys.stderr.flush()
+    os._exit(code)
+
+
 def main(argv: list[str] | None = None) -> int:
     try:
         parser = build_parser()

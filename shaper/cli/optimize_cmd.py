@@ -111,6 +111,10 @@ def _run(args: argparse.Namespace, stop) -> int:
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
     from shaper.io.runlog import RunLog
+    from shaper.jobs.painter import Painter
+
+    # the plot helper imports matplotlib on the other core while this process loads JAX
+    painter = None if args.no_plots or recipe.gate_set else Painter()
     from shaper.jobs.run import rescue_writer
     from shaper.jobs.run import run as run_job
     log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
@@ -139,8 +143,10 @@ def _run(args: argparse.Namespace, stop) -> int:
             if recipe.gate_set:
                 return _gate_set(recipe, options, folder, args)
             output = run_job(recipe, options, out=folder, force=args.force,
-                             plots_too=not args.no_plots)
+                             plots_too=not args.no_plots, painter=painter)
         finally:
+            if painter is not None:
+                painter.close()
             progress.close()
             logging.getLogger("shaper").removeHandler(handler)
     r = output.report

@@ -44,6 +44,19 @@ def _run(args: argparse.Namespace, stop) -> int:
             raise InputError(f"--{name} must be at least 1, got {value}")
     recipe = load_recipe(args.recipe).one_gate("shaper sweep")
     durations = parse_durations(args.durations)
+
+    from shaper.jobs.painter import Painter
+
+    # the plot helper imports matplotlib on the other core while this process loads JAX
+    painter = None if args.no_plots else Painter()
+    try:
+        return _sweep(args, stop, recipe, durations, painter)
+    finally:
+        if painter is not None:
+            painter.close()
+
+
+def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     import os
     from dataclasses import replace
 
@@ -83,7 +96,8 @@ def _run(args: argparse.Namespace, stop) -> int:
               + (f"; the longest, {format_quantity(longest.duration_s, 's')}: "
                  f"{longest.missed}" if longest else ""))
         return 1
-    output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots)
+    output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots,
+                    painter=painter)
     print(f"shortest duration meeting the targets: {format_quantity(chosen, 's')} ({shortest} "
           f"samples); exported: infidelity {output.report['infidelity']:.3e}, leakage "
           f"{output.report['leakage']:.3e}; full result in {output.folder}")

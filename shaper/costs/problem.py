@@ -16,7 +16,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from shaper.physics import _jax  # noqa: F401
+from shaper.physics._jax import device
 from shaper.physics.figures import Figures, gate_figures, project, state_figures
 from shaper.physics.lindblad import dissipator
 from shaper.physics.propagator import ordered_product, slice_unitaries
@@ -136,19 +136,19 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
     else:
         ensemble_detunings, ensemble_scales = np.zeros((0, subsystems)), np.zeros(0)
     zeros_vec = np.zeros(dc, complex)
+    c, f = np.complex128, np.float64
     return Problem(
-        drift=jnp.asarray(s.drift), controls=jnp.asarray(s.controls),
-        dt=jnp.asarray(recipe.dt), computational=jnp.asarray(s.computational),
-        target=jnp.asarray(t.unitary if t.is_gate else np.zeros((dc, dc), complex)),
-        initial=jnp.asarray(zeros_vec if t.is_gate else t.initial),
-        final=jnp.asarray(zeros_vec if t.is_gate else t.final),
-        number_operators=jnp.asarray(s.number_operators),
-        detunings=jnp.asarray(np.concatenate([np.zeros((1, subsystems)), ensemble_detunings]),
-                              dtype=jnp.float64),
-        scales=jnp.asarray(np.concatenate([[1.0], ensemble_scales]), dtype=jnp.float64),
-        envelope=jnp.asarray(layout.envelope), active=jnp.asarray(active),
-        noise=jnp.asarray(dissipator(s.collapse, s.dimension) if recipe.optimizer.open_system
-                          else np.zeros((1, 1), complex)))
+        drift=device(s.drift, c), controls=device(s.controls, c),
+        dt=device(recipe.dt, f), computational=device(s.computational),
+        target=device(t.unitary if t.is_gate else np.zeros((dc, dc)), c),
+        initial=device(zeros_vec if t.is_gate else t.initial, c),
+        final=device(zeros_vec if t.is_gate else t.final, c),
+        number_operators=device(s.number_operators, c),
+        detunings=device(np.concatenate([np.zeros((1, subsystems)), ensemble_detunings]), f),
+        scales=device(np.concatenate([[1.0], ensemble_scales]), f),
+        envelope=device(layout.envelope, f), active=device(active, f),
+        noise=device(dissipator(s.collapse, s.dimension) if recipe.optimizer.open_system
+                     else np.zeros((1, 1)), c))
 
 
 def chain_problem(recipe: Recipe, chain, layout: Layout | None = None) -> Problem:
@@ -156,7 +156,8 @@ def chain_problem(recipe: Recipe, chain, layout: Layout | None = None) -> Proble
     ``chain.steps`` propagator slices of ``chain.dt_s`` per AWG sample."""
     if chain.identity:
         return make_problem(recipe, layout, real=recipe.samples)
-    return make_problem(recipe, layout, steps=chain.steps)._replace(dt=jnp.asarray(chain.dt_s))
+    problem = make_problem(recipe, layout, steps=chain.steps)
+    return problem._replace(dt=device(chain.dt_s, np.float64))
 
 
 def open_scalings(recipe: Recipe, layout: Layout, dt: float) -> int | None:
@@ -185,8 +186,9 @@ def waveform_problem(recipe: Recipe, samples: int, *, steps: int = 1,
     """
     problem = make_problem(recipe)
     period = recipe.dt if dt is None else dt
-    return problem._replace(dt=jnp.asarray(period / steps),
-                            envelope=jnp.ones(samples), active=jnp.ones(samples * steps))
+    return problem._replace(dt=device(period / steps, np.float64),
+                            envelope=device(np.ones(samples)),
+                            active=device(np.ones(samples * steps)))
 
 
 def has_ensemble(recipe: Recipe) -> bool:

@@ -59,12 +59,13 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     i_col, q_col = channel.columns
     turn = 1j if label.startswith("Y") else 1.0
 
-    def samples(theta):
+    def samples(theta, xp=jnp):  # NumPy for the files and the report: no JAX op outside jit
         scale, beta, detuning_mhz = theta[0], theta[1], theta[2]
-        z = scale * (main + 1j * beta * quad) * turn * jnp.exp(-2j * jnp.pi * detuning_mhz
-                                                                * 1e6 * t)
-        out = jnp.zeros((n, layout.controls))
-        return out.at[:, i_col].set(jnp.real(z)).at[:, q_col].set(jnp.imag(z))
+        z = scale * (main + 1j * beta * quad) * turn * xp.exp(-2j * np.pi * detuning_mhz
+                                                              * 1e6 * t)
+        columns = [xp.zeros(n)] * layout.controls
+        columns[i_col], columns[q_col] = xp.real(z), xp.imag(z)
+        return xp.stack(columns, axis=1)
 
     @jax.jit
     def figures(theta):
@@ -73,7 +74,7 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
         return f.fidelity, f.leakage
 
     def loss(theta):
-        return float(1.0 - figures(jnp.asarray(theta, float))[0])
+        return 1.0 - float(figures(np.asarray(theta, float))[0])
 
     limit = recipe.limits_hz[channel.name]
     gauss = scipy.optimize.minimize_scalar(lambda s: loss([s, 0.0, 0.0]), bounds=(0.5, 1.5),
@@ -85,11 +86,12 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
                                             "fatol": 1e-14})
     out = {}
     for kind, theta in (("gaussian", [gauss.x, 0.0, 0.0]), ("drag", list(drag.x))):
-        fid, leak = figures(jnp.asarray(theta, float))
-        played = np.asarray(samples(jnp.asarray(theta, float)))
+        fid, leak = figures(np.asarray(theta, float))
+        played = samples(np.asarray(theta, float), np)
         peak = float(np.max(np.hypot(played[:, i_col], played[:, q_col])))
         out[kind] = {"infidelity": float(1 - fid), "leakage": float(leak),
                      "amplitude_scale": float(theta[0]), "drag_coefficient": float(theta[1]),
                      "detuning_hz": float(theta[2]) * 1e6, "peak_rabi_hz": peak,
                      "within_limit": bool(peak <= limit)}
     return out
+

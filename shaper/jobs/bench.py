@@ -169,13 +169,18 @@ def markdown(rows: list[dict], methods, meta: dict) -> str:
 
 
 def bench(*, quick: bool = False, out: Path | None = Path("results"),
-          methods=("eigh", "pade"), echo=print, only: list[Case] | None = None) -> list[dict]:
-    """Run every case (or ``only`` these), print the table, write ``bench.json`` and
-    ``bench.md`` into ``out``."""
+          methods=None, echo=print, only: list[Case] | None = None,
+          recipe: Path | None = Path("recipes/demo-x180.toml")) -> list[dict]:
+    """Run every case (or ``only`` these), then the rows a user feels on ``recipe``
+    (:mod:`shaper.jobs.bench_user`; skipped when it is None or missing), print the tables,
+    write ``bench.json`` and ``bench.md`` into ``out``. ``methods``: the propagator
+    methods to time (default both, quick mode "eigh" only)."""
     import jax
 
+    from shaper.jobs import bench_user
     from shaper.physics import _jax  # noqa: F401
 
+    methods = tuple(methods or (("eigh",) if quick else ("eigh", "pade")))
     was = jax.config.jax_enable_compilation_cache
     jax.config.update("jax_enable_compilation_cache", False)  # measure real compiles...
     try:
@@ -189,18 +194,34 @@ def bench(*, quick: bool = False, out: Path | None = Path("results"),
                               f"{row[m]['gradient_difference']:.1e})" for m in methods)
             echo(f"{case.label:>20} n={case.samples:<5} "
                  f"ref {row['reference_ms']:8.1f} ms | {parts}")
+        objectives, startup = [], []
+        if recipe is not None and Path(recipe).exists():
+            objectives = bench_user.objective_rows(Path(recipe), repeats=20 if quick else 50)
+            for r in objectives:
+                echo(f"{r['what']}: {r['ms']:.3f} ms vs {r['baseline_ms']:.3f} ms, "
+                     f"{r['ratio']:.2f}x")
+            startup = bench_user.startup_rows(Path(recipe), repeats=2 if quick else 3,
+                                              full=not quick)
+            for r in startup:
+                echo(f"{r['command']}: {r['seconds']:.2f} s, floor {r['floor_s']:.2f} s, "
+                     f"{r['ratio']:.2f}x")
+        elif recipe is not None:
+            echo(f"no {recipe} here: the start-up and objective rows are skipped")
         meta = {"mode": "quick" if quick else "full", "machine": f"{platform.machine()}, "
                 f"{__import__('os').cpu_count()} cores", "jax": jax.__version__,
                 "numpy": np.__version__, "scipy": scipy.__version__,
                 "date": time.strftime("%Y-%m-%d")}
         table = markdown(rows, methods, meta)
+        table += "\n".join(bench_user.markdown(startup, objectives, str(recipe))) + "\n"
         echo("")
         echo(table)
         if out is not None:
             from shaper.io import atomic
 
             out.mkdir(parents=True, exist_ok=True)
-            atomic.write_json(out / "bench.json", {"meta": meta, "rows": rows})
+            atomic.write_json(out / "bench.json", {"meta": meta, "rows": rows,
+                                                   "startup": startup,
+                                                   "objectives": objectives})
             atomic.write_text(out / "bench.md", table)
     finally:  # ...and leave the caller's setting as it was
         jax.config.update("jax_enable_compilation_cache", was)

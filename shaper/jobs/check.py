@@ -27,6 +27,7 @@ from shaper.jobs.export import (
     open_played,
     simulate_played,
 )
+from shaper.physics._jax import device
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.chain import for_waveform
 
@@ -85,14 +86,14 @@ def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
     problem = waveform_problem(recipe, samples.shape[0], steps=chain.steps, dt=chain.period_s)
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  drive=None if chain.identity else chain)
-    x = jnp.asarray(samples)
+    x = device(samples, float)
 
     def infidelity(delta, scale):
         drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
         return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
 
-    vs_detuning = jax.jit(jax.vmap(lambda d: infidelity(d, 1.0)))(jnp.asarray(detunings))
-    vs_scale = jax.jit(jax.vmap(lambda s: infidelity(0.0, s)))(jnp.asarray(scales))
+    vs_detuning = jax.jit(jax.vmap(lambda d: infidelity(d, 1.0)))(device(detunings, float))
+    vs_scale = jax.jit(jax.vmap(lambda s: infidelity(0.0, s)))(device(scales, float))
     # three programs, one eigendecomposition each (DEVELOPERS.md): never op by op
     slope_d, slope_s = jax.jit(jax.grad(infidelity, argnums=(0, 1)))(0.0, 1.0)
     return {"detuning_hz": detunings.tolist(),

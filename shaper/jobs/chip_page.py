@@ -50,7 +50,7 @@ def write_plots(out: Path, chip, rows) -> list[Path]:
         ax.legend(fontsize=7, ncol=min(len(gates), 6))
         path = out / name
         _finish(fig, path, f"chip {chip.name}: {'durations' if what == 'duration' else 'errors'}"
-                           f" of every gate")
+                           f" of every gate", fit=True)  # rotated gate names
         paths.append(path)
     return paths
 

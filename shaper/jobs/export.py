@@ -291,16 +291,16 @@ def member_figures(recipe: Recipe, wave: waveio.Waveform) -> tuple[list, list] |
     if not has_ensemble(recipe):
         return None
     import jax
-    import jax.numpy as jnp
 
     from shaper.costs import evaluate_members
+    from shaper.physics._jax import device
     samples = wave.to_hz(recipe.system)
     chain = for_waveform(recipe, wave)
     problem = waveform_problem(recipe, samples.shape[0], steps=chain.steps, dt=chain.period_s)
     flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
                  virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator,
                  drive=None if chain.identity else chain)
-    scores = jax.jit(lambda x, p: evaluate_members(x, p, **flags))(jnp.asarray(samples), problem)
+    scores = jax.jit(lambda x, p: evaluate_members(x, p, **flags))(device(samples, float), problem)
     fid, leak = np.asarray(scores.members.fidelity), np.asarray(scores.members.leakage)
     return (1.0 - fid[1:]).tolist(), leak[1:].tolist()
 

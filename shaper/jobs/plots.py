@@ -22,10 +22,28 @@ def _figure(width: float, height: float, panels: int = 1):
     return fig, axes
 
 
-def _finish(fig, path: Path, title: str | None = None) -> None:
+def _finish(fig, path: Path, title: str | None = None, *, fit: bool = False) -> None:
+    """Title, margins, plain log-axis labels, and the PNG.
+
+    Margins are fixed in inches rather than measured (``tight_layout`` measures every tick
+    label, about 0.2 s a figure), and log axes are labelled ``1e-06`` rather than with
+    mathtext (parsed per label, about 0.1 s a figure): together 1.9 s -> 1.0 s for a run's
+    four figures. ``fit``: measure the labels after all (long or rotated ones).
+    """
+    from matplotlib.ticker import LogFormatter, NullFormatter
+
     if title:
         fig.suptitle(title, fontsize=9)
-    fig.tight_layout()
+    for ax in fig.axes:
+        if ax.get_yscale() == "log":
+            ax.yaxis.set_major_formatter(LogFormatter(labelOnlyBase=True))
+            ax.yaxis.set_minor_formatter(NullFormatter())
+    width, height = fig.get_size_inches()
+    if fit:
+        fig.tight_layout()
+    else:
+        fig.subplots_adjust(left=0.8 / width, right=1 - 0.15 / width, bottom=0.5 / height,
+                            top=1 - 0.55 / height, wspace=0.3)
     fig.savefig(path, dpi=110)
 
 

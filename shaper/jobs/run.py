@@ -109,7 +109,8 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
 
 
 def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | None = None,
-        force: bool = False, plots_too: bool = True, **option_fields) -> RunOutput:
+        force: bool = False, plots_too: bool = True, painter=None,
+        **option_fields) -> RunOutput:
     """Optimise, export and report. Writes into ``out`` (default ``results/<name>``).
 
     ``options`` (:class:`~shaper.optimise.options.RunOptions`, or single fields as
@@ -117,7 +118,8 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     continues from them. Its ``stop`` turns truthy on a signal: the run then writes the
     best pulse so far and a report with stop reason "interrupted". Its ``watchdog`` is
     beaten after every evaluation and every later stage; :func:`rescue_writer` gives its
-    rescue.
+    rescue. ``painter`` (a :class:`~shaper.jobs.painter.Painter`) draws the plots in its
+    helper process while the rest of the report is computed.
     """
     recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
         recipe_or_path)
@@ -141,7 +143,8 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
                 caller(start)
         options = options.with_(on_start_done=on_start_done)
     result = optimize(recipe, options)
-    output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog)
+    output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog,
+                    painter=painter)
     r = output.report
     log.line(f"finished: {r['optimizer']['stop_reason']}; infidelity {r['infidelity']:.3e}, "
              f"leakage {r['leakage']:.3e}; {summary(r['targets'])}", echo=False)
@@ -180,13 +183,14 @@ def rescue_writer(folder: Path, watchdog):
 
 
 def finish(result: Result, folder: Path, *, plots_too: bool = True,
-           watchdog=None) -> RunOutput:
+           watchdog=None, painter=None) -> RunOutput:
     """Export the result's samples, re-check what the AWG plays, write report and plots.
 
     Nothing finished is lost to a later step: the waveform files are written first, the
     report as soon as its figures exist, and the extras (the textbook comparison, the
     plots) are added afterwards; an extra that fails is recorded in the report
-    (``extras_failed``) instead of ending the job.
+    (``extras_failed``) instead of ending the job. With a ``painter`` the plots are drawn
+    by its helper process while the textbook comparison is computed here.
     """
     recipe = result.recipe
     folder.mkdir(parents=True, exist_ok=True)
@@ -210,18 +214,24 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
     stage("report")
     failed = {}
+    plotted = []
+    if plots_too:
+        try:
+            history = read_history(folder, result.best.index) or result.history
+            plotted = write_plots(folder, recipe, waveform, exported, history,
+                                  draw=painter.draw if painter is not None else None)
+        except Exception as exc:  # noqa: BLE001
+            failed["plots"] = f"{type(exc).__name__}: {exc}"
     try:
         report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
                                                     result.objective.qubits)
     except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
         failed["textbook_pulses"] = f"{type(exc).__name__}: {exc}"
     stage("textbook pulses")
-    if plots_too:
-        try:
-            history = read_history(folder, result.best.index) or result.history
-            files += write_plots(folder, recipe, waveform, exported, history)
-        except Exception as exc:  # noqa: BLE001
-            failed["plots"] = f"{type(exc).__name__}: {exc}"
+    unfinished = painter.finish() if painter is not None else {}
+    if unfinished:
+        failed["plots"] = "; ".join(f"{Path(k).name}: {v}" for k, v in unfinished.items())
+    files += [p for p in plotted if str(p) not in unfinished]
     if failed:
         report["extras_failed"] = failed
     atomic.write_json(folder / "report.json", report)
@@ -230,10 +240,21 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
 
 
 def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
-                history, *, dt: float | None = None) -> list[Path]:
+                history, *, dt: float | None = None, draw=None) -> list[Path]:
     """waveform.png, spectrum.png (transitions marked), populations.png, convergence.png,
-    each titled with the run, the gate and the figures of what was simulated."""
+    each titled with the run, the gate and the figures of what was simulated.
+
+    ``draw(plot, path, *args, **kwargs)`` (a :meth:`Painter.draw
+    <shaper.jobs.painter.Painter.draw>`) draws them elsewhere; by default they are drawn
+    here, before this returns. The arguments are plain data, so they cross to a helper.
+    """
+    from types import SimpleNamespace
+
     from shaper.jobs.export import baseband
+
+    if draw is None:
+        def draw(plot, path, *args, **kwargs):
+            plot(path, *args, **kwargs)
 
     system, dt = recipe.system, dt or recipe.dt
     samples = waveform.to_hz(system)
@@ -241,20 +262,21 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
              f"leakage {simulation.leakage:.2e} (as exported)")
     names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
                                   "convergence.png")]
-    plots.plot_waveform(names[0], samples, dt, system.control_names,
-                        limits=list(recipe.limits_hz.values()), title=title)
+    channels = [SimpleNamespace(name=c.name, columns=tuple(c.columns)) for c in system.channels]
+    draw(plots.plot_waveform, names[0], samples, dt, list(system.control_names),
+         limits=list(recipe.limits_hz.values()), title=title)
     markers = {}
     for q, tf in system.transition_frequencies.items():
         markers[f"{q} f01"] = tf["f01_hz"]
         markers[f"{q} f12"] = tf["f12_hz"]
-    plots.plot_spectrum(names[1], baseband(recipe, waveform), dt, system.channels,
-                        cutoff_hz=recipe.bandwidth_hz, markers=markers, title=title,
-                        if_hz=waveform.if_frequency_hz)
+    draw(plots.plot_spectrum, names[1], baseband(recipe, waveform), dt, channels,
+         cutoff_hz=recipe.bandwidth_hz, markers=markers, title=title,
+         if_hz=waveform.if_frequency_hz)
     labels = system.level_labels()
-    plots.plot_populations(names[2], simulation.populations, dt, labels,
-                           [labels[i] for i in system.computational], title=title)
+    draw(plots.plot_populations, names[2], simulation.populations, dt, labels,
+         [labels[i] for i in system.computational], title=title)
     if history:
-        plots.plot_convergence(names[3], history, title=title)
+        draw(plots.plot_convergence, names[3], history, title=title)
     else:
         names = names[:3]
     return names

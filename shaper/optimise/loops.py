@@ -25,6 +25,7 @@ from shaper.costs.verdict import judge
 from shaper.io import atomic
 from shaper.optimise import checkpoint
 from shaper.optimise.objective import Objective
+from shaper.physics._jax import device
 from shaper.recipe import Recipe
 
 CHUNK = 10  # optax steps per jitted call
@@ -235,13 +236,13 @@ class _Failure(Exception):
 def run_scipy(session: Session, x0: np.ndarray, resume=None) -> StartResult:
     """L-BFGS-B (scipy.optimize.minimize) on the jitted value and gradient."""
     obj, shape = session.objective, x0.shape
-    weights = jnp.asarray(obj.weights)
+    weights = device(obj.weights, float)
     meta, best_x, _ = (None, None, None) if resume is None else resume
     tracker = Tracker(session, meta, best_x)
     current = {"x": np.array(x0)}
 
     def fun(x):
-        (value, (parts, scores)), grad = obj.value_and_grad(jnp.asarray(x.reshape(shape)),
+        (value, (parts, scores)), grad = obj.value_and_grad(device(x.reshape(shape)),
                                                             obj.problem, weights)
         figures = scores.nominal
         tracker.evaluations += 1
@@ -321,8 +322,8 @@ def run_optax(session: Session, x0: np.ndarray, resume=None) -> StartResult:
     obj = session.objective
     optimizer, needs_value = _optax_optimizer(session.recipe)
     chunk = _chunk_runner(obj, optimizer, needs_value)
-    weights = jnp.asarray(obj.weights)
-    params = jnp.asarray(x0)
+    weights = device(obj.weights, float)
+    params = device(x0, float)
     opt_state = optimizer.init(params)
     meta, best_x, arrays = (None, None, None) if resume is None else resume
     tracker = Tracker(session, meta, best_x)

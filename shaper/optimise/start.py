@@ -11,7 +11,6 @@ import time
 from pathlib import Path
 
 import jax
-import jax.numpy as jnp
 import numpy as np
 
 from shaper.costs.problem import recipe_layout
@@ -20,6 +19,7 @@ from shaper.optimise import checkpoint
 from shaper.optimise.loops import Session, StartResult, run_start
 from shaper.optimise.objective import Objective
 from shaper.optimise.options import RunOptions
+from shaper.physics._jax import device
 from shaper.recipe import Recipe
 from shaper.signal.pulses import first_guess, rotation_area, to_params
 
@@ -108,9 +108,9 @@ def run_one(recipe: Recipe, objective: Objective, index: int, seed: int, options
 def compile_now(objective: Objective) -> float:
     """Compile the value and gradient once, outside the loops' clocks; return the seconds."""
     c0 = time.monotonic()
-    probe = jnp.zeros(objective.layout.shape)
+    probe = device(np.zeros(objective.layout.shape))  # as the loops pass theirs: one compile
     jax.block_until_ready(objective.value_and_grad(probe, objective.problem,
-                                                   jnp.asarray(objective.weights)))
+                                                   device(objective.weights, float)))
     return time.monotonic() - c0
 
 

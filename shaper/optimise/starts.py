@@ -12,7 +12,6 @@ import time
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-import jax.numpy as jnp
 import numpy as np
 
 from shaper.optimise.loops import StartResult
@@ -106,8 +105,8 @@ def optimize(recipe_or_path, options: RunOptions | None = None, *,
             if start.stop_reason == "interrupted" or time.monotonic() > deadline:
                 break
     best = min(starts, key=lambda s: s.cost)
-    samples = np.asarray(to_samples(jnp.asarray(best.params), objective.layout,
-                                    objective.problem.envelope))[:recipe.samples]
+    samples = to_samples(np.asarray(best.params), objective.layout,  # NumPy: no JAX op
+                         np.asarray(objective.problem.envelope))[:recipe.samples]
     if folder is not None:
         from shaper.io import atomic
         atomic.write_json(folder / "starts.json", [

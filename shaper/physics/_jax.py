@@ -10,6 +10,7 @@ import os
 from pathlib import Path
 
 import jax
+import numpy as np
 
 jax.config.update("jax_enable_x64", True)
 
@@ -36,3 +37,14 @@ def _enable_cache() -> None:
 
 
 _enable_cache()
+
+
+def device(x, dtype=None) -> jax.Array:
+    """Host data (NumPy, lists, Python numbers) as a JAX array, without compiling anything.
+
+    ``jnp.asarray`` of a host array runs a small compiled copy program, one per new shape
+    and dtype (3-30 ms each, dozens per command); ``jax.device_put`` of a NumPy array only
+    transfers. Python scalars become strongly typed float64/complex128, as traced code
+    expects.
+    """
+    return jax.device_put(np.asarray(x, dtype=dtype))

@@ -13,6 +13,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from shaper.errors import InputError
+from shaper.physics._jax import device
 from shaper.physics.figures import gate_figures, state_figures
 from shaper.physics.figures import project as project_subspace
 from shaper.physics.propagator import propagate
@@ -63,11 +64,11 @@ def simulate(system: System, target: Target, samples: np.ndarray, dt: float, *,
     dc = len(system.computational)
     zeros = np.zeros(dc, complex)
     populations, fig, u = _run(
-        jnp.asarray(system.drift), jnp.asarray(system.controls), jnp.asarray(samples),
-        jnp.asarray(dt, float), jnp.asarray(system.computational),
-        jnp.asarray(target.unitary if target.is_gate else np.zeros((dc, dc), complex)),
-        jnp.asarray(zeros if target.is_gate else target.initial),
-        jnp.asarray(zeros if target.is_gate else target.final),
+        device(system.drift, complex), device(system.controls, complex),
+        device(samples, float), device(dt, float), device(system.computational),
+        device(target.unitary if target.is_gate else np.zeros((dc, dc)), complex),
+        device(zeros if target.is_gate else target.initial, complex),
+        device(zeros if target.is_gate else target.final, complex),
         method=method, qubits=qubits, virtual_z=virtual_z, is_gate=target.is_gate)
     fidelity = float(fig.fidelity)
     return Simulation(fidelity=fidelity, infidelity=1.0 - fidelity, leakage=float(fig.leakage),
@@ -131,9 +132,10 @@ def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float
     qubits = max(1, int(round(np.log2(len(system.computational)))))
     noise = dissipator(system.collapse, system.dimension)
     samples = np.asarray(samples, float)
-    fig = _open(jnp.asarray(system.drift), jnp.asarray(system.controls), jnp.asarray(samples),
-                jnp.asarray(dt, float), jnp.asarray(noise), jnp.asarray(system.computational),
-                jnp.asarray(target.unitary), qubits=qubits, virtual_z=virtual_z,
+    fig = _open(device(system.drift, complex), device(system.controls, complex),
+                device(samples, float), device(dt, float), device(noise, complex),
+                device(system.computational), device(target.unitary, complex),
+                qubits=qubits, virtual_z=virtual_z,
                 scalings=scalings_for(system.drift, system.controls, samples, dt, noise))
     fidelity = float(fig.fidelity)
     return OpenSimulation(fidelity=fidelity, infidelity=1.0 - fidelity,

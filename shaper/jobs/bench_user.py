@@ -1,0 +1,165 @@
+"""The rows of ``shaper bench`` a user feels: whole commands, ensembles, open systems.
+
+Every row is a ratio of two things timed in this run, each the fastest of a few tries
+(as :func:`shaper.jobs.bench._best_time`), so that a busy machine slows both sides:
+
+- start-up: a whole ``shaper`` command in a fresh process against the floor of any
+  command that computes, ``python -c "import jax, jax.numpy as jnp; jnp.zeros(2)"``.
+  "cold" runs with an empty compilation cache (a new machine, a new JAX), "warm" with
+  the cache the cold run filled; the cache is a temporary folder, never the user's.
+- ensemble: value and gradient of the demo recipe's objective with a 3 x 3 robustness
+  ensemble (detunings x amplitude scales) against the nominal objective.
+- open system: the same recipe's objective with T1/T2 (the Lindblad channel) against
+  the closed one.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+FLOOR = [sys.executable, "-c", "import jax, jax.numpy as jnp; jnp.zeros(2)"]
+ENSEMBLE = {"ensemble_detunings": ["-2 MHz", "0 MHz", "2 MHz"],
+            "ensemble_scales": [0.97, 1.0, 1.03]}
+COHERENCE = {"t1": "35 us", "t2": "28 us"}
+
+
+def shaper_command() -> list[str]:
+    """The ``shaper`` console script of this interpreter (``python -m shaper`` without)."""
+    script = Path(sys.executable).with_name("shaper")
+    return [str(script)] if script.exists() else [sys.executable, "-m", "shaper"]
+
+
+def _run(argv: list[str], env: dict, cwd: Path) -> float:
+    t = time.perf_counter()
+    done = subprocess.run(argv, env=env, cwd=cwd, capture_output=True, text=True)
+    seconds = time.perf_counter() - t
+    if done.returncode not in (0, 1):  # 1: targets missed is still a finished command
+        raise RuntimeError(f"{' '.join(argv)} exited {done.returncode}: "
+                           f"{done.stderr.strip().splitlines()[-1:]}")
+    return seconds
+
+
+def startup_rows(recipe: Path, *, repeats: int, full: bool) -> list[dict]:
+    """Seconds of whole commands on ``recipe`` and their ratio to the JAX-import floor.
+
+    ``optimize`` runs cold once, then warm; with ``full`` also ``check`` (of the
+    optimised file), ``export`` (to another folder) and ``sweep`` (three durations), each
+    primed once so that its own programs are cached.
+    """
+    recipe = recipe.resolve()
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="shaper-bench-") as tmp:
+        work = Path(tmp)
+        env = dict(os.environ, SHAPER_CACHE_DIR=str(work / "cache"), PYTHONWARNINGS="ignore")
+        cli = shaper_command()
+        run_dir = work / "run"
+        # each entry: the command line of try i (a sweep refuses a used folder)
+        commands = {"optimize": lambda i: cli + ["optimize", str(recipe), "--force", "--out",
+                                                 str(run_dir)]}
+        floors = [_run(FLOOR, env, work)]
+        cold = _run(commands["optimize"](0), env, work)
+        if full:
+            waveform = run_dir / f"{_name(recipe)}.csv"
+            commands["check"] = lambda i: cli + ["check", str(recipe), str(waveform)]
+            commands["export"] = lambda i: cli + ["export", str(run_dir), "--out",
+                                                  str(work / "again"), "--bits", "12",
+                                                  "--force"]
+            commands["sweep"] = lambda i: cli + ["sweep", str(recipe), "--durations",
+                                                 "16ns,18ns,20ns", "--out",
+                                                 str(work / f"sweep-{i}")]
+            for name in ("check", "export", "sweep"):
+                _run(commands[name](0), env, work)  # prime the cache with its programs
+        warm = {name: [] for name in commands}
+        for i in range(1, repeats + 1):
+            floors.append(_run(FLOOR, env, work))
+            for name, argv in commands.items():
+                warm[name].append(_run(argv(i), env, work))
+        floor = min(floors)
+        rows.append({"command": "optimize (cold cache)", "seconds": cold, "floor_s": floor,
+                     "ratio": cold / floor})
+        for name, times in warm.items():
+            rows.append({"command": f"{name} (warm cache)", "seconds": min(times),
+                         "floor_s": floor, "ratio": min(times) / floor})
+    return rows
+
+
+def _name(recipe: Path) -> str:
+    import tomllib
+
+    with open(recipe, "rb") as f:
+        return tomllib.load(f)["name"]
+
+
+def _objective_call(raw: dict):
+    """A no-argument call of the recipe's jitted value and gradient, compiled."""
+    import jax
+
+    from shaper.optimise.objective import make_objective
+    from shaper.physics._jax import device
+    from shaper.recipe import load_recipe
+
+    objective = make_objective(load_recipe(raw))
+    x = device(np.random.default_rng(0).normal(scale=0.3, size=objective.layout.shape))
+    weights = device(objective.weights, float)
+
+    def call():
+        jax.block_until_ready(objective.value_and_grad(x, objective.problem, weights))
+    call()
+    return call
+
+
+def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
+    """Value and gradient of the recipe's objective: nominal, with a 3 x 3 ensemble, and
+    as an open system (T1/T2 added), timed in turns so that both sides of a ratio share
+    the machine's moods."""
+    import copy
+    import tomllib
+
+    from shaper.jobs.bench import _best_time
+
+    with open(recipe, "rb") as f:
+        raw = tomllib.load(f)
+    ensemble = copy.deepcopy(raw)
+    ensemble.setdefault("cost", {}).update(ENSEMBLE)
+    closed = copy.deepcopy(raw)
+    closed["system"].update(COHERENCE)
+    opened = copy.deepcopy(closed)
+    opened.setdefault("optimizer", {})["open_system"] = True
+    calls = {name: _objective_call(r) for name, r in
+             (("nominal", raw), ("ensemble", ensemble), ("closed", closed), ("open", opened))}
+    best = {name: [] for name in calls}
+    for _ in range(5):
+        for name, call in calls.items():
+            best[name].append(1e3 * _best_time(call, repeats))
+    ms = {name: min(times) for name, times in best.items()}
+    members = len(ENSEMBLE["ensemble_detunings"]) * len(ENSEMBLE["ensemble_scales"])
+    return [{"what": f"ensemble of {members} (detunings x scales) / nominal",
+             "ms": ms["ensemble"], "baseline_ms": ms["nominal"],
+             "ratio": ms["ensemble"] / ms["nominal"]},
+            {"what": "open system (T1, T2) / closed", "ms": ms["open"],
+             "baseline_ms": ms["closed"], "ratio": ms["open"] / ms["closed"]}]
+
+
+def markdown(startup: list[dict], objectives: list[dict], recipe: str) -> list[str]:
+    lines = []
+    if startup:
+        lines += ["", f"Whole commands on `{recipe}` in a fresh process (fastest of the tries; "
+                      "cold: empty compilation cache) against the floor `python -c \"import jax, "
+                      "jax.numpy as jnp; jnp.zeros(2)\"` timed in the same run.", "",
+                  "| command | seconds | floor (s) | ratio to floor |", "|---|---|---|---|"]
+        lines += [f"| {r['command']} | {r['seconds']:.2f} | {r['floor_s']:.2f} | "
+                  f"{r['ratio']:.2f}x |" for r in startup]
+    if objectives:
+        lines += ["", f"Value and gradient of the objective of `{recipe}` (fastest of the "
+                      "calls).", "", "| objective | ms | baseline (ms) | ratio |",
+                  "|---|---|---|---|"]
+        lines += [f"| {r['what']} | {r['ms']:.3f} | {r['baseline_ms']:.3f} | "
+                  f"{r['ratio']:.2f}x |" for r in objectives]
+    return lines
