@@ -22,6 +22,8 @@ from pathlib import Path
 import numpy as np
 import scipy.linalg
 
+from shaper.jobs.bench_user import best_time
+
 SAMPLE_RATE_HZ = 2.4e9
 AMPLITUDE_HZ = 20e6
 
@@ -91,17 +93,6 @@ def reference_value_and_grad(drift, controls, samples, dt, comp, target):
     return 1 - fidelity, grad
 
 
-def _best_time(fn, repeats: int) -> float:
-    """The fastest of ``repeats`` calls: the least disturbed by the rest of the machine
-    (as timeit recommends), taken the same way for both sides of every ratio."""
-    times = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
-
-
 def run_case(case: Case, *, methods=("eigh", "pade"), repeats: int = 20,
              reference_repeats: int = 3, seed: int = 0) -> dict:
     import jax
@@ -119,7 +110,7 @@ def run_case(case: Case, *, methods=("eigh", "pade"), repeats: int = 20,
     comp = system.computational
     ref_value, ref_grad = reference_value_and_grad(system.drift, system.controls, samples, dt,
                                                    comp, target)
-    ref_ms = 1e3 * _best_time(lambda: reference_value_and_grad(
+    ref_ms = 1e3 * best_time(lambda: reference_value_and_grad(
         system.drift, system.controls, samples, dt, comp, target), reference_repeats)
     row = {"case": case.label, "levels": list(case.levels), "dimension": system.dimension,
            "samples": case.samples, "reference_ms": ref_ms}
@@ -134,7 +125,7 @@ def run_case(case: Case, *, methods=("eigh", "pade"), repeats: int = 20,
         t = time.perf_counter()
         value, grad = jax.block_until_ready(vg(x))
         compile_s = time.perf_counter() - t
-        ms = 1e3 * _best_time(lambda vg=vg, x=x: jax.block_until_ready(vg(x)), repeats)
+        ms = 1e3 * best_time(lambda vg=vg, x=x: jax.block_until_ready(vg(x)), repeats)
         scale = float(np.max(np.abs(ref_grad)))
         row[method] = {"ms": ms, "speedup": ref_ms / ms, "compile_s": compile_s,
                        "gradient_difference": float(np.max(np.abs(np.asarray(grad) - ref_grad))

@@ -1,7 +1,7 @@
 """The rows of ``shaper bench`` a user feels: whole commands, ensembles, open systems.
 
 Every row is a ratio of two things timed in this run, each the fastest of a few tries
-(as :func:`shaper.jobs.bench._best_time`), so that a busy machine slows both sides:
+(:func:`best_time`), so that a busy machine slows both sides:
 
 - start-up: a whole ``shaper`` command in a fresh process against the floor of any
   command that computes, ``python -c "import jax, jax.numpy as jnp; jnp.zeros(2)"``.
@@ -28,6 +28,17 @@ FLOOR = [sys.executable, "-c", "import jax, jax.numpy as jnp; jnp.zeros(2)"]
 ENSEMBLE = {"ensemble_detunings": ["-2 MHz", "0 MHz", "2 MHz"],
             "ensemble_scales": [0.97, 1.0, 1.03]}
 COHERENCE = {"t1": "35 us", "t2": "28 us"}
+
+
+def best_time(fn, repeats: int) -> float:
+    """The fastest of ``repeats`` calls: the least disturbed by the rest of the machine
+    (as timeit recommends), taken the same way for both sides of every ratio."""
+    times = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t)
+    return min(times)
 
 
 def shaper_command() -> list[str]:
@@ -122,8 +133,6 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
     import copy
     import tomllib
 
-    from shaper.jobs.bench import _best_time
-
     with open(recipe, "rb") as f:
         raw = tomllib.load(f)
     ensemble = copy.deepcopy(raw)
@@ -137,7 +146,7 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
     best = {name: [] for name in calls}
     for _ in range(5):
         for name, call in calls.items():
-            best[name].append(1e3 * _best_time(call, repeats))
+            best[name].append(1e3 * best_time(call, repeats))
     ms = {name: min(times) for name, times in best.items()}
     members = len(ENSEMBLE["ensemble_detunings"]) * len(ENSEMBLE["ensemble_scales"])
     return [{"what": f"ensemble of {members} (detunings x scales) / nominal",
