@@ -29,9 +29,18 @@ def _ready() -> None:
 
 
 def _prepare() -> None:
+    """Ignore Ctrl-C; import matplotlib and draw one throw-away figure (fonts, text
+    layout and the Agg canvas are set up on first use), all before any real work."""
+    import io
+
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    import matplotlib.backends.backend_agg  # noqa: F401  (the import is the slow part)
-    import matplotlib.figure  # noqa: F401
+    from shaper.jobs.plots import _figure, _finish
+
+    fig, (ax,) = _figure(2, 2)
+    ax.semilogy([0, 1], [1e-3, 1], label="warm-up")
+    ax.set_xlabel("x")
+    ax.legend()
+    _finish(fig, io.BytesIO(), "warm-up")
 
 
 class Painter:

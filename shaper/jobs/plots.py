@@ -27,17 +27,18 @@ def _finish(fig, path: Path, title: str | None = None, *, fit: bool = False) -> 
 
     Margins are fixed in inches rather than measured (``tight_layout`` measures every tick
     label, about 0.2 s a figure), and log axes are labelled ``1e-06`` rather than with
-    mathtext (parsed per label, about 0.1 s a figure): together 1.9 s -> 1.0 s for a run's
-    four figures. ``fit``: measure the labels after all (long or rotated ones).
+    mathtext (parsed per label, about 0.1 s a figure), without minor ticks (each an
+    artist of its own): together 1.9 s -> 0.8 s for a run's four figures. ``fit``: measure
+    the labels after all (long or rotated ones).
     """
-    from matplotlib.ticker import LogFormatter, NullFormatter
+    from matplotlib.ticker import LogFormatter, NullLocator
 
     if title:
         fig.suptitle(title, fontsize=9)
     for ax in fig.axes:
         if ax.get_yscale() == "log":
             ax.yaxis.set_major_formatter(LogFormatter(labelOnlyBase=True))
-            ax.yaxis.set_minor_formatter(NullFormatter())
+            ax.yaxis.set_minor_locator(NullLocator())
     width, height = fig.get_size_inches()
     if fit:
         fig.tight_layout()
