@@ -114,7 +114,7 @@ def _run(args: argparse.Namespace, stop) -> int:
     from shaper.jobs.painter import Painter
 
     # the plot helper imports matplotlib on the other core while this process loads JAX
-    painter = None if args.no_plots or recipe.gate_set else Painter()
+    painter = None if args.no_plots else Painter()
     from shaper.jobs.run import rescue_writer
     from shaper.jobs.run import run as run_job
     log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
@@ -141,7 +141,7 @@ def _run(args: argparse.Namespace, stop) -> int:
                                  checkpoint_seconds=args.checkpoint_seconds, progress=progress,
                                  on_start_done=log, stop=stop, watchdog=watchdog)
             if recipe.gate_set:
-                return _gate_set(recipe, options, folder, args)
+                return _gate_set(recipe, options, folder, args, painter)
             output = run_job(recipe, options, out=folder, force=args.force,
                              plots_too=not args.no_plots, painter=painter)
         finally:
@@ -172,12 +172,12 @@ def _run(args: argparse.Namespace, stop) -> int:
     return 0 if r["targets"]["met"] else 1
 
 
-def _gate_set(recipe, options, folder: Path, args) -> int:
+def _gate_set(recipe, options, folder: Path, args, painter) -> int:
     """A recipe with ``[gate] targets``: every gate of the set, the derivable ones derived."""
     from shaper.jobs.gateset import run_set
 
     rows = run_set(recipe, folder, force=args.force, plots=not args.no_plots,
-                   options=options, echo=print)
+                   options=options, echo=print, painter=painter)
     print(f"wrote gateset.csv and gateset.md in {folder}")
     from shaper.io.waveio import CAUTION
     print(f"CAUTION: {CAUTION}")

@@ -138,9 +138,10 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
 
 
 def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = True,
-            options=None, echo=print) -> list[GateRow]:
+            options=None, echo=print, painter=None) -> list[GateRow]:
     """Optimise every gate of ``recipe.gate_set`` that must be played (each a run in
-    ``out/<gate>``), derive the others, and write ``out/gateset.csv`` and ``.md``."""
+    ``out/<gate>``), derive the others, and write ``out/gateset.csv`` and ``.md``.
+    ``painter``: draws every run's plots (:func:`shaper.jobs.run.run`)."""
     from shaper.jobs.run import run
 
     if not recipe.gate_set:
@@ -151,7 +152,8 @@ def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = Tru
     for parent_label, derived in plan(recipe.gate_set, qubits):
         parent = for_gate(recipe, parent_label)
         folder = out / slug(parent_label)
-        output = run(parent, options, out=folder, force=force, plots_too=plots)
+        output = run(parent, options, out=folder, force=force, plots_too=plots,
+                     painter=painter)
         rows.append(optimised_row(parent, output.report, folder, out))
         echo(describe(rows[-1]))
         for label, phase in derived:
