@@ -13,13 +13,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="folder for bench.json and bench.md (default: results)")
     parser.add_argument("--method", action="append", choices=("eigh", "pade"),
                         help="propagator method(s) to time (default: both; eigh with --quick)")
-    parser.add_argument("--recipe", default="recipes/demo-x180.toml",
+    parser.add_argument("--recipe",
                         help="recipe of the start-up, ensemble and open-system rows (default: "
-                             "the bundled demo, from the repository's root)")
+                             "the bundled demo, recipes/demo-x180.toml, when run from the "
+                             "repository's root; skipped elsewhere)")
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.jobs.bench import bench
+    from shaper.jobs.bench import DEMO, bench
+    from shaper.recipe import load_recipe
 
-    bench(quick=args.quick, out=Path(args.out), methods=args.method, recipe=Path(args.recipe))
+    if args.recipe:
+        load_recipe(args.recipe)  # a missing or malformed recipe: refused before minutes of work
+    bench(quick=args.quick, out=Path(args.out), methods=args.method,
+          recipe=Path(args.recipe) if args.recipe else DEMO)
     return 0

@@ -24,6 +24,7 @@ import scipy.linalg
 
 from shaper.jobs.bench_user import best_time
 
+DEMO = Path("recipes/demo-x180.toml")  # the bundled demo, seen from the repository's root
 SAMPLE_RATE_HZ = 2.4e9
 AMPLITUDE_HZ = 20e6
 
@@ -161,9 +162,10 @@ def markdown(rows: list[dict], methods, meta: dict) -> str:
 
 def bench(*, quick: bool = False, out: Path | None = Path("results"),
           methods=None, echo=print, only: list[Case] | None = None,
-          recipe: Path | None = Path("recipes/demo-x180.toml")) -> list[dict]:
+          recipe: Path | None = None) -> list[dict]:
     """Run every case (or ``only`` these), then the rows a user feels on ``recipe``
-    (:mod:`shaper.jobs.bench_user`; skipped when it is None or missing), print the tables,
+    (:mod:`shaper.jobs.bench_user`; skipped when it is None or missing; the CLI's default is
+    :data:`DEMO`), print the tables,
     write ``bench.json`` and ``bench.md`` into ``out``. ``methods``: the propagator
     methods to time (default both, quick mode "eigh" only)."""
     import jax

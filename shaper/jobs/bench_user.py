@@ -64,6 +64,8 @@ def startup_rows(recipe: Path, *, repeats: int, full: bool) -> list[dict]:
     optimised file), ``export`` (to another folder) and ``sweep`` (three durations), each
     primed once so that its own programs are cached.
     """
+    from shaper.recipe import load_recipe
+
     recipe = recipe.resolve()
     rows = []
     with tempfile.TemporaryDirectory(prefix="shaper-bench-") as tmp:
@@ -77,7 +79,7 @@ def startup_rows(recipe: Path, *, repeats: int, full: bool) -> list[dict]:
         floors = [_run(FLOOR, env, work)]
         cold = _run(commands["optimize"](0), env, work)
         if full:
-            waveform = run_dir / f"{_name(recipe)}.csv"
+            waveform = run_dir / f"{load_recipe(recipe).name}.csv"
             commands["check"] = lambda i: cli + ["check", str(recipe), str(waveform)]
             commands["export"] = lambda i: cli + ["export", str(run_dir), "--out",
                                                   str(work / "again"), "--bits", "12",
@@ -99,13 +101,6 @@ def startup_rows(recipe: Path, *, repeats: int, full: bool) -> list[dict]:
             rows.append({"command": f"{name} (warm cache)", "seconds": min(times),
                          "floor_s": floor, "ratio": min(times) / floor})
     return rows
-
-
-def _name(recipe: Path) -> str:
-    import tomllib
-
-    with open(recipe, "rb") as f:
-        return tomllib.load(f)["name"]
 
 
 def _objective_call(raw: dict):
