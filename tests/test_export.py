@@ -204,8 +204,9 @@ def test_check_command_installed_exit_codes(demo, tmp_path):
                           timeout=300)
     assert proc.returncode == 0, proc.stderr
     assert "PASS" in proc.stdout
-    assert (tmp_path / "plots" / "sensitivity.png").is_file()
-    assert (tmp_path / "plots" / "spectrum.png").is_file()
+    for name in ("sensitivity", "spectrum", "waveform", "populations"):  # drawn by the helper
+        assert (tmp_path / "plots" / f"{name}.png").stat().st_size > 10_000, name
+    assert "warning" not in proc.stderr
 
 
 def test_over_full_scale_is_an_error_and_clip_counts(demo, tmp_path):

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 from pathlib import Path
 
 
@@ -34,7 +35,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from shaper.errors import InputError
     from shaper.io.waveform_import import read_any
-    from shaper.jobs.check import check_waveform
     from shaper.recipe import load_recipe
     from shaper.recipe.units import parse_quantity
 
@@ -66,12 +66,25 @@ def run(args: argparse.Namespace) -> int:
         if value is not None and not value > 0:
             raise InputError(f"{flag} must be positive, got {value:g}")
     wave = read_any(args.waveform, system, sample_rate_hz=rate, full_scale_hz=scale)
-    verdict, curves = check_waveform(recipe, wave, levels=args.levels, detuning_span_hz=span,
-                                     scale_span=args.scale_span)
-    verdict["waveform"] = str(args.waveform)
+    # Every input is read and checked: only now the helper that draws (it imports matplotlib
+    # on the other core while this process loads JAX and simulates) and JAX itself.
+    painter = None
     if args.plots:
-        from shaper.jobs.check import write_check_plots
-        write_check_plots(Path(args.plots), verdict, curves)
+        from shaper.jobs.painter import Painter
+        painter = Painter()
+    try:
+        from shaper.jobs.check import check_waveform, write_check_plots
+        verdict, curves = check_waveform(recipe, wave, levels=args.levels,
+                                         detuning_span_hz=span, scale_span=args.scale_span)
+        verdict["waveform"] = str(args.waveform)
+        if painter is not None:
+            write_check_plots(Path(args.plots), verdict, curves, draw=painter.draw)
+            for path, error in painter.finish().items():
+                print(f"shaper check: warning: plot {path} not written: {error}",
+                      file=sys.stderr)
+    finally:
+        if painter is not None:
+            painter.close()
     if args.json:
         print(json.dumps(verdict))
     else:

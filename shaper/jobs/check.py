@@ -162,16 +162,23 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
     return verdict, {"wave": wave, "dt": dt, "simulation": sim, "recipe": recipe}
 
 
-def write_check_plots(folder, verdict: dict, curves: dict) -> list:
-    """sensitivity.png plus the waveform, spectrum (f01, f12 marked) and population plots."""
+def write_check_plots(folder, verdict: dict, curves: dict, *, draw=None) -> list:
+    """sensitivity.png plus the waveform, spectrum (f01, f12 marked) and population plots.
+
+    ``draw``: as in :func:`shaper.jobs.run.write_plots` (a painter's, or here by default).
+    """
     from pathlib import Path
 
     from shaper.jobs.plots import plot_sensitivity
     from shaper.jobs.run import write_plots
 
+    if draw is None:
+        def draw(plot, path, *args, **kwargs):
+            plot(path, *args, **kwargs)
+
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     files = write_plots(folder, curves["recipe"], curves["wave"], curves["simulation"], None,
-                        dt=curves["dt"])
-    plot_sensitivity(folder / "sensitivity.png", verdict["sensitivity"])
+                        dt=curves["dt"], draw=draw)
+    draw(plot_sensitivity, folder / "sensitivity.png", verdict["sensitivity"])
     return files + [folder / "sensitivity.png"]
