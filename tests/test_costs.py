@@ -116,3 +116,42 @@ def test_settings_guard_themselves():
     with pytest.raises(InputError, match="setting dac_bits cannot be 64"):
         dataclasses.replace(recipe.export, dac_bits=64)
     assert dataclasses.replace(recipe.export, dac_bits=None).dac_bits is None
+
+
+def test_ensemble_holding_the_nominal_point_propagates_it_once():
+    import jax
+    from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
+
+    from shaper.physics._jax import device
+
+    grid = {"robustness": 1.0, "ensemble_detunings": ["-2 MHz", "0 MHz", "2 MHz"],
+            "ensemble_scales": [0.97, 1.0, 1.03]}
+    recipe = load_recipe({**DEMO, "cost": grid})
+    problem = costs.make_problem(recipe)
+    # nominal + 9 grid points, of which (0 MHz, 1.0) is the nominal system: 9 propagations
+    assert problem.member_rows.shape == (10,) and problem.detunings.shape == (9, 1)
+    rng = np.random.default_rng(4)
+    samples = rng.uniform(-40e6, 40e6, size=(recipe.samples, 2))
+    flags = {"qubits": 1, "is_gate": True, "virtual_z": False}
+    scores = costs.evaluate_members(device(samples), problem, **flags)
+    x = np.array([[0, 1], [1, 0]])
+    detunings = np.concatenate([[0.0], recipe.ensemble_detunings_hz[:, 0]])
+    scales = np.concatenate([[1.0], recipe.ensemble_scales])
+    for m, (det, scale) in enumerate(zip(detunings, scales, strict=True)):
+        # reference: scipy.linalg.expm slice products of the Duffing model (tests/helpers.py)
+        u = expm_product(*duffing(3, det, -200e6), samples * scale, 0.5e-9)
+        assert float(scores.members.fidelity[m]) == pytest.approx(
+            pedersen_fidelity(u[:2, :2], x), abs=1e-12)
+        assert float(scores.members.leakage[m]) == pytest.approx(
+            subspace_leakage(u, [0, 1]), abs=1e-12)
+
+    # the gradient through the shared member equals the one with every member propagated
+    full = problem._replace(detunings=device(detunings[:, None]), scales=device(scales),
+                            member_rows=device(np.arange(10)))
+
+    def mean_infidelity(s, p):
+        return 1 - jnp.mean(costs.evaluate_members(s, p, **flags).members.fidelity[1:])
+    shared = jax.grad(mean_infidelity)(device(samples), problem)
+    every = jax.grad(mean_infidelity)(device(samples), full)
+    scale = float(jnp.max(jnp.abs(every)))
+    assert scale > 0 and float(jnp.max(jnp.abs(shared - every))) < 1e-12 * scale

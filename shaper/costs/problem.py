@@ -38,10 +38,14 @@ class Problem(NamedTuple):
     initial: jax.Array          # (d_c,) complex128 initial state of a transfer (else zeros)
     final: jax.Array            # (d_c,) complex128 final state of a transfer (else zeros)
     number_operators: jax.Array  # (q, d, d) complex128, level number per subsystem
-    detunings: jax.Array        # (m, q) float64, Hz: detuning offset of each member per qubit
-    scales: jax.Array           # (m,) float64: amplitude scale factor of each member
-    #                             member 0 is the nominal system (0 Hz, 1.0); members 1..m-1
-    #                             are the robustness ensemble, if the recipe has one
+    detunings: jax.Array        # (u, q) float64, Hz: detuning offset per qubit of each
+    #                             distinct member system
+    scales: jax.Array           # (u,) float64: amplitude scale factor of each distinct one
+    member_rows: jax.Array      # (m,) int: member m is distinct system member_rows[m].
+    #                             Member 0 is the nominal system (0 Hz, 1.0), members 1..m-1
+    #                             the robustness ensemble, if the recipe has one; an ensemble
+    #                             point equal to another (often the nominal one) is
+    #                             propagated once
     envelope: jax.Array         # (n,) float64 in [0, 1]: fixed factor per AWG sample
     active: jax.Array           # (m,) float64, 1 or 0: propagator slices that take dt
     #                             (0: padding to a shared size, an identity slice)
@@ -88,9 +92,11 @@ def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_ga
                      open_scalings: int | None = None) -> Evaluation:
     """Figures of the nominal system and of every ensemble member, in ONE batched propagation.
 
-    Member m sees ``drift + sum_q detunings[m, q] n_q`` and the samples times ``scales[m]``.
-    Batching all members with ``jax.vmap`` is not only cheaper than separate calls: it
-    keeps every compiled objective to a single batched eigendecomposition, which is what
+    Member m sees ``drift + sum_q detunings[r, q] n_q`` and the samples times ``scales[r]``,
+    ``r = member_rows[m]``; each distinct member system is propagated once (an ensemble
+    grid that holds the nominal point costs one propagation less). Batching all members
+    with ``jax.vmap`` is not only cheaper than separate calls: it keeps every compiled
+    objective to a single batched eigendecomposition, which is what
     avoids the LAPACK thread-pool deadlock described in DEVELOPERS.md ("One
     eigendecomposition per program").
     """
@@ -100,8 +106,9 @@ def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_ga
                         is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive,
                         open_system=open_system, open_scalings=open_scalings)
 
-    members = jax.vmap(one)(problem.detunings, problem.scales)
-    return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], members), members=members)
+    distinct = jax.vmap(one)(problem.detunings, problem.scales)
+    return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], distinct),
+                      members=jax.tree_util.tree_map(lambda a: a[problem.member_rows], distinct))
 
 
 def figures_of(u: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
@@ -135,6 +142,14 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
         ensemble_scales = np.asarray(recipe.ensemble_scales, float)
     else:
         ensemble_detunings, ensemble_scales = np.zeros((0, subsystems)), np.zeros(0)
+    detunings = np.concatenate([np.zeros((1, subsystems)), ensemble_detunings])
+    scales = np.concatenate([[1.0], ensemble_scales])
+    # distinct (detunings, scale) rows in order of first appearance, so row 0 stays nominal
+    _, first, rows = np.unique(np.column_stack([detunings, scales]), axis=0,
+                               return_index=True, return_inverse=True)
+    order = np.argsort(first)
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
     zeros_vec = np.zeros(dc, complex)
     c, f = np.complex128, np.float64
     return Problem(
@@ -144,8 +159,8 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
         initial=device(zeros_vec if t.is_gate else t.initial, c),
         final=device(zeros_vec if t.is_gate else t.final, c),
         number_operators=device(s.number_operators, c),
-        detunings=device(np.concatenate([np.zeros((1, subsystems)), ensemble_detunings]), f),
-        scales=device(np.concatenate([[1.0], ensemble_scales]), f),
+        detunings=device(detunings[first[order]], f), scales=device(scales[first[order]], f),
+        member_rows=device(rank[rows.reshape(-1)]),
         envelope=device(layout.envelope, f), active=device(active, f),
         noise=device(dissipator(s.collapse, s.dimension) if recipe.optimizer.open_system
                      else np.zeros((1, 1)), c))
