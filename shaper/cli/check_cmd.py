@@ -6,6 +6,7 @@ Exit code 0 when the recipe's targets are met, 1 when not, 2 for bad input.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 from pathlib import Path
@@ -68,11 +69,9 @@ def run(args: argparse.Namespace) -> int:
     wave = read_any(args.waveform, system, sample_rate_hz=rate, full_scale_hz=scale)
     # Every input is read and checked: only now the helper that draws (it imports matplotlib
     # on the other core while this process loads JAX and simulates) and JAX itself.
-    painter = None
-    if args.plots:
-        from shaper.jobs.painter import Painter
-        painter = Painter()
-    try:
+    from shaper.jobs.painter import Painter
+
+    with (Painter() if args.plots else contextlib.nullcontext()) as painter:
         from shaper.jobs.check import check_waveform, write_check_plots
         verdict, curves = check_waveform(recipe, wave, levels=args.levels,
                                          detuning_span_hz=span, scale_span=args.scale_span)
@@ -82,9 +81,6 @@ def run(args: argparse.Namespace) -> int:
             for path, error in painter.finish().items():
                 print(f"shaper check: warning: plot {path} not written: {error}",
                       file=sys.stderr)
-    finally:
-        if painter is not None:
-            painter.close()
     if args.json:
         print(json.dumps(verdict))
     else:

@@ -7,6 +7,7 @@ when interrupted (``--resume`` continues; finished durations are not redone).
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
 from pathlib import Path
 
@@ -48,12 +49,8 @@ def _run(args: argparse.Namespace, stop) -> int:
     from shaper.jobs.painter import Painter
 
     # the plot helper imports matplotlib on the other core while this process loads JAX
-    painter = None if args.no_plots else Painter()
-    try:
+    with (contextlib.nullcontext() if args.no_plots else Painter()) as painter:
         return _sweep(args, stop, recipe, durations, painter)
-    finally:
-        if painter is not None:
-            painter.close()
 
 
 def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:

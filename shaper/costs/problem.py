@@ -147,9 +147,8 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
     # distinct (detunings, scale) rows in order of first appearance, so row 0 stays nominal
     _, first, rows = np.unique(np.column_stack([detunings, scales]), axis=0,
                                return_index=True, return_inverse=True)
-    order = np.argsort(first)
-    rank = np.empty_like(order)
-    rank[order] = np.arange(len(order))
+    order = np.argsort(first)  # the distinct rows by first appearance
+    rank = np.argsort(order)  # where each of np.unique's sorted rows went in that order
     zeros_vec = np.zeros(dc, complex)
     c, f = np.complex128, np.float64
     return Problem(

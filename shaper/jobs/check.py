@@ -169,13 +169,11 @@ def write_check_plots(folder, verdict: dict, curves: dict, *, draw=None) -> list
     """
     from pathlib import Path
 
+    from shaper.jobs.painter import draw_here
     from shaper.jobs.plots import plot_sensitivity
     from shaper.jobs.run import write_plots
 
-    if draw is None:
-        def draw(plot, path, *args, **kwargs):
-            plot(path, *args, **kwargs)
-
+    draw = draw or draw_here
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     files = write_plots(folder, curves["recipe"], curves["wave"], curves["simulation"], None,

@@ -24,6 +24,11 @@ from concurrent.futures import Future, ProcessPoolExecutor
 log = logging.getLogger("shaper")
 
 
+def draw_here(plot: Callable, path, *args, **kwargs) -> None:
+    """Draw ``plot(path, ...)`` in this process: what a caller without a painter gets."""
+    plot(path, *args, **kwargs)
+
+
 def _ready() -> None:
     """Nothing: submitted once so that the helper starts (and imports) right away."""
 
@@ -68,7 +73,7 @@ class Painter:
             except RuntimeError as exc:  # the helper died: draw the rest here
                 log.warning("plot helper stopped (%s); drawing in this process", exc)
                 self._pool = None
-        plot(path, *args, **kwargs)
+        draw_here(plot, path, *args, **kwargs)
 
     def finish(self) -> dict[str, str]:
         """Wait for every queued figure; return ``{path: error}`` for those that failed."""

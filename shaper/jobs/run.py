@@ -251,11 +251,9 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     from types import SimpleNamespace
 
     from shaper.jobs.export import baseband
+    from shaper.jobs.painter import draw_here
 
-    if draw is None:
-        def draw(plot, path, *args, **kwargs):
-            plot(path, *args, **kwargs)
-
+    draw = draw or draw_here
     system, dt = recipe.system, dt or recipe.dt
     samples = waveform.to_hz(system)
     title = (f"{recipe.name}: {recipe.target.label}, infidelity {simulation.infidelity:.2e}, "
