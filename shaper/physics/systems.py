@@ -68,6 +68,10 @@ class System:
     # Lindblad term is L rho L^dag - {L^dag L, rho}/2 in 1/s; empty: a closed system
     collapse: tuple = ()
     coherence: dict = field(default_factory=dict)  # per qubit: {"t1_s", "t2_s"} given
+    # the lab-frame Hamiltonian this System approximates (physics.labframe.LabModel);
+    # None: matrices given by the user, whose lab frame shaper does not know
+    lab: object = None
+    models: dict = field(default_factory=dict)  # per transmon: its spectrum and parameters
 
     def __post_init__(self):
         check_names(self)
@@ -159,11 +163,14 @@ def assert_hermitian(matrix: np.ndarray, name: str) -> None:
 
 
 def transmon_collapse(levels: int, t1_s: float | None, t2_s: float | None, *,
-                      index: int = 0, dims: Sequence[int] | None = None) -> list[np.ndarray]:
+                      index: int = 0, dims: Sequence[int] | None = None,
+                      lowering: np.ndarray | None = None) -> list[np.ndarray]:
     """Collapse operators of one transmon (embedded in ``dims``) for its T1 and T2.
 
     Level n decays to n - 1 at rate n / T1: ``L = a / sqrt(T1)`` (the harmonic-oscillator
-    scaling of the Duffing model; common practice, no source). Pure dephasing couples to
+    scaling of the Duffing model; common practice, no source); ``lowering`` replaces ``a``
+    by a model's own (the charge model's ``<i|n|i+1>/<0|n|1>``: rates follow the squared
+    charge matrix elements, Fermi's golden rule for charge noise). Pure dephasing couples to
     the number operator: ``L = sqrt(2 / T_phi) n`` with ``1 / T_phi = 1 / T2 - 1 / (2 T1)``,
     so the coherence between levels m and n decays at ``(m - n)^2 / T_phi`` besides the
     decay, and the 0-1 coherence at exactly 1 / T2. T2 alone (no T1) is pure dephasing.
@@ -185,7 +192,8 @@ def transmon_collapse(levels: int, t1_s: float | None, t2_s: float | None, *,
                          f"qubit reaches (T2 <= 2 T1)")
     out = []
     if t1_s is not None:
-        out.append(_embed(_lowering(levels) / np.sqrt(t1_s), index, dims))
+        a = _lowering(levels) if lowering is None else np.asarray(lowering, complex)
+        out.append(_embed(a / np.sqrt(t1_s), index, dims))
     if t2_s is not None:
         rate_phi = 1.0 / t2_s - (0.0 if t1_s is None else 0.5 / t1_s)
         if rate_phi > 0:
@@ -222,12 +230,69 @@ class TransmonSpec:
     flux: bool = False  # add a baseband control on its number operator
     t1_s: float | None = None  # energy relaxation time (None: no decay)
     t2_s: float | None = None  # coherence time of the 0-1 superposition (None: T2 = 2 T1)
+    spectrum: str = "duffing"  # or "charge": levels of the Cooper-pair box (physics.charge)
+    offset_charge: float = 0.0  # n_g of the charge model, in Cooper pairs
 
     def __post_init__(self):
         if not isinstance(self.levels, int | np.integer) or self.levels < 2:
             raise InputError(f"transmon {self.name!r}: levels must be a whole number >= 2 "
                              f"(0 and 1 are the qubit), got {self.levels!r}")
+        if self.spectrum not in SPECTRA:
+            raise InputError(f"transmon {self.name!r}: spectrum must be one of "
+                             f"{', '.join(SPECTRA)}, got {self.spectrum!r}")
         transmon_collapse(self.levels, self.t1_s, self.t2_s)  # checks the times
+
+    def ladder(self) -> Ladder:
+        """Its levels, drive operator and flux response (:class:`Ladder`)."""
+        return SPECTRA[self.spectrum](self)
+
+
+@dataclass(frozen=True)
+class Ladder:
+    """One transmon's levels as a model gives them.
+
+    ``energies_hz`` ``(levels,)`` E_i - E_0 (lab frame); ``drive`` ``(levels, levels)`` the
+    physical drive operator, normalised to ``<0|D|1> = 1`` so that I is the 0-1 Rabi
+    frequency; ``flux`` ``(levels,)`` how far level i moves per hertz of 0-1 shift on a
+    flux line (first order); ``parameters``: what the report shows of the model.
+    """
+
+    energies_hz: np.ndarray
+    drive: np.ndarray
+    flux: np.ndarray
+    parameters: dict
+
+    @property
+    def lowering(self) -> np.ndarray:
+        """The drive's lowering part (``<i|D|i+1>``): ``a`` in the Duffing model."""
+        return np.triu(np.tril(self.drive, 1), 1)
+
+
+def _duffing(t: TransmonSpec) -> Ladder:
+    """Koch et al. 2007 in the Duffing approximation (README, "Conventions")."""
+    n = np.arange(t.levels)
+    a = _lowering(t.levels)
+    return Ladder(energies_hz=t.qubit_frequency_hz * n + 0.5 * t.anharmonicity_hz * n * (n - 1),
+                  drive=a + a.conj().T, flux=n.astype(float), parameters={"spectrum": "duffing"})
+
+
+def _charge(t: TransmonSpec) -> Ladder:
+    """The Cooper-pair box (README, "The charge model"), E_J and E_C fitted to f01, alpha."""
+    from shaper.physics import charge
+
+    ej, ec = charge.fit(t.qubit_frequency_hz, t.anharmonicity_hz,
+                        offset_charge=t.offset_charge)
+    box = charge.levels(ej, ec, t.levels, offset_charge=t.offset_charge)
+    return Ladder(energies_hz=box.energies_hz, drive=box.drive_operator,
+                  flux=charge.flux_shifts(ej, ec, t.levels, offset_charge=t.offset_charge),
+                  parameters={"spectrum": "charge", "ej_hz": ej, "ec_hz": ec,
+                              "ej_over_ec": ej / ec, "offset_charge": t.offset_charge,
+                              "charge_basis": 2 * box.charges + 1,
+                              "n12_over_n01": float(abs(box.drive_operator[1, 2]))
+                              if t.levels > 2 else None})
+
+
+SPECTRA = {"duffing": _duffing, "charge": _charge}  # a new transmon model: one entry
 
 
 def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
@@ -288,56 +353,63 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
         raise InputError(f"transmon names must differ, got {names}")
     frame = transmons[0].qubit_frequency_hz if frame_frequency_hz is None else frame_frequency_hz
     dims = tuple(int(t.levels) for t in transmons)
-    d = int(np.prod(dims))
-    drift = np.zeros((d, d), complex)
-    controls, control_names, channels, numbers, transitions = [], [], [], [], {}
-    for q, t in enumerate(transmons):
-        a = _embed(_lowering(t.levels), q, dims)
-        n = a.conj().T @ a
-        numbers.append(n)
-        detuning = t.qubit_frequency_hz - frame
-        drift += detuning * n + 0.5 * t.anharmonicity_hz * (n @ n - n)
-        transitions[t.name] = {"f01_hz": detuning, "f12_hz": detuning + t.anharmonicity_hz}
-        start = len(controls)
-        controls += [0.5 * (a + a.conj().T), 0.5j * (a.conj().T - a)]
-        control_names += [f"{t.name}_i", f"{t.name}_q"]
-        channels.append(Channel(t.name, "iq", (start, start + 1), q))
-    for name, on, carrier in drives:
-        if on not in names:
-            raise InputError(f"drive {name!r} is on transmon {on!r}, which is not one of "
-                             f"{names}")
-        q = names.index(on)
-        a = _embed(_lowering(dims[q]), q, dims)
-        start = len(controls)
-        controls += [0.5 * (a + a.conj().T), 0.5j * (a.conj().T - a)]
-        control_names += [f"{name}_i", f"{name}_q"]
-        channels.append(Channel(name, "iq", (start, start + 1), q, offset_hz=carrier - frame))
-    for q, t in enumerate(transmons):
-        if t.flux:
-            channels.append(Channel(f"{t.name}_flux", "baseband", (len(controls),), q))
-            controls.append(numbers[q])
-            control_names.append(f"{t.name}_flux")
-    for a_name, b_name, g in couplings:
+    ladders = [t.ladder() for t in transmons]
+    numbers = [_embed(np.diag(np.arange(dim)).astype(complex), q, dims)
+               for q, dim in enumerate(dims)]
+    static = sum(_embed(np.diag(ld.energies_hz).astype(complex), q, dims)
+                 for q, ld in enumerate(ladders))
+    drive_ops = [_embed(ld.drive.astype(complex), q, dims) for q, ld in enumerate(ladders)]
+    for a_name, b_name, g in couplings:  # charge coupling g D_a D_b; its RWA is the exchange
         for nm in (a_name, b_name):
             if nm not in names:
                 raise InputError(f"coupling names transmon {nm!r}, which is not one of {names}")
         if a_name == b_name:
             raise InputError(f"a coupling needs two different transmons, got {a_name!r} twice")
-        ia, ib = names.index(a_name), names.index(b_name)
-        la = _embed(_lowering(dims[ia]), ia, dims)
-        lb = _embed(_lowering(dims[ib]), ib, dims)
-        drift += g * (la.conj().T @ lb + lb.conj().T @ la)
+        static = static + g * drive_ops[names.index(a_name)] @ drive_ops[names.index(b_name)]
+    from shaper.physics.labframe import LabModel
+    lab = LabModel(frame_hz=frame, excitations=np.real(np.diag(sum(numbers))), static=static,
+                   drives={})
+    drift = lab.rotating_drift()
+    controls, control_names, channels, transitions = [], [], [], {}
+
+    def add_drive(name, q, offset):
+        lower = _embed(ladders[q].lowering.astype(complex), q, dims)
+        start = len(controls)
+        controls.extend([0.5 * (lower + lower.conj().T), 0.5j * (lower.conj().T - lower)])
+        control_names.extend([f"{name}_i", f"{name}_q"])
+        channels.append(Channel(name, "iq", (start, start + 1), q, offset_hz=offset))
+        lab.drives[name] = drive_ops[q]
+
+    for q, (t, ld) in enumerate(zip(transmons, ladders, strict=True)):
+        e = ld.energies_hz
+        transitions[t.name] = {"f01_hz": e[1] - frame,
+                               "f12_hz": (e[2] - e[1] if len(e) > 2 else
+                                          t.qubit_frequency_hz + t.anharmonicity_hz) - frame}
+        add_drive(t.name, q, 0.0)
+    for name, on, carrier in drives:
+        if on not in names:
+            raise InputError(f"drive {name!r} is on transmon {on!r}, which is not one of "
+                             f"{names}")
+        add_drive(name, names.index(on), carrier - frame)
+    for q, (t, ld) in enumerate(zip(transmons, ladders, strict=True)):
+        if t.flux:
+            channels.append(Channel(f"{t.name}_flux", "baseband", (len(controls),), q))
+            controls.append(_embed(np.diag(ld.flux).astype(complex), q, dims))
+            control_names.append(f"{t.name}_flux")
     collapse, coherence = [], {}
     for q, t in enumerate(transmons):
-        collapse += transmon_collapse(t.levels, t.t1_s, t.t2_s, index=q, dims=dims)
+        collapse += transmon_collapse(t.levels, t.t1_s, t.t2_s, index=q, dims=dims,
+                                      lowering=ladders[q].lowering)
         if t.t1_s is not None or t.t2_s is not None:
             coherence[t.name] = {"t1_s": t.t1_s, "t2_s": t.t2_s}
-    return System(collapse=tuple(collapse), coherence=coherence, drift=drift,
+    return System(collapse=tuple(collapse), coherence=coherence, drift=drift, lab=lab,
                   controls=np.array(controls), control_names=tuple(control_names),
                   channels=tuple(channels), dims=dims,
                   computational=_computational_indices(dims),
                   qubit_names=tuple(names), number_operators=np.array(numbers),
-                  transition_frequencies=transitions)
+                  transition_frequencies=transitions,
+                  models={t.name: ld.parameters for t, ld in zip(transmons, ladders,
+                                                                 strict=True)})
 
 
 def from_matrices(drift: np.ndarray, controls: Mapping[str, np.ndarray], *,

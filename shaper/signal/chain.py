@@ -33,7 +33,7 @@ from shaper.physics.grid import carrier_substeps, substeps
 from shaper.recipe.lines import Stage
 from shaper.signal.line import apply, cell_response
 from shaper.signal.mixer import Mixer
-from shaper.signal.modulation import modulate, to_drive_frame
+from shaper.signal.modulation import modulate, sign_of, to_drive_frame
 
 
 @dataclass(frozen=True)
@@ -110,6 +110,40 @@ class Chain:
             fine = to_drive_frame(fine, [(i, q)], offset, self.period_s, "lower",
                                   steps=self.steps, start=self.start)
         return fine
+
+    def cells(self, samples: np.ndarray) -> np.ndarray:
+        """What the DAC outputs put on the line, on the chain's slices ``(n * steps, k)``
+        (NumPy): after IF modulation, mixer, hold and line, before any turn into the
+        drive frame."""
+        played = np.asarray(samples, float)
+        if self.if_hz and not self.modulated:
+            played = modulate(played, self.iq_columns, self.if_hz, self.period_s,
+                              self.sideband, start=self.start)
+        if self.mixer is not None:
+            played = self.mixer.plays(played)
+        fine = np.repeat(played, self.steps, axis=0)
+        for column, stages in self.line:
+            g, lead = cell_response(stages, self.period_s, self.steps, fine.shape[0])
+            fine[:, column] = apply(fine[:, column], g, lead)
+        return fine
+
+    def envelope_at(self, samples: np.ndarray, times: np.ndarray) -> np.ndarray:
+        """The drive-frame control values ``(m, k)`` at ``times`` (seconds from the pulse
+        start, sorted): each slice's held output turned by the IF and any carrier offset
+        at the exact time, not at the slice's middle (the lab frame,
+        :mod:`shaper.physics.labframe`, needs them between its nodes)."""
+        fine = self.cells(samples)
+        index = np.floor((times / self.dt_s) + self.start * self.steps + 1e-9).astype(int)
+        index = np.clip(index, 0, fine.shape[0] - 1)
+        out = fine[index]
+        turn = -sign_of(self.sideband) * 2 * np.pi * self.if_hz * times
+        z_columns = [tuple(p) for p in np.asarray(self.iq_columns, int).reshape(-1, 2)]
+        offsets = {(i, q): f for i, q, f in self.carriers}
+        for i, q in z_columns:
+            angle = turn - 2 * np.pi * offsets.get((i, q), 0.0) * times
+            z = (out[:, i] + 1j * out[:, q]) * np.exp(1j * angle)
+            out[:, i], out[:, q] = z.real, z.imag
+        return out
 
     def finer(self, factor: int) -> Chain:
         """The same chain on ``factor`` times more sub-steps (for extrapolation)."""
