@@ -20,7 +20,8 @@ from helpers import run_cli as cli
 
 from shaper.errors import InputError, RecipeError
 from shaper.io.waveio import read_waveform
-from shaper.jobs.export import make_waveform, simulate_played
+from shaper.jobs.export import make_waveform
+from shaper.jobs.playback import simulate_played
 from shaper.jobs.run import run
 from shaper.optimise.objective import make_objective
 from shaper.recipe import load_recipe

@@ -49,7 +49,7 @@ def run(args: argparse.Namespace) -> int:
         recipe = for_gate(recipe, wanted)
     recipe = recipe.one_gate("shaper check", "pass --gate")
     if args.t1 or args.t2:
-        from shaper.jobs.check import with_coherence
+        from shaper.recipe.derive import with_coherence
 
         def times(text, flag):
             if not text:
@@ -92,8 +92,12 @@ def _print_summary(v: dict) -> None:
     s = v["sensitivity"]
     print(f"{v['waveform']} on {v['recipe']} ({'x'.join(map(str, v['levels']))} levels, "
           f"{v['samples']} samples)")
-    print(f"  infidelity {v['infidelity']:.3e}   leakage {v['leakage']:.3e}   "
+    trust = v.get("trust") or v
+    print(f"  infidelity {trust['infidelity']:.3e}   leakage {trust['leakage']:.3e}   "
           f"max population outside the qubit levels {v['max_population_outside_qubit_levels']:.3e}")
+    from shaper.cli.text import line_summary, trust_summary
+    for text in trust_summary(v.get("trust")):
+        print(text)
     if any(v["frame_after_rad"]) or any(v["frame_before_rad"]):
         print(f"  virtual Z: before {v['frame_before_rad']} rad, after {v['frame_after_rad']} rad")
     print(f"  d(infidelity)/d(detuning) {s['d_infidelity_d_detuning_per_mhz']:.3e} per MHz; "
@@ -108,7 +112,6 @@ def _print_summary(v: dict) -> None:
         print(f"  with decoherence: infidelity {o['infidelity']:.3e} = coherent "
               f"{o['coherent_error']:.3e} (the pulse) + incoherent {o['incoherent_error']:.3e} "
               f"(T1/T2); leakage {o['leakage']:.3e}")
-    from shaper.jobs.export import line_summary
     for text in line_summary(v.get("line")):
         print(text)
     if v.get("ensemble"):

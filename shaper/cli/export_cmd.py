@@ -54,10 +54,13 @@ def run(args: argparse.Namespace) -> int:
     print(f"exported {report['samples']} samples at {report['sample_rate_hz'] / 1e9:g} GS/s "
           f"({report['resampling']}), {report['dac_bits']}-bit, IF "
           f"{report['if_frequency_hz'] / 1e6:g} MHz: {', '.join(report['files'])} in {args.out}")
-    print(f"  as played: infidelity {report['infidelity']:.3e}, leakage {report['leakage']:.3e}"
-          f" (the run at its own rate: {run_fig['infidelity']:.3e}, {run_fig['leakage']:.3e})")
-    from shaper.jobs.export import line_summary
-    for text in line_summary(report.get("line"), report.get("mixer")):
+    trust = report.get("trust") or report
+    print(f"  as played: infidelity {trust['infidelity']:.3e}, leakage {trust['leakage']:.3e}"
+          f" (the run at its own rate, rotating frame: {run_fig['infidelity']:.3e}, "
+          f"{run_fig['leakage']:.3e})")
+    from shaper.cli.text import line_summary, trust_summary
+    for text in trust_summary(report.get("trust")) + line_summary(report.get("line"),
+                                                                  report.get("mixer")):
         print(text)
     if report["clipped_samples"]:
         print(f"  {report['clipped_samples']} sample(s) clipped at full scale")

@@ -103,8 +103,8 @@ def _run(args: argparse.Namespace, stop) -> int:
     from shaper.io.runfolder import prepare_folder
     prepare_folder(folder, args.force, args.resume)  # refuses at once, before JAX is loaded
     from shaper.optimise.options import RunOptions
-    from shaper.optimise.starts import with_budget
     from shaper.optimise.watchdog import Watchdog
+    from shaper.recipe.derive import with_budget
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
@@ -156,10 +156,12 @@ def _run(args: argparse.Namespace, stop) -> int:
         for s in r["optimizer"]["starts"]:
             print(f"{s['index']:5d} {s['seed']:5d}  {s['infidelity']:.3e}   {s['leakage']:.3e}"
                   f"   {s['iterations']:9d}  {s['stop_reason']}")
-    print(f"{recipe.name}: infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e} "
-          f"(on the exported {r['samples']} samples, {recipe.export.dac_bits}-bit DAC)")
-    from shaper.jobs.export import line_summary
-    for text in line_summary(r.get("line"), r.get("mixer")):
+    trust = r.get("trust") or r
+    print(f"{recipe.name}: infidelity {trust['infidelity']:.3e}, leakage "
+          f"{trust['leakage']:.3e} (on the exported {r['samples']} samples, "
+          f"{recipe.export.dac_bits}-bit DAC)")
+    from shaper.cli.text import line_summary, trust_summary
+    for text in trust_summary(r.get("trust")) + line_summary(r.get("line"), r.get("mixer")):
         print(text)
     print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; wall time "
           f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s)")

@@ -95,9 +95,11 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
         return 1
     output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots,
                     painter=painter)
+    trust = output.report.get("trust") or output.report
     print(f"shortest duration meeting the targets: {format_quantity(chosen, 's')} ({shortest} "
-          f"samples); exported: infidelity {output.report['infidelity']:.3e}, leakage "
-          f"{output.report['leakage']:.3e}; full result in {output.folder}")
+          f"samples); exported: infidelity {trust['infidelity']:.3e}, leakage "
+          f"{trust['leakage']:.3e} ({trust.get('judged_on', 'rotating frame')}; rotating "
+          f"frame {output.report['infidelity']:.3e}); full result in {output.folder}")
     print(f"CAUTION: {output.report['caution']}")
     print("targets met")
     return 0

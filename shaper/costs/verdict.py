@@ -40,12 +40,13 @@ class Verdict:
     met: bool
     missed: tuple[Miss, ...]
     judged: dict[str, float]
+    basis: str = ""  # which model the infidelity and leakage come from ("": the caller's)
 
     def summary(self) -> str:
         return summary(self.as_dict())
 
     def as_dict(self) -> dict:
-        return {"met": self.met, "judged": self.judged,
+        return {"met": self.met, "judged": self.judged, "judged_on": self.basis,
                 "missed": [{"name": m.name, "value": m.value, "limit": m.limit}
                            for m in self.missed]}
 
@@ -62,7 +63,7 @@ def summary(targets: dict) -> str:
 def judge(recipe, *, infidelity: float, leakage: float,
           member_infidelities: Sequence[float] | None = None,
           member_leakages: Sequence[float] | None = None,
-          out_of_band: float | None = None, margin: float = 1.0) -> Verdict:
+          out_of_band: float | None = None, margin: float = 1.0, basis: str = "") -> Verdict:
     """Apply the rule to one result's figures.
 
     Args:
@@ -71,6 +72,7 @@ def judge(recipe, *, infidelity: float, leakage: float,
         member_infidelities, member_leakages: of each ensemble member (None: no ensemble).
         out_of_band: the out-of-band fraction (None: the recipe sets no bandwidth).
         margin: the limits are divided by this (the optimiser's safety margin).
+        basis: what the infidelity and leakage are (e.g. "lab frame, 6 levels, ...").
     """
     o = recipe.optimizer
     judged = {"infidelity": float(infidelity), "leakage": float(leakage)}
@@ -85,4 +87,4 @@ def judge(recipe, *, infidelity: float, leakage: float,
         limits["out_of_band"] = recipe.max_out_of_band
     missed = tuple(Miss(name, value, limits[name] / margin) for name, value in judged.items()
                    if not value <= limits[name] / margin)
-    return Verdict(met=not missed, missed=missed, judged=judged)
+    return Verdict(met=not missed, missed=missed, judged=judged, basis=basis)

@@ -10,72 +10,18 @@ scale error.
 
 from __future__ import annotations
 
-import copy
-
 import jax
 import jax.numpy as jnp
 import numpy as np
 
 from shaper.costs import evaluate
 from shaper.costs.problem import qubit_count, waveform_problem
-from shaper.errors import InputError
 from shaper.io.waveio import Waveform
-from shaper.jobs.export import (
-    judge_waveform,
-    line_figures,
-    member_figures,
-    open_played,
-    simulate_played,
-)
+from shaper.jobs.playback import Playback
 from shaper.physics._jax import device
-from shaper.recipe import Recipe, load_recipe
+from shaper.recipe import Recipe
+from shaper.recipe.derive import with_levels
 from shaper.signal.chain import for_waveform
-
-
-def with_levels(recipe: Recipe, levels: int) -> Recipe:
-    """The same recipe with every transmon keeping ``levels`` levels.
-
-    Raises:
-        InputError: the model is not a transmon model, or levels < 2.
-    """
-    raw = copy.deepcopy(recipe.raw)
-    model = raw["system"]["model"]
-    if levels < 2:
-        raise InputError(f"--levels must be at least 2, got {levels}")
-    if model == "transmon":
-        raw["system"]["levels"] = levels
-    elif model == "transmons":
-        for item in raw["system"]["transmon"]:
-            item["levels"] = levels
-    else:
-        raise InputError(f"--levels applies to transmon models; this recipe's model is "
-                         f"{model!r}, whose matrices fix the levels")
-    return load_recipe(raw)
-
-
-def with_coherence(recipe: Recipe, t1: list[float] | None, t2: list[float] | None) -> Recipe:
-    """The same recipe with coherence times (seconds) per transmon, one value for all or
-    one per transmon in recipe order.
-
-    Raises:
-        InputError: not a transmon model, or a list of the wrong length.
-    """
-    raw = copy.deepcopy(recipe.raw)
-    model = raw["system"]["model"]
-    tables = [raw["system"]] if model == "transmon" else raw["system"].get("transmon", []) \
-        if model == "transmons" else None
-    if tables is None:
-        raise InputError(f"--t1/--t2 apply to transmon models; this recipe's model is "
-                         f"{model!r}: give collapse operators in the recipe")
-    for flag, values in (("t1", t1), ("t2", t2)):
-        if values is None:
-            continue
-        if len(values) not in (1, len(tables)):
-            raise InputError(f"--{flag}: give one time for every transmon or one per transmon "
-                             f"({len(tables)}), got {len(values)}")
-        for k, table in enumerate(tables):
-            table[flag] = values[0] if len(values) == 1 else values[k]
-    return load_recipe(raw)
 
 
 def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
@@ -125,7 +71,8 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
     system = recipe.system
     samples = wave.to_hz(system)
     dt = 1.0 / wave.sample_rate_hz
-    sim = simulate_played(recipe, wave)
+    playback = Playback(recipe, wave)
+    sim = playback.nominal
     labels = system.level_labels()
     populations = {}
     for j, idx in enumerate(system.computational):
@@ -139,8 +86,8 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
                         np.linspace(-detuning_span_hz, detuning_span_hz, points),
                         np.linspace(1 - scale_span, 1 + scale_span, points))
     o = recipe.optimizer
-    members = member_figures(recipe, wave)
-    judged = judge_waveform(recipe, wave, sim, members)
+    members = playback.members
+    judged = playback.verdict()
     verdict = {
         **sim.figures(),
         "pass": judged.met,
@@ -149,8 +96,10 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
                     **judged.as_dict()},
         "ensemble": None if members is None else {"infidelity": members[0],
                                                   "leakage": members[1]},
-        "open_system": open_played(recipe, wave, sim),
-        "line": line_figures(recipe, wave, sim),
+        "trust": playback.trust_block(),
+        "system_model": recipe.system.models or "matrices",
+        "open_system": playback.open_system,
+        "line": playback.line_block(),
         "levels": list(system.dims),
         "samples": int(samples.shape[0]),
         "sample_rate_hz": wave.sample_rate_hz,

@@ -1,10 +1,9 @@
-"""From samples in Hz to what the AWG plays, and back: export, re-export, resample.
+"""From samples in Hz to what the AWG plays: export, re-export, resample.
 
-``make_waveform`` pads, IF-modulates, scales to full scale and quantises, in that order;
-``simulate_played`` simulates a :class:`~shaper.io.waveio.Waveform` exactly as the
-instrument plays it (held samples; with an IF, the held *modulated* samples on a
-sub-sample grid). ``reexport`` turns an earlier run into a waveform for another
-instrument without optimising again.
+``make_waveform`` pads, IF-modulates, pre-distorts, corrects the mixer, scales to full
+scale and quantises, in that order; ``reexport`` turns an earlier run into a waveform for
+another instrument without optimising again. How a file plays on the chip is
+:mod:`shaper.jobs.playback`.
 """
 
 from __future__ import annotations
@@ -15,14 +14,13 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper.costs.problem import has_ensemble, qubit_count, recipe_layout, waveform_problem
-from shaper.costs.verdict import Verdict, judge
 from shaper.errors import InputError, ResultError, WaveformError
 from shaper.io import atomic, waveio
-from shaper.physics.simulation import Simulation, simulate
+from shaper.jobs.playback import Playback, baseband, simulate_played
 from shaper.recipe import ExportSettings, Recipe, load_recipe
+from shaper.recipe.derive import at_samples
 from shaper.recipe.units import format_quantity
-from shaper.signal.chain import for_waveform, line_columns
+from shaper.signal.chain import line_columns
 from shaper.signal.mixer import Mixer
 from shaper.signal.modulation import modulate
 
@@ -134,67 +132,6 @@ def check_predistortion(recipe: Recipe) -> None:
     _predistorted(recipe, step, recipe.sample_rate_hz)
 
 
-def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """The samples (Hz) the file means the chip to see, averaged per sample: its own, with
-    any mixer correction and pre-distortion undone (still carrying the IF)."""
-    samples = wave.to_hz(recipe.system)
-    if wave.mixer_corrected:
-        samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
-    if wave.predistorted:
-        from shaper.signal.line import through_line
-        for column, stages in line_columns(recipe):
-            samples[:, column] = through_line(samples[:, column], stages,
-                                              1 / wave.sample_rate_hz,
-                                              max(recipe.line.oversample, 1))
-    return samples
-
-
-def simulate_played(recipe: Recipe, wave: waveio.Waveform, *, line: bool = True,
-                    mixer: bool = True, extrapolate: bool = True) -> Simulation:
-    """Figures of a waveform as the instrument plays it, on the recipe's system.
-
-    The chain (:mod:`shaper.signal.chain`) includes the recipe's mixer and line unless
-    ``mixer``/``line`` is False. Where the chain runs on sub-steps (an IF, a line), the
-    figures on ``s`` and ``2s`` sub-steps per sample are extrapolated (Richardson; the
-    sub-step error falls as 1/s^2), which makes them exact to about 1e-12 here;
-    ``extrapolate=False`` gives the figures on the chain's own ``s`` (what the optimiser
-    saw).
-    """
-    samples = wave.to_hz(recipe.system)
-    chain = for_waveform(recipe, wave, line=line, mixer=mixer)
-    flags = dict(virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator)
-    if chain.identity:
-        return simulate(recipe.system, recipe.target, samples, chain.dt_s, **flags)
-    steps = chain.steps
-    if not extrapolate:
-        coarse = simulate(recipe.system, recipe.target, chain(samples), chain.dt_s, **flags)
-        return replace(coarse, populations=coarse.populations[:, ::steps])
-    coarse, fine = (simulate(recipe.system, recipe.target, c(samples), c.dt_s, **flags)
-                    for c in (chain, chain.finer(2)))
-    fidelity = fine.fidelity + (fine.fidelity - coarse.fidelity) / 3
-    leak = fine.leakage + (fine.leakage - coarse.leakage) / 3
-    return replace(fine, fidelity=fidelity, infidelity=1 - fidelity, leakage=leak,
-                   populations=fine.populations[:, ::2 * steps])
-
-
-def line_figures(recipe: Recipe, wave: waveio.Waveform, played: Simulation) -> dict | None:
-    """The report's ``line`` block: the figures with the line (``played``), without it, and
-    on the optimiser's own fine grid (its convergence). None without a line."""
-    if not recipe.line.active:
-        return None
-    ideal = simulate_played(recipe, wave, line=False)
-    own = simulate_played(recipe, wave, extrapolate=False)
-    return {"channels": {name: [stage_summary(s) for s in stages]
-                         for name, stages in recipe.line.stages.items()},
-            "oversample": recipe.line.oversample,
-            "in_the_loop": not recipe.export.predistort,
-            "with_line": {"infidelity": played.infidelity, "leakage": played.leakage},
-            "without_line": {"infidelity": ideal.infidelity, "leakage": ideal.leakage},
-            "at_oversample": {"infidelity": own.infidelity, "leakage": own.leakage},
-            "predistorted": wave.predistorted,
-            "predistortion_residual": wave.predistortion_residual}
-
-
 def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettings,
                   rate: float) -> dict | None:
     """Figures of the same pulse exported *without* the mixer correction and played through
@@ -205,116 +142,6 @@ def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
     played = simulate_played(recipe, plain)
     return {"channels": {c: vars(m) for c, m in settings.mixer.items()},
             "uncorrected": {"infidelity": played.infidelity, "leakage": played.leakage}}
-
-
-def line_summary(line: dict | None, mixer: dict | None = None) -> list[str]:
-    """The lines the commands print about the line and mixer blocks of a report."""
-    out = []
-    if line:
-        w, wo = line["with_line"], line["without_line"]
-        how = "pre-distorted at export" if line["predistorted"] else (
-            "in the loop" if line["in_the_loop"] else "not corrected")
-        out.append(f"  through the line model ({how}): infidelity {w['infidelity']:.3e}, "
-                   f"leakage {w['leakage']:.3e}; the same file on an ideal line: "
-                   f"{wo['infidelity']:.3e}, {wo['leakage']:.3e}")
-        if line["predistorted"]:
-            out.append(f"  pre-distortion residual {line['predistortion_residual']:.2e} of the "
-                       f"peak (the line's output against the intended samples)")
-    if mixer:
-        u = mixer["uncorrected"]
-        out.append(f"  mixer corrected in the samples; uncorrected it would give infidelity "
-                   f"{u['infidelity']:.3e}, leakage {u['leakage']:.3e}")
-    return out
-
-
-def stage_summary(stage) -> dict:
-    """A line stage as the report shows it (SI units)."""
-    out = {"kind": stage.kind}
-    if stage.order:
-        out["order"] = stage.order
-    if stage.cutoff_hz:
-        out["cutoff_hz"] = stage.cutoff_hz
-    if stage.amplitudes:
-        out["amplitudes"] = list(stage.amplitudes)
-        out["time_constants_s"] = list(stage.time_constants_s)
-    if stage.source:
-        out.update(file=stage.source, response=stage.response)
-    return out
-
-
-def open_played(recipe: Recipe, wave: waveio.Waveform,
-                played: Simulation | None = None) -> dict | None:
-    """The error budget of a waveform as played on the open system (README,
-    "Decoherence"): channel infidelity and leakage, coherent and incoherent error.
-    None when the recipe's system has no coherence times or the target is a state."""
-    if not recipe.system.collapse or not recipe.target.is_gate:
-        return None
-    from shaper.physics.simulation import simulate_open
-
-    chain = for_waveform(recipe, wave)
-    played = played or simulate_played(recipe, wave)
-    result = simulate_open(recipe.system, recipe.target, chain(wave.to_hz(recipe.system)),
-                           chain.dt_s, virtual_z=recipe.virtual_z, closed=played)
-    return {**result.figures(), "coherence_times": recipe.system.coherence}
-
-
-def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """The waveform's samples in Hz without its IF (the envelope the optimiser shaped; for a
-    pre-distorted or mixer-corrected file, what it means the chip to see)."""
-    samples = intended(recipe, wave)
-    if wave.if_frequency_hz:
-        from shaper.signal.modulation import demodulate
-        samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
-                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
-    return samples
-
-
-def band_fraction(recipe: Recipe, wave: waveio.Waveform) -> float | None:
-    """The waveform's out-of-band fraction, measured as the bandwidth cost measures it: on
-    the baseband envelope (relative to the carrier), :func:`shaper.costs.out_of_band`.
-    None when the recipe sets no bandwidth."""
-    if not recipe.bandwidth_hz:
-        return None
-    from shaper.costs import out_of_band
-    from shaper.costs.terms import band_limited
-    iq, bb, cutoffs = band_limited(recipe, recipe_layout(recipe))
-    return float(out_of_band(baseband(recipe, wave), 1 / wave.sample_rate_hz, cutoffs, iq, bb))
-
-
-def member_figures(recipe: Recipe, wave: waveio.Waveform) -> tuple[list, list] | None:
-    """Infidelity and leakage of every ensemble member on the waveform as the DAC plays it.
-
-    None without an ensemble. With an IF the members are simulated on the sub-steps of
-    :func:`shaper.physics.grid.substeps` (accurate to about 1e-9; the nominal figures of
-    :func:`simulate_played` are extrapolated further).
-    """
-    if not has_ensemble(recipe):
-        return None
-    import jax
-
-    from shaper.costs import evaluate_members
-    from shaper.physics._jax import device
-    samples = wave.to_hz(recipe.system)
-    chain = for_waveform(recipe, wave)
-    problem = waveform_problem(recipe, samples.shape[0], steps=chain.steps, dt=chain.period_s)
-    flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
-                 virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator,
-                 drive=None if chain.identity else chain)
-    scores = jax.jit(lambda x, p: evaluate_members(x, p, **flags))(device(samples, float), problem)
-    fid, leak = np.asarray(scores.members.fidelity), np.asarray(scores.members.leakage)
-    return (1.0 - fid[1:]).tolist(), leak[1:].tolist()
-
-
-def judge_waveform(recipe: Recipe, wave: waveio.Waveform, played: Simulation,
-                   members: tuple[list, list] | None = None) -> Verdict:
-    """The one rule (:mod:`shaper.costs.verdict`) on a waveform as played, without margin.
-
-    ``members``: the ensemble's figures if already computed (:func:`member_figures`).
-    """
-    members = members or member_figures(recipe, wave) or (None, None)
-    return judge(recipe, infidelity=played.infidelity, leakage=played.leakage,
-                 member_infidelities=members[0], member_leakages=members[1],
-                 out_of_band=band_fraction(recipe, wave))
 
 
 def resample(samples_hz: np.ndarray, rate_in: float, rate_out: float) -> tuple[np.ndarray, str]:
@@ -354,12 +181,8 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
     samples = baseband(recipe, wave)
     n = int(report.get("pulse_samples", samples.shape[0]))
     samples = samples[wave.pulse_start:wave.pulse_start + n]
-    recipe = _at_rate(recipe, wave.sample_rate_hz, n)
+    recipe = at_samples(recipe, n, rate_hz=wave.sample_rate_hz)
     return recipe, samples, report, report_path.parent
-
-
-def _at_rate(recipe: Recipe, rate: float, n: int) -> Recipe:
-    return replace(recipe, sample_rate_hz=rate, samples=n, duration_s=n / rate)
 
 
 def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideband=None,
@@ -392,12 +215,12 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     own, _ = make_waveform(recipe, samples, replace(recipe.export, dac_bits=None,
                                                     granularity=1, clip=True),
                            recipe.sample_rate_hz)
-    original = simulate_played(recipe, own)
+    original = simulate_played(recipe, own)  # the run's own figures, for comparison
     rate = sample_rate_hz or recipe.sample_rate_hz
     method = "none"
     if rate != recipe.sample_rate_hz:
         samples, method = resample(samples, recipe.sample_rate_hz, rate)
-    target = _at_rate(recipe, rate, samples.shape[0])
+    target = at_samples(recipe, samples.shape[0], rate_hz=rate)
     settings = replace(recipe.export,
                        dac_bits=bits or recipe.export.dac_bits,
                        if_frequency_hz=recipe.export.if_frequency_hz if if_hz is None else if_hz,
@@ -410,8 +233,8 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
         raise WaveformError(f"the IF {format_quantity(settings.if_frequency_hz, 'Hz')} is not "
                             f"below the Nyquist frequency {format_quantity(rate / 2, 'Hz')}")
     wave, clipped = make_waveform(target, samples, settings, rate)
-    played = simulate_played(target, wave)
-    verdict = judge_waveform(target, wave, played)
+    playback = Playback(target, wave)
+    played, verdict = playback.nominal, playback.verdict()
     files = waveio.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
                                   recipe_sha256=recipe.sha256, bare=bare)
     report = {**played.figures(), "waveform": files[0].name, "files": [f.name for f in files],
@@ -419,7 +242,8 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
               "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,
               "sideband": settings.sideband, "clipped_samples": clipped,
               "values": "dac_codes" if wave.codes else "fractions",
-              "line": line_figures(target, wave, played),
+              "trust": playback.trust_block(),
+              "line": playback.line_block(),
               "mixer": mixer_figures(target, samples, settings, rate),
               "at_run_rate": original.figures(), "source": str(run_path),
               "targets": {"infidelity": recipe.optimizer.target_infidelity,

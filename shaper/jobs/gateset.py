@@ -13,7 +13,6 @@ alike on I and Q, so the derivation holds through them too.
 
 from __future__ import annotations
 
-import copy
 import csv
 import io
 from dataclasses import dataclass, field
@@ -24,21 +23,15 @@ import numpy as np
 from shaper.errors import InputError
 from shaper.io import atomic, waveio
 from shaper.physics.targets import DERIVED, plan, slug  # noqa: F401 (part of this job)
-from shaper.recipe import Recipe, load_recipe
+from shaper.recipe import Recipe
+from shaper.recipe import derive as recipes
 
 
 def for_gate(recipe: Recipe, label: str, *, samples: int | None = None,
              name: str | None = None) -> Recipe:
     """The set's recipe for one of its gates (named ``<set>-<gate>`` unless ``name``),
-    optionally at another length."""
-    raw = copy.deepcopy(recipe.raw)
-    gate = {k: v for k, v in raw.get("gate", {}).items() if k != "targets"}
-    gate["target"] = label
-    raw["gate"] = gate
-    raw["name"] = name or f"{recipe.name}-{slug(label)}"
-    if samples is not None:
-        raw["pulse"]["duration"] = samples / recipe.sample_rate_hz
-    return load_recipe(raw)
+    optionally at another length (:func:`shaper.recipe.derive.for_gate`)."""
+    return recipes.for_gate(recipe, label, samples=samples, name=name, slug=slug)
 
 
 def rotated(recipe: Recipe, samples_hz: np.ndarray, phase_deg: float) -> np.ndarray:
@@ -68,13 +61,18 @@ class GateRow:
     frame_after_rad: list = field(default_factory=list)
     subject: str = ""  # the qubit or pair (chip runs)
     missed: str = ""
+    # infidelity and leakage are the verdict's (README, "How far the figures are trusted");
+    # these are the optimiser's model's: rotating frame, the recipe's levels
+    rotating_infidelity: float | None = None
+    rotating_leakage: float | None = None
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
            folder: Path) -> GateRow:
     """Export the parent's pulse turned by the phase as gate ``label`` into ``folder`` and
     judge it on what the instrument plays."""
-    from shaper.jobs.export import judge_waveform, make_waveform, simulate_played
+    from shaper.jobs.export import make_waveform
+    from shaper.jobs.playback import Playback
 
     family = parent.name.removesuffix(f"-{slug(parent.target.label)}")  # the set's name
     recipe = for_gate(parent, label, samples=samples_hz.shape[0],
@@ -84,11 +82,13 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
     folder.mkdir(parents=True, exist_ok=True)
     files = waveio.write_waveform(folder, recipe.name, wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
-    played = simulate_played(recipe, wave)
-    verdict = judge_waveform(recipe, wave, played)
+    playback = Playback(recipe, wave)
+    played, verdict = playback.nominal, playback.verdict()
+    infidelity, leakage, _ = playback.trusted()
     return GateRow(gate=label, derived_from=parent.target.label, phase_deg=phase_deg,
                    duration_s=recipe.duration_s, samples=recipe.samples,
-                   infidelity=played.infidelity, leakage=played.leakage, met=verdict.met,
+                   infidelity=infidelity, leakage=leakage, met=verdict.met,
+                   rotating_infidelity=played.infidelity, rotating_leakage=played.leakage,
                    waveform=str(files[0].relative_to(folder.parent)),
                    frame_before_rad=list(played.frame_before_rad or []),
                    frame_after_rad=list(played.frame_after_rad or []),
@@ -97,9 +97,11 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
 
 def optimised_row(recipe: Recipe, report: dict, folder: Path, root: Path) -> GateRow:
     """The row of an optimised gate, from its run's report."""
+    trust = report.get("trust") or report
     return GateRow(gate=recipe.target.label, derived_from="", phase_deg=0.0,
                    duration_s=recipe.duration_s, samples=recipe.samples,
-                   infidelity=report["infidelity"], leakage=report["leakage"],
+                   infidelity=trust["infidelity"], leakage=trust["leakage"],
+                   rotating_infidelity=report["infidelity"], rotating_leakage=report["leakage"],
                    met=report["targets"]["met"],
                    waveform=str((folder / report["waveform"]).relative_to(root)),
                    frame_before_rad=list(report.get("frame_before_rad") or []),
@@ -108,7 +110,12 @@ def optimised_row(recipe: Recipe, report: dict, folder: Path, root: Path) -> Gat
 
 
 COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "samples",
-           "infidelity", "leakage", "met", "frame_before_rad", "frame_after_rad", "waveform")
+           "infidelity", "leakage", "met", "frame_before_rad", "frame_after_rad", "waveform",
+           "rotating_frame_infidelity", "rotating_frame_leakage")
+
+
+def _number(value: float | None, spec: str = ".6e") -> str:
+    return "" if value is None else format(value, spec)
 
 
 def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
@@ -121,16 +128,21 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          f"{r.duration_s:.6e}", r.samples, f"{r.infidelity:.6e}",
                          f"{r.leakage:.6e}", "yes" if r.met else "no",
                          " ".join(f"{v:.6f}" for v in r.frame_before_rad),
-                         " ".join(f"{v:.6f}" for v in r.frame_after_rad), r.waveform])
-    lines = ["| subject | gate | from | phase | duration | infidelity | leakage | met | "
-             "frame before / after (rad) |", "|---|---|---|---|---|---|---|---|---|"]
+                         " ".join(f"{v:.6f}" for v in r.frame_after_rad), r.waveform,
+                         _number(r.rotating_infidelity), _number(r.rotating_leakage)])
+    lines = ["Infidelity and leakage as judged (README, \"How far the figures are trusted\"); "
+             "the optimiser's rotating frame beside them.", "",
+             "| subject | gate | from | phase | duration | infidelity | leakage | met | "
+             "rotating frame | frame before / after (rad) |",
+             "|---|---|---|---|---|---|---|---|---|---|"]
     for r in rows:
         frames = (" ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / "
                   + " ".join(f"{v:.3f}" for v in r.frame_after_rad)) \
             if r.frame_before_rad else ""
         lines.append(f"| {r.subject} | {r.gate} | {r.derived_from or 'optimised'} | "
                      f"{r.phase_deg:g} | {r.duration_s * 1e9:.3f} ns | {r.infidelity:.2e} | "
-                     f"{r.leakage:.2e} | {'yes' if r.met else 'NO'} | {frames} |")
+                     f"{r.leakage:.2e} | {'yes' if r.met else 'NO'} | "
+                     f"{_number(r.rotating_infidelity, '.2e')} | {frames} |")
     csv_path, md_path = folder / f"{name}.csv", folder / f"{name}.md"
     atomic.write_text(csv_path, text.getvalue())
     atomic.write_text(md_path, "\n".join(lines) + "\n")

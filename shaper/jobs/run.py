@@ -22,16 +22,8 @@ from shaper.io.runfolder import prepare_folder
 from shaper.io.runlog import RunLog
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
-from shaper.jobs.export import (
-    check_predistortion,
-    judge_waveform,
-    line_figures,
-    make_waveform,
-    member_figures,
-    mixer_figures,
-    open_played,
-    simulate_played,
-)
+from shaper.jobs.export import check_predistortion, make_waveform, mixer_figures
+from shaper.jobs.playback import Playback
 from shaper.optimise.options import RunOptions
 from shaper.optimise.starts import Result, optimize, read_history
 from shaper.physics.simulation import Simulation
@@ -57,11 +49,12 @@ class RunOutput:
     files: list[Path]
 
 
-def build_report(result: Result, exported: Simulation, internal: Simulation,
-                 waveform: waveio.Waveform, clipped: int, csv_name: str) -> dict:
+def build_report(result: Result, playback: Playback, internal: Simulation, clipped: int,
+                 csv_name: str) -> dict:
     recipe, best, o = result.recipe, result.best, result.recipe.optimizer
-    members = member_figures(recipe, waveform)
-    verdict = judge_waveform(recipe, waveform, exported, members)
+    waveform, exported = playback.wave, playback.nominal
+    members = playback.members
+    verdict = playback.verdict()
     band = verdict.judged.get("out_of_band")
     return {
         **exported.figures(),
@@ -75,8 +68,10 @@ def build_report(result: Result, exported: Simulation, internal: Simulation,
             "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
             "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
             "infidelity": members[0], "leakage": members[1]},
-        "open_system": open_played(recipe, waveform, exported),
-        "line": line_figures(recipe, waveform, exported),
+        "trust": playback.trust_block(),
+        "system_model": recipe.system.models or "matrices",
+        "open_system": playback.open_system,
+        "line": playback.line_block(),
         "mixer": mixer_figures(recipe, result.samples, recipe.export, recipe.sample_rate_hz),
         "out_of_band_fraction": band,
         "bandwidth_cutoff_hz": recipe.bandwidth_hz,
@@ -203,13 +198,14 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
                                       recipe.sample_rate_hz)
     files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
-    exported = simulate_played(recipe, waveform)
+    playback = Playback(recipe, waveform)
+    exported = playback.nominal
     stage("re-simulation of the export")
     unquantised, _ = make_waveform(recipe, result.samples,
                                    replace(recipe.export, dac_bits=None, granularity=1),
                                    recipe.sample_rate_hz)
-    internal = simulate_played(recipe, unquantised)
-    report = build_report(result, exported, internal, waveform, clipped, files[0].name)
+    internal = Playback(recipe, unquantised).nominal
+    report = build_report(result, playback, internal, clipped, files[0].name)
     atomic.write_json(folder / "report.json", report)
     (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
     stage("report")
@@ -250,8 +246,8 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     """
     from types import SimpleNamespace
 
-    from shaper.jobs.export import baseband
     from shaper.jobs.painter import draw_here
+    from shaper.jobs.playback import baseband
 
     draw = draw or draw_here
     system, dt = recipe.system, dt or recipe.dt

@@ -15,7 +15,6 @@ resumed sweep does not redo finished durations.
 
 from __future__ import annotations
 
-import copy
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -28,7 +27,8 @@ from shaper.optimise.loops import StartResult
 from shaper.optimise.objective import Objective, make_objective
 from shaper.optimise.options import RunOptions
 from shaper.optimise.starts import Result, optimize
-from shaper.recipe import Recipe, load_recipe
+from shaper.recipe import Recipe
+from shaper.recipe.derive import at_samples
 from shaper.recipe.units import format_quantity, parse_quantity
 from shaper.signal.chain import for_recipe
 
@@ -65,9 +65,7 @@ def bucket(samples: int, hold: int) -> int:
 
 
 def recipe_at(recipe: Recipe, samples: int) -> Recipe:
-    raw = copy.deepcopy(recipe.raw)
-    raw["pulse"]["duration"] = samples / recipe.sample_rate_hz
-    return load_recipe(raw)
+    return at_samples(recipe, samples)
 
 
 def stretch(samples_hz: np.ndarray, n: int) -> np.ndarray:
@@ -96,6 +94,11 @@ class SweepPoint:
     coherent_error: float | None = None
     incoherent_error: float | None = None
     total_error: float | None = None
+    # infidelity and leakage are the verdict's (README, "How far the figures are trusted");
+    # these the optimiser's model's (rotating frame, the recipe's levels)
+    rotating_infidelity: float | None = None
+    rotating_leakage: float | None = None
+    judged_on: str = ""
 
 
 class Sweep:
@@ -147,12 +150,8 @@ class Sweep:
         """Optimise at ``n`` samples (or load the finished point); judge the export."""
         if n in self.points and self.samples_path(n).exists():
             return self.points[n], None
-        from shaper.jobs.export import (
-            judge_waveform,
-            make_waveform,
-            open_played,
-            simulate_played,
-        )
+        from shaper.jobs.export import make_waveform
+        from shaper.jobs.playback import Playback
 
         recipe = recipe_at(self.recipe, n)
         objective = self.objective_for(recipe)
@@ -163,12 +162,14 @@ class Sweep:
                                              workers=self.workers, stop=self.stop),
                           objective=objective, first=None if warm is None else stretch(warm, n))
         wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
-        played = simulate_played(recipe, wave)
-        verdict = judge_waveform(recipe, wave, played)
-        budget = open_played(recipe, wave, played)
+        playback = Playback(recipe, wave)
+        played, verdict, budget = playback.nominal, playback.verdict(), playback.open_system
+        infidelity, leakage, basis = playback.trusted()
         best = result.best
         point = SweepPoint(samples=n, duration_s=n / recipe.sample_rate_hz,
-                           infidelity=played.infidelity, leakage=played.leakage,
+                           infidelity=infidelity, leakage=leakage, judged_on=basis,
+                           rotating_infidelity=played.infidelity,
+                           rotating_leakage=played.leakage,
                            met=verdict.met, iterations=sum(s.iterations for s in result.starts),
                            wall_time_s=time.monotonic() - t0, stop_reason=best.stop_reason,
                            requested_s=requested_s,
@@ -184,7 +185,8 @@ class Sweep:
         asked = "" if requested_s is None or abs(requested_s - point.duration_s) < 1e-15 \
             else f" (asked {format_quantity(requested_s, 's')}: whole samples)"
         self.echo(f"{format_quantity(point.duration_s, 's'):>10} ({n:4d} samples){asked}: "
-                  f"infidelity {point.infidelity:.3e}, leakage {point.leakage:.3e} (exported) "
+                  f"infidelity {point.infidelity:.3e}, leakage {point.leakage:.3e} ({basis}; "
+                  f"rotating frame {played.infidelity:.3e}) "
                   f"{'meets' if point.met else 'misses'} the targets "
                   f"[{point.wall_time_s:.1f} s, compiles so far {self.compiles}]")
         return point, result
@@ -196,7 +198,7 @@ class Sweep:
 
     def pulse(self, n: int) -> np.ndarray | None:
         """The pulse of duration ``n`` in Hz (baseband, without padding), or None."""
-        from shaper.jobs.export import baseband
+        from shaper.jobs.playback import baseband
 
         path = self.samples_path(n)
         if not path.exists():

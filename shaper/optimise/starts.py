@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import json
 import time
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -21,7 +21,7 @@ from shaper.optimise.start import compile_now, run_one
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.pulses import to_samples
 
-__all__ = ["Result", "StartResult", "optimize", "with_budget", "read_history"]
+__all__ = ["Result", "StartResult", "optimize", "read_history"]
 
 
 
@@ -47,15 +47,6 @@ class Result:
     @property
     def history(self) -> list[dict]:
         return self.best.history
-
-
-def with_budget(recipe: Recipe, *, iterations: int | None = None,
-                hours: float | None = None, starts: int | None = None) -> Recipe:
-    """The recipe with the command line's budgets in place of its own."""
-    o = recipe.optimizer
-    return replace(recipe, optimizer=replace(
-        o, max_iterations=iterations or o.max_iterations,
-        max_time_s=hours * 3600 if hours else o.max_time_s, starts=starts or o.starts))
 
 
 def optimize(recipe_or_path, options: RunOptions | None = None, *,

@@ -28,7 +28,7 @@ CHIP_KEYS = {
               "fixed_pair_durations", "cross_resonance_rabi"),
     "template": ("pulse", "cost", "optimizer", "export", "line"),
     "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
-              "max_flux", "flux_range"),
+              "max_flux", "flux_range", "spectrum", "offset_charge"),
     "coupling": ("between", "strength"),
 }
 MAX_QUBITS = 200
@@ -140,10 +140,15 @@ def load_chip(path: str | Path) -> Chip:
                 qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks))
 
 
+# levels per transmon unless a qubit says: 4 keeps the bundled chip's gates within their
+# targets when the verdict re-checks them with 2 more (3 did not: README, "Chips")
+CHIP_LEVELS = 4
+
+
 def _transmon(q: dict) -> dict:
-    out = {"name": q["name"], "levels": q.get("levels", 3), "qubit_frequency": q["frequency"],
-           "anharmonicity": q["anharmonicity"]}
-    for key in ("t1", "t2"):
+    out = {"name": q["name"], "levels": q.get("levels", CHIP_LEVELS),
+           "qubit_frequency": q["frequency"], "anharmonicity": q["anharmonicity"]}
+    for key in ("t1", "t2", "spectrum", "offset_charge"):
         if key in q:
             out[key] = q[key]
     return out
@@ -191,7 +196,8 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
             transmon = _transmon(q)
             system = {"model": "transmon", "levels": transmon["levels"],
                       "qubit_frequency": q["frequency"], "anharmonicity": q["anharmonicity"],
-                      "qubit": qname, **{k: q[k] for k in ("t1", "t2") if k in q}}
+                      "qubit": qname, **{k: q[k] for k in ("t1", "t2", "spectrum",
+                                                             "offset_charge") if k in q}}
             recipe = {"name": f"{name}-{qname}-{slug(parent)}", "system": system,
                       "gate": {"target": parent},
                       "pulse": {**base.get("pulse", {}), "duration": "20 ns",

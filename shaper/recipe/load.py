@@ -46,14 +46,17 @@ def digest(raw: dict) -> str:
     return hashlib.sha256(text.encode()).hexdigest()
 
 
-def load_recipe(source: str | Path | dict) -> Recipe:
+def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe:
     """Read a recipe from a TOML file or a dictionary (as :mod:`tomllib` would return).
+
+    ``path``: for a dictionary, the file it came from (relative file names in it, such as
+    a first guess or a measured response, are found beside that file; errors name it).
 
     Raises:
         RecipeError: the file is missing, not TOML, or any key is wrong.
     """
     if isinstance(source, dict):
-        raw, path = source, None
+        raw = source
     else:
         path = str(source)
         try:

@@ -32,14 +32,14 @@ DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothn
 # allowed keys per section; a nested table's keys are listed under "section.sub"
 KEYS: dict[str, tuple[str, ...]] = {
     "": ("name", "description", "system", "gate", "pulse", "cost", "optimizer", "export",
-         "line"),
+         "line", "verdict"),
     "system": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
                "qubit", "frame_frequency", "transmon", "coupling", "unit", "drift",
                "drift_imag", "controls", "controls_imag", "dims", "computational", "t1", "t2",
-               "collapse", "collapse_rate", "drive"),
+               "collapse", "collapse_rate", "drive", "spectrum", "offset_charge"),
     "system.drive": ("name", "transmon", "frequency"),
     "system.transmon": ("name", "levels", "qubit_frequency", "anharmonicity", "flux", "t1",
-                        "t2"),
+                        "t2", "spectrum", "offset_charge"),
     "system.coupling": ("between", "strength"),
     "gate": ("target", "targets", "matrix", "matrix_imag", "initial_state", "final_state",
              "virtual_z"),
@@ -54,7 +54,9 @@ KEYS: dict[str, tuple[str, ...]] = {
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
                "sideband", "predistort", "mixer", "codes"),
     "export.mixer": ("gain", "phase_deg", "offset_i", "offset_q"),
+    "verdict": ("lab_frame", "carrier_phase_deg", "carrier_phases", "extra_levels"),
 }
+LAB_FRAME = ("auto", "on", "off")
 REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
             "pulse": ("duration", "sample_rate", "max_rabi")}
 
@@ -147,6 +149,37 @@ class ExportSettings:
 
 
 @dataclass(frozen=True, kw_only=True)
+class VerdictSettings:
+    """How a waveform is judged (``[verdict]``; README, "How far the figures are trusted").
+
+    ``lab_frame``: "auto" (on wherever the model knows its lab frame: every transmon
+    model), "on" (refused for a model without one) or "off"; ``carrier_phase_deg``: the
+    carrier's phase at the pulse start if the control system fixes it (None: the worst of
+    ``carrier_phases`` phases spread over half a turn); ``extra_levels``: levels added to
+    every transmon for the re-check the verdict is judged on.
+    """
+
+    lab_frame: str = "auto"
+    carrier_phase_deg: float | None = None
+    carrier_phases: int = 4
+    extra_levels: int = 2
+
+    def __post_init__(self):
+        _require(self.lab_frame in LAB_FRAME, "lab_frame", self.lab_frame)
+        _require(isinstance(self.carrier_phases, int) and 1 <= self.carrier_phases <= 64,
+                 "carrier_phases", self.carrier_phases)
+        _require(isinstance(self.extra_levels, int) and 0 <= self.extra_levels <= 8,
+                 "extra_levels", self.extra_levels)
+
+    def phases_rad(self) -> tuple[float, ...]:
+        """The carrier phases to run: the fixed one, or a spread over [0, pi) (the
+        counter-rotating terms turn at twice the carrier: half a turn covers every case)."""
+        if self.carrier_phase_deg is not None:
+            return (math.radians(self.carrier_phase_deg),)
+        return tuple(math.pi * k / self.carrier_phases for k in range(self.carrier_phases))
+
+
+@dataclass(frozen=True, kw_only=True)
 class Recipe:
     """A validated recipe: the system's arrays and every setting in SI units."""
 
@@ -173,6 +206,7 @@ class Recipe:
     optimizer: OptimizerSettings
     export: ExportSettings
     line: LineSettings = field(default_factory=LineSettings)
+    verdict: VerdictSettings = field(default_factory=VerdictSettings)
     raw: dict = field(repr=False)
 
     @property

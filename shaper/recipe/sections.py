@@ -8,11 +8,11 @@ from shaper.errors import InputError
 from shaper.physics.systems import (
     NAME,
     NAME_RULE,
+    SPECTRA,
     System,
     TransmonSpec,
     coupled_transmons,
     from_matrices,
-    transmon,
 )
 from shaper.physics.targets import Target, gate, state_transfer
 from shaper.recipe.lines import read_line
@@ -21,6 +21,7 @@ from shaper.recipe.schema import (
     ENSEMBLE_RULES,
     GUESSES,
     KEYS,
+    LAB_FRAME,
     METHODS,
     MODELS,
     PADDING,
@@ -28,6 +29,7 @@ from shaper.recipe.schema import (
     MixerSettings,
     OptimizerSettings,
     Recipe,
+    VerdictSettings,
     _Reader,
 )
 from shaper.recipe.units import format_quantity, parse_quantity
@@ -61,8 +63,9 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                                         "operators with rates) to optimise the channel")
     if optimizer.open_system and not target.is_gate:
         r.fail("optimizer.open_system", "optimises a gate's channel; this target is a state")
+    verdict = _verdict(r, r.table(raw, "verdict", "verdict"), system)
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
-                  virtual_z=virtual_z, gate_set=gate_set, weights=weights,
+                  virtual_z=virtual_z, gate_set=gate_set, weights=weights, verdict=verdict,
                   ensemble_detunings_hz=detunings,
                   ensemble_scales=scales, optimizer=optimizer, export=export, line=line,
                   raw=raw, **pulse)
@@ -115,11 +118,27 @@ def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
 # which [system] keys each model reads; any other key would be silently ignored
 MODEL_KEYS = {
     "transmon": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
-                 "qubit", "t1", "t2"),
+                 "qubit", "t1", "t2", "spectrum", "offset_charge"),
     "transmons": ("model", "transmon", "coupling", "frame_frequency", "drive"),
     "matrices": ("model", "unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
                  "computational", "collapse", "collapse_rate"),
 }
+
+
+def _spectrum(r: _Reader, t: dict, where: str) -> dict:
+    """``spectrum`` and ``offset_charge`` as TransmonSpec keywords (README, "The charge
+    model")."""
+    out = {"spectrum": r.choice(t, "spectrum", f"{where}.spectrum", tuple(SPECTRA),
+                                "duffing")}
+    if "offset_charge" in t:
+        if out["spectrum"] != "charge":
+            r.fail(f"{where}.offset_charge", "only the charge model has an offset charge; "
+                                             "add spectrum = \"charge\"")
+        out["offset_charge"] = r.number(t, "offset_charge", f"{where}.offset_charge")
+        if not -1 <= out["offset_charge"] <= 1:
+            r.fail(f"{where}.offset_charge", f"expected Cooper pairs in [-1, 1] (the levels "
+                                             f"repeat with period 1), got {t['offset_charge']!r}")
+    return out
 
 
 def _coherence(r: _Reader, t: dict, where: str) -> dict:
@@ -160,8 +179,10 @@ def _system(r: _Reader, t: dict) -> System:
             if not isinstance(name, str) or not NAME.fullmatch(name):
                 r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
                                        f"got {str(name)[:80]!r}")
-            return transmon(levels, fq, alpha, drive_frequency_hz=fd, name=name,
-                            **_coherence(r, t, "system"))
+            spec = TransmonSpec(name=name, levels=levels, qubit_frequency_hz=fq,
+                                anharmonicity_hz=alpha, **_coherence(r, t, "system"),
+                                **_spectrum(r, t, "system"))
+            return coupled_transmons([spec], [], frame_frequency_hz=fd)
         if model == "transmons":
             return _transmons(r, t)
         return _matrices(r, t)
@@ -188,7 +209,8 @@ def _transmons(r: _Reader, t: dict) -> System:
                                         kind="frequency", positive=True),
             anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
                                       kind="frequency"),
-            flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where)))
+            flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where),
+            **_spectrum(r, item, where)))
     couplings = []
     for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
         pair = item.get("between")
@@ -478,6 +500,27 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",
                                   ENSEMBLE_RULES, d.ensemble_targets),
         open_system=r.flag(t, "open_system", "optimizer.open_system", d.open_system))
+
+
+def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
+    r.check_keys(t, "verdict")
+    d = VerdictSettings()
+    lab = r.choice(t, "lab_frame", "verdict.lab_frame", LAB_FRAME, d.lab_frame)
+    if lab == "on" and system.lab is None:
+        r.fail("verdict.lab_frame", "the lab frame needs a transmon model (the drive "
+                                    "operator and the frame of given matrices are unknown); "
+                                    "use \"auto\" or \"off\"")
+    phase = None
+    if "carrier_phase_deg" in t:
+        phase = r.number(t, "carrier_phase_deg", "verdict.carrier_phase_deg")
+        if not -360 <= phase <= 360:
+            r.fail("verdict.carrier_phase_deg", f"expected degrees in [-360, 360], got {phase!r}")
+    return VerdictSettings(
+        lab_frame=lab, carrier_phase_deg=phase,
+        carrier_phases=r.number(t, "carrier_phases", "verdict.carrier_phases",
+                                d.carrier_phases, integer=True, minimum=1),
+        extra_levels=r.number(t, "extra_levels", "verdict.extra_levels", d.extra_levels,
+                              integer=True, minimum=0))
 
 
 def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],

@@ -1,0 +1,47 @@
+"""Terminal text the commands share: the lines about a report's trust, line and mixer
+blocks."""
+
+from __future__ import annotations
+
+
+def trust_summary(trust: dict | None) -> list[str]:
+    """How the figures change from the optimiser's model to the most faithful one, and
+    which the verdict is judged on (a report's or a check's ``trust`` block)."""
+    if not trust:
+        return []
+    rot = trust["rotating_frame"]
+    out = [f"  rotating frame, {'x'.join(map(str, rot['levels']))} levels (the optimiser's "
+           f"model): infidelity {rot['infidelity']:.3e}, leakage {rot['leakage']:.3e}"]
+    more = trust.get("more_levels")
+    if more:
+        out.append(f"  rotating frame, {'x'.join(map(str, more['levels']))} levels: "
+                   f"infidelity {more['infidelity']:.3e}, leakage {more['leakage']:.3e}")
+    lab = trust.get("lab_frame")
+    if lab:
+        phases = len(lab["phases_rad"])
+        spread = (f" (best carrier phase {lab['infidelity_best']:.3e})" if phases > 1 else "")
+        out.append(f"  lab frame, no rotating-wave approximation, "
+                   f"{'x'.join(map(str, lab['levels']))} levels: infidelity "
+                   f"{lab['infidelity']:.3e}, leakage {lab['leakage']:.3e}{spread}")
+    out.append(f"  judged on: {trust['judged_on']}")
+    return out
+
+
+def line_summary(line: dict | None, mixer: dict | None = None) -> list[str]:
+    """The lines the commands print about the line and mixer blocks of a report."""
+    out = []
+    if line:
+        w, wo = line["with_line"], line["without_line"]
+        how = "pre-distorted at export" if line["predistorted"] else (
+            "in the loop" if line["in_the_loop"] else "not corrected")
+        out.append(f"  through the line model ({how}): infidelity {w['infidelity']:.3e}, "
+                   f"leakage {w['leakage']:.3e}; the same file on an ideal line: "
+                   f"{wo['infidelity']:.3e}, {wo['leakage']:.3e}")
+        if line["predistorted"]:
+            out.append(f"  pre-distortion residual {line['predistortion_residual']:.2e} of the "
+                       f"peak (the line's output against the intended samples)")
+    if mixer:
+        u = mixer["uncorrected"]
+        out.append(f"  mixer corrected in the samples; uncorrected it would give infidelity "
+                   f"{u['infidelity']:.3e}, leakage {u['leakage']:.3e}")
+    return out

@@ -1,0 +1,300 @@
+"""A waveform file as the chip plays it: every figure a report, a check or a verdict gives.
+
+:class:`Playback` is built once per file (recipe, waveform, its samples and its chain,
+:mod:`shaper.signal.chain`); every figure block is computed from it, each re-simulation
+once (a cache per block). ``shaper optimize``, ``check``, ``export``, ``sweep``, gate sets
+and chips all judge through :meth:`Playback.verdict`.
+
+How far each figure is trusted (README, "How far the figures are trusted"):
+
+- ``nominal``: the recipe's model in the rotating frame, its own levels: what the
+  optimiser saw (to about 1e-12 after the sub-step extrapolation);
+- ``more_levels``: the same file on every transmon with ``verdict.extra_levels`` more
+  levels (the truncation's error);
+- ``lab``: the same file with the drive's counter-rotating terms (no rotating-wave
+  approximation, :mod:`shaper.physics.labframe`), on the more-levels system, worst over
+  the carrier phase at the pulse start.
+
+The verdict is judged on the most faithful figures computed: the lab frame on the
+more-levels system where the model knows its lab frame, else the more-levels rotating
+frame, else the nominal figures. Ensemble members stay in the rotating frame at the
+recipe's levels (the report says so).
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from functools import cached_property
+
+import numpy as np
+
+from shaper.costs.problem import has_ensemble, qubit_count, recipe_layout, waveform_problem
+from shaper.costs.verdict import Verdict, judge
+from shaper.io import waveio
+from shaper.physics.simulation import LabSimulation, Simulation, simulate
+from shaper.recipe import Recipe
+from shaper.signal.chain import for_waveform, line_columns
+from shaper.signal.mixer import Mixer
+
+
+class Playback:
+    """One waveform file on one recipe's system, as the instrument plays it.
+
+    Attributes:
+        recipe, wave: what is played and on what.
+        samples: ``(n, k)`` the file's samples in Hz (still carrying any IF).
+        chain: the file's signal chain (mixer and line of the recipe).
+    """
+
+    def __init__(self, recipe: Recipe, wave: waveio.Waveform):
+        self.recipe, self.wave = recipe, wave
+        self.samples = wave.to_hz(recipe.system)
+        self.chain = for_waveform(recipe, wave)
+        self._played: dict[tuple, Simulation] = {}
+
+    def played(self, *, line: bool = True, mixer: bool = True,
+               extrapolate: bool = True) -> Simulation:
+        """Figures in the rotating frame (the recipe's model), once per variant.
+
+        The chain includes the recipe's mixer and line unless ``mixer``/``line`` is False.
+        Where it runs on sub-steps (an IF, a line, a carrier offset), the figures on ``s``
+        and ``2 s`` sub-steps per sample are extrapolated (Richardson; the sub-step error
+        falls as 1/s^2), exact to about 1e-12 here; ``extrapolate=False`` gives the
+        figures on the chain's own ``s`` (what the optimiser saw).
+        """
+        key = (line, mixer, extrapolate)
+        if key not in self._played:
+            self._played[key] = self._simulate(line, mixer, extrapolate)
+        return self._played[key]
+
+    def _simulate(self, line: bool, mixer: bool, extrapolate: bool) -> Simulation:
+        recipe = self.recipe
+        chain = self.chain if (line and mixer) else for_waveform(recipe, self.wave, line=line,
+                                                                 mixer=mixer)
+        flags = dict(virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator)
+        if chain.identity:
+            return simulate(recipe.system, recipe.target, self.samples, chain.dt_s, **flags)
+        steps = chain.steps
+        if not extrapolate:
+            coarse = simulate(recipe.system, recipe.target, chain(self.samples), chain.dt_s,
+                              **flags)
+            return replace(coarse, populations=coarse.populations[:, ::steps])
+        coarse, fine = (simulate(recipe.system, recipe.target, c(self.samples), c.dt_s,
+                                 **flags) for c in (chain, chain.finer(2)))
+        fidelity = fine.fidelity + (fine.fidelity - coarse.fidelity) / 3
+        leak = fine.leakage + (fine.leakage - coarse.leakage) / 3
+        return replace(fine, fidelity=fidelity, infidelity=1 - fidelity, leakage=leak,
+                       populations=fine.populations[:, ::2 * steps])
+
+    @property
+    def nominal(self) -> Simulation:
+        """The rotating-frame figures with the recipe's line and mixer."""
+        return self.played()
+
+    @cached_property
+    def members(self) -> tuple[list, list] | None:
+        """Infidelity and leakage of every ensemble member (rotating frame, the recipe's
+        levels), or None without an ensemble. With sub-steps the members are simulated on
+        the chain's own grid (accurate to about 1e-9)."""
+        recipe = self.recipe
+        if not has_ensemble(recipe):
+            return None
+        from shaper.physics._jax import device
+        problem = waveform_problem(recipe, self.samples.shape[0], steps=self.chain.steps,
+                                   dt=self.chain.period_s)
+        flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
+                     virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator,
+                     drive=None if self.chain.identity else self.chain)
+        scores = _members_program(flags)(device(self.samples, float), problem)
+        fid, leak = np.asarray(scores.members.fidelity), np.asarray(scores.members.leakage)
+        return (1.0 - fid[1:]).tolist(), leak[1:].tolist()
+
+    @cached_property
+    def more_levels(self) -> Playback | None:
+        """The same file on every transmon with ``verdict.extra_levels`` more levels
+        (None: no extra levels asked, or a matrices model, whose levels are fixed)."""
+        extra = self.recipe.verdict.extra_levels
+        if not extra or self.recipe.system.lab is None:
+            return None
+        from shaper.recipe.derive import with_levels
+        return Playback(with_levels(self.recipe, extra=extra), self.wave)
+
+    @property
+    def faithful(self) -> Playback:
+        """The playback whose system is the most faithful: with more levels if asked."""
+        return self.more_levels or self
+
+    @cached_property
+    def lab(self) -> LabSimulation | None:
+        """The lab-frame figures on the most faithful system, worst over the carrier
+        phase (None where the verdict leaves the lab frame off or the model has none)."""
+        v = self.recipe.verdict
+        if v.lab_frame == "off" or self.recipe.system.lab is None:
+            return None
+        from shaper.physics.simulation import simulate_lab
+
+        play = self.faithful
+        chain, recipe = play.chain, play.recipe
+        turning = abs(chain.if_hz) + max((abs(f) for _, _, f in chain.carriers), default=0.0)
+        return simulate_lab(recipe.system, recipe.target,
+                            lambda t: chain.envelope_at(play.samples, t),
+                            self.samples.shape[0] * chain.steps, chain.dt_s,
+                            start_s=-chain.start * chain.period_s, phases_rad=v.phases_rad(),
+                            envelope_hz=turning, virtual_z=recipe.virtual_z)
+
+    def trusted(self) -> tuple[float, float, str]:
+        """(infidelity, leakage, what they are): the most faithful figures computed."""
+        play = self.faithful
+        levels = "x".join(map(str, play.recipe.system.dims))
+        if self.lab is not None:
+            phases = self.recipe.verdict.phases_rad()
+            how = (f"at carrier phase {np.degrees(phases[0]):g} deg" if len(phases) == 1
+                   else f"worst of {len(phases)} carrier phases")
+            return self.lab.infidelity, self.lab.leakage, f"lab frame, {levels} levels, {how}"
+        sim = play.nominal
+        return sim.infidelity, sim.leakage, f"rotating frame, {levels} levels"
+
+    def trust_block(self) -> dict:
+        """The report's ``trust`` block: every model's figures of this file, and which the
+        verdict is judged on."""
+        infidelity, leakage, basis = self.trusted()
+        out = {"judged_on": basis, "infidelity": infidelity, "leakage": leakage,
+               "rotating_frame": {"levels": list(self.recipe.system.dims),
+                                  "infidelity": self.nominal.infidelity,
+                                  "leakage": self.nominal.leakage}}
+        if self.more_levels is not None:
+            sim = self.more_levels.nominal
+            out["more_levels"] = {"levels": list(self.more_levels.recipe.system.dims),
+                                  "infidelity": sim.infidelity, "leakage": sim.leakage}
+        if self.lab is not None:
+            out["lab_frame"] = {"levels": list(self.faithful.recipe.system.dims),
+                                **self.lab.figures()}
+        if self.members is not None:
+            out["ensemble"] = "rotating frame, the recipe's levels"
+        return out
+
+    def verdict(self) -> Verdict:
+        """The one rule (:mod:`shaper.costs.verdict`) without margin, on the most faithful
+        figures (:meth:`trusted`) and the ensemble's."""
+        infidelity, leakage, basis = self.trusted()
+        members = self.members or (None, None)
+        return judge(self.recipe, infidelity=infidelity, leakage=leakage,
+                     member_infidelities=members[0], member_leakages=members[1],
+                     out_of_band=self.band_fraction, basis=basis)
+
+    @cached_property
+    def open_system(self) -> dict | None:
+        """The error budget on the open system (README, "Decoherence"): channel infidelity
+        and leakage, coherent and incoherent error. None without coherence times or for a
+        state target."""
+        recipe = self.recipe
+        if not recipe.system.collapse or not recipe.target.is_gate:
+            return None
+        from shaper.physics.simulation import simulate_open
+
+        result = simulate_open(recipe.system, recipe.target, self.chain(self.samples),
+                               self.chain.dt_s, virtual_z=recipe.virtual_z,
+                               closed=self.nominal)
+        return {**result.figures(), "coherence_times": recipe.system.coherence}
+
+    def intended(self) -> np.ndarray:
+        """The samples (Hz) the file means the chip to see, averaged per sample: its own,
+        with any mixer correction and pre-distortion undone (still carrying the IF)."""
+        return intended(self.recipe, self.wave)
+
+    def baseband(self) -> np.ndarray:
+        """The envelope the optimiser shaped: :meth:`intended` without the IF."""
+        return baseband(self.recipe, self.wave)
+
+    @cached_property
+    def band_fraction(self) -> float | None:
+        """The out-of-band fraction as the bandwidth cost measures it (on the baseband
+        envelope, :func:`shaper.costs.out_of_band`); None without a bandwidth."""
+        recipe = self.recipe
+        if not recipe.bandwidth_hz:
+            return None
+        from shaper.costs import out_of_band
+        from shaper.costs.terms import band_limited
+        iq, bb, cutoffs = band_limited(recipe, recipe_layout(recipe))
+        return float(out_of_band(self.baseband(), 1 / self.wave.sample_rate_hz, cutoffs, iq,
+                                 bb))
+
+    def line_block(self) -> dict | None:
+        """The report's ``line`` block: the figures with the line, without it, and on the
+        optimiser's own grid (its convergence). None without a line."""
+        recipe = self.recipe
+        if not recipe.line.active:
+            return None
+        played, ideal = self.nominal, self.played(line=False)
+        own = self.played(extrapolate=False)
+        return {"channels": {name: [stage_summary(s) for s in stages]
+                             for name, stages in recipe.line.stages.items()},
+                "oversample": recipe.line.oversample,
+                "in_the_loop": not recipe.export.predistort,
+                "with_line": {"infidelity": played.infidelity, "leakage": played.leakage},
+                "without_line": {"infidelity": ideal.infidelity, "leakage": ideal.leakage},
+                "at_oversample": {"infidelity": own.infidelity, "leakage": own.leakage},
+                "predistorted": self.wave.predistorted,
+                "predistortion_residual": self.wave.predistortion_residual}
+
+
+def _members_program(flags: dict):
+    """One jitted ensemble evaluation per set of static flags and chain, kept for the
+    process (a second file with the same layout is not traced again)."""
+    key = repr(sorted(flags.items(), key=lambda item: item[0]))
+    if key not in _MEMBERS:
+        import jax
+
+        from shaper.costs import evaluate_members
+        if len(_MEMBERS) >= 16:
+            _MEMBERS.pop(next(iter(_MEMBERS)))
+        _MEMBERS[key] = jax.jit(lambda x, p: evaluate_members(x, p, **flags))
+    return _MEMBERS[key]
+
+
+_MEMBERS: dict = {}  # repr of the static flags -> compiled program
+
+
+def simulate_played(recipe: Recipe, wave: waveio.Waveform, **variant) -> Simulation:
+    """The rotating-frame figures of a file as played (:meth:`Playback.played`)."""
+    return Playback(recipe, wave).played(**variant)
+
+
+def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
+    """The samples (Hz) a file means the chip to see (:meth:`Playback.intended`)."""
+    samples = wave.to_hz(recipe.system)
+    if wave.mixer_corrected:
+        samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
+    if wave.predistorted:
+        from shaper.signal.line import through_line
+        for column, stages in line_columns(recipe):
+            samples[:, column] = through_line(samples[:, column], stages,
+                                              1 / wave.sample_rate_hz,
+                                              max(recipe.line.oversample, 1))
+    return samples
+
+
+def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
+    """A file's samples in Hz without its IF (the envelope the optimiser shaped; for a
+    pre-distorted or mixer-corrected file, what it means the chip to see)."""
+    samples = intended(recipe, wave)
+    if wave.if_frequency_hz:
+        from shaper.signal.modulation import demodulate
+        samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
+                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
+    return samples
+
+
+def stage_summary(stage) -> dict:
+    """A line stage as the report shows it (SI units)."""
+    out = {"kind": stage.kind}
+    if stage.order:
+        out["order"] = stage.order
+    if stage.cutoff_hz:
+        out["cutoff_hz"] = stage.cutoff_hz
+    if stage.amplitudes:
+        out["amplitudes"] = list(stage.amplitudes)
+        out["time_constants_s"] = list(stage.time_constants_s)
+    if stage.source:
+        out.update(file=stage.source, response=stage.response)
+    return out
