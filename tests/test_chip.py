@@ -43,6 +43,7 @@ name = "qa"
 frequency = "5.0 GHz"
 anharmonicity = "-220 MHz"
 max_rabi = "60 MHz"
+levels = 3  # (the chip default is 4; 3 keeps these runs of the machinery short)
 
 [[qubit]]
 name = "qb"
@@ -51,12 +52,14 @@ anharmonicity = "-210 MHz"
 max_rabi = "60 MHz"
 flux = true
 flux_range = ["-900 MHz", 0]
+levels = 3
 
 [[qubit]]
 name = "qc"
 frequency = "5.2 GHz"
 anharmonicity = "-230 MHz"
 max_rabi = "60 MHz"
+levels = 3
 
 [[coupling]]
 between = ["qa", "qb"]

@@ -171,7 +171,9 @@ def chain_problem(recipe: Recipe, chain, layout: Layout | None = None) -> Proble
     if chain.identity:
         return make_problem(recipe, layout, real=recipe.samples)
     problem = make_problem(recipe, layout, steps=chain.steps)
-    return problem._replace(dt=device(chain.dt_s, np.float64))
+    slices = (problem.envelope.shape[0] + chain.lead + chain.tail) * chain.steps
+    return problem._replace(dt=device(chain.dt_s, np.float64),
+                            active=device(np.ones(slices), np.float64))
 
 
 def open_scalings(recipe: Recipe, layout: Layout, dt: float) -> int | None:

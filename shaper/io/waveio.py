@@ -17,6 +17,7 @@ import numpy as np
 
 from shaper.errors import WaveformError
 from shaper.io import atomic
+from shaper.physics.grid import padding
 from shaper.physics.systems import System
 
 FORMAT = "shaper-waveform/1"
@@ -91,8 +92,8 @@ def quantise(fractions: np.ndarray, bits: int, *, bound: np.ndarray | None = Non
 def pad(fractions: np.ndarray, granularity: int, placement: str) -> tuple[np.ndarray, int]:
     """Zero-pad to a whole multiple of ``granularity`` samples; return (padded, pulse_start)."""
     n = fractions.shape[0]
-    extra = (-n) % granularity
-    before = {"after": 0, "before": extra, "centre": extra // 2}[placement]
+    before, after = padding(n, granularity, placement)
+    extra = before + after
     out = np.zeros((n + extra,) + fractions.shape[1:])
     out[before:before + n] = fractions
     return out, before

@@ -201,8 +201,8 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     playback = Playback(recipe, waveform)
     exported = playback.nominal
     stage("re-simulation of the export")
-    unquantised, _ = make_waveform(recipe, result.samples,
-                                   replace(recipe.export, dac_bits=None, granularity=1),
+    unquantised, _ = make_waveform(recipe, result.samples,  # padded as the optimiser saw
+                                   replace(recipe.export, dac_bits=None),
                                    recipe.sample_rate_hz)
     internal = Playback(recipe, unquantised).nominal
     report = build_report(result, playback, internal, clipped, files[0].name)

@@ -87,7 +87,7 @@ def levels(ej_hz: float, ec_hz: float, count: int, *, offset_charge: float = 0.0
     Examples:
         >>> t = levels(15e9, 200e6, 3)  # E_J/E_C = 75
         >>> e = t.energies_hz
-        >>> round(e[1] / 1e9, 3), round((e[2] - 2 * e[1]) / 1e6, 1)
+        >>> round(float(e[1]) / 1e9, 3), round(float(e[2] - 2 * e[1]) / 1e6, 1)
         (4.69, -222.8)
     """
     charges = basis_size(ej_hz, ec_hz, offset_charge, count)

@@ -35,3 +35,12 @@ def carrier_substeps(offset_hz: float, dt: float) -> int:
         (1, 6)
     """
     return max(1, math.ceil(2 * math.pi * abs(offset_hz) * dt / CARRIER_PHASE_STEP))
+
+
+def padding(samples: int, granularity: int, placement: str) -> tuple[int, int]:
+    """Zero samples (before, after) that pad ``samples`` to a multiple of ``granularity``
+    (``placement``: "after", "before" or "centre"), as the export pads."""
+    extra = (-samples) % granularity
+    before = {"after": 0, "before": extra, "centre": extra // 2}[placement]
+    return before, extra - before
+

@@ -64,18 +64,23 @@ class LabModel:
 
     def harmonics(self, operator: np.ndarray) -> dict[int, np.ndarray]:
         """``k -> X^(k)`` for k >= 0 (the entries with ``N_i - N_j = k``), non-zero ones."""
-        diff = np.rint(self.excitations[:, None] - self.excitations[None, :]).astype(int)
+        n = self.excitations
+        scale = max(float(np.abs(operator).max(initial=0.0)), 1e-300)
+        rows, cols = np.nonzero(np.abs(operator) > 1e-15 * scale)
+        diff = np.rint(n[rows] - n[cols]).astype(int)
         out = {}
-        for k in range(0, int(diff.max(initial=0)) + 1):
-            part = np.where(diff == k, operator, 0)
-            if np.any(np.abs(part) > 1e-15 * max(np.abs(operator).max(), 1e-300)):
-                out[k] = part
+        for k in np.unique(diff[diff >= 0]):
+            pick = diff == k
+            part = np.zeros_like(operator)
+            part[rows[pick], cols[pick]] = operator[rows[pick], cols[pick]]
+            out[int(k)] = part
         return out
 
     def rotating_drift(self) -> np.ndarray:
         """``H_static^(0) - f N``: the drift the System keeps (a test compares the two)."""
-        zero = self.harmonics(self.static).get(0, np.zeros_like(self.static))
-        return zero - self.frame_hz * np.diag(self.excitations).astype(complex)
+        n = self.excitations
+        same = np.abs(n[:, None] - n[None, :]) < 0.5
+        return np.where(same, self.static, 0) - self.frame_hz * np.diag(n).astype(complex)
 
 
 @dataclass(frozen=True)

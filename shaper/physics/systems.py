@@ -219,6 +219,9 @@ def _computational_indices(dims: Sequence[int], qubit_levels: int = 2) -> np.nda
                      for bits in itertools.product(range(qubit_levels), repeat=len(dims))])
 
 
+MAX_CHARGE_LEVELS = 40
+
+
 @dataclass(frozen=True, kw_only=True)
 class TransmonSpec:
     """One transmon: levels >= 2, qubit frequency and anharmonicity in Hz."""
@@ -240,6 +243,10 @@ class TransmonSpec:
         if self.spectrum not in SPECTRA:
             raise InputError(f"transmon {self.name!r}: spectrum must be one of "
                              f"{', '.join(SPECTRA)}, got {self.spectrum!r}")
+        if self.spectrum == "charge" and self.levels > MAX_CHARGE_LEVELS:
+            raise InputError(f"transmon {self.name!r}: the charge model keeps at most "
+                             f"{MAX_CHARGE_LEVELS} levels (levels far above the cosine "
+                             f"potential are not a transmon's), got {self.levels}")
         transmon_collapse(self.levels, self.t1_s, self.t2_s)  # checks the times
 
     def ladder(self) -> Ladder:

@@ -26,7 +26,7 @@ CHIP_KEYS = {
     "": ("name", "description", "gates", "template", "qubit", "coupling"),
     "gates": ("single", "single_durations", "pair", "pair_durations", "fixed_pair",
               "fixed_pair_durations", "cross_resonance_rabi"),
-    "template": ("pulse", "cost", "optimizer", "export", "line"),
+    "template": ("pulse", "cost", "optimizer", "export", "line", "verdict"),
     "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
               "max_flux", "flux_range", "spectrum", "offset_charge"),
     "coupling": ("between", "strength"),

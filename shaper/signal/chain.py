@@ -5,6 +5,9 @@ samples, modulated with the recipe's IF), ``shaper check``, the report and ``sha
 export`` (a waveform file's samples, which already carry their IF and any corrections).
 In order:
 
+0. the export's padding (zeros before or after the pulse, to the length granularity), for
+   the optimiser's samples: the idle time of a detuned or coupled system is part of the
+   gate, so the optimiser sees the file's whole length (a waveform file holds its own);
 1. IF modulation of baseband samples (skipped for a waveform file: it carries its IF);
 2. the I/Q mixer's imperfections (gain, phase, DC offsets; :mod:`shaper.signal.mixer`),
    for waveform files whose recipe describes the mixer;
@@ -29,7 +32,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from shaper.physics.grid import carrier_substeps, substeps
+from shaper.physics.grid import carrier_substeps, padding, substeps
 from shaper.recipe.lines import Stage
 from shaper.signal.line import apply, cell_response
 from shaper.signal.mixer import Mixer
@@ -51,6 +54,7 @@ class Chain:
         line: ``(column, stages)`` per control column that has a line.
         mixer: the I/Q mixer's imperfections (None: ideal).
         steps: propagator slices per AWG sample (default: enough for the IF and the line).
+        lead, tail: zero samples put before and after the input (the export's padding).
     """
 
     iq_columns: np.ndarray
@@ -64,6 +68,8 @@ class Chain:
     mixer: Mixer | None = None
     carriers: tuple[tuple[int, int, float], ...] = ()  # (I column, Q column, offset Hz)
     steps: int = field(default=0)
+    lead: int = 0
+    tail: int = 0
 
     def __post_init__(self):
         if not self.steps:
@@ -79,13 +85,23 @@ class Chain:
 
     @property
     def identity(self) -> bool:
-        return not self.if_hz and not self.line and self.mixer is None and not self.carriers
+        return not self.if_hz and not self.line and self.mixer is None and not self.carriers \
+            and not self.lead and not self.tail
+
+    def padded(self, samples):
+        """The input with the export's zero padding around it (NumPy or JAX)."""
+        if not self.lead and not self.tail:
+            return samples
+        xp = np if isinstance(samples, np.ndarray) else _jnp()
+        k = samples.shape[1]
+        return xp.concatenate([xp.zeros((self.lead, k)), samples, xp.zeros((self.tail, k))])
 
     def __call__(self, samples):
-        """The propagator's samples ``(n * steps, k)`` (NumPy or JAX in, the same out)."""
+        """The propagator's samples ``((lead + n + tail) * steps, k)`` (NumPy or JAX in, the
+        same out)."""
         if self.identity:
             return samples
-        played = samples
+        played = self.padded(samples)
         if self.if_hz and not self.modulated:
             played = modulate(samples, self.iq_columns, self.if_hz, self.period_s,
                               self.sideband, start=self.start)
@@ -115,7 +131,7 @@ class Chain:
         """What the DAC outputs put on the line, on the chain's slices ``(n * steps, k)``
         (NumPy): after IF modulation, mixer, hold and line, before any turn into the
         drive frame."""
-        played = np.asarray(samples, float)
+        played = self.padded(np.asarray(samples, float))
         if self.if_hz and not self.modulated:
             played = modulate(played, self.iq_columns, self.if_hz, self.period_s,
                               self.sideband, start=self.start)
@@ -149,7 +165,7 @@ class Chain:
         """The same chain on ``factor`` times more sub-steps (for extrapolation)."""
         return Chain(self.iq_columns, self.period_s, self.if_hz, self.sideband, self.start,
                      self.modulated, self.line, self.oversample, self.mixer, self.carriers,
-                     self.steps * factor)
+                     self.steps * factor, self.lead, self.tail)
 
 
 def _jnp():
@@ -175,11 +191,14 @@ def for_recipe(recipe, *, line: bool = True) -> Chain:
 
     The line is left out when the recipe pre-distorts (``export.predistort``: the export
     inverts the line, so the chip sees the samples themselves) or when ``line`` is False.
+    The export's padding to ``export.granularity`` is part of it (:func:`padding`).
     """
     lined = line and not recipe.export.predistort
+    lead, tail = padding(recipe.samples, recipe.export.granularity, recipe.export.padding)
     return Chain(recipe.system.iq_columns(), recipe.dt, recipe.export.if_frequency_hz,
-                 recipe.export.sideband, line=line_columns(recipe) if lined else (),
-                 oversample=recipe.line.oversample, carriers=carriers(recipe.system))
+                 recipe.export.sideband, start=lead, line=line_columns(recipe) if lined else (),
+                 oversample=recipe.line.oversample, carriers=carriers(recipe.system),
+                 lead=lead, tail=tail)
 
 
 def for_waveform(recipe, wave, *, line: bool = True, mixer: bool = True) -> Chain:
