@@ -100,6 +100,10 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
           f"samples); exported: infidelity {trust['infidelity']:.3e}, leakage "
           f"{trust['leakage']:.3e} ({trust.get('judged_on', 'rotating frame')}; rotating "
           f"frame {output.report['infidelity']:.3e}); full result in {output.folder}")
+    rotating = sweep.shortest_in_rotating_frame()
+    if rotating is not None and rotating < chosen:
+        print(f"(in the optimiser's rotating frame alone it would be "
+              f"{format_quantity(rotating, 's')}: README, \"How far the figures are trusted\")")
     print(f"CAUTION: {output.report['caution']}")
     print("targets met")
     return 0

@@ -131,7 +131,7 @@ class Sweep:
 
     def objective_for(self, recipe: Recipe) -> Objective:
         size = bucket(recipe.samples, recipe.hold)
-        if not for_recipe(recipe).identity:
+        if not for_recipe(recipe).identity or recipe.optimizer.lab_frame:
             key = -recipe.samples
             if key not in self.objectives:
                 self.objectives[key] = make_objective(recipe)
@@ -221,8 +221,12 @@ class Sweep:
     def write_summary(self, *, plots: bool = True) -> None:
         """``sweep.md`` (the table) and ``sweep.png`` (the curves) of the points so far."""
         shortest = min((n for n, p in self.points.items() if p.met), default=None)
+        rotating = self.shortest_in_rotating_frame()
+        note = "" if rotating is None else (
+            f"\nIn the optimiser's rotating frame alone (its model, its levels) the shortest "
+            f"duration meeting the targets would be {format_quantity(rotating, 's')}.\n")
         atomic.write_text(self.folder / "sweep.md",
-                          f"# Duration sweep of {self.recipe.name}\n\n{self.table()}")
+                          f"# Duration sweep of {self.recipe.name}\n\n{self.table()}{note}")
         if plots and self.points:
             from shaper.jobs.plots import plot_sweep
 
@@ -280,18 +284,36 @@ class Sweep:
         scored = [(p.total_error, n) for n, p in self.points.items() if p.total_error is not None]
         return min(scored)[1] if scored else None
 
+    def shortest_in_rotating_frame(self) -> float | None:
+        """The shortest duration (s) whose rotating-frame figures meet the infidelity and
+        leakage targets (None: none does, or no point records them)."""
+        o = self.recipe.optimizer
+        passing = [p.duration_s for p in self.points.values()
+                   if p.rotating_infidelity is not None
+                   and p.rotating_infidelity <= o.target_infidelity
+                   and p.rotating_leakage <= o.target_leakage]
+        return min(passing, default=None)
+
     def table(self) -> str:
+        """sweep.md's table: infidelity and leakage as judged (``judged_on``), and the
+        optimiser's rotating frame beside them, so both shortest durations show."""
         budget = any(p.total_error is not None for p in self.points.values())
-        head = "| duration | asked | samples | infidelity | leakage | meets targets | "
+        judged = next((p.judged_on for p in self.points.values() if p.judged_on), "")
+        head = "| duration | asked | samples | infidelity | leakage | meets targets | " \
+               "rotating frame: infidelity, leakage | "
         if budget:
             head += "incoherent error | total error (T1/T2) | "
-        lines = [head + "iterations | time (s) |",
-                 "|---|---|---|---|---|---|" + ("---|---|" if budget else "") + "---|---|"]
+        lines = ([f"Infidelity and leakage as judged: {judged} (README, \"How far the "
+                  f"figures are trusted\").", ""] if judged else []) + [
+            head + "iterations | time (s) |",
+            "|---|---|---|---|---|---|---|" + ("---|---|" if budget else "") + "---|---|"]
         for _, p in sorted(self.points.items()):
             asked = "bisection" if p.requested_s is None else format_quantity(p.requested_s, "s")
             extra = f"{p.incoherent_error:.3e} | {p.total_error:.3e} | " \
                 if budget and p.total_error is not None else ("| | " if budget else "")
+            rotating = "" if p.rotating_infidelity is None else \
+                f"{p.rotating_infidelity:.3e}, {p.rotating_leakage:.3e}"
             lines.append(f"| {format_quantity(p.duration_s, 's')} | {asked} | {p.samples} | "
                          f"{p.infidelity:.3e} | {p.leakage:.3e} | {'yes' if p.met else 'no'} | "
-                         f"{extra}{p.iterations} | {p.wall_time_s:.1f} |")
+                         f"{rotating} | {extra}{p.iterations} | {p.wall_time_s:.1f} |")
         return "\n".join(lines) + "\n"

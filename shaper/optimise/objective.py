@@ -23,8 +23,10 @@ from shaper.costs.problem import (
     recipe_layout,
 )
 from shaper.errors import InputError
+from shaper.physics._jax import device
 from shaper.recipe import Recipe, digest
 from shaper.signal.chain import for_recipe
+from shaper.signal.labdrive import LabDrive
 from shaper.signal.pulses import Layout, padded, to_samples
 
 
@@ -78,11 +80,17 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     """
     chain = for_recipe(recipe)  # what reaches the chip, as the propagator sees it
     layout = recipe_layout(recipe)
-    if pad_to is not None and chain.identity:
+    lab = LabDrive.for_chain(chain, recipe.system) if recipe.optimizer.lab_frame else None
+    if pad_to is not None and chain.identity and lab is None:
         layout = padded(layout, pad_to)
     qubits = qubit_count(recipe)
     problem = chain_problem(recipe, chain, layout)
     drive = None if chain.identity else chain
+    if lab is not None:  # the lab frame's operators on its own slices (signal.labdrive)
+        problem = problem._replace(controls=device(lab.terms.operators, complex),
+                                   dt=device(lab.dt_s, float),
+                                   active=device(np.ones(lab.slices(recipe.samples)), float))
+        phases = device(np.array(recipe.verdict.phases_rad()), float)
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  method=recipe.optimizer.propagator, drive=drive,
                  open_system=recipe.optimizer.open_system,
@@ -97,7 +105,12 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     def loss(params, problem, weights):
         traces.append(params.shape)  # runs at trace time only
         samples = to_samples(params, layout, problem.envelope)
-        scores = costs.evaluate_members(samples, problem, **flags)
+        if lab is None:
+            scores = costs.evaluate_members(samples, problem, **flags)
+        else:  # every carrier phase, batched with the members: the mean of their figures
+            per_phase = jax.vmap(lambda phase: costs.evaluate_members(
+                samples, problem, **{**flags, "drive": lambda x: lab(x, phase)}))(phases)
+            scores = jax.tree_util.tree_map(lambda a: a.mean(axis=0), per_phase)
         value, parts = total(samples, problem, scores, weights)
         return value, (parts, scores)
 

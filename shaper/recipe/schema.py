@@ -50,7 +50,7 @@ KEYS: dict[str, tuple[str, ...]] = {
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
                   "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
                   "drag_scale", "learning_rate", "propagator", "ensemble_targets",
-                  "open_system"),
+                  "open_system", "lab_frame"),
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
                "sideband", "predistort", "mixer", "codes"),
     "export.mixer": ("gain", "phase_deg", "offset_i", "offset_q"),
@@ -85,6 +85,8 @@ class OptimizerSettings:
     propagator: str = "eigh"
     ensemble_targets: str = "every"  # or "mean": how the ensemble members meet the targets
     open_system: bool = False  # optimise the channel fidelity with the coherence times
+    lab_frame: bool = False  # optimise with the drive's counter-rotating terms (mean over
+    #                          the verdict's carrier phases; README, "The lab frame")
 
     def __post_init__(self):  # settings guard themselves, however they were made
         _require(self.method in METHODS, "method", self.method)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from shaper.errors import InputError
@@ -56,14 +58,21 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                      pulse["sample_rate_hz"])
     if export.predistort and not line.active:
         r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
+    if optimizer.lab_frame and system.lab is None:
+        r.fail("optimizer.lab_frame", "the lab frame needs a transmon model (the drive "
+                                      "operator and frame of given matrices are unknown)")
+    if optimizer.lab_frame and optimizer.open_system:
+        r.fail("optimizer.lab_frame", "cannot be combined with optimizer.open_system yet: "
+                                      "choose one")
+    verdict = _verdict(r, r.table(raw, "verdict", "verdict"), system)
     _fits_in_memory(r, system, pulse, len(scales), export,
-                    line.oversample if line.active and not export.predistort else 1)
+                    line.oversample if line.active and not export.predistort else 1,
+                    lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame else 0)
     if optimizer.open_system and not system.collapse:
         r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
                                         "operators with rates) to optimise the channel")
     if optimizer.open_system and not target.is_gate:
         r.fail("optimizer.open_system", "optimises a gate's channel; this target is a state")
-    verdict = _verdict(r, r.table(raw, "verdict", "verdict"), system)
     return Recipe(name=name, path=path, sha256=sha256, system=system, target=target,
                   virtual_z=virtual_z, gate_set=gate_set, weights=weights, verdict=verdict,
                   ensemble_detunings_hz=detunings,
@@ -92,8 +101,11 @@ def available_memory() -> int:
 
 
 def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
-                    export: ExportSettings, oversample: int = 1) -> None:
-    """Refuse, before anything is allocated, a problem that cannot fit in this machine."""
+                    export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
+    """Refuse, before anything is allocated, a problem that cannot fit in this machine.
+
+    ``lab_phases``: optimised in the lab frame over that many carrier phases (its slices
+    resolve the carrier: :mod:`shaper.signal.labdrive`)."""
     from shaper.physics.grid import substeps
 
     n, g = pulse["samples"], export.granularity
@@ -105,12 +117,18 @@ def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
     steps = max(oversample, substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"])
                 if export.if_frequency_hz else 1)
     d = system.dimension
-    need = (members + 1) * n * steps * d * d * BYTES_PER_ENTRY
+    slices = n * steps
+    if lab_phases:
+        from shaper.physics.labframe import POINTS_PER_CYCLE, lab_terms
+        fastest = lab_terms(system).fastest_hz(abs(export.if_frequency_hz))
+        slices = lab_phases * 2 * max(n * steps, math.ceil(
+            exported / pulse["sample_rate_hz"] * fastest * POINTS_PER_CYCLE))
+    need = (members + 1) * slices * d * d * BYTES_PER_ENTRY
     have = available_memory()
     if need > 0.8 * have:
         key = "system.levels" if d > 64 else "pulse.duration"
-        r.fail(key, f"this problem needs about {need / 2**30:.1f} GiB ({n} samples x {steps} "
-                    f"sub-steps x {members + 1} system(s) x {d}^2 levels) and this machine has "
+        r.fail(key, f"this problem needs about {need / 2**30:.1f} GiB ({slices} propagator "
+                    f"slices x {members + 1} system(s) x {d}^2 levels) and this machine has "
                     f"{have / 2**30:.1f} GiB available; use fewer levels, a shorter pulse or a "
                     f"smaller ensemble")
 
@@ -499,7 +517,8 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
                             d.propagator),
         ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",
                                   ENSEMBLE_RULES, d.ensemble_targets),
-        open_system=r.flag(t, "open_system", "optimizer.open_system", d.open_system))
+        open_system=r.flag(t, "open_system", "optimizer.open_system", d.open_system),
+        lab_frame=r.flag(t, "lab_frame", "optimizer.lab_frame", d.lab_frame))
 
 
 def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
