@@ -193,8 +193,10 @@ def test_bench_rows_a_user_feels_run_whole_commands(tmp_path):
     from shaper.jobs.bench_user import objective_rows, startup_rows
     recipe = ROOT / "recipes" / "demo-x180.toml"
     objectives = objective_rows(recipe, repeats=2)
-    assert [r["what"] for r in objectives] == ["ensemble of 9 (detunings x scales) / nominal",
-                                               "open system (T1, T2) / closed"]
+    assert [r["what"] for r in objectives] == [
+        "ensemble of 9 (detunings x scales) / nominal", "open system (T1, T2) / closed",
+        "lab frame, 4 carrier phases / rotating frame (the recipe's levels)",
+        "lab frame, 4 carrier phases / rotating frame (9 levels)"]
     assert all(r["ratio"] > 0 and r["ms"] > 0 for r in objectives)
     startup = startup_rows(recipe, repeats=1, full=False)
     assert [r["command"] for r in startup] == ["optimize (cold cache)", "optimize (warm cache)"]
