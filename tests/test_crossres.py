@@ -50,13 +50,14 @@ def test_cross_resonance_cnot_meets_the_target_by_independent_resimulation(cnot)
     wave = read_waveform(cnot.folder / report["waveform"])
     hz = {c: wave.fractions[:, k] * wave.full_scale_hz[c.rsplit("_", 1)[0]]
           for k, c in enumerate(wave.column_names)}
-    drift, on_a, on_b = pair_by_hand(4.95e9, 5.05e9, -330e6, -320e6, 4e6, frame=5.05e9)
+    drift, on_a, on_b = pair_by_hand(4.95e9, 5.05e9, -330e6, -320e6, 4e6, frame=5.05e9,
+                                     levels=4)  # the recipe keeps 4 levels per transmon
     # the cross-resonance tone is on A's line (A's operators) at B's frequency (the frame)
     controls = np.array([on_a[0], on_a[1], on_b[0], on_b[1]])
     samples = np.stack([hz["cr_i"], hz["cr_q"], hz["qb_i"], hz["qb_q"]], axis=1)
     assert np.all(hz["qa_i"] == 0) and np.all(hz["qa_q"] == 0)  # switched off
     u = expm_product(drift, controls, samples, 1 / wave.sample_rate_hz)
-    comp = [0, 1, 3, 4]  # |00>, |01>, |10>, |11> of two 3-level transmons
+    comp = [0, 1, 4, 5]  # |00>, |01>, |10>, |11> of two 4-level transmons
     p = u[np.ix_(comp, comp)]
     bits = np.array([[0, 0], [0, 1], [1, 0], [1, 1]])
     after = np.exp(1j * bits @ np.asarray(report["frame_after_rad"]))
@@ -99,6 +100,8 @@ def test_zx_rate_at_small_drive_matches_the_perturbative_formula(fa, fb, alpha, 
     raw["system"]["transmon"][1]["qubit_frequency"] = fb
     raw["system"]["coupling"][0]["strength"] = g
     raw["system"]["drive"][0]["frequency"] = fb
+    for transmon in raw["system"]["transmon"]:  # the formula's model: three levels each
+        transmon["levels"] = 3
     system = load_recipe(raw).system
     cr = system.control_names.index("cr_i")
     delta = fa - fb
