@@ -23,8 +23,8 @@ the coupling's ``a b + a^dag b^dag``) is what the rotating-wave approximation dr
 a waveform file does not fix. Every term is a fixed operator times a real coefficient,
 so the existing propagator (and its exact derivative) runs it unchanged.
 
-The time integration is the fourth-order commutator-free Magnus method of Blanes and
-Moan (Phys. Lett. A 366, 41 (2007) / J. Comput. Phys. 227, 1 (2007)): on each sub-step
+The time integration is the fourth-order commutator-free Magnus method of S. Blanes and
+P. C. Moan, Appl. Numer. Math. 56, 1519 (2006) (cited from memory): on each sub-step
 of length ``h`` two exponentials, of ``(a2 H(t1) + a1 H(t2)) h`` then ``(a1 H(t1) + a2
 H(t2)) h``, at the Gauss nodes ``t1, t2 = h (1/2 -+ sqrt(3)/6)``, ``a1, a2 = (3 -+ 2
 sqrt(3)) / 12``. Each is a piecewise-constant slice of length ``h / 2``. Sub-steps never
