@@ -111,7 +111,8 @@ def test_cross_resonance_pair_with_if_against_an_independent_integration():
     chain = Chain(system.iq_columns(), 1 / rate, 100e6, "lower", modulated=True,
                   carriers=((4, 5, 0.25e9),))
     played = modulate(samples, system.iq_columns(), 100e6, 1 / rate)
-    u = _frame_unitary(system, lambda t: chain.envelope_at(played, t), chain.dt_s,
+    cells = chain.cells(played)
+    u = _frame_unitary(system, lambda t: chain.envelope_at(cells, t), chain.dt_s,
                        n * chain.steps, 0.3, points=48)
     # the reference: the same held modulated samples, each carrier at its own frequency;
     # the IF moves the drive to f_LO - f_IF, so the LO of each channel is carrier + IF

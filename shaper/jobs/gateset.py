@@ -31,7 +31,7 @@ def for_gate(recipe: Recipe, label: str, *, samples: int | None = None,
              name: str | None = None) -> Recipe:
     """The set's recipe for one of its gates (named ``<set>-<gate>`` unless ``name``),
     optionally at another length (:func:`shaper.recipe.derive.for_gate`)."""
-    return recipes.for_gate(recipe, label, samples=samples, name=name, slug=slug)
+    return recipes.for_gate(recipe, label, samples=samples, name=name)
 
 
 def rotated(recipe: Recipe, samples_hz: np.ndarray, phase_deg: float) -> np.ndarray:

@@ -23,6 +23,8 @@ recipe's levels (the report says so).
 
 from __future__ import annotations
 
+import hashlib
+import pickle
 from dataclasses import replace
 from functools import cached_property
 
@@ -135,12 +137,12 @@ class Playback:
 
         play = self.faithful
         chain, recipe = play.chain, play.recipe
-        turning = abs(chain.if_hz) + max((abs(f) for _, _, f in chain.carriers), default=0.0)
+        cells = chain.cells(play.samples)  # once: the line's convolution is not repeated
         return simulate_lab(recipe.system, recipe.target,
-                            lambda t: chain.envelope_at(play.samples, t),
-                            self.samples.shape[0] * chain.steps, chain.dt_s,
-                            start_s=-chain.start * chain.period_s, phases_rad=v.phases_rad(),
-                            envelope_hz=turning, virtual_z=recipe.virtual_z)
+                            lambda t: chain.envelope_at(cells, t), cells.shape[0],
+                            chain.dt_s, start_s=-chain.start * chain.period_s,
+                            phases_rad=v.phases_rad(), envelope_hz=chain.turning_hz,
+                            virtual_z=recipe.virtual_z)
 
     def trusted(self) -> tuple[float, float, str]:
         """(infidelity, leakage, what they are): the most faithful figures computed."""
@@ -241,7 +243,10 @@ class Playback:
 def _members_program(flags: dict):
     """One jitted ensemble evaluation per set of static flags and chain, kept for the
     process (a second file with the same layout is not traced again)."""
-    key = repr(sorted(flags.items(), key=lambda item: item[0]))
+    # exact, not repr: NumPy's repr elides long arrays (a measured line response), and two
+    # chains that print alike must not share a program that closes over one of them
+    key = hashlib.sha256(pickle.dumps(sorted(flags.items(), key=lambda item: item[0]))
+                         ).hexdigest()
     if key not in _MEMBERS:
         import jax
 
@@ -252,7 +257,7 @@ def _members_program(flags: dict):
     return _MEMBERS[key]
 
 
-_MEMBERS: dict = {}  # repr of the static flags -> compiled program
+_MEMBERS: dict = {}  # digest of the static flags (and chain) -> compiled program
 
 
 def simulate_played(recipe: Recipe, wave: waveio.Waveform, **variant) -> Simulation:

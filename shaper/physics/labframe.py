@@ -161,9 +161,17 @@ def lab_terms(system) -> LabTerms:
                     frame_hz=lab.frame_hz)
 
 
-def coefficients(terms: LabTerms, envelope: np.ndarray, times: np.ndarray,
-                 phase_rad: float) -> np.ndarray:
-    """Every term's coefficient at ``times``.
+def _numpy_of(x):
+    """NumPy for host arrays, jax.numpy for traced ones (the optimiser's lab drive)."""
+    if isinstance(x, np.ndarray):
+        return np
+    import jax.numpy as jnp
+    return jnp
+
+
+def coefficients(terms: LabTerms, envelope, times: np.ndarray, phase_rad):
+    """Every term's coefficient at ``times`` (NumPy or JAX ``envelope`` and phase in, the
+    same out: the verdict and the optimiser's :mod:`shaper.signal.labdrive` share it).
 
     Args:
         envelope: ``(m, k)`` the System's control values (Hz, drive frame) at ``times``.
@@ -173,20 +181,21 @@ def coefficients(terms: LabTerms, envelope: np.ndarray, times: np.ndarray,
     Returns:
         ``(m, K)`` real, Hz (static terms: the cos/sin factor alone).
     """
+    xp = _numpy_of(envelope)
     theta = 2 * np.pi * terms.frame_hz * times + phase_rad
-    w = [envelope[:, i] + 1j * envelope[:, q] for i, q in terms.iq_columns]
-    eps = [np.real(z * np.exp(-1j * theta)) for z in w]
-    out = np.empty((times.shape[0], terms.operators.shape[0]))
-    for j, (s, k, q) in enumerate(zip(terms.source, terms.harmonic, terms.quadrature,
-                                      strict=True)):
-        factor = (np.cos if q == 0 else np.sin)(k * theta) if k else 1.0
+    # eps = Re[(I + iQ) exp(-i theta)] = I cos(theta) + Q sin(theta)
+    cos, sin = xp.cos(theta), xp.sin(theta)
+    eps = [envelope[:, i] * cos + envelope[:, q] * sin for i, q in terms.iq_columns]
+    columns = []
+    for s, k, q in zip(terms.source, terms.harmonic, terms.quadrature, strict=True):
+        factor = (xp.cos if q == 0 else xp.sin)(k * theta) if k else xp.ones_like(theta)
         if s == -1:
-            out[:, j] = factor
+            columns.append(factor)
         elif s >= 0:
-            out[:, j] = eps[s] * factor
+            columns.append(eps[s] * factor)
         else:
-            out[:, j] = envelope[:, -2 - s]
-    return out
+            columns.append(envelope[:, -2 - s])
+    return xp.stack(columns, axis=1)
 
 
 def steps_per_cell(terms: LabTerms, cell_s: float, envelope_hz: float = 0.0,
@@ -203,8 +212,9 @@ def node_times(cells: int, cell_s: float, steps: int) -> np.ndarray:
     return (starts[:, None] + NODES[None, :] * h).reshape(-1)
 
 
-def slice_samples(coefficient: np.ndarray) -> np.ndarray:
+def slice_samples(coefficient):
     """Node coefficients ``(2 s, K)`` -> the two half-step slices of every sub-step
-    ``(2 s, K)``: the Magnus combination of the module docstring."""
+    ``(2 s, K)``: the Magnus combination of the module docstring (NumPy or JAX)."""
+    xp = _numpy_of(coefficient)
     pairs = coefficient.reshape(-1, 2, coefficient.shape[1])
-    return np.einsum("ab,sbk->sak", SLICE_WEIGHTS, pairs).reshape(coefficient.shape)
+    return xp.einsum("ab,sbk->sak", SLICE_WEIGHTS, pairs).reshape(coefficient.shape)

@@ -12,6 +12,7 @@ import copy
 from collections.abc import Callable
 
 from shaper.errors import InputError
+from shaper.physics.targets import slug
 from shaper.recipe.load import load_recipe
 from shaper.recipe.schema import Recipe
 
@@ -91,7 +92,7 @@ def at_samples(recipe: Recipe, samples: int, *, rate_hz: float | None = None) ->
 
 
 def for_gate(recipe: Recipe, label: str, *, samples: int | None = None,
-             name: str | None = None, slug: Callable[[str], str] = str) -> Recipe:
+             name: str | None = None) -> Recipe:
     """The set's recipe for one of its gates (named ``name``, default ``<set>-<slug>``),
     optionally at another length."""
     def edit(raw):

@@ -143,20 +143,23 @@ class Chain:
             fine[:, column] = apply(fine[:, column], g, lead)
         return fine
 
-    def envelope_at(self, samples: np.ndarray, times: np.ndarray) -> np.ndarray:
+    @property
+    def turning_hz(self) -> float:
+        """How fast the drive-frame envelope turns inside a held cell: the IF plus the
+        largest carrier offset (the lab frame's sub-steps resolve it)."""
+        return abs(self.if_hz) + max((abs(f) for _, _, f in self.carriers), default=0.0)
+
+    def envelope_at(self, cells: np.ndarray, times: np.ndarray) -> np.ndarray:
         """The drive-frame control values ``(m, k)`` at ``times`` (seconds from the pulse
-        start, sorted): each slice's held output turned by the IF and any carrier offset
-        at the exact time, not at the slice's middle (the lab frame,
-        :mod:`shaper.physics.labframe`, needs them between its nodes)."""
-        fine = self.cells(samples)
+        start, sorted), from the held outputs ``cells`` (:meth:`cells`): each cell turned by
+        the IF and any carrier offset at the exact time, not at the cell's middle (the lab
+        frame, :mod:`shaper.physics.labframe`, needs them between its nodes)."""
         index = np.floor((times / self.dt_s) + self.start * self.steps + 1e-9).astype(int)
-        index = np.clip(index, 0, fine.shape[0] - 1)
-        out = fine[index]
+        out = cells[np.clip(index, 0, cells.shape[0] - 1)]
         turn = -sign_of(self.sideband) * 2 * np.pi * self.if_hz * times
-        z_columns = [tuple(p) for p in np.asarray(self.iq_columns, int).reshape(-1, 2)]
         offsets = {(i, q): f for i, q, f in self.carriers}
-        for i, q in z_columns:
-            angle = turn - 2 * np.pi * offsets.get((i, q), 0.0) * times
+        for i, q in np.asarray(self.iq_columns, int).reshape(-1, 2):
+            angle = turn - 2 * np.pi * offsets.get((int(i), int(q)), 0.0) * times
             z = (out[:, i] + 1j * out[:, q]) * np.exp(1j * angle)
             out[:, i], out[:, q] = z.real, z.imag
         return out

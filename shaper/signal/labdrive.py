@@ -39,8 +39,7 @@ class LabDrive:
     @classmethod
     def for_chain(cls, chain: Chain, system) -> LabDrive:
         terms = lf.lab_terms(system)
-        turning = abs(chain.if_hz) + max((abs(f) for _, _, f in chain.carriers), default=0.0)
-        return cls(chain, terms, lf.steps_per_cell(terms, chain.dt_s, turning))
+        return cls(chain, terms, lf.steps_per_cell(terms, chain.dt_s, chain.turning_hz))
 
     @property
     def dt_s(self) -> float:
@@ -57,22 +56,6 @@ class LabDrive:
             - self.chain.start * self.chain.period_s
 
     def __call__(self, samples, phase):
-        cells = self.chain(samples)
-        values = jnp.repeat(cells, 2 * self.sub, axis=0)
-        theta = 2 * np.pi * self.terms.frame_hz * self.times(samples.shape[0]) + phase
-        eps = [values[:, i] * jnp.cos(theta) + values[:, q] * jnp.sin(theta)
-               for i, q in self.terms.iq_columns]
-        columns = []
-        for s, k, q in zip(self.terms.source, self.terms.harmonic, self.terms.quadrature,
-                           strict=True):
-            factor = ((jnp.cos if q == 0 else jnp.sin)(k * theta)) if k else 1.0
-            if s == -1:
-                columns.append(factor * jnp.ones_like(theta))
-            elif s >= 0:
-                columns.append(eps[s] * factor)
-            else:
-                columns.append(values[:, -2 - s])
-        coefficient = jnp.stack(columns, axis=1)
-        pairs = coefficient.reshape(-1, 2, coefficient.shape[1])
-        return jnp.einsum("ab,sbk->sak", jnp.asarray(lf.SLICE_WEIGHTS),
-                          pairs).reshape(coefficient.shape)
+        values = jnp.repeat(self.chain(samples), 2 * self.sub, axis=0)
+        return lf.slice_samples(lf.coefficients(self.terms, values,
+                                                self.times(samples.shape[0]), phase))
