@@ -40,7 +40,9 @@ def _frame_unitary(system, values, cell_s, cells, phase, points=24):
 
 
 def test_rotating_drift_is_the_lab_models_static_part():
-    # the System's drift must be the k = 0 harmonic of the lab Hamiltonian minus f N
+    # the System's drift must be the k = 0 harmonic of the lab Hamiltonian minus f N (the
+    # rotating-wave approximation keeps the energy-conserving part: common practice, no
+    # source)
     s = coupled_transmons([TransmonSpec(name="a", levels=4, qubit_frequency_hz=5.0e9,
                                         anharmonicity_hz=-210e6),
                            TransmonSpec(name="b", levels=3, qubit_frequency_hz=5.4e9,
@@ -150,6 +152,18 @@ def test_check_reports_the_lab_frame_and_fails_the_short_pulse(tmp_path):
     assert trust["lab_frame"]["infidelity"] > 1e-5
     assert verdict["targets"]["judged_on"].startswith("lab frame, 7 levels")
     assert verdict["targets"]["judged"]["infidelity"] == trust["lab_frame"]["infidelity"]
+
+
+@pytest.mark.parametrize("key, value, message", [
+    ("carrier_phases", 65, r"verdict\.carrier_phases.*at most 64"),
+    ("extra_levels", 9, r"verdict\.extra_levels.*at most 8"),
+    ("lab_frame", "always", r"verdict\.lab_frame.*auto, on, off"),
+    ("carrier_phase_deg", 400, r"verdict\.carrier_phase_deg.*\[-360, 360\]")])
+def test_verdict_keys_are_checked(key, value, message):
+    raw = tomllib.loads(demo_text("keys"))
+    raw["verdict"] = {key: value}
+    with pytest.raises(RecipeError, match=message):
+        load_recipe(raw)
 
 
 def test_lab_frame_on_is_refused_for_matrices():

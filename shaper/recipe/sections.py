@@ -534,12 +534,17 @@ def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
         phase = r.number(t, "carrier_phase_deg", "verdict.carrier_phase_deg")
         if not -360 <= phase <= 360:
             r.fail("verdict.carrier_phase_deg", f"expected degrees in [-360, 360], got {phase!r}")
-    return VerdictSettings(
-        lab_frame=lab, carrier_phase_deg=phase,
-        carrier_phases=r.number(t, "carrier_phases", "verdict.carrier_phases",
-                                d.carrier_phases, integer=True, minimum=1),
-        extra_levels=r.number(t, "extra_levels", "verdict.extra_levels", d.extra_levels,
-                              integer=True, minimum=0))
+    phases = r.number(t, "carrier_phases", "verdict.carrier_phases", d.carrier_phases,
+                      integer=True, minimum=1)
+    if phases > 64:
+        r.fail("verdict.carrier_phases", f"at most 64 phases (each is a lab-frame run), got "
+                                         f"{phases}")
+    extra = r.number(t, "extra_levels", "verdict.extra_levels", d.extra_levels, integer=True,
+                     minimum=0)
+    if extra > 8:
+        r.fail("verdict.extra_levels", f"at most 8 levels more per transmon, got {extra}")
+    return VerdictSettings(lab_frame=lab, carrier_phase_deg=phase, carrier_phases=phases,
+                           extra_levels=extra)
 
 
 def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],
