@@ -10,7 +10,8 @@ def trust_summary(trust: dict | None) -> list[str]:
     if not trust:
         return []
     rot = trust["rotating_frame"]
-    out = [f"  rotating frame, {'x'.join(map(str, rot['levels']))} levels (the optimiser's "
+    out = [f"  model: {trust['model']}"] if trust.get("model") else []
+    out += [f"  rotating frame, {'x'.join(map(str, rot['levels']))} levels (the optimiser's "
            f"model): infidelity {rot['infidelity']:.3e}, leakage {rot['leakage']:.3e}"]
     more = trust.get("more_levels")
     if more:

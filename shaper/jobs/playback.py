@@ -160,7 +160,8 @@ class Playback:
         """The report's ``trust`` block: every model's figures of this file, and which the
         verdict is judged on."""
         infidelity, leakage, basis = self.trusted()
-        out = {"judged_on": basis, "infidelity": infidelity, "leakage": leakage,
+        out = {"judged_on": basis, "model": model_words(self.recipe.system),
+               "infidelity": infidelity, "leakage": leakage,
                "rotating_frame": {"levels": list(self.recipe.system.dims),
                                   "infidelity": self.nominal.infidelity,
                                   "leakage": self.nominal.leakage}}
@@ -238,6 +239,20 @@ class Playback:
                 "at_oversample": {"infidelity": own.infidelity, "leakage": own.leakage},
                 "predistorted": self.wave.predistorted,
                 "predistortion_residual": self.wave.predistortion_residual}
+
+
+def model_words(system) -> str:
+    """Which model the figures come from, in words: the transmon spectrum of every
+    transmon, how many are simulated together, and that no other qubit is."""
+    spectra = sorted({m["spectrum"] for m in system.models.values()})
+    if not spectra:
+        return "the recipe's matrices"
+    kind = {"duffing": "Duffing", "charge": "charge-model (Cooper-pair box)"}
+    names = " and ".join(kind.get(x, x) for x in spectra)
+    count = len(system.models)
+    if count == 1:
+        return f"one {names} transmon, no neighbours"
+    return f"{count} {names} transmons simulated together, no other neighbours"
 
 
 def _members_program(flags: dict):
