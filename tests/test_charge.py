@@ -20,7 +20,7 @@ from shaper.errors import RecipeError
 from shaper.io.waveio import read_waveform
 from shaper.jobs.playback import Playback
 from shaper.physics import charge
-from shaper.physics.systems import TransmonSpec, coupled_transmons
+from shaper.physics.transmons import TransmonSpec, coupled_transmons
 from shaper.recipe import load_recipe
 
 

@@ -19,7 +19,7 @@ from shaper.physics.lindblad import (
     propagate_open,
     squarings,
 )
-from shaper.physics.systems import transmon_collapse
+from shaper.physics.transmons import transmon_collapse
 from shaper.recipe import load_recipe
 
 ROOT = Path(__file__).parent.parent

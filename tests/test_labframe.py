@@ -26,7 +26,7 @@ from shaper.io.waveio import read_waveform
 from shaper.jobs.playback import Playback
 from shaper.physics import labframe as lf
 from shaper.physics.propagator import propagate
-from shaper.physics.systems import TransmonSpec, coupled_transmons, transmon
+from shaper.physics.transmons import TransmonSpec, coupled_transmons, transmon
 from shaper.recipe import load_recipe
 
 

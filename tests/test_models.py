@@ -3,8 +3,9 @@ import pytest
 from helpers import duffing
 
 from shaper.errors import InputError
-from shaper.physics.systems import TransmonSpec, coupled_transmons, from_matrices, transmon
+from shaper.physics.systems import from_matrices
 from shaper.physics.targets import gate, state_transfer
+from shaper.physics.transmons import TransmonSpec, coupled_transmons, transmon
 
 
 def test_transmon_matches_duffing_model_by_hand():

@@ -44,7 +44,7 @@ def cases(quick: bool) -> list[Case]:
 
 
 def make_system(levels: tuple[int, ...]):
-    from shaper.physics.systems import TransmonSpec, coupled_transmons
+    from shaper.physics.transmons import TransmonSpec, coupled_transmons
 
     specs = [TransmonSpec(name=f"q{i}", levels=lv, qubit_frequency_hz=5.1e9 - 0.3e9 * i,
                           anharmonicity_hz=-220e6) for i, lv in enumerate(levels)]

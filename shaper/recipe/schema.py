@@ -19,7 +19,6 @@ from shaper.physics.targets import Target
 from shaper.recipe.lines import LineSettings
 from shaper.recipe.units import parse_quantity
 
-MODELS = ("transmon", "transmons", "matrices")
 GUESSES = ("gaussian", "drag", "cosine", "random")  # first guesses by name
 ENSEMBLE_RULES = ("every", "mean")  # how ensemble members meet the targets
 METHODS = ("lbfgs", "adam", "lbfgs-jit")

@@ -2,22 +2,14 @@
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from shaper.errors import InputError
-from shaper.physics.systems import (
-    NAME,
-    NAME_RULE,
-    SPECTRA,
-    System,
-    TransmonSpec,
-    coupled_transmons,
-    from_matrices,
-)
+from shaper.physics.systems import NAME, NAME_RULE, System
 from shaper.physics.targets import Target, gate, state_transfer
 from shaper.recipe.lines import read_line
+from shaper.recipe.memory import fits_in_memory
+from shaper.recipe.models import read_system
 from shaper.recipe.schema import (
     DEFAULT_WEIGHTS,
     ENSEMBLE_RULES,
@@ -25,7 +17,6 @@ from shaper.recipe.schema import (
     KEYS,
     LAB_FRAME,
     METHODS,
-    MODELS,
     PADDING,
     ExportSettings,
     MixerSettings,
@@ -45,7 +36,7 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("name", f"expected {NAME_RULE} (it names the output folder and files), "
                        f"got {str(name)[:80]!r}")
-    system = _system(r, r.table(raw, "system", "system"))
+    system = read_system(r, r.table(raw, "system", "system"))
     gate_table = r.table(raw, "gate", "gate")
     gate_set = _gate_set(r, gate_table, system)
     target, virtual_z = _gate(r, gate_table, system)
@@ -65,7 +56,7 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
         r.fail("optimizer.lab_frame", "cannot be combined with optimizer.open_system yet: "
                                       "choose one")
     verdict = _verdict(r, r.table(raw, "verdict", "verdict"), system)
-    _fits_in_memory(r, system, pulse, len(scales), export,
+    fits_in_memory(r, system, pulse, len(scales), export,
                     line.oversample if line.active and not export.predistort else 1,
                     lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame else 0)
     if optimizer.open_system and not system.collapse:
@@ -78,230 +69,6 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                   ensemble_detunings_hz=detunings,
                   ensemble_scales=scales, optimizer=optimizer, export=export, line=line,
                   raw=raw, **pulse)
-
-
-# Bytes per (slice x d^2) that one value-and-gradient holds at once: eigenvectors,
-# exponentials, the derivative's G matrix, tangents and the pairwise products, complex128
-# (16 bytes each), measured within a factor of two on the bundled recipes.
-BYTES_PER_ENTRY = 16 * 16
-MAX_EXPORT_SAMPLES = 10_000_000
-
-
-def available_memory() -> int:
-    """Bytes this process may still allocate (MemAvailable, else the physical memory)."""
-    try:
-        with open("/proc/meminfo") as handle:
-            for line in handle:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    import os
-    return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
-
-
-def _fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
-                    export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
-    """Refuse, before anything is allocated, a problem that cannot fit in this machine.
-
-    ``lab_phases``: optimised in the lab frame over that many carrier phases (its slices
-    resolve the carrier: :mod:`shaper.signal.labdrive`)."""
-    from shaper.physics.grid import substeps
-
-    n, g = pulse["samples"], export.granularity
-    exported = -(-n // g) * g
-    if exported > MAX_EXPORT_SAMPLES:
-        r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
-                                     f"{exported} samples, more than any AWG memory "
-                                     f"({MAX_EXPORT_SAMPLES}); check the granularity")
-    steps = max(oversample, substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"])
-                if export.if_frequency_hz else 1)
-    d = system.dimension
-    slices = n * steps
-    if lab_phases:
-        from shaper.physics.labframe import POINTS_PER_CYCLE, lab_terms
-        fastest = lab_terms(system).fastest_hz(abs(export.if_frequency_hz))
-        slices = lab_phases * 2 * max(n * steps, math.ceil(
-            exported / pulse["sample_rate_hz"] * fastest * POINTS_PER_CYCLE))
-    need = (members + 1) * slices * d * d * BYTES_PER_ENTRY
-    have = available_memory()
-    if need > 0.8 * have:
-        key = "system.levels" if d > 64 else "pulse.duration"
-        r.fail(key, f"this problem needs about {need / 2**30:.1f} GiB ({slices} propagator "
-                    f"slices x {members + 1} system(s) x {d}^2 levels) and this machine has "
-                    f"{have / 2**30:.1f} GiB available; use fewer levels, a shorter pulse or a "
-                    f"smaller ensemble")
-
-
-# which [system] keys each model reads; any other key would be silently ignored
-MODEL_KEYS = {
-    "transmon": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
-                 "qubit", "t1", "t2", "spectrum", "offset_charge"),
-    "transmons": ("model", "transmon", "coupling", "frame_frequency", "drive"),
-    "matrices": ("model", "unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
-                 "computational", "collapse", "collapse_rate"),
-}
-
-
-def _spectrum(r: _Reader, t: dict, where: str) -> dict:
-    """``spectrum`` and ``offset_charge`` as TransmonSpec keywords (README, "The charge
-    model")."""
-    out = {"spectrum": r.choice(t, "spectrum", f"{where}.spectrum", tuple(SPECTRA),
-                                "duffing")}
-    if "offset_charge" in t:
-        if out["spectrum"] != "charge":
-            r.fail(f"{where}.offset_charge", "only the charge model has an offset charge; "
-                                             "add spectrum = \"charge\"")
-        out["offset_charge"] = r.number(t, "offset_charge", f"{where}.offset_charge")
-        if not -1 <= out["offset_charge"] <= 1:
-            r.fail(f"{where}.offset_charge", f"expected Cooper pairs in [-1, 1] (the levels "
-                                             f"repeat with period 1), got {t['offset_charge']!r}")
-    return out
-
-
-def _coherence(r: _Reader, t: dict, where: str) -> dict:
-    """``t1`` and ``t2`` (times, optional) as TransmonSpec keywords."""
-    out = {}
-    for key in ("t1", "t2"):
-        if key in t:
-            out[f"{key}_s"] = r.number(t, key, f"{where}.{key}", kind="time", positive=True,
-                                       hint="us")
-    if "t1_s" in out and "t2_s" in out and out["t2_s"] > 2 * out["t1_s"] * (1 + 1e-12):
-        r.fail(f"{where}.t2", f"t2 = {t['t2']!r} is longer than 2 t1 = 2 x {t['t1']!r}, which "
-                              f"no qubit reaches (T2 <= 2 T1)")
-    return out
-
-
-def _system(r: _Reader, t: dict) -> System:
-    r.check_keys(t, "system")
-    model = r.choice(t, "model", "system.model", MODELS)
-    for key in t:
-        if key not in MODEL_KEYS[model]:
-            r.fail(f"system.{key}", f"not a key of model = {model!r} (its keys: "
-                                    f"{', '.join(MODEL_KEYS[model])})")
-    try:
-        if model == "transmon":
-            for key in ("levels", "qubit_frequency", "anharmonicity"):
-                if key not in t:
-                    r.fail(f"system.{key}", "missing required key (model = \"transmon\")")
-            levels = r.number(t, "levels", "system.levels", integer=True)
-            if levels < 2:
-                r.fail("system.levels", f"must be at least 2 (levels 0 and 1 are the qubit), "
-                                        f"got {levels}")
-            fq = r.number(t, "qubit_frequency", "system.qubit_frequency", kind="frequency",
-                          positive=True)
-            alpha = r.number(t, "anharmonicity", "system.anharmonicity", kind="frequency")
-            fd = r.number(t, "drive_frequency", "system.drive_frequency", fq, kind="frequency",
-                          positive=True)
-            name = t.get("qubit", "q0")
-            if not isinstance(name, str) or not NAME.fullmatch(name):
-                r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
-                                       f"got {str(name)[:80]!r}")
-            spec = TransmonSpec(name=name, levels=levels, qubit_frequency_hz=fq,
-                                anharmonicity_hz=alpha, **_coherence(r, t, "system"),
-                                **_spectrum(r, t, "system"))
-            return coupled_transmons([spec], [], frame_frequency_hz=fd)
-        if model == "transmons":
-            return _transmons(r, t)
-        return _matrices(r, t)
-    except InputError as exc:
-        r.fail("system", str(exc))
-
-
-def _transmons(r: _Reader, t: dict) -> System:
-    items = t.get("transmon")
-    if not isinstance(items, list) or not items:
-        r.fail("system.transmon", "expected one [[system.transmon]] table per transmon")
-    specs = []
-    for i, (where, item) in enumerate(r.tables(t, "transmon", "system.transmon",
-                                               "system.transmon")):
-        name = item.get("name", f"q{i}")
-        if not isinstance(name, str) or not NAME.fullmatch(name):
-            r.fail(f"{where}.name", f"expected {NAME_RULE}, got {str(name)[:80]!r}")
-        levels = r.number(item, "levels", f"{where}.levels", integer=True)
-        if levels < 2:
-            r.fail(f"{where}.levels", f"must be at least 2, got {levels}")
-        specs.append(TransmonSpec(
-            name=name, levels=levels,
-            qubit_frequency_hz=r.number(item, "qubit_frequency", f"{where}.qubit_frequency",
-                                        kind="frequency", positive=True),
-            anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
-                                      kind="frequency"),
-            flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where),
-            **_spectrum(r, item, where)))
-    couplings = []
-    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
-        pair = item.get("between")
-        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
-                                                                 for p in pair)):
-            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
-        couplings.append((pair[0], pair[1], r.number(item, "strength", f"{where}.strength",
-                                                     kind="frequency")))
-    frame = r.number(t, "frame_frequency", "system.frame_frequency",
-                     specs[0].qubit_frequency_hz, kind="frequency", positive=True)
-    drives = []
-    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
-        for key in ("name", "transmon"):
-            if not isinstance(item.get(key), str):
-                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
-        drives.append((item["name"], item["transmon"],
-                       r.number(item, "frequency", f"{where}.frequency", kind="frequency",
-                                positive=True)))
-    try:
-        return coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
-    except InputError as exc:
-        r.fail("system.drive" if "drive" in str(exc) else "system", str(exc))
-
-
-def _matrices(r: _Reader, t: dict) -> System:
-    unit = t.get("unit", "Hz")
-    scale = parse_quantity(f"1 {unit}", "frequency", key="system.unit", path=r.path)
-    if "drift" not in t:
-        r.fail("system.drift", "missing required key (model = \"matrices\")")
-    drift = r.matrix(t, "drift", "system.drift", imag_key="drift_imag") * scale
-    controls = r.table(t, "controls", "system.controls")
-    imag = r.table(t, "controls_imag", "system.controls_imag")
-    if not controls:
-        r.fail("system.controls", "expected a table of named control matrices, e.g. "
-                                  "controls.drive_i = [[0, 0.5], [0.5, 0]]")
-    ops = {}
-    for name in imag:
-        if name not in controls:
-            r.fail(f"system.controls_imag.{name}", f"no real part system.controls.{name}; "
-                                                   f"controls: {', '.join(controls)}")
-    for name in controls:
-        where = f"system.controls.{name}"
-        if not NAME.fullmatch(name):
-            r.fail(where, f"expected a control name of {NAME_RULE}")
-        op = np.real(r.matrix(controls, name, where, size=drift.shape[0]))
-        if name in imag:
-            op = op + 1j * np.real(r.matrix(imag, name, f"system.controls_imag.{name}",
-                                            size=drift.shape[0]))
-        ops[name] = op
-    dims = t.get("dims")
-    comp = t.get("computational")
-    for key, val in (("dims", dims), ("computational", comp)):
-        if val is not None and not (isinstance(val, list) and all(
-                isinstance(x, int) and not isinstance(x, bool) for x in val)):
-            r.fail(f"system.{key}", f"expected a list of whole numbers, got {val!r}")
-    collapse = {}
-    rates = r.table(t, "collapse_rate", "system.collapse_rate")
-    for name, _ in r.table(t, "collapse", "system.collapse").items():
-        where = f"system.collapse.{name}"
-        op = r.matrix(t["collapse"], name, where, size=drift.shape[0])
-        if name not in rates:
-            r.fail(f"system.collapse_rate.{name}", "missing: every collapse operator needs a "
-                                                   "rate (a frequency, e.g. \"25 kHz\" = 1/40us)")
-        rate = r.number(rates, name, f"system.collapse_rate.{name}", kind="frequency",
-                        positive=True, bare_check=False)
-        collapse[name] = np.sqrt(rate) * op
-    for name in rates:
-        if name not in collapse:
-            r.fail(f"system.collapse_rate.{name}", f"no operator system.collapse.{name}")
-    try:
-        return from_matrices(drift, ops, dims=dims, computational=comp, collapse=collapse)
-    except InputError as exc:
-        r.fail("system", str(exc))
 
 
 def _gate_set(r: _Reader, t: dict, system: System) -> tuple[str, ...]:

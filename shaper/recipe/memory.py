@@ -1,0 +1,66 @@
+"""Will a recipe's problem fit in this machine? Refused before anything is allocated.
+
+The estimate counts the propagator slices of the largest program the run builds (carrier
+sub-slicing, the line's oversampling, the lab frame's carrier resolution and export
+padding included) times the ensemble and the entries of one ``d x d`` matrix; a refusal
+names the key that makes the problem big (README, "Limits").
+"""
+
+from __future__ import annotations
+
+import math
+
+from shaper.physics.systems import System
+from shaper.recipe.schema import ExportSettings, _Reader
+
+# Bytes per (slice x d^2) that one value-and-gradient holds at once: eigenvectors,
+# exponentials, the derivative's G matrix, tangents and the pairwise products, complex128
+# (16 bytes each), measured within a factor of two on the bundled recipes.
+BYTES_PER_ENTRY = 16 * 16
+MAX_EXPORT_SAMPLES = 10_000_000
+
+
+def available_memory() -> int:
+    """Bytes this process may still allocate (MemAvailable, else the physical memory)."""
+    try:
+        with open("/proc/meminfo") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    import os
+    return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+
+
+def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
+                    export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
+    """Refuse, before anything is allocated, a problem that cannot fit in this machine.
+
+    ``lab_phases``: optimised in the lab frame over that many carrier phases (its slices
+    resolve the carrier: :mod:`shaper.signal.labdrive`)."""
+    from shaper.physics.grid import substeps
+
+    n, g = pulse["samples"], export.granularity
+    exported = -(-n // g) * g
+    if exported > MAX_EXPORT_SAMPLES:
+        r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
+                                     f"{exported} samples, more than any AWG memory "
+                                     f"({MAX_EXPORT_SAMPLES}); check the granularity")
+    steps = max(oversample, substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"])
+                if export.if_frequency_hz else 1)
+    d = system.dimension
+    slices = n * steps
+    if lab_phases:
+        from shaper.physics.labframe import POINTS_PER_CYCLE, lab_terms
+        fastest = lab_terms(system).fastest_hz(abs(export.if_frequency_hz))
+        slices = lab_phases * 2 * max(n * steps, math.ceil(
+            exported / pulse["sample_rate_hz"] * fastest * POINTS_PER_CYCLE))
+    need = (members + 1) * slices * d * d * BYTES_PER_ENTRY
+    have = available_memory()
+    if need > 0.8 * have:
+        key = "system.levels" if d > 64 else "pulse.duration"
+        r.fail(key, f"this problem needs about {need / 2**30:.1f} GiB ({slices} propagator "
+                    f"slices x {members + 1} system(s) x {d}^2 levels) and this machine has "
+                    f"{have / 2**30:.1f} GiB available; use fewer levels, a shorter pulse or a "
+                    f"smaller ensemble")

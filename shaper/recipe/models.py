@@ -1,0 +1,207 @@
+"""The ``[system]`` models: a registry from ``model = "..."`` to the keys it reads and its
+reader (README, "Recipe reference"; DEVELOPERS.md, "Where new things go").
+
+A new system model is one reader plus one :func:`register` call: its keys are then known
+to the key checker (unknown keys are refused with a suggestion) and ``model = "<name>"``
+reads the table through it. Every reader returns a :class:`~shaper.physics.systems.System`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import NamedTuple
+
+import numpy as np
+
+from shaper.errors import InputError
+from shaper.physics.systems import NAME, NAME_RULE, System, from_matrices
+from shaper.physics.transmons import SPECTRA, TransmonSpec, coupled_transmons
+from shaper.recipe.schema import KEYS, _Reader
+from shaper.recipe.units import parse_quantity
+
+
+class Model(NamedTuple):
+    """A ``[system]`` model: the keys it reads (besides ``model``), its reader, and the
+    keys of its nested tables (``{"transmon": (...)}`` for ``[[system.transmon]]``)."""
+
+    keys: tuple[str, ...]
+    read: Callable[[_Reader, dict], System]
+    tables: dict[str, tuple[str, ...]] = {}
+
+
+def register(name: str, model: Model) -> None:
+    """Make ``model = "<name>"`` readable; its keys join the ``[system]`` key list."""
+    MODELS[name] = model
+    KEYS["system"] = tuple(dict.fromkeys(KEYS["system"] + model.keys))
+    for table, keys in model.tables.items():
+        KEYS[f"system.{table}"] = keys
+
+
+def read_system(r: _Reader, t: dict) -> System:
+    """``[system]`` through the model it names; keys of another model are refused."""
+    r.check_keys(t, "system")
+    name = r.choice(t, "model", "system.model", tuple(MODELS))
+    model = MODELS[name]
+    for key in t:
+        if key != "model" and key not in model.keys:
+            r.fail(f"system.{key}", f"not a key of model = {name!r} (its keys: model, "
+                                    f"{', '.join(model.keys)})")
+    try:
+        return model.read(r, t)
+    except InputError as exc:
+        r.fail("system", str(exc))
+
+
+def _spectrum(r: _Reader, t: dict, where: str) -> dict:
+    """``spectrum`` and ``offset_charge`` as TransmonSpec keywords (README, "The charge
+    model")."""
+    out = {"spectrum": r.choice(t, "spectrum", f"{where}.spectrum", tuple(SPECTRA),
+                                "duffing")}
+    if "offset_charge" in t:
+        if out["spectrum"] != "charge":
+            r.fail(f"{where}.offset_charge", "only the charge model has an offset charge; "
+                                             "add spectrum = \"charge\"")
+        out["offset_charge"] = r.number(t, "offset_charge", f"{where}.offset_charge")
+        if not -1 <= out["offset_charge"] <= 1:
+            r.fail(f"{where}.offset_charge", f"expected Cooper pairs in [-1, 1] (the levels "
+                                             f"repeat with period 1), got {t['offset_charge']!r}")
+    return out
+
+
+def _coherence(r: _Reader, t: dict, where: str) -> dict:
+    """``t1`` and ``t2`` (times, optional) as TransmonSpec keywords."""
+    out = {}
+    for key in ("t1", "t2"):
+        if key in t:
+            out[f"{key}_s"] = r.number(t, key, f"{where}.{key}", kind="time", positive=True,
+                                       hint="us")
+    if "t1_s" in out and "t2_s" in out and out["t2_s"] > 2 * out["t1_s"] * (1 + 1e-12):
+        r.fail(f"{where}.t2", f"t2 = {t['t2']!r} is longer than 2 t1 = 2 x {t['t1']!r}, which "
+                              f"no qubit reaches (T2 <= 2 T1)")
+    return out
+
+
+def _transmon(r: _Reader, t: dict) -> System:
+    """``model = "transmon"``: one transmon in the frame of its drive."""
+    for key in ("levels", "qubit_frequency", "anharmonicity"):
+        if key not in t:
+            r.fail(f"system.{key}", "missing required key (model = \"transmon\")")
+    levels = r.number(t, "levels", "system.levels", integer=True)
+    if levels < 2:
+        r.fail("system.levels", f"must be at least 2 (levels 0 and 1 are the qubit), "
+                                f"got {levels}")
+    fq = r.number(t, "qubit_frequency", "system.qubit_frequency", kind="frequency",
+                  positive=True)
+    alpha = r.number(t, "anharmonicity", "system.anharmonicity", kind="frequency")
+    fd = r.number(t, "drive_frequency", "system.drive_frequency", fq, kind="frequency",
+                  positive=True)
+    name = t.get("qubit", "q0")
+    if not isinstance(name, str) or not NAME.fullmatch(name):
+        r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
+                               f"got {str(name)[:80]!r}")
+    spec = TransmonSpec(name=name, levels=levels, qubit_frequency_hz=fq,
+                        anharmonicity_hz=alpha, **_coherence(r, t, "system"),
+                        **_spectrum(r, t, "system"))
+    return coupled_transmons([spec], [], frame_frequency_hz=fd)
+
+
+def _transmons(r: _Reader, t: dict) -> System:
+    items = t.get("transmon")
+    if not isinstance(items, list) or not items:
+        r.fail("system.transmon", "expected one [[system.transmon]] table per transmon")
+    specs = []
+    for i, (where, item) in enumerate(r.tables(t, "transmon", "system.transmon",
+                                               "system.transmon")):
+        name = item.get("name", f"q{i}")
+        if not isinstance(name, str) or not NAME.fullmatch(name):
+            r.fail(f"{where}.name", f"expected {NAME_RULE}, got {str(name)[:80]!r}")
+        levels = r.number(item, "levels", f"{where}.levels", integer=True)
+        if levels < 2:
+            r.fail(f"{where}.levels", f"must be at least 2, got {levels}")
+        specs.append(TransmonSpec(
+            name=name, levels=levels,
+            qubit_frequency_hz=r.number(item, "qubit_frequency", f"{where}.qubit_frequency",
+                                        kind="frequency", positive=True),
+            anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
+                                      kind="frequency"),
+            flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where),
+            **_spectrum(r, item, where)))
+    couplings = []
+    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
+        pair = item.get("between")
+        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
+                                                                 for p in pair)):
+            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
+        couplings.append((pair[0], pair[1], r.number(item, "strength", f"{where}.strength",
+                                                     kind="frequency")))
+    frame = r.number(t, "frame_frequency", "system.frame_frequency",
+                     specs[0].qubit_frequency_hz, kind="frequency", positive=True)
+    drives = []
+    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
+        for key in ("name", "transmon"):
+            if not isinstance(item.get(key), str):
+                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
+        drives.append((item["name"], item["transmon"],
+                       r.number(item, "frequency", f"{where}.frequency", kind="frequency",
+                                positive=True)))
+    try:
+        return coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
+    except InputError as exc:
+        r.fail("system.drive" if "drive" in str(exc) else "system", str(exc))
+
+
+def _matrices(r: _Reader, t: dict) -> System:
+    unit = t.get("unit", "Hz")
+    scale = parse_quantity(f"1 {unit}", "frequency", key="system.unit", path=r.path)
+    if "drift" not in t:
+        r.fail("system.drift", "missing required key (model = \"matrices\")")
+    drift = r.matrix(t, "drift", "system.drift", imag_key="drift_imag") * scale
+    controls = r.table(t, "controls", "system.controls")
+    imag = r.table(t, "controls_imag", "system.controls_imag")
+    if not controls:
+        r.fail("system.controls", "expected a table of named control matrices, e.g. "
+                                  "controls.drive_i = [[0, 0.5], [0.5, 0]]")
+    ops = {}
+    for name in imag:
+        if name not in controls:
+            r.fail(f"system.controls_imag.{name}", f"no real part system.controls.{name}; "
+                                                   f"controls: {', '.join(controls)}")
+    for name in controls:
+        where = f"system.controls.{name}"
+        if not NAME.fullmatch(name):
+            r.fail(where, f"expected a control name of {NAME_RULE}")
+        op = np.real(r.matrix(controls, name, where, size=drift.shape[0]))
+        if name in imag:
+            op = op + 1j * np.real(r.matrix(imag, name, f"system.controls_imag.{name}",
+                                            size=drift.shape[0]))
+        ops[name] = op
+    dims = t.get("dims")
+    comp = t.get("computational")
+    for key, val in (("dims", dims), ("computational", comp)):
+        if val is not None and not (isinstance(val, list) and all(
+                isinstance(x, int) and not isinstance(x, bool) for x in val)):
+            r.fail(f"system.{key}", f"expected a list of whole numbers, got {val!r}")
+    collapse = {}
+    rates = r.table(t, "collapse_rate", "system.collapse_rate")
+    for name, _ in r.table(t, "collapse", "system.collapse").items():
+        where = f"system.collapse.{name}"
+        op = r.matrix(t["collapse"], name, where, size=drift.shape[0])
+        if name not in rates:
+            r.fail(f"system.collapse_rate.{name}", "missing: every collapse operator needs a "
+                                                   "rate (a frequency, e.g. \"25 kHz\" = 1/40us)")
+        rate = r.number(rates, name, f"system.collapse_rate.{name}", kind="frequency",
+                        positive=True, bare_check=False)
+        collapse[name] = np.sqrt(rate) * op
+    for name in rates:
+        if name not in collapse:
+            r.fail(f"system.collapse_rate.{name}", f"no operator system.collapse.{name}")
+    return from_matrices(drift, ops, dims=dims, computational=comp, collapse=collapse)
+
+
+MODELS: dict[str, Model] = {
+    "transmon": Model(("levels", "qubit_frequency", "anharmonicity", "drive_frequency",
+                       "qubit", "t1", "t2", "spectrum", "offset_charge"), _transmon),
+    "transmons": Model(("transmon", "coupling", "frame_frequency", "drive"), _transmons),
+    "matrices": Model(("unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
+                       "computational", "collapse", "collapse_rate"), _matrices),
+}
