@@ -102,53 +102,39 @@ def _run(args: argparse.Namespace, stop) -> int:
         return stop.exit_code
     from shaper.io.runfolder import prepare_folder
     prepare_folder(folder, args.force, args.resume)  # refuses at once, before JAX is loaded
-    from shaper.optimise.options import RunOptions
-    from shaper.optimise.watchdog import Watchdog
     from shaper.recipe.derive import with_budget
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
-    from shaper.io.runlog import RunLog
-    from shaper.jobs.painter import Painter
-
-    # the plot helper imports matplotlib on the other core while this process loads JAX
-    painter = None if args.no_plots else Painter()
-    from shaper.jobs.run import rescue_writer
+    workers = workers if starts > 1 else 1
     from shaper.jobs.run import run as run_job
-    log = RunLog(folder / "run.log", echo=None if args.quiet else sys.stderr)
-    log.line(f"{'resuming' if args.resume else 'starting'} {recipe.name} from {args.recipe}: "
-             f"{starts} start(s) on {workers if starts > 1 else 1} process(es)")
-    progress = Progress(recipe.optimizer.max_iterations,
-                        stream=None if args.quiet or starts > 1 and workers > 1 else sys.stderr,
-                        log=log)
-    import logging
+    from shaper.jobs.setup import run_setup
 
-    class ToRunLog(logging.Handler):
-        def emit(self, record):
-            log.line(f"warning: {record.getMessage()}")
-    handler = ToRunLog()
-    logging.getLogger("shaper").addHandler(handler)
-    watchdog = Watchdog(limit_s=stall_limit, log=log.line)
-    watchdog.rescue = rescue_writer(folder, watchdog)
-    stop.rescue, stop.log = watchdog.rescue, log.line
-    with watchdog:
-        try:
-            options = RunOptions(seed=args.seed, folder=folder, resume=args.resume,
-                                 workers=workers if starts > 1 else 1,
-                                 checkpoint_every=args.checkpoint_every,
-                                 checkpoint_seconds=args.checkpoint_seconds, progress=progress,
-                                 on_start_done=log, stop=stop, watchdog=watchdog)
-            if recipe.gate_set:
-                return _gate_set(recipe, options, folder, args, painter)
-            output = run_job(recipe, options, out=folder, force=args.force,
-                             plots_too=not args.no_plots, painter=painter)
-        finally:
-            if painter is not None:
-                painter.close()
-            progress.close()
-            logging.getLogger("shaper").removeHandler(handler)
+    def progress(log):
+        log.line(f"{'resuming' if args.resume else 'starting'} {recipe.name} from "
+                 f"{args.recipe}: {starts} start(s) on {workers} process(es)")
+        quiet = args.quiet or workers > 1
+        return Progress(recipe.optimizer.max_iterations, log=log,
+                        stream=None if quiet else sys.stderr)
+
+    with run_setup(folder, stop=stop, stall_limit_s=stall_limit, plots=not args.no_plots,
+                   echo=None if args.quiet else sys.stderr, progress=progress, seed=args.seed,
+                   resume=args.resume, workers=workers, checkpoint_every=args.checkpoint_every,
+                   checkpoint_seconds=args.checkpoint_seconds) as setup:
+        if recipe.gate_set:
+            return _gate_set(recipe, setup.options, folder, args, setup.painter)
+        output = run_job(recipe, setup.options, out=folder, force=args.force,
+                         plots_too=not args.no_plots, painter=setup.painter)
+    _print_summary(recipe, output)
+    if stop:
+        return stop.exit_code
+    return 0 if output.report["targets"]["met"] else 1
+
+
+def _print_summary(recipe, output) -> None:
+    """The last lines of a run: each start, the judged figures, the time, the files."""
     r = output.report
     reason = r["optimizer"]["stop_reason"]
     if len(r["optimizer"]["starts"]) > 1:
@@ -169,9 +155,6 @@ def _run(args: argparse.Namespace, stop) -> int:
     print(f"CAUTION: {r['caution']}")
     from shaper.costs.verdict import summary
     print(summary(r["targets"]))
-    if stop:
-        return stop.exit_code
-    return 0 if r["targets"]["met"] else 1
 
 
 def _gate_set(recipe, options, folder: Path, args, painter) -> int:
