@@ -220,8 +220,8 @@ def test_over_full_scale_is_an_error_and_clip_counts(demo, tmp_path):
     assert clipped > 0 and np.max(np.abs(wave.fractions)) <= 1.0
 
 
-def test_bare_export_and_granularity(demo, tmp_path):
-    code, out, err = cli("export", demo.folder, "--out", tmp_path / "b", "--bare",
+def test_numbers_format_and_granularity(demo, tmp_path):
+    code, out, err = cli("export", demo.folder, "--out", tmp_path / "b", "--format", "numbers",
                          "--granularity", "32", "--padding", "centre")
     assert code == 0, err
     numbers = np.loadtxt(tmp_path / "b" / "demo-x180_q0.txt", delimiter=",")

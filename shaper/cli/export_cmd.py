@@ -25,8 +25,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "without the line in the loop: export.predistort)")
     parser.add_argument("--codes", action="store_true",
                         help="write integer DAC codes instead of fractions of full scale")
-    parser.add_argument("--bare", action="store_true",
-                        help="numbers only: one file per channel, no header, no sidecar")
+    from shaper.io.writers import WRITERS
+
+    parser.add_argument("--format", default="csv", choices=tuple(WRITERS),
+                        help="file format: " + "; ".join(f"{k}: {w.what}"
+                                                         for k, w in WRITERS.items()))
+    parser.add_argument("--bare", action="store_const", const="numbers", dest="format",
+                        help=argparse.SUPPRESS)  # the earlier name of --format numbers
     parser.add_argument("--force", action="store_true", help="overwrite an earlier export")
 
 
@@ -47,7 +52,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--sample-rate must be positive, got {rate:g}")
     report = reexport(args.run, out=args.out, sample_rate_hz=rate, bits=args.bits, if_hz=if_hz,
                       sideband=args.sideband, granularity=args.granularity,
-                      padding=args.padding, clip=True if args.clip else None, bare=args.bare,
+                      padding=args.padding, clip=True if args.clip else None, format=args.format,
                       force=args.force, predistort=args.predistort,
                       codes=True if args.codes else None)
     run_fig = report["at_run_rate"]

@@ -125,58 +125,16 @@ def to_fractions(samples_hz: np.ndarray, system: System, full_scale_hz: dict[str
 
 
 def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: System, *,
-                   recipe_name: str, recipe_sha256: str, bare: bool = False) -> list[Path]:
-    """Write ``<name>.csv`` and ``<name>.json`` (or a bare CSV without header) atomically.
+                   recipe_name: str, recipe_sha256: str, format: str = "csv") -> list[Path]:
+    """Write the waveform in a registered file format (:mod:`shaper.io.writers`) atomically.
 
     Returns:
-        The paths written.
+        The paths written, the waveform file first.
     """
-    folder = Path(folder)
-    n = waveform.fractions.shape[0]
-    time_s = np.arange(n) / waveform.sample_rate_hz
-    table = np.column_stack([time_s, waveform.fractions])
-    if bare:  # numbers only: one file per channel, I,Q columns (baseband: one column)
-        paths = []
-        for ch in system.channels:
-            block = waveform.fractions[:, list(ch.columns)]
-            path = atomic.inside(folder, folder / f"{name}_{ch.name}.txt")
-            atomic.write_text(path, "\n".join(",".join(f"{v:.12g}" for v in row)
-                                              for row in block) + "\n")
-            paths.append(path)
-        return paths
-    header = ",".join(("time_s",) + tuple(waveform.column_names))
-    if waveform.codes:  # integers: exact, since the fractions sit on the DAC's levels
-        levels = 2 ** (waveform.bits - 1) - 1
-        codes = np.rint(waveform.fractions * levels).astype(np.int64)
-        lines = [header] + [f"{t:.12e}," + ",".join(str(v) for v in row)
-                            for t, row in zip(time_s, codes, strict=True)]
-    else:
-        lines = [header] + [f"{row[0]:.12e}," + ",".join(f"{v:.12g}" for v in row[1:])
-                            for row in table]
-    csv_path = atomic.inside(folder, folder / f"{name}.csv")
-    json_path = atomic.inside(folder, folder / f"{name}.json")
-    channels = {}
-    for ch in system.channels:
-        channels[ch.name] = {"kind": ch.kind,
-                             "columns": [waveform.column_names[c] for c in ch.columns],
-                             "full_scale_rabi_hz": waveform.full_scale_hz[ch.name],
-                             "if_frequency_hz": waveform.if_frequency_hz if ch.kind == "iq"
-                             else 0.0, "dac_bits": waveform.bits}
-        if ch.kind == "iq" and waveform.if_frequency_hz:
-            channels[ch.name]["sideband"] = waveform.sideband
-    meta = {"format": FORMAT, "caution": CAUTION, "sample_rate_hz": waveform.sample_rate_hz,
-            "samples": n, "pulse_start_sample": waveform.pulse_start,
-            "pulse_start_s": waveform.pulse_start / waveform.sample_rate_hz,
-            "channels": channels, "recipe": recipe_name, "recipe_sha256": recipe_sha256,
-            "values": "dac_codes" if waveform.codes else "fractions",
-            "predistorted": waveform.predistorted, "mixer_corrected": waveform.mixer_corrected}
-    if waveform.codes:
-        meta["dac_code_of_full_scale"] = 2 ** (waveform.bits - 1) - 1
-    if waveform.predistortion_residual is not None:
-        meta["predistortion_residual"] = waveform.predistortion_residual
-    atomic.write_text(csv_path, "\n".join(lines) + "\n")
-    atomic.write_json(json_path, meta)
-    return [csv_path, json_path]
+    from shaper.io.writers import WRITERS
+
+    return WRITERS[format].write(Path(folder), name, waveform, system,
+                                 {"recipe": recipe_name, "recipe_sha256": recipe_sha256})
 
 
 def read_waveform(csv_path: str | Path) -> Waveform:
@@ -190,22 +148,7 @@ def read_waveform(csv_path: str | Path) -> Waveform:
     json_path = csv_path.with_suffix(".json")
     meta = atomic.read_json(json_path, WaveformError, "the waveform's sidecar is missing; it "
                             "holds the sample rate and full scale")
-    lines = read_lines(csv_path)
-    if len(lines) < 2:
-        raise WaveformError(f"{csv_path}: empty: expected a header row and at least one sample")
-    header = [h.strip() for h in lines[0].split(",")]
-    if header[0] != "time_s":
-        raise WaveformError(f"{csv_path}: the first column must be time_s, got {header[0]!r}")
-    try:
-        data = np.array([[float(v) for v in line.split(",")] for line in lines[1:] if line],
-                        float)
-    except ValueError:
-        raise WaveformError(f"{csv_path}: every value after the header must be a number") \
-            from None
-    if data.ndim != 2 or data.shape[1] != len(header):
-        raise WaveformError(f"{csv_path}: every row must have {len(header)} values")
-    if not np.all(np.isfinite(data)):
-        raise WaveformError(f"{csv_path}: contains NaN or infinite values")
+    header, data = _read_table(csv_path)
     side = Sidecar(json_path, meta)
     rate = side.number(meta, "sample_rate_hz", positive=True)
     samples = side.whole(meta, "samples", minimum=1)
@@ -225,25 +168,7 @@ def read_waveform(csv_path: str | Path) -> Waveform:
         data[:, 1:] /= levels
     if np.any(np.abs(data[:, 1:]) > 1.0 + 1e-12):
         raise WaveformError(f"{csv_path}: values beyond full scale (|x| > 1)")
-    channels = meta.get("channels")
-    if not isinstance(channels, dict) or not channels:
-        raise WaveformError(f"{json_path}: 'channels' must be a table of the channels, "
-                            f"got {str(channels)[:60]!r}")
-    full, bits, ifs, sidebands, columns = {}, set(), set(), set(), []
-    for name, ch in channels.items():
-        where = f"channels.{name}"
-        if not isinstance(ch, dict):
-            raise WaveformError(f"{json_path}: {where} must be a table")
-        full[name] = side.number(ch, "full_scale_rabi_hz", where, positive=True)
-        kind = side.choice(ch, "kind", ("iq", "baseband"), "iq", where)
-        bits.add(side.whole(ch, "dac_bits", minimum=2, maximum=32, where=where, optional=True))
-        names = ch.get("columns", [])
-        if not isinstance(names, list) or not all(isinstance(c, str) for c in names):
-            raise WaveformError(f"{json_path}: {where}.columns must be a list of column names")
-        columns += names
-        if kind == "iq":
-            ifs.add(side.number(ch, "if_frequency_hz", where, default=0.0))
-            sidebands.add(side.choice(ch, "sideband", ("lower", "upper"), "lower", where))
+    full, bits, ifs, sidebands, columns = _read_channels(side, meta)
     if len(ifs) > 1 or len(sidebands) > 1:
         raise WaveformError(f"{json_path}: channels with different IF frequencies or "
                             f"sidebands are not supported")
@@ -260,6 +185,51 @@ def read_waveform(csv_path: str | Path) -> Waveform:
                     predistorted=side.flag(meta, "predistorted"),
                     mixer_corrected=side.flag(meta, "mixer_corrected"),
                     codes=values == "dac_codes")
+
+
+def _read_table(csv_path: Path) -> tuple[list[str], np.ndarray]:
+    """The CSV's header and its numbers (time first), all finite."""
+    lines = read_lines(csv_path)
+    if len(lines) < 2:
+        raise WaveformError(f"{csv_path}: empty: expected a header row and at least one sample")
+    header = [h.strip() for h in lines[0].split(",")]
+    if header[0] != "time_s":
+        raise WaveformError(f"{csv_path}: the first column must be time_s, got {header[0]!r}")
+    try:
+        data = np.array([[float(v) for v in line.split(",")] for line in lines[1:] if line],
+                        float)
+    except ValueError:
+        raise WaveformError(f"{csv_path}: every value after the header must be a number") \
+            from None
+    if data.ndim != 2 or data.shape[1] != len(header):
+        raise WaveformError(f"{csv_path}: every row must have {len(header)} values")
+    if not np.all(np.isfinite(data)):
+        raise WaveformError(f"{csv_path}: contains NaN or infinite values")
+    return header, data
+
+
+def _read_channels(side: Sidecar, meta: dict):
+    """The sidecar's channels: full scales, DAC bits, IFs, sidebands and column names."""
+    channels = meta.get("channels")
+    if not isinstance(channels, dict) or not channels:
+        raise WaveformError(f"{side.path}: 'channels' must be a table of the channels, "
+                            f"got {str(channels)[:60]!r}")
+    full, bits, ifs, sidebands, columns = {}, set(), set(), set(), []
+    for name, ch in channels.items():
+        where = f"channels.{name}"
+        if not isinstance(ch, dict):
+            raise WaveformError(f"{side.path}: {where} must be a table")
+        full[name] = side.number(ch, "full_scale_rabi_hz", where, positive=True)
+        kind = side.choice(ch, "kind", ("iq", "baseband"), "iq", where)
+        bits.add(side.whole(ch, "dac_bits", minimum=2, maximum=32, where=where, optional=True))
+        names = ch.get("columns", [])
+        if not isinstance(names, list) or not all(isinstance(c, str) for c in names):
+            raise WaveformError(f"{side.path}: {where}.columns must be a list of column names")
+        columns += names
+        if kind == "iq":
+            ifs.add(side.number(ch, "if_frequency_hz", where, default=0.0))
+            sidebands.add(side.choice(ch, "sideband", ("lower", "upper"), "lower", where))
+    return full, bits, ifs, sidebands, columns
 
 
 def read_lines(path: Path) -> list[str]:

@@ -186,7 +186,7 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
 
 
 def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideband=None,
-             granularity=None, padding=None, clip=None, bare=False, force=False,
+             granularity=None, padding=None, clip=None, format="csv", force=False,
              predistort=False, codes=None) -> dict:
     """Write an earlier run's pulse for another instrument; return the export report.
 
@@ -236,7 +236,7 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     playback = Playback(target, wave)
     played, verdict = playback.nominal, playback.verdict()
     files = waveio.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
-                                  recipe_sha256=recipe.sha256, bare=bare)
+                                  recipe_sha256=recipe.sha256, format=format)
     report = {**played.figures(), "waveform": files[0].name, "files": [f.name for f in files],
               "sample_rate_hz": rate, "resampling": method, "samples": wave.fractions.shape[0],
               "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,

@@ -69,44 +69,7 @@ def stop_on_signals(*, grace_s: float | None = None, exit=os._exit):
         return
     read_fd, write_fd = os.pipe()
     os.set_blocking(write_fd, False)
-    done = threading.Event()
-
-    def forced(signum: int, why: str) -> None:
-        text = f"{signal.Signals(signum).name}: {why}"
-        if flag.rescue is not None:
-            try:
-                flag.rescue(text)
-            except Exception as exc:  # noqa: BLE001 - exit anyway
-                text += f"; saving the best pulse failed: {exc}"
-        if flag.log is not None:
-            try:
-                flag.log(text)
-            except Exception:  # noqa: BLE001
-                pass
-        exit(EXIT_CODES.get(signum, 130))
-
-    def watch() -> None:
-        seen = 0
-        while not done.is_set():
-            try:
-                data = os.read(read_fd, 16)
-            except OSError:
-                return
-            for signum in data:
-                if done.is_set() or signum not in EXIT_CODES:
-                    continue
-                seen += 1
-                if flag.signal is None:
-                    flag.signal = signum
-                if seen >= 2:
-                    forced(signum, "second signal, stopping at once")
-                    return
-                threading.Thread(target=grace, args=(signum,), daemon=True).start()
-
-    def grace(signum: int) -> None:
-        if not flag.acknowledged.wait(grace_s) and not done.is_set():
-            forced(signum, f"the computation did not return within {grace_s:.0f} s of the "
-                           f"signal; wrote the best pulse of the last completed evaluation")
+    watcher = _Watcher(flag, read_fd, grace_s, exit)
 
     def handler(signum, frame):  # runs in the main thread when Python gets control
         if flag.signal is None:
@@ -114,15 +77,62 @@ def stop_on_signals(*, grace_s: float | None = None, exit=os._exit):
 
     old_fd = signal.set_wakeup_fd(write_fd, warn_on_full_buffer=False)
     old = {s: signal.signal(s, handler) for s in EXIT_CODES}
-    helper = threading.Thread(target=watch, name="shaper-signals", daemon=True)
+    helper = threading.Thread(target=watcher.watch, name="shaper-signals", daemon=True)
     helper.start()
     try:
         yield flag
     finally:
-        done.set()
+        watcher.done.set()
         for s, h in old.items():
             signal.signal(s, h)
         signal.set_wakeup_fd(old_fd)
         os.close(write_fd)  # wakes the helper's read with EOF
         helper.join(timeout=1.0)
         os.close(read_fd)
+
+
+class _Watcher:
+    """The helper thread's side: reads signal numbers from the wakeup pipe, starts the
+    grace timer on the first and ends the process on the second (or when the grace ends)."""
+
+    def __init__(self, flag: StopFlag, read_fd: int, grace_s: float, exit):
+        self.flag, self.read_fd, self.grace_s, self.exit = flag, read_fd, grace_s, exit
+        self.done = threading.Event()
+
+    def forced(self, signum: int, why: str) -> None:
+        text = f"{signal.Signals(signum).name}: {why}"
+        if self.flag.rescue is not None:
+            try:
+                self.flag.rescue(text)
+            except Exception as exc:  # noqa: BLE001 - exit anyway
+                text += f"; saving the best pulse failed: {exc}"
+        if self.flag.log is not None:
+            try:
+                self.flag.log(text)
+            except Exception:  # noqa: BLE001
+                pass
+        self.exit(EXIT_CODES.get(signum, 130))
+
+    def watch(self) -> None:
+        seen = 0
+        while not self.done.is_set():
+            try:
+                data = os.read(self.read_fd, 16)
+            except OSError:
+                return
+            for signum in data:
+                if self.done.is_set() or signum not in EXIT_CODES:
+                    continue
+                seen += 1
+                if self.flag.signal is None:
+                    self.flag.signal = signum
+                if seen >= 2:
+                    self.forced(signum, "second signal, stopping at once")
+                    return
+                threading.Thread(target=self.grace, args=(signum,), daemon=True).start()
+
+    def grace(self, signum: int) -> None:
+        if not self.flag.acknowledged.wait(self.grace_s) and not self.done.is_set():
+            self.forced(signum, f"the computation did not return within {self.grace_s:.0f} s "
+                                f"of the signal; wrote the best pulse of the last completed "
+                                f"evaluation")
