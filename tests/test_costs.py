@@ -4,7 +4,7 @@ import pytest
 
 from shaper import costs
 from shaper.errors import InputError
-from shaper.optimise.objective import make_objective
+from shaper.optimizer.objective import make_objective
 from shaper.recipe import load_recipe
 
 DEMO = {"name": "c", "system": {"model": "transmon", "levels": 3, "qubit_frequency": "5 GHz",

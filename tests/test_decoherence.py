@@ -155,7 +155,7 @@ def test_check_takes_coherence_times_on_the_command_line():
 def test_optimising_the_channel_is_at_least_as_good_on_the_channel(tmp_path):
     # optimizer.open_system: the optimiser's objective is the channel fidelity; on the
     # channel it must do at least as well as a pulse optimised for the closed system
-    from shaper.optimise.starts import optimize
+    from shaper.optimizer.starts import optimize
     from shaper.physics.simulation import simulate_open
 
     raw = dict(load_recipe(ROOT / "recipes" / "demo-x180.toml").raw)

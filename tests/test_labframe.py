@@ -195,7 +195,7 @@ def test_optimising_in_the_lab_frame_sees_what_the_verdict_sees(tmp_path):
     # unquantised samples (its own code path: exact-time envelope, chunked propagation)
     # must give the same mean
     from shaper.jobs.export import make_waveform
-    from shaper.optimise.starts import optimize
+    from shaper.optimizer.starts import optimize
 
     recipe = load_recipe(_lab_recipe())
     result = optimize(recipe)
@@ -209,7 +209,7 @@ def test_optimising_in_the_lab_frame_sees_what_the_verdict_sees(tmp_path):
 def test_lab_frame_gradient_against_finite_differences():
     # the lab drive is linear in the samples, so the propagator's exact derivative carries
     # through; central differences of the compiled objective (common practice, no source)
-    from shaper.optimise.objective import make_objective
+    from shaper.optimizer.objective import make_objective
 
     raw = _lab_recipe()
     raw["pulse"]["duration"] = "2.5 ns"

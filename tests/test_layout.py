@@ -9,7 +9,7 @@ import ast
 from pathlib import Path
 
 PACKAGE = Path(__file__).parent.parent / "shaper"
-STAGES = ["errors", "physics", "recipe", "signal", "costs", "io", "optimise", "jobs", "cli"]
+STAGES = ["errors", "physics", "recipe", "signal", "costs", "io", "optimizer", "jobs", "cli"]
 
 
 def stage_of(module: str) -> str | None:

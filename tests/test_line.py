@@ -23,7 +23,7 @@ from shaper.io.waveio import read_waveform
 from shaper.jobs.export import make_waveform
 from shaper.jobs.playback import simulate_played
 from shaper.jobs.run import run
-from shaper.optimise.objective import make_objective
+from shaper.optimizer.objective import make_objective
 from shaper.recipe import load_recipe
 from shaper.recipe.lines import Stage
 from shaper.signal import line as lines

@@ -11,7 +11,7 @@ import pytest
 from helpers import duffing, expm_product, pedersen_fidelity, subspace_leakage
 
 import shaper
-from shaper.optimise.starts import optimize
+from shaper.optimizer.starts import optimize
 from shaper.recipe import load_recipe
 
 ROOT = Path(__file__).parent.parent

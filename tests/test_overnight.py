@@ -15,8 +15,8 @@ from helpers import duffing, expm_product, pedersen_fidelity, write_long
 from shaper.errors import ResultError
 from shaper.io.waveio import read_waveform
 from shaper.jobs.sweep import Sweep, parse_durations
-from shaper.optimise import checkpoint
-from shaper.optimise.starts import optimize
+from shaper.optimizer import checkpoint
+from shaper.optimizer.starts import optimize
 from shaper.recipe import load_recipe
 
 X = np.array([[0, 1], [1, 0]], complex)
@@ -279,7 +279,7 @@ def test_a_damaged_checkpoint_is_reported_in_the_log(tmp_path):
 def test_history_on_disk_is_bounded(tmp_path, monkeypatch):
     # a night's run must not fill the disk: past the bound the file is thinned to every
     # other record, keeping the newest, as the in-memory history is
-    from shaper.optimise import loops
+    from shaper.optimizer import tracker as loops
 
     monkeypatch.setattr(loops, "HISTORY_ON_DISK", 50)
     raw = dict(load_recipe(write_long(tmp_path, "adam", 2000)).raw)

@@ -13,8 +13,8 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 
-from shaper.optimise.loops import _chunk_runner, _optax_optimizer
-from shaper.optimise.objective import make_objective
+from shaper.optimizer.methods import _chunk_runner, _optax_optimizer
+from shaper.optimizer.objective import make_objective
 from shaper.recipe import load_recipe
 
 # A robust X gate on a 5-level transmon, 100 ns: before the fix, its jitted value and
@@ -106,7 +106,7 @@ def test_value_and_gradient_in_a_loop_does_not_hang(tmp_path):
     # parameters, 300 calls (before the fix: stuck after the first call, 3 of 3 tries).
     script = f"""
 import numpy as np
-from shaper.optimise.objective import make_objective
+from shaper.optimizer.objective import make_objective
 from shaper.recipe import load_recipe
 o = make_objective(load_recipe({str(probe(tmp_path, 'detunings'))!r}))
 rng = np.random.default_rng(1)
@@ -126,9 +126,9 @@ print("done")
 # computation would behave. Everything else is the real command.
 BLOCKING = """
 import dataclasses, sys, threading
-import shaper.optimise.interrupt
-import shaper.optimise.starts as opt
-shaper.optimise.interrupt.GRACE_S = 1.0
+import shaper.optimizer.interrupt
+import shaper.optimizer.starts as opt
+shaper.optimizer.interrupt.GRACE_S = 1.0
 real = opt.make_objective
 
 def blocking(recipe, **kw):
@@ -179,7 +179,7 @@ def blocking_run(tmp_path, *args):
 
 def assert_rescued(out: Path):
     from shaper.io.waveio import read_waveform
-    from shaper.optimise import checkpoint
+    from shaper.optimizer import checkpoint
 
     rescue = json.loads((out / "rescue.json").read_text())
     assert rescue["iteration"] >= 1 and 0 <= rescue["infidelity"] <= 1
@@ -228,7 +228,7 @@ def test_signals_end_a_stuck_run(tmp_path, signals):
 
 
 def test_watchdog_limit_follows_the_median_evaluation():
-    from shaper.optimise.watchdog import Watchdog
+    from shaper.optimizer.watchdog import Watchdog
 
     exits = []
     dog = Watchdog(limit_s=1.0, factor=100.0, exit=exits.append)

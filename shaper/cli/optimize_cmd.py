@@ -74,7 +74,7 @@ class Progress:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.optimise.interrupt import stop_on_signals
+    from shaper.optimizer.interrupt import stop_on_signals
 
     with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
         return _run(args, stop)

@@ -116,7 +116,7 @@ def _objective_call(raw: dict):
     """A no-argument call of the recipe's jitted value and gradient, compiled."""
     import jax
 
-    from shaper.optimise.objective import make_objective
+    from shaper.optimizer.objective import make_objective
     from shaper.physics._jax import device
     from shaper.recipe import load_recipe
 

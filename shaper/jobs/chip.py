@@ -32,7 +32,7 @@ def run_task(task: Task, root: str) -> dict:
     the objective, in this task) and ``wall_time_s``."""
     started = time.monotonic()
     if "jax" not in sys.modules:  # a fresh worker: one thread, as the starts' workers
-        from shaper.optimise.parallel import _PINNED
+        from shaper.optimizer.parallel import _PINNED
         os.environ.update(_PINNED)
     from shaper.jobs.gateset import derive, optimised_row
     from shaper.jobs.run import finish
@@ -72,7 +72,7 @@ class LocalExecutor:
         from concurrent.futures import ProcessPoolExecutor
         from multiprocessing import get_context
 
-        from shaper.optimise.parallel import pin_threads
+        from shaper.optimizer.parallel import pin_threads
         self.pool = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
                                         initializer=pin_threads, initargs=(os.getpid(),))
         self.description = f"{workers} local worker process(es)"

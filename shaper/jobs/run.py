@@ -24,8 +24,8 @@ from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
 from shaper.jobs.export import check_predistortion, make_waveform, mixer_figures
 from shaper.jobs.playback import Playback
-from shaper.optimise.options import RunOptions
-from shaper.optimise.starts import Result, optimize, read_history
+from shaper.optimizer.options import RunOptions
+from shaper.optimizer.starts import Result, optimize, read_history
 from shaper.physics.simulation import Simulation
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.pulses import to_samples
@@ -108,7 +108,7 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
         **option_fields) -> RunOutput:
     """Optimise, export and report. Writes into ``out`` (default ``results/<name>``).
 
-    ``options`` (:class:`~shaper.optimise.options.RunOptions`, or single fields as
+    ``options`` (:class:`~shaper.optimizer.options.RunOptions`, or single fields as
     keywords) say how to run; its folder is ``out``, where checkpoints go and ``resume``
     continues from them. Its ``stop`` turns truthy on a signal: the run then writes the
     best pulse so far and a report with stop reason "interrupted". Its ``watchdog`` is

@@ -14,8 +14,8 @@ from pathlib import Path
 from typing import NamedTuple
 
 from shaper.io.runlog import RunLog
-from shaper.optimise.options import RunOptions
-from shaper.optimise.watchdog import Watchdog
+from shaper.optimizer.options import RunOptions
+from shaper.optimizer.watchdog import Watchdog
 
 
 class Setup(NamedTuple):
@@ -38,7 +38,7 @@ def run_setup(folder: Path, *, stop, stall_limit_s: float, plots: bool, echo,
               progress: Callable[[RunLog], object], **options) -> Iterator[Setup]:
     """Everything around one run in ``folder``.
 
-    ``stop``: the signal guard (:func:`shaper.optimise.interrupt.stop_on_signals`), given
+    ``stop``: the signal guard (:func:`shaper.optimizer.interrupt.stop_on_signals`), given
     the rescue writer; ``echo``: where the log is also printed (None: nowhere);
     ``progress(log)``: the progress display, closed at the end; ``options``: the rest of
     :class:`RunOptions` (seed, resume, workers, checkpoint cadence).

@@ -23,10 +23,10 @@ import numpy as np
 
 from shaper.errors import InputError, ResultError
 from shaper.io import atomic, waveio
-from shaper.optimise.loops import StartResult
-from shaper.optimise.objective import Objective, make_objective
-from shaper.optimise.options import RunOptions
-from shaper.optimise.starts import Result, optimize
+from shaper.optimizer.objective import Objective, make_objective
+from shaper.optimizer.options import RunOptions
+from shaper.optimizer.starts import Result, optimize
+from shaper.optimizer.tracker import StartResult
 from shaper.recipe import Recipe
 from shaper.recipe.derive import at_samples
 from shaper.recipe.units import format_quantity, parse_quantity

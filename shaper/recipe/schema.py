@@ -21,7 +21,10 @@ from shaper.recipe.units import parse_quantity
 
 GUESSES = ("gaussian", "drag", "cosine", "random")  # first guesses by name
 ENSEMBLE_RULES = ("every", "mean")  # how ensemble members meet the targets
-METHODS = ("lbfgs", "adam", "lbfgs-jit")
+# optimizer.method: name -> what it is; shaper.optimizer.methods.register adds to it
+METHODS = {"lbfgs": "L-BFGS-B from scipy (default)",
+           "adam": "Adam from optax, learning_rate per step",
+           "lbfgs-jit": "L-BFGS from optax, ten steps per compiled call"}
 PADDING = ("after", "before", "centre")
 
 # [cost]: the weight of each registered cost term (shaper.costs.terms.TERMS)

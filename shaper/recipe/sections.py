@@ -262,7 +262,7 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         r.fail("optimizer.initial", f"choose one of: {', '.join(GUESSES)}, or the path of a "
                                     f"waveform file (.csv) from an earlier run")
     return OptimizerSettings(
-        method=r.choice(t, "method", "optimizer.method", METHODS, d.method),
+        method=r.choice(t, "method", "optimizer.method", tuple(METHODS), d.method),
         max_iterations=r.number(t, "max_iterations", "optimizer.max_iterations",
                                 d.max_iterations, integer=True, minimum=1),
         target_infidelity=r.number(t, "target_infidelity", "optimizer.target_infidelity",

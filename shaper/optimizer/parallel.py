@@ -43,9 +43,9 @@ def _worker(raw_recipe, path, index, seed, options, job):
     time, the stop file, the watchdog's limit and the first guess."""
     import signal
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # likewise
-    from shaper.optimise.objective import make_objective
-    from shaper.optimise.start import compile_now, run_one
-    from shaper.optimise.watchdog import Watchdog
+    from shaper.optimizer.objective import make_objective
+    from shaper.optimizer.one_start import compile_now, run_one
+    from shaper.optimizer.watchdog import Watchdog
     from shaper.recipe import load_recipe
 
     watchdog = None

@@ -1,7 +1,7 @@
 """One start of an optimisation: its first point, its checkpoint, its loop.
 
-Used by :func:`shaper.optimise.starts.optimize` in this process and by the worker
-processes of :mod:`shaper.optimise.parallel` alike.
+Used by :func:`shaper.optimizer.starts.optimize` in this process and by the worker
+processes of :mod:`shaper.optimizer.parallel` alike.
 """
 
 from __future__ import annotations
@@ -15,10 +15,11 @@ import numpy as np
 
 from shaper.costs.problem import recipe_layout
 from shaper.errors import ResultError
-from shaper.optimise import checkpoint
-from shaper.optimise.loops import Session, StartResult, run_start
-from shaper.optimise.objective import Objective
-from shaper.optimise.options import RunOptions
+from shaper.optimizer import checkpoint
+from shaper.optimizer.methods import run_start
+from shaper.optimizer.objective import Objective
+from shaper.optimizer.options import RunOptions
+from shaper.optimizer.tracker import Session, StartResult
 from shaper.physics._jax import device
 from shaper.recipe import Recipe
 from shaper.signal.pulses import first_guess, rotation_area, to_params

@@ -1,6 +1,6 @@
 """How to run an optimisation, as one frozen object (what to optimise is the recipe).
 
-The command line builds one :class:`RunOptions`; the job, :func:`~shaper.optimise.starts.
+The command line builds one :class:`RunOptions`; the job, :func:`~shaper.optimizer.starts.
 optimize`, one start and the worker processes all read the same object instead of a dozen
 keyword arguments handed down four layers.
 """
@@ -29,9 +29,9 @@ class RunOptions:
         progress: called with a dict (iteration, cost, infidelity, leakage, cost_<term>)
             after every iteration (every 10 for the optax methods), serial starts only.
         on_start_done: called with each finished start.
-        stop: turns truthy when the run should stop (a signal, :mod:`~shaper.optimise.
+        stop: turns truthy when the run should stop (a signal, :mod:`~shaper.optimizer.
             interrupt`); with workers it reaches them through a file in ``folder``.
-        watchdog: a :class:`~shaper.optimise.watchdog.Watchdog`, beaten after every
+        watchdog: a :class:`~shaper.optimizer.watchdog.Watchdog`, beaten after every
             evaluation of a serial start (worker processes run their own with its limit).
     """
 

@@ -1,7 +1,7 @@
 """Optimise a recipe: first guesses, one or many starts, budgets, checkpoints, resume.
 
-The loops themselves live in :mod:`shaper.optimise.loops`. Starts run one after another in this
-process, or in worker processes (:mod:`shaper.optimise.parallel`) with ``workers > 1``; start i
+The loops themselves live in :mod:`shaper.optimizer.methods`. Starts run one after another in this
+process, or in worker processes (:mod:`shaper.optimizer.parallel`) with ``workers > 1``; start i
 always uses seed + i, so the results do not depend on how the starts were scheduled.
 """
 
@@ -14,10 +14,10 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper.optimise.loops import StartResult
-from shaper.optimise.objective import Objective, make_objective
-from shaper.optimise.options import RunOptions
-from shaper.optimise.start import compile_now, run_one
+from shaper.optimizer.objective import Objective, make_objective
+from shaper.optimizer.one_start import compile_now, run_one
+from shaper.optimizer.options import RunOptions
+from shaper.optimizer.tracker import StartResult
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.pulses import to_samples
 
@@ -56,7 +56,7 @@ def optimize(recipe_or_path, options: RunOptions | None = None, *,
 
     Args:
         recipe_or_path: a :class:`~shaper.recipe.Recipe`, a TOML path, or a dictionary.
-        options: how to run (:class:`~shaper.optimise.options.RunOptions`: seed, folder for
+        options: how to run (:class:`~shaper.optimizer.options.RunOptions`: seed, folder for
             checkpoints, resume, workers, hooks); ``option_fields`` set single fields, e.g.
             ``optimize(recipe, workers=2)``.
         objective: a compiled objective for this recipe to reuse (a sweep's padded one);
@@ -79,7 +79,7 @@ def optimize(recipe_or_path, options: RunOptions | None = None, *,
     deadline = t0 + o.max_time_s
     watchdog = options.watchdog
     if options.workers > 1 and o.starts > 1:
-        from shaper.optimise.parallel import run_parallel
+        from shaper.optimizer.parallel import run_parallel
         starts, compile_time = run_parallel(recipe, seed, options, deadline=deadline,
                                             first=first)
     else:
