@@ -32,7 +32,7 @@ class Problem(NamedTuple):
 
     drift: jax.Array            # (d, d) complex128, Hz
     controls: jax.Array         # (k, d, d) complex128, dimensionless
-    dt: jax.Array               # () float64, seconds per AWG sample
+    dt: jax.Array               # () or (slices,) float64: seconds per propagator slice
     computational: jax.Array    # (d_c,) int, indices of computational states
     target: jax.Array           # (d_c, d_c) complex128 target gate (zeros for a transfer)
     initial: jax.Array          # (d_c,) complex128 initial state of a transfer (else zeros)
@@ -47,7 +47,7 @@ class Problem(NamedTuple):
     #                             point equal to another (often the nominal one) is
     #                             propagated once
     envelope: jax.Array         # (n,) float64 in [0, 1]: fixed factor per AWG sample
-    active: jax.Array           # (m,) float64, 1 or 0: propagator slices that take dt
+    active: jax.Array           # (slices,) float64, 1 or 0: slices that take their dt
     #                             (0: padding to a shared size, an identity slice)
     noise: jax.Array = None     # (d^2, d^2) complex128, 1/s: the Lindblad dissipator of the
     #                             system's collapse operators, with optimizer.open_system

@@ -230,7 +230,7 @@ class Playback:
             return None
         played, ideal = self.nominal, self.played(line=False)
         own = self.played(extrapolate=False)
-        return {"channels": {name: [stage_summary(s) for s in stages]
+        return {"channels": {name: [s.summary() for s in stages]
                              for name, stages in recipe.line.stages.items()},
                 "oversample": recipe.line.oversample,
                 "in_the_loop": not recipe.export.predistort,
@@ -303,18 +303,3 @@ def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
         samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
                              1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
     return samples
-
-
-def stage_summary(stage) -> dict:
-    """A line stage as the report shows it (SI units)."""
-    out = {"kind": stage.kind}
-    if stage.order:
-        out["order"] = stage.order
-    if stage.cutoff_hz:
-        out["cutoff_hz"] = stage.cutoff_hz
-    if stage.amplitudes:
-        out["amplitudes"] = list(stage.amplitudes)
-        out["time_constants_s"] = list(stage.time_constants_s)
-    if stage.source:
-        out.update(file=stage.source, response=stage.response)
-    return out

@@ -24,6 +24,7 @@ from shaper.costs.problem import (
 )
 from shaper.errors import InputError
 from shaper.physics._jax import device
+from shaper.physics.propagator import slice_unitaries
 from shaper.recipe import Recipe, digest
 from shaper.signal.chain import for_recipe
 from shaper.signal.labdrive import LabDrive
@@ -48,6 +49,20 @@ class Objective:
     qubits: int
     traces: list  # one entry per trace of the loss: how often it was (re)compiled
     signature: str = ""  # digest of the recipe without its duration: what for_recipe needs
+    slices: Any = None  # jitted (params, problem) -> (slices, d, d) nominal slice unitaries
+
+    def slice_states(self, params) -> tuple[np.ndarray, np.ndarray]:
+        """Per-slice states of the nominal closed system, for methods that update slice by
+        slice (GRAPE's gradient, Krotov-type sequential updates) rather than take the
+        scalar and its gradient.
+
+        Returns ``(forward, later)``, each ``(slices, d, d)``: ``forward[k] = P_k ... P_0``
+        (the propagator after slice k) and ``later[k] = P_{n-1} ... P_{k+1}`` (what the
+        slices after k do), so ``later[k] @ forward[k]`` is the whole propagator for
+        every k; a backward state is ``later[k]^dag`` applied to the target.
+        """
+        return tuple(np.asarray(a) for a in _forward_later(
+            self.slices(device(params, float), self.problem)))
 
     def for_recipe(self, recipe: Recipe) -> Objective:
         """This objective (same compiled code) on a recipe that differs only in duration.
@@ -115,7 +130,32 @@ def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
         return value, (parts, scores)
 
     vg = jax.jit(jax.value_and_grad(loss, has_aux=True))
+
+    @jax.jit
+    def slices(params, problem):
+        samples = to_samples(params, layout, problem.envelope)
+        samples = samples if drive is None else drive(samples)
+        dt = (problem.dt * problem.active)[:, None, None]
+        return slice_unitaries(problem.drift, problem.controls, samples, dt,
+                               method=recipe.optimizer.propagator)
+
     weights = np.array([w[n] for n in names], float)
     return Objective(problem=problem, layout=layout, names=names, weights=weights,
                      value_and_grad=vg, loss=loss, qubits=qubits, traces=traces,
-                     signature=duration_free_digest(recipe))
+                     signature=duration_free_digest(recipe),
+                     slices=None if lab is not None or recipe.optimizer.open_system
+                     else slices)
+
+
+@jax.jit
+def _forward_later(p):
+    eye = jax.numpy.eye(p.shape[-1], dtype=p.dtype)
+
+    def forward(c, u):
+        c = u @ c
+        return c, c
+
+    def later(c, u):
+        return c @ u, c
+
+    return jax.lax.scan(forward, eye, p)[1], jax.lax.scan(later, eye, p, reverse=True)[1]

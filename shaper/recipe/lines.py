@@ -13,17 +13,13 @@ Nothing here imports JAX or SciPy. ``r`` below is the recipe's typed reader
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from collections.abc import Callable
+from dataclasses import dataclass, field, fields
 from pathlib import Path
+from typing import NamedTuple
 
 from shaper.recipe.units import format_quantity, parse_quantity
 
-KINDS = ("bessel", "butterworth", "gaussian", "exponential", "measured")
-LOWPASS = ("bessel", "butterworth", "gaussian")
-STAGE_KEYS = {"bessel": ("kind", "order", "cutoff"), "butterworth": ("kind", "order", "cutoff"),
-              "gaussian": ("kind", "cutoff"),
-              "exponential": ("kind", "amplitudes", "time_constants"),
-              "measured": ("kind", "file", "response")}
 MAX_ORDER = 8
 MAX_OVERSAMPLE = 64
 MAX_MEASURED_ROWS = 1_000_000
@@ -42,10 +38,22 @@ class Stage:
     cutoff_hz: float = 0.0
     amplitudes: tuple[float, ...] = ()
     time_constants_s: tuple[float, ...] = ()
-    response: str = "step"  # measured: "step" or "impulse"
-    source: str = ""  # measured: the file it came from
+    response: str = ""  # measured: "step" or "impulse"
+    source: str = field(default="", metadata={"report": "file"})  # measured: its file
     times_s: tuple[float, ...] = field(default=(), repr=False)
     values: tuple[float, ...] = field(default=(), repr=False)
+    sha256: str = ""  # measured: the digest of the file's bytes (part of the recipe's)
+
+    def summary(self) -> dict:
+        """The stage as a report shows it (SI units): its kind and every field it sets,
+        samples left out; a new kind reports itself with no change here."""
+        out = {}
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if f.repr and value != f.default:
+                out[f.metadata.get("report", f.name)] = \
+                    list(value) if isinstance(value, tuple) else value
+        return out
 
 
 @dataclass(frozen=True)
@@ -85,52 +93,57 @@ def read_line(r, t: dict, channels: list[str], sample_rate_hz: float) -> LineSet
 def _stage(r, s, where: str, rate: float) -> Stage:
     if not isinstance(s, dict):
         r.fail(where, f"expected a stage table with a kind, got {str(s)[:60]!r}")
-    kind = r.choice(s, "kind", f"{where}.kind", KINDS)
-    allowed = STAGE_KEYS[kind]
+    kind = r.choice(s, "kind", f"{where}.kind", tuple(KINDS))
+    allowed = ("kind",) + KINDS[kind].keys
     for key in s:
         if key not in allowed:
             r.fail(f"{where}.{key}", f"not a key of a {kind} stage; its keys: "
                                      f"{', '.join(allowed)}")
-    if kind in LOWPASS:
-        cutoff = r.number(s, "cutoff", f"{where}.cutoff", kind="frequency", positive=True)
-        if cutoff >= rate / 2:
-            r.fail(f"{where}.cutoff", f"{format_quantity(cutoff, 'Hz')} is at or above the "
-                                      f"Nyquist frequency {format_quantity(rate / 2, 'Hz')} of "
-                                      f"the sample rate; the fine grid cannot resolve it")
-        order = 0
-        if kind != "gaussian":
-            order = r.number(s, "order", f"{where}.order", integer=True, minimum=1)
-            if order > MAX_ORDER:
-                r.fail(f"{where}.order", f"must be at most {MAX_ORDER}, got {order}")
-        return Stage(kind, order=order, cutoff_hz=cutoff)
-    if kind == "exponential":
-        amps, taus = s.get("amplitudes"), s.get("time_constants")
-        for key, val in (("amplitudes", amps), ("time_constants", taus)):
-            if not isinstance(val, list) or not val:
-                r.fail(f"{where}.{key}", f"expected a non-empty list, got {val!r}")
-        if len(amps) != len(taus):
-            r.fail(f"{where}.time_constants", f"{len(taus)} time constants for {len(amps)} "
-                                              f"amplitudes; give one per amplitude")
-        amplitudes = []
-        for i, a in enumerate(amps):
-            if isinstance(a, bool) or not isinstance(a, int | float) or not math.isfinite(a) \
-                    or not -1 < a < 1:
-                r.fail(f"{where}.amplitudes[{i}]", f"expected a fraction of the step between "
-                                                   f"-1 and 1, got {a!r}")
-            amplitudes.append(float(a))
-        if not 1 + sum(amplitudes) > 0:
-            r.fail(f"{where}.amplitudes", "the step response would start at or below zero "
-                                          "(1 + sum of amplitudes <= 0)")
-        constants = tuple(parse_quantity(v, "time", key=f"{where}.time_constants[{i}]",
-                                         path=r.path) for i, v in enumerate(taus))
-        for i, tau in enumerate(constants):
-            if not tau > 0:
-                r.fail(f"{where}.time_constants[{i}]", f"must be a positive time, got {tau}")
-        return Stage(kind, amplitudes=tuple(amplitudes), time_constants_s=constants)
-    return _measured(r, s, where)
+    return KINDS[kind].read(r, s, where, rate)
 
 
-def _measured(r, s: dict, where: str) -> Stage:
+def _lowpass(r, s: dict, where: str, rate: float) -> Stage:
+    kind = s["kind"]
+    cutoff = r.number(s, "cutoff", f"{where}.cutoff", kind="frequency", positive=True)
+    if cutoff >= rate / 2:
+        r.fail(f"{where}.cutoff", f"{format_quantity(cutoff, 'Hz')} is at or above the "
+                                  f"Nyquist frequency {format_quantity(rate / 2, 'Hz')} of "
+                                  f"the sample rate; the fine grid cannot resolve it")
+    order = 0
+    if kind != "gaussian":
+        order = r.number(s, "order", f"{where}.order", integer=True, minimum=1)
+        if order > MAX_ORDER:
+            r.fail(f"{where}.order", f"must be at most {MAX_ORDER}, got {order}")
+    return Stage(kind, order=order, cutoff_hz=cutoff)
+
+
+def _exponential(r, s: dict, where: str, rate: float) -> Stage:
+    amps, taus = s.get("amplitudes"), s.get("time_constants")
+    for key, val in (("amplitudes", amps), ("time_constants", taus)):
+        if not isinstance(val, list) or not val:
+            r.fail(f"{where}.{key}", f"expected a non-empty list, got {val!r}")
+    if len(amps) != len(taus):
+        r.fail(f"{where}.time_constants", f"{len(taus)} time constants for {len(amps)} "
+                                          f"amplitudes; give one per amplitude")
+    amplitudes = []
+    for i, a in enumerate(amps):
+        if isinstance(a, bool) or not isinstance(a, int | float) or not math.isfinite(a) \
+                or not -1 < a < 1:
+            r.fail(f"{where}.amplitudes[{i}]", f"expected a fraction of the step between "
+                                               f"-1 and 1, got {a!r}")
+        amplitudes.append(float(a))
+    if not 1 + sum(amplitudes) > 0:
+        r.fail(f"{where}.amplitudes", "the step response would start at or below zero "
+                                      "(1 + sum of amplitudes <= 0)")
+    constants = tuple(parse_quantity(v, "time", key=f"{where}.time_constants[{i}]",
+                                     path=r.path) for i, v in enumerate(taus))
+    for i, tau in enumerate(constants):
+        if not tau > 0:
+            r.fail(f"{where}.time_constants[{i}]", f"must be a positive time, got {tau}")
+    return Stage("exponential", amplitudes=tuple(amplitudes), time_constants_s=constants)
+
+
+def _measured(r, s: dict, where: str, rate: float) -> Stage:
     response = r.choice(s, "response", f"{where}.response", ("step", "impulse"), "step")
     name = s.get("file")
     if not isinstance(name, str) or not name:
@@ -176,3 +189,25 @@ def _measured(r, s: dict, where: str) -> Stage:
                                 f"{'final value' if response == 'step' else 'area'}")
     return Stage("measured", response=response, source=str(path), times_s=tuple(times),
                  values=tuple(values))
+
+
+class Kind(NamedTuple):
+    """A line stage kind as the recipe reads it: its keys besides ``kind`` and a reader
+    ``read(r, table, where, sample_rate_hz) -> Stage``. How it responds is
+    :data:`shaper.signal.line.RESPONSES`; :func:`shaper.signal.line.register_kind` adds both."""
+
+    keys: tuple[str, ...]
+    read: Callable
+
+
+KINDS: dict[str, Kind] = {
+    "bessel": Kind(("order", "cutoff"), _lowpass),
+    "butterworth": Kind(("order", "cutoff"), _lowpass),
+    "gaussian": Kind(("cutoff",), _lowpass),
+    "exponential": Kind(("amplitudes", "time_constants"), _exponential),
+    "measured": Kind(("file", "response"), _measured),
+}
+
+
+def register_reader(name: str, keys: tuple[str, ...], read: Callable) -> None:
+    KINDS[name] = Kind(keys, read)

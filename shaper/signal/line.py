@@ -24,37 +24,59 @@ from __future__ import annotations
 
 import functools
 import math
+from collections.abc import Callable
+from typing import NamedTuple
 
 import numpy as np
 
 from shaper.errors import InputError
-from shaper.recipe.lines import Stage
+from shaper.recipe.lines import Stage, register_reader
+
+
+class Response(NamedTuple):
+    """How a line stage kind responds, on the fine grid of cell length ``h`` (seconds):
+
+    - ``"rational"``: ``make(stage, h) -> (b, a)``, an analog transfer function in
+      ``s' = s h``; all rational stages are combined and discretised exactly together.
+    - ``"kernel"``: ``make(stage, h) -> (cells, lead)``, a cell response reaching ``lead``
+      cells before its input (non-causal, e.g. zero-phase).
+    - ``"causal"``: ``make(stage, h, cells) -> cells``, a causal cell response of that
+      length.
+    """
+
+    form: str
+    make: Callable
+
+
+def _lowpass(st: Stage, h: float):
+    from scipy import signal  # here: importing scipy.signal costs every command ~0.3 s
+
+    wc = 2 * math.pi * st.cutoff_hz * h
+    if st.kind == "bessel":  # norm="mag": -3 dB at the cutoff, like Butterworth
+        return signal.bessel(st.order, wc, analog=True, norm="mag")
+    return signal.butter(st.order, wc, analog=True)
+
+
+def _exponential(st: Stage, h: float):
+    # step response 1 + sum_k A_k exp(-t/tau_k): H = 1 + sum_k A_k tau_k s/(1 + tau_k s)
+    bs, as_ = np.array([1.0]), np.array([1.0])
+    for amp, tau in zip(st.amplitudes, st.time_constants_s, strict=True):
+        tau = tau / h
+        term_b, term_a = np.array([amp * tau, 0.0]), np.array([tau, 1.0])
+        bs = np.polyadd(np.polymul(bs, term_a), np.polymul(term_b, as_))
+        as_ = np.polymul(as_, term_a)
+    return bs, as_
 
 
 def analog(stages: tuple[Stage, ...], h: float) -> tuple[np.ndarray, np.ndarray]:
     """The rational stages' combined transfer function ``(b, a)`` in ``s' = s h`` (time in
     units of the fine cell, which keeps the polynomials well scaled)."""
-    from scipy import signal  # here: importing scipy.signal costs every command ~0.3 s
-
     b, a = np.array([1.0]), np.array([1.0])
     for st in stages:
-        if st.kind in ("bessel", "butterworth"):
-            wc = 2 * math.pi * st.cutoff_hz * h
-            if st.kind == "bessel":  # norm="mag": -3 dB at the cutoff, like Butterworth
-                bs, as_ = signal.bessel(st.order, wc, analog=True, norm="mag")
-            else:
-                bs, as_ = signal.butter(st.order, wc, analog=True)
-        elif st.kind == "exponential":
-            # step response 1 + sum_k A_k exp(-t/tau_k): H = 1 + sum_k A_k tau_k s/(1 + tau_k s)
-            bs, as_ = np.array([1.0]), np.array([1.0])
-            for amp, tau in zip(st.amplitudes, st.time_constants_s, strict=True):
-                tau = tau / h
-                term_b, term_a = np.array([amp * tau, 0.0]), np.array([tau, 1.0])
-                bs = np.polyadd(np.polymul(bs, term_a), np.polymul(term_b, as_))
-                as_ = np.polymul(as_, term_a)
-        else:
-            continue
-        b, a = np.polymul(b, bs), np.polymul(a, as_)
+        response = RESPONSES[st.kind]
+        if response.form == "rational":
+            bs, as_ = response.make(st, h)
+            b, a = np.polymul(b, bs), np.polymul(a, as_)
     return b, a
 
 
@@ -134,13 +156,14 @@ def cell_response(stages: tuple[Stage, ...], period_s: float, steps: int,
     unit input held over cell 0, for ``j`` from ``-lead`` to ``cells - 1``.
     """
     h = period_s / steps
-    kernels = [gaussian_cells(st.cutoff_hz, h) for st in stages if st.kind == "gaussian"]
+    kernels = [RESPONSES[st.kind].make(st, h) for st in stages
+               if RESPONSES[st.kind].form == "kernel"]
     lead = sum(extra for _, extra in kernels)
     span = cells + lead  # later cells of the causal part reach back through the leads
     g = rational_cells(*analog(stages, h), span)
     for st in stages:
-        if st.kind == "measured":
-            g = np.convolve(g, measured_cells(st, h, span))[:span]
+        if RESPONSES[st.kind].form == "causal":
+            g = np.convolve(g, RESPONSES[st.kind].make(st, h, span))[:span]
     for kernel, _ in kernels:
         g = np.convolve(g, kernel)
     g = np.array(g[:lead + cells])
@@ -244,3 +267,20 @@ def predistort(intended: np.ndarray, stages: tuple[Stage, ...], period_s: float,
                          f"keep such a line in the optimiser's loop (export.predistort = "
                          f"false)")
     return out, residual
+
+
+RESPONSES: dict[str, Response] = {
+    "bessel": Response("rational", _lowpass),
+    "butterworth": Response("rational", _lowpass),
+    "exponential": Response("rational", _exponential),
+    "gaussian": Response("kernel", lambda st, h: gaussian_cells(st.cutoff_hz, h)),
+    "measured": Response("causal", measured_cells),
+}
+
+
+def register_kind(name: str, keys: tuple[str, ...], read: Callable, response: Response) -> None:
+    """A new line stage kind: ``[[line.<channel>]] kind = "<name>"`` with ``keys`` (besides
+    ``kind``), read into a :class:`~shaper.recipe.lines.Stage` by ``read(r, table, where,
+    sample_rate_hz)``, responding as ``response`` (DEVELOPERS.md, "Where new things go")."""
+    register_reader(name, keys, read)
+    RESPONSES[name] = response

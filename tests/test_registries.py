@@ -1,0 +1,191 @@
+"""Adding a system model, a line stage kind, a waveform format or an optimisation method is
+one function and one registry call (DEVELOPERS.md, "Where new things go"): each test here
+registers a toy one from outside the package and uses it through the ordinary entry points,
+touching nothing else. The per-slice states a sequential method needs are checked against
+GRAPE's gradient formula."""
+
+import json
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.linalg
+
+import shaper
+from shaper.io import writers
+from shaper.optimizer import methods
+from shaper.optimizer.objective import make_objective
+from shaper.optimizer.tracker import StopReason, Tracker
+from shaper.recipe import load_recipe, models
+from shaper.recipe.lines import Stage
+from shaper.signal import line
+
+ROOT = Path(__file__).parent.parent
+DEMO = tomllib.loads((ROOT / "recipes" / "demo-x180.toml").read_text())
+
+
+@pytest.fixture
+def restore():
+    """Registries are module state: put them back after each test."""
+    saved = (dict(models.MODELS), dict(line.RESPONSES), dict(writers.WRITERS),
+             dict(methods.METHODS), dict(shaper.recipe.schema.METHODS),
+             dict(shaper.recipe.schema.KEYS), dict(shaper.recipe.lines.KINDS))
+    yield
+    for live, old in zip((models.MODELS, line.RESPONSES, writers.WRITERS, methods.METHODS,
+                          shaper.recipe.schema.METHODS, shaper.recipe.schema.KEYS,
+                          shaper.recipe.lines.KINDS), saved, strict=True):
+        live.clear()
+        live.update(old)
+
+
+def spin(r, t):
+    """A toy model: a spin-1/2 with a splitting in the drive frame, driven by an I/Q pair."""
+    delta = r.number(t, "splitting", "system.splitting", 0.0, kind="frequency")
+    sx = np.array([[0, 0.5], [0.5, 0]], complex)
+    sy = np.array([[0, -0.5j], [0.5j, 0]], complex)
+    return shaper.from_matrices(np.diag([0.0, delta]), {"s_i": sx, "s_q": sy})
+
+
+def test_a_toy_system_model_is_one_register_call(restore):
+    models.register("spin", models.Model(("splitting",), spin))
+    raw = {**DEMO, "system": {"model": "spin", "splitting": "0 MHz"},
+           "optimizer": {"max_iterations": 200}}
+    recipe = load_recipe(raw)
+    assert recipe.system.control_names == ("s_i", "s_q")
+    result = shaper.optimize(recipe)
+    # re-simulated here with scipy's expm on the recipe's own matrices: X up to a phase
+    u = np.eye(2, dtype=complex)
+    for row in result.samples:
+        h = 2 * np.pi * (recipe.system.drift + np.tensordot(row, recipe.system.controls, 1))
+        u = scipy.linalg.expm(-1j * h * recipe.dt) @ u
+    x = np.array([[0, 1], [1, 0]])
+    # average gate fidelity (|Tr(W^dag U)|^2 + d) / (d (d + 1)): Nielsen, Phys. Lett. A 303,
+    # 249 (2002)
+    fidelity = (abs(np.trace(x.conj().T @ u)) ** 2 + 2) / 6
+    assert 1 - fidelity < 1e-6
+    with pytest.raises(shaper.RecipeError, match="system.levels"):  # its keys, no other
+        load_recipe({**raw, "system": {"model": "spin", "levels": 3}})
+
+
+def box(r, s, where, rate):
+    width = r.number(s, "width", f"{where}.width", kind="time", positive=True)
+    return Stage("box", cutoff_hz=1 / width)
+
+
+def box_cells(stage, h, cells):
+    """A toy response: each fine cell's output is the mean input over the last 1/cutoff_hz
+    seconds of cells (a whole number of them here)."""
+    width = round(1 / (stage.cutoff_hz * h))
+    g = np.zeros(cells)
+    g[:width] = 1 / width
+    return g
+
+
+def test_a_toy_line_kind_is_one_register_call(restore):
+    line.register_kind("box", ("width",), box, line.Response("causal", box_cells))
+    raw = {**DEMO, "line": {"oversample": 4, "q0": [{"kind": "box", "width": "0.3125 ns"}]}}
+    recipe = load_recipe(raw)
+    stage = recipe.line.stages["q0"][0]
+    assert stage.summary() == {"kind": "box", "cutoff_hz": pytest.approx(3.2e9)}
+    # a held step through the line: the running mean over 0.3125 ns = 3 fine cells (0.1042 ns
+    # each at 2.4 GS/s x 4), then the mean over each AWG sample, computed here by hand
+    held = np.zeros(6)
+    held[1:] = 1.0
+    out = line.through_line(held, recipe.line.stages["q0"], 1 / 2.4e9, 4)
+    fine = np.convolve(np.repeat(held, 4), np.full(3, 1 / 3))[:24]
+    assert np.allclose(out, fine.reshape(6, 4).mean(axis=1), atol=1e-12)
+
+
+def test_a_toy_waveform_format_is_one_register_call(restore, tmp_path):
+    def hex_lines(folder, name, wave, system, source):
+        path = folder / f"{name}.hex"
+        codes = np.rint(wave.fractions * 32767).astype(int) & 0xFFFF
+        path.write_text("\n".join(" ".join(f"{c:04x}" for c in row) for row in codes) + "\n")
+        return [path]
+
+    writers.register("hex", writers.Writer("16-bit two's complement codes in hex", hex_lines))
+    run = shaper.run(load_recipe({**DEMO, "optimizer": {"max_iterations": 60}}),
+                     out=tmp_path / "run", plots_too=False)
+    from shaper.jobs.export import reexport
+
+    report = reexport(run.folder, out=tmp_path / "hex", format="hex")
+    assert report["files"] == ["demo-x180.hex"]
+    rows = (tmp_path / "hex" / "demo-x180.hex").read_text().split("\n")[:-1]
+    assert len(rows) == report["samples"] and len(rows[0].split()) == 2
+    assert json.loads((tmp_path / "hex" / "export.json").read_text())["waveform"] == \
+        "demo-x180.hex"
+
+
+def descent(session, x0, resume=None):
+    """A toy method: plain gradient descent with a fixed step on the objective."""
+    tracker = Tracker(session)
+    obj, x = session.objective, np.array(x0)
+    weights = np.asarray(obj.weights)
+    while True:
+        (value, (parts, scores)), grad = obj.value_and_grad(x, obj.problem, weights)
+        tracker.evaluations += 1
+        tracker.offer(float(value), x, parts, 1 - float(scores.nominal.fidelity),
+                      float(scores.nominal.leakage))
+        x = x - 0.02 * np.asarray(grad)
+        if tracker.iterations_done(1):
+            return tracker.result()
+
+
+def test_a_toy_optimisation_method_is_one_register_call(restore):
+    methods.register("descent", descent, "plain gradient descent (a test's toy)")
+    raw = {**DEMO, "optimizer": {"method": "descent", "max_iterations": 30}}
+    result = shaper.optimize(load_recipe(raw))
+    costs = [h["cost"] for h in result.history]
+    assert result.best.stop_reason == StopReason.ITERATION_LIMIT and len(costs) == 30
+    assert costs[-1] < costs[0]
+    with pytest.raises(shaper.RecipeError, match="optimizer.method"):
+        load_recipe({**DEMO, "optimizer": {"method": "nonesuch"}})
+
+
+def test_slice_states_give_grape_gradient():
+    # GRAPE's gradient for piecewise-constant controls: d Phi / d u_kj =
+    # 2 Re[ conj(Tr(W^dag U)) Tr(W^dag L_k dP_k F_{k-1}) ] / d_c^2 (Khaneja et al.,
+    # J. Magn. Reson. 172, 296 (2005), eq. (13), from memory), with F_k the propagator after
+    # slice k and L_k the slices after it, and dP_k = -i pi dt (H_j P_k + P_k H_j) (the
+    # symmetric first-order form, accurate to second order in dt; de Fouquieres et al.,
+    # J. Magn. Reson. 212, 412 (2011), from memory). Slices of 42 ps on 3 levels keep
+    # 2 pi dt ||H|| near 0.06, so the formula holds to about 2e-6 (measured).
+    raw = {**DEMO, "system": {**DEMO["system"], "levels": 3},
+           "pulse": {**DEMO["pulse"], "duration": "4 ns", "sample_rate": "24 GS/s"}}
+    recipe = load_recipe(raw)
+    obj = make_objective(recipe)
+    rng = np.random.default_rng(3)
+    params = rng.normal(0, 0.3, obj.layout.shape)
+    forward, later = obj.slice_states(params)
+    whole = forward[-1]
+    assert np.allclose(np.einsum("kab,kbc->kac", later, forward), whole, atol=1e-12)
+    comp = np.asarray(obj.problem.computational)
+    w = np.asarray(obj.problem.target)
+    overlap = np.trace(w.conj().T @ whole[np.ix_(comp, comp)])
+    dt = float(np.asarray(obj.problem.dt))
+    grape = np.empty((len(forward), 2))
+    for j in range(2):
+        h = np.asarray(obj.problem.controls[j])
+        before = np.concatenate([np.eye(whole.shape[0])[None], forward[:-1]])
+        slice_k = np.einsum("kab,kcb->kac", forward, before.conj())  # P_k = F_k F_{k-1}^dag
+        d_slice = -1j * np.pi * dt * (h @ slice_k + slice_k @ h)
+        step = np.einsum("kab,kbc,kcd->kad", later, d_slice, before)
+        grape[:, j] = 2 * np.real(np.conj(overlap) * np.einsum(
+            "ab,kba->k", w.conj().T, step[:, comp][:, :, comp])) / len(comp) ** 2
+
+    import jax
+
+    from shaper.signal.pulses import to_samples
+
+    def phi(samples):
+        u = jax.numpy.eye(whole.shape[0], dtype=complex)
+        for k in range(samples.shape[0]):
+            hk = obj.problem.drift + jax.numpy.tensordot(samples[k], obj.problem.controls, 1)
+            u = jax.scipy.linalg.expm(-2j * np.pi * dt * hk) @ u
+        tr = jax.numpy.trace(w.conj().T @ u[np.ix_(comp, comp)])
+        return jax.numpy.abs(tr) ** 2 / len(comp) ** 2
+
+    samples = np.asarray(to_samples(params, obj.layout, obj.problem.envelope))
+    exact = np.asarray(jax.grad(phi)(samples))
+    assert np.max(np.abs(grape - exact)) < 1e-4 * np.max(np.abs(exact))
