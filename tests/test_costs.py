@@ -4,7 +4,7 @@ import pytest
 
 from shaper import costs
 from shaper.errors import InputError
-from shaper.optimizer.objective import make_objective
+from shaper.optimizer.objective import build_objective, make_objective
 from shaper.recipe import load_recipe
 
 DEMO = {"name": "c", "system": {"model": "transmon", "levels": 3, "qubit_frequency": "5 GHz",
@@ -79,7 +79,7 @@ def test_battery_of_every_registered_term(where):
     # each term: finite value and finite float64 gradient at zero controls (levels 0 and 1
     # degenerate: the case where naive derivatives give NaN) and deep at the amplitude
     # limit; the second call does not compile again
-    objective = make_objective(load_recipe(EVERY_TERM))
+    objective = build_objective(load_recipe(EVERY_TERM))  # fresh: its own trace count
     assert set(objective.names) == set(costs.TERMS)
     shape = objective.layout.shape
     x = jnp.zeros(shape) if where == "zero" else jnp.full(shape, 40.0)

@@ -55,7 +55,6 @@ def _run(args: argparse.Namespace, stop) -> int:
 
 def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     import os
-    from dataclasses import replace
 
     from shaper.io import atomic
     from shaper.jobs.run import finish
@@ -63,7 +62,8 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     from shaper.recipe.units import format_quantity
 
     if args.starts:
-        recipe = replace(recipe, optimizer=replace(recipe.optimizer, starts=args.starts))
+        from shaper.recipe.derive import with_budget
+        recipe = with_budget(recipe, starts=args.starts)
     folder = Path(args.out) if args.out else Path("results") / f"{recipe.name}-sweep"
     echo = (lambda text: None) if args.quiet else (lambda text: print(text, file=sys.stderr,
                                                                       flush=True))

@@ -1,4 +1,4 @@
-"""Stage 3, the costs: the problem's arrays, the figures of every ensemble member, the cost
+"""Stage 4, the costs: the problem's arrays, the figures of every ensemble member, the cost
 terms and their registry, and the one rule for "targets met".
 
 - :mod:`~shaper.costs.problem`: :class:`Problem`, :class:`Evaluation`, one batched

@@ -1,3 +1,3 @@
-"""Stage 6, the jobs a user runs: optimise-export-report (:mod:`~shaper.jobs.run`), check,
+"""Stage 7, the jobs a user runs: optimise-export-report (:mod:`~shaper.jobs.run`), check,
 export, sweep, bench; with the textbook comparison and the plots they write.
 """

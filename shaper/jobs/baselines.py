@@ -11,6 +11,9 @@ of more than :data:`MAX_LEVELS` levels are skipped.
 
 from __future__ import annotations
 
+import hashlib
+import pickle
+
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -52,31 +55,19 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     tf = freqs[channel.name]
     alpha = tf["f12_hz"] - tf["f01_hz"]
     n, dt = recipe.samples, recipe.dt
-    envelope = layout.envelope[:n]
-    main = rotation_area(label) * gaussian_shape(n, dt) * envelope
-    quad = -np.gradient(main, dt) / (2 * np.pi * alpha) if alpha else np.zeros(n)
-    t = (np.arange(n) + 0.5) * dt
-    i_col, q_col = channel.columns
-    turn = 1j if label.startswith("Y") else 1.0
+    main = rotation_area(label) * gaussian_shape(n, dt) * layout.envelope[:n]
+    shapes = (main, -np.gradient(main, dt) / (2 * np.pi * alpha) if alpha else np.zeros(n),
+              (np.arange(n) + 0.5) * dt)
+    form = (layout.controls, tuple(channel.columns), label.startswith("Y"))
+    program = _program(form, dict(virtual_z=recipe.virtual_z,
+                                  drive=None if chain.identity else chain))
 
-    def samples(theta, xp=jnp):  # NumPy for the files and the report: no JAX op outside jit
-        scale, beta, detuning_mhz = theta[0], theta[1], theta[2]
-        z = scale * (main + 1j * beta * quad) * turn * xp.exp(-2j * np.pi * detuning_mhz
-                                                              * 1e6 * t)
-        columns = [xp.zeros(n)] * layout.controls
-        columns[i_col], columns[q_col] = xp.real(z), xp.imag(z)
-        return xp.stack(columns, axis=1)
-
-    @jax.jit
     def figures(theta):
-        f = evaluate(samples(theta), problem, qubits=1, is_gate=True,
-                     virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
-        return f.fidelity, f.leakage
+        return program(np.asarray(theta, float), *shapes, problem)
 
     def loss(theta):
-        return 1.0 - float(figures(np.asarray(theta, float))[0])
+        return 1.0 - float(figures(theta)[0])
 
-    limit = recipe.limits_hz[channel.name]
     gauss = scipy.optimize.minimize_scalar(lambda s: loss([s, 0.0, 0.0]), bounds=(0.5, 1.5),
                                            method="bounded",
                                            options={"xatol": 1e-6, "maxiter": 100})
@@ -86,12 +77,43 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
                                             "fatol": 1e-14})
     out = {}
     for kind, theta in (("gaussian", [gauss.x, 0.0, 0.0]), ("drag", list(drag.x))):
-        fid, leak = figures(np.asarray(theta, float))
-        played = samples(np.asarray(theta, float), np)
+        fid, leak = figures(theta)
+        played = _samples(np.asarray(theta, float), *shapes, form, np)
+        i_col, q_col = channel.columns
         peak = float(np.max(np.hypot(played[:, i_col], played[:, q_col])))
         out[kind] = {"infidelity": float(1 - fid), "leakage": float(leak),
                      "amplitude_scale": float(theta[0]), "drag_coefficient": float(theta[1]),
                      "detuning_hz": float(theta[2]) * 1e6, "peak_rabi_hz": peak,
-                     "within_limit": bool(peak <= limit)}
+                     "within_limit": bool(peak <= recipe.limits_hz[channel.name])}
     return out
+
+
+def _samples(theta, main, quad, t, form, xp=jnp):
+    """The calibrated pulse's samples: ``theta`` = (scale, DRAG coefficient, detuning in
+    MHz); ``form`` = (controls, (I column, Q column), a Y rotation). NumPy for the files
+    and the report: no JAX op outside jit."""
+    controls, (i_col, q_col), is_y = form
+    scale, beta, detuning_mhz = theta[0], theta[1], theta[2]
+    z = scale * (main + 1j * beta * quad) * (1j if is_y else 1.0) \
+        * xp.exp(-2j * np.pi * detuning_mhz * 1e6 * t)
+    columns = [xp.zeros(main.shape[0])] * controls
+    columns[i_col], columns[q_col] = xp.real(z), xp.imag(z)
+    return xp.stack(columns, axis=1)
+
+
+_PROGRAMS: dict[str, object] = {}
+
+
+def _program(form: tuple, flags: dict):
+    """The jitted ``(theta, main, quad, t, problem) -> (fidelity, leakage)`` for one pulse
+    form and evaluation flags, built once per process (a second run of the same recipe
+    traces nothing), keyed by an exact digest of what it closes over."""
+    key = hashlib.sha256(pickle.dumps((form, flags))).hexdigest()
+    if key not in _PROGRAMS:
+        def figures(theta, main, quad, t, problem):
+            f = evaluate(_samples(theta, main, quad, t, form), problem, qubits=1,
+                         is_gate=True, **flags)
+            return f.fidelity, f.leakage
+        _PROGRAMS[key] = jax.jit(figures)
+    return _PROGRAMS[key]
 

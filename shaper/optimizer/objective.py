@@ -86,7 +86,23 @@ def duration_free_digest(recipe: Recipe) -> str:
     return digest(raw)
 
 
+_BUILT: dict[tuple, Objective] = {}  # the last few objectives of this process, by digest
+KEEP_BUILT = 4
+
+
 def make_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
+    """The objective of a recipe, built once per process: a second run of the same recipe
+    (same digest, response files included) reuses its compiled code and traces nothing
+    (:func:`build_objective`)."""
+    key = (recipe.sha256, pad_to)
+    if key not in _BUILT:
+        while len(_BUILT) >= KEEP_BUILT:
+            _BUILT.pop(next(iter(_BUILT)))
+        _BUILT[key] = build_objective(recipe, pad_to=pad_to)
+    return _BUILT[key]
+
+
+def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     """Build the terms the recipe asks for and jit their weighted sum's value and gradient.
 
     ``pad_to`` (AWG samples): pad the slice count to this shared size with identity slices,

@@ -58,6 +58,8 @@ def _worker(raw_recipe, path, index, seed, options, job):
         watchdog = Watchdog(limit_s=job["stall_limit_s"], rescue=rescue).__enter__()
 
     recipe = load_recipe(raw_recipe if path is None else path)
+    # the same recipe (same digest: its checkpoints stay valid) with the wall clock that is
+    # left of the run's budget; not a new recipe, so not through the loader
     recipe = replace(recipe, optimizer=job["optimizer"])
     objective = make_objective(recipe)
     compile_time = compile_now(objective)

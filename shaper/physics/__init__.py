@@ -1,4 +1,4 @@
-"""Stage 0, the physics: pure functions of arrays, no recipe, no files.
+"""Stage 1, the physics: pure functions of arrays, no recipe, no files.
 
 - :mod:`~shaper.physics.systems`: transmon, coupled transmons, any system from matrices;
   names and Hermiticity checked (NumPy only);

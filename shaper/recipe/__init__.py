@@ -1,4 +1,4 @@
-"""Stage 1, the recipe: TOML with units -> frozen, validated settings and system arrays.
+"""Stage 2, the recipe: TOML with units -> frozen, validated settings and system arrays.
 
 - :mod:`~shaper.recipe.units`: numbers with units, the plausibility of bare numbers;
 - :mod:`~shaper.recipe.schema`: every key (kind, default), the settings dataclasses, the

@@ -12,7 +12,9 @@ Nothing here imports JAX or SciPy. ``r`` below is the recipe's typed reader
 
 from __future__ import annotations
 
+import hashlib
 import math
+import stat
 from collections.abc import Callable
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -150,16 +152,13 @@ def _measured(r, s: dict, where: str, rate: float) -> Stage:
         r.fail(f"{where}.file", f"expected the path of a CSV file (time_s,value), got {name!r}")
     base = Path(r.path).parent if r.path else Path.cwd()
     path = (base / name).resolve()
-    try:
-        lines = path.read_text().splitlines()
-    except (OSError, UnicodeDecodeError) as e:
-        reason = e.strerror if isinstance(e, OSError) else "not text"
-        r.fail(f"{where}.file", f"cannot read {path}: {reason}")
+    data = read_response_file(path, lambda message: r.fail(f"{where}.file", message))
+    lines = data.decode("utf-8").splitlines()
     header = [h.strip() for h in lines[0].split(",")] if lines else []
     if header != ["time_s", "value"]:
         r.fail(f"{where}.file", f"{path}: the first row must be the header time_s,value, got "
                                 f"{lines[0][:60] if lines else 'an empty file'!r}")
-    if len(lines) > MAX_MEASURED_ROWS:
+    if len(lines) > MAX_MEASURED_ROWS + 1:
         r.fail(f"{where}.file", f"{path}: more than {MAX_MEASURED_ROWS} rows")
     rows = []
     for i, line in enumerate(lines[1:], start=2):
@@ -182,13 +181,43 @@ def _measured(r, s: dict, where: str, rate: float) -> Stage:
         r.fail(f"{where}.file", f"{path}: time_s must start at 0 and rise in even steps (one "
                                 f"sample rate); resample the measurement first")
     values = [v for _, v in rows]
-    scale = values[-1] if response == "step" else sum(values) * step
-    if not abs(scale) > 0:
+    scale = values[-1] if response == "step" else math.fsum(values) * step
+    size = max(abs(v) for v in values) * (1.0 if response == "step" else step * len(values))
+    if not abs(scale) > 1e-9 * size:  # 1e-300 is zero here: dividing by it is meaningless
         r.fail(f"{where}.file", f"{path}: the response settles to zero; a {response} response "
                                 f"is normalised to unit gain at DC and needs a non-zero "
                                 f"{'final value' if response == 'step' else 'area'}")
     return Stage("measured", response=response, source=str(path), times_s=tuple(times),
-                 values=tuple(values))
+                 values=tuple(values), sha256=hashlib.sha256(data).hexdigest())
+
+
+MAX_RESPONSE_BYTES = 64 * 2 ** 20  # a million rows of two numbers fit with room
+
+
+def read_response_file(path: Path, fail) -> bytes:
+    """The bytes of a measured-response file: a regular file (not a FIFO, device or
+    folder, which could block or never end), at most :data:`MAX_RESPONSE_BYTES`, read
+    only after its size is known; UTF-8 text. ``fail(message)`` raises."""
+    try:
+        info = path.stat()
+    except OSError as e:
+        fail(f"cannot read {path}: {e.strerror}")
+    if not stat.S_ISREG(info.st_mode):
+        fail(f"{path} is not a regular file (a folder, FIFO or device); give a CSV file")
+    if info.st_size > MAX_RESPONSE_BYTES:
+        fail(f"{path} is {info.st_size / 2 ** 20:.0f} MiB; a response file is at most "
+             f"{MAX_RESPONSE_BYTES // 2 ** 20} MiB ({MAX_MEASURED_ROWS} rows)")
+    try:
+        with open(path, "rb") as handle:
+            data = handle.read(MAX_RESPONSE_BYTES + 1)
+        data.decode("utf-8")
+    except OSError as e:
+        fail(f"cannot read {path}: {e.strerror}")
+    except UnicodeDecodeError:
+        fail(f"cannot read {path}: not text")
+    if len(data) > MAX_RESPONSE_BYTES:
+        fail(f"{path} grew past {MAX_RESPONSE_BYTES // 2 ** 20} MiB while it was read")
+    return data
 
 
 class Kind(NamedTuple):

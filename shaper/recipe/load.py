@@ -9,6 +9,7 @@ from __future__ import annotations
 import hashlib
 import json
 import tomllib
+from dataclasses import replace
 from pathlib import Path
 
 from shaper.errors import InputError, RecipeError
@@ -74,6 +75,11 @@ def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe
     _plain_values(raw, path)
 
     try:
-        return build(_Reader(raw, path), raw, path, digest(raw))
+        recipe = build(_Reader(raw, path), raw, path, digest(raw))
     except InputError as exc:  # a model builder refused the values
         raise RecipeError(str(exc), path=path, key="system") from None
+    files = {st.source: st.sha256 for stages in recipe.line.stages.values() for st in stages
+             if st.sha256}
+    if files:  # a changed response file is another recipe (its checkpoints are refused)
+        recipe = replace(recipe, sha256=digest({"recipe": raw, "files": files}))
+    return recipe

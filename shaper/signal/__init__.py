@@ -1,3 +1,3 @@
-"""Stage 2, the signal: optimiser parameters -> samples within the limits (pulses), and the
+"""Stage 3, the signal: optimiser parameters -> samples within the limits (pulses), and the
 one chain from AWG samples to what the propagator sees (IF modulation, the DAC's hold).
 """

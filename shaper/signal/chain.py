@@ -1,4 +1,4 @@
-"""The one signal chain: AWG samples -> what the propagator sees (README, "The signal chain").
+"""The one signal chain: AWG samples -> what the propagator sees (README, "The line").
 
 Every consumer asks this chain; nothing rebuilds it: the optimiser (the recipe's baseband
 samples, modulated with the recipe's IF), ``shaper check``, the report and ``shaper
