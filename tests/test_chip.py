@@ -124,8 +124,9 @@ def test_one_gate_commands_refuse_a_gate_set(tmp_path, command):
     code, _, err = cli(command, path, *args)
     assert code == 2 and "gate.targets" in err and "works on one gate" in err
     if command == "check":  # one gate of the set, named
-        code, out, err = cli(command, path, *args, "--gate", "x")
-        assert code in (0, 1) and "infidelity" in out, err
+        code, out, err = cli(command, path, *args, "--gate", "x", "--json")
+        verdict = json.loads(out)
+        assert code == (0 if verdict["pass"] else 1) and verdict["infidelity"] < 1, err
 
 
 def _rows(folder: Path) -> list[dict]:

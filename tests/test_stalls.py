@@ -72,7 +72,7 @@ def test_robust_probe_runs_to_its_iteration_budget(tmp_path, variant):
                                      "--quiet", "--no-plots", "--iterations", 60,
                                      "--starts", 3, "--workers", 1),
                           capture_output=True, text=True, timeout=420)
-    assert proc.returncode in (0, 1), proc.stderr
+    assert proc.returncode == 1, proc.stderr  # targets of 1e-15 are never met
     starts = json.loads((out / "starts.json").read_text())
     assert len(starts) == 3
     for start in starts:
@@ -201,7 +201,7 @@ def test_watchdog_saves_and_exits_3_then_resume_finishes(tmp_path):
     done = subprocess.run(shaper_cmd("optimize", recipe, "--out", out, "--resume",
                                      "--no-plots", "--quiet"),
                           capture_output=True, text=True, timeout=300)
-    assert done.returncode in (0, 1), done.stderr
+    assert done.returncode == 1, done.stderr  # 5 MHz cannot make a pi pulse in 20 ns
     report = json.loads((out / "report.json").read_text())
     assert report["optimizer"]["iterations"] == 40
     assert not (out / "rescue.json").exists()
@@ -216,13 +216,15 @@ def test_signals_end_a_stuck_run(tmp_path, signals):
     while line and "BLOCKED" not in line:
         line = proc.stdout.readline()
     assert "BLOCKED" in line
-    t0 = time.monotonic()
     for _ in range(signals):
         proc.send_signal(signal.SIGTERM)
         time.sleep(0.2)
     proc.communicate(timeout=60)
     assert proc.returncode == 143
-    assert time.monotonic() - t0 < 30
+    # why it ended, as run.log says: the grace ran out, or the second signal
+    why = ("the computation did not return within 1 s" if signals == 1 else
+           "second signal, stopping at once")
+    assert f"SIGTERM: {why}" in (out / "run.log").read_text()
     if signals == 1:
         assert_rescued(out)
 
