@@ -104,10 +104,11 @@ def test_a_toy_waveform_format_is_one_register_call(restore, tmp_path):
         path.write_text("\n".join(" ".join(f"{c:04x}" for c in row) for row in codes) + "\n")
         return [path]
 
-    writers.register("hex", writers.Writer("16-bit two's complement codes in hex", hex_lines))
+    writers.register("hex", writers.Writer("16-bit two's complement codes in hex", hex_lines,
+                                           lambda name, system: [f"{name}.hex"]))
     run = shaper.run(load_recipe({**DEMO, "optimizer": {"max_iterations": 60}}),
                      out=tmp_path / "run", plots_too=False)
-    from shaper.jobs.export import reexport
+    from shaper.jobs.reexport import reexport
 
     report = reexport(run.folder, out=tmp_path / "hex", format="hex")
     assert report["files"] == ["demo-x180.hex"]

@@ -32,24 +32,20 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                                                          for k, w in WRITERS.items()))
     parser.add_argument("--bare", action="store_const", const="numbers", dest="format",
                         help=argparse.SUPPRESS)  # the earlier name of --format numbers
-    parser.add_argument("--force", action="store_true", help="overwrite an earlier export")
+    parser.add_argument("--force", action="store_true",
+                        help="write into a folder that holds a waveform or export this one "
+                             "replaces; the replaced files are kept as *.replaced-N.*")
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.errors import InputError
-    from shaper.jobs.export import reexport
+    from shaper.jobs.reexport import reexport
     from shaper.recipe.units import parse_quantity
 
-    if args.bits is not None and not 2 <= args.bits <= 32:
-        raise InputError(f"--bits must be between 2 and 32, got {args.bits}")
-    if args.granularity is not None and args.granularity < 1:
-        raise InputError(f"--granularity must be at least 1, got {args.granularity}")
+    # the numbers are checked (range, meaning) by reexport, each error naming its option
     rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
         if args.sample_rate else None
     if_hz = parse_quantity(args.if_frequency, "frequency", key="--if") \
         if args.if_frequency else None
-    if rate is not None and not rate > 0:
-        raise InputError(f"--sample-rate must be positive, got {rate:g}")
     report = reexport(args.run, out=args.out, sample_rate_hz=rate, bits=args.bits, if_hz=if_hz,
                       sideband=args.sideband, granularity=args.granularity,
                       padding=args.padding, clip=True if args.clip else None, format=args.format,

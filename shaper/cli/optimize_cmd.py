@@ -101,7 +101,10 @@ def _run(args: argparse.Namespace, stop) -> int:
         print("shaper optimize: interrupted before the run began", file=sys.stderr)
         return stop.exit_code
     from shaper.io.runfolder import prepare_folder
-    prepare_folder(folder, args.force, args.resume)  # refuses at once, before JAX is loaded
+    # refuses at once, before JAX is loaded; with --force an earlier waveform and report
+    # are kept as *.replaced-N.*
+    prepare_folder(folder, args.force, args.resume,
+                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"])
     from shaper.recipe.derive import with_budget
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,

@@ -6,17 +6,23 @@ says so at once.
 
 from __future__ import annotations
 
+import json
+import os
+from collections.abc import Sequence
 from pathlib import Path
 
 from shaper.errors import ResultError
 from shaper.io import atomic
 
 
-def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
+def prepare_folder(folder: Path, force: bool, resume: bool = False, *,
+                   keep: Sequence[str] = ()) -> dict[str, str]:
     """Create and lock the run folder; refuse to overwrite an earlier run unless ``force``.
 
     The lock (:func:`shaper.io.atomic.lock_folder`) keeps a second run out of the folder while
-    this process lives.
+    this process lives. With ``force`` over an earlier run, the files named in ``keep``
+    (its waveform and report) are kept under new names (:func:`keep_replaced`); returns
+    what was renamed.
     """
     if folder.exists() and not folder.is_dir():
         raise ResultError(f"{folder} is a file, not a folder; choose another --out")
@@ -33,10 +39,11 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
             if old.get("optimizer", {}).get("stop_reason") != "interrupted":
                 raise ResultError(f"{folder} holds a finished run (report.json); there is "
                                   f"nothing to resume. Pass --force to export it again")
-        return
+        return {}
     if (folder / "report.json").exists() and not force:
         raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
-                          f"or pass --force to overwrite it")
+                          f"or pass --force to replace it (its waveform and report are kept "
+                          f"as *.replaced-N.*)")
     if any(folder.glob("checkpoint-*.npz")) and not force:
         raise ResultError(f"{folder} holds checkpoints of an unfinished run; pass --resume to "
                           f"continue it or --force to start again")
@@ -46,3 +53,50 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False) -> None:
         raise ResultError(f"cannot make the folder {folder}: part of its path is a file; "
                           f"choose another --out") from None
     atomic.lock_folder(folder)
+    return keep_replaced(folder, keep) if force else {}
+
+
+REPORTS = ("report.json", "export.json")  # the files whose references follow a renaming
+
+
+def keep_replaced(folder: Path, names: Sequence[str]) -> dict[str, str]:
+    """Keep the files ``names`` in ``folder`` that a new write would replace: each is
+    renamed ``<stem>.replaced-<k><suffix>`` (the first free ``k``, the same for all of them,
+    so a waveform and its sidecar stay a pair), and every report in the folder (kept or
+    not) refers to the renamed files by their new names (``waveform``, ``sidecar``,
+    ``files``): a run's report.json goes on describing the waveform it was made for.
+    Returns ``{old: new}`` names."""
+    present = [n for n in dict.fromkeys(names) if (folder / n).is_file()]
+    if not present:
+        return {}
+    k = 1
+    while any((folder / _renamed(n, k)).exists() for n in present):
+        k += 1
+    renamed = {n: _renamed(n, k) for n in present}
+    for old, new in renamed.items():
+        os.replace(folder / old, folder / new)
+    for report in REPORTS:
+        for name in (renamed.get(report), report):
+            if name and (folder / name).is_file():
+                _follow(folder / name, renamed)
+    return renamed
+
+
+def _renamed(name: str, k: int) -> str:
+    stem, dot, suffix = name.partition(".")
+    return f"{stem}.replaced-{k}{dot}{suffix}"
+
+
+def _follow(report: Path, renamed: dict[str, str]) -> None:
+    try:
+        data = json.loads(report.read_text())
+    except (OSError, ValueError):
+        return  # not ours to repair: it is kept as it was
+    if not isinstance(data, dict):
+        return
+    for key in ("waveform", "sidecar"):
+        if data.get(key) in renamed:
+            data[key] = renamed[data[key]]
+    if isinstance(data.get("files"), list):
+        data["files"] = [renamed.get(f, f) if isinstance(f, str) else f for f in data["files"]]
+    atomic.write_json(report, data)

@@ -27,6 +27,7 @@ from shaper.physics.systems import System
 class Writer(NamedTuple):
     what: str  # one line for --help
     write: Callable[[Path, str, Waveform, System, dict], list[Path]]
+    names: Callable[[str, System], list[str]]  # the file names it writes, before writing
     read_back: bool = False  # shaper can judge the file again (check, export)
 
 
@@ -94,7 +95,9 @@ def numbers_per_channel(folder: Path, name: str, waveform: Waveform, system: Sys
 
 WRITERS: dict[str, Writer] = {
     "csv": Writer("CSV with a JSON sidecar (rate, full scale, channels); read back by shaper",
-                  csv_with_sidecar, read_back=True),
+                  csv_with_sidecar, lambda name, system: [f"{name}.csv", f"{name}.json"],
+                  read_back=True),
     "numbers": Writer("numbers only, one text file per channel, no header or metadata",
-                      numbers_per_channel),
+                      numbers_per_channel,
+                      lambda name, system: [f"{name}_{c.name}.txt" for c in system.channels]),
 }

@@ -9,17 +9,12 @@ another instrument without optimising again. How a file plays on the chip is
 from __future__ import annotations
 
 import math
-from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 
-from shaper.errors import InputError, ResultError, WaveformError
-from shaper.io import atomic, waveio
-from shaper.jobs.playback import Playback, baseband, simulate_played
-from shaper.recipe import ExportSettings, Recipe, load_recipe
-from shaper.recipe.derive import at_samples
-from shaper.recipe.units import format_quantity
+from shaper.errors import WaveformError
+from shaper.io import waveio
+from shaper.recipe import ExportSettings, Recipe
 from shaper.signal.chain import line_columns
 from shaper.signal.mixer import Mixer
 from shaper.signal.modulation import modulate
@@ -132,18 +127,6 @@ def check_predistortion(recipe: Recipe) -> None:
     _predistorted(recipe, step, recipe.sample_rate_hz)
 
 
-def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettings,
-                  rate: float) -> dict | None:
-    """Figures of the same pulse exported *without* the mixer correction and played through
-    the recipe's mixer: what the correction is worth. None without a mixer."""
-    if not settings.mixer:
-        return None
-    plain, _ = make_waveform(recipe, samples_hz, replace(settings, mixer={}), rate)
-    played = simulate_played(recipe, plain)
-    return {"channels": {c: vars(m) for c, m in settings.mixer.items()},
-            "uncorrected": {"infidelity": played.infidelity, "leakage": played.leakage}}
-
-
 def resample(samples_hz: np.ndarray, rate_in: float, rate_out: float) -> tuple[np.ndarray, str]:
     """The piecewise-constant pulse at another sample rate.
 
@@ -167,87 +150,3 @@ def resample(samples_hz: np.ndarray, rate_in: float, rate_out: float) -> tuple[n
     return np.diff(cumulative, axis=0) * rate_out, "box average (area-preserving)"
 
 
-def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
-    """An earlier run: its recipe, pulse samples (Hz, baseband), report and folder."""
-    path = Path(path)
-    report_path = path / "report.json" if path.is_dir() else path
-    report = atomic.read_json(report_path, ResultError,
-                              "no report.json here; give a run folder or its report.json")
-    for key in ("recipe", "waveform"):
-        if key not in report:
-            raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")
-    recipe = load_recipe(report["recipe"]["content"])
-    wave = waveio.read_waveform(report_path.parent / report["waveform"])
-    samples = baseband(recipe, wave)
-    n = int(report.get("pulse_samples", samples.shape[0]))
-    samples = samples[wave.pulse_start:wave.pulse_start + n]
-    recipe = at_samples(recipe, n, rate_hz=wave.sample_rate_hz)
-    return recipe, samples, report, report_path.parent
-
-
-def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideband=None,
-             granularity=None, padding=None, clip=None, format="csv", force=False,
-             predistort=False, codes=None) -> dict:
-    """Write an earlier run's pulse for another instrument; return the export report.
-
-    The export report holds the figures at the run's own rate and of what the new file
-    plays (after resampling, IF modulation, pre-distortion, mixer correction, quantisation
-    and padding). ``predistort``: invert the recipe's line in the new file.
-
-    Raises:
-        InputError: ``predistort`` without a line, or for a run that was optimised with the
-            line in the loop (its samples already account for the line).
-    """
-    recipe, samples, _, _ = load_run(run_path)
-    if predistort and not recipe.export.predistort:
-        if not recipe.line.active:
-            raise InputError("--predistort needs a [line] in the run's recipe; this one has "
-                             "none")
-        raise InputError("--predistort: this run was optimised with its line in the loop, so "
-                         "its samples already account for the line; pre-distorting them "
-                         "would correct twice (set export.predistort = true in the recipe to "
-                         "optimise the ideal pulse and invert the line at export)")
-    out = Path(out)
-    if (out / "export.json").exists() and not force:
-        raise ResultError(f"{out} already holds an export (export.json); choose another --out "
-                          f"or pass --force")
-    out.mkdir(parents=True, exist_ok=True)
-    own, _ = make_waveform(recipe, samples, replace(recipe.export, dac_bits=None,
-                                                    granularity=1, clip=True),
-                           recipe.sample_rate_hz)
-    original = simulate_played(recipe, own)  # the run's own figures, for comparison
-    rate = sample_rate_hz or recipe.sample_rate_hz
-    method = "none"
-    if rate != recipe.sample_rate_hz:
-        samples, method = resample(samples, recipe.sample_rate_hz, rate)
-    target = at_samples(recipe, samples.shape[0], rate_hz=rate)
-    settings = replace(recipe.export,
-                       dac_bits=bits or recipe.export.dac_bits,
-                       if_frequency_hz=recipe.export.if_frequency_hz if if_hz is None else if_hz,
-                       sideband=sideband or recipe.export.sideband,
-                       granularity=granularity or recipe.export.granularity,
-                       padding=padding or recipe.export.padding,
-                       clip=recipe.export.clip if clip is None else clip,
-                       codes=recipe.export.codes if codes is None else codes)
-    if abs(settings.if_frequency_hz) >= rate / 2:
-        raise WaveformError(f"the IF {format_quantity(settings.if_frequency_hz, 'Hz')} is not "
-                            f"below the Nyquist frequency {format_quantity(rate / 2, 'Hz')}")
-    wave, clipped = make_waveform(target, samples, settings, rate)
-    playback = Playback(target, wave)
-    played, verdict = playback.nominal, playback.verdict()
-    files = waveio.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
-                                  recipe_sha256=recipe.sha256, format=format)
-    report = {**played.figures(), "waveform": files[0].name, "files": [f.name for f in files],
-              "sample_rate_hz": rate, "resampling": method, "samples": wave.fractions.shape[0],
-              "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,
-              "sideband": settings.sideband, "clipped_samples": clipped,
-              "values": "dac_codes" if wave.codes else "fractions",
-              "trust": playback.trust_block(),
-              "line": playback.line_block(),
-              "mixer": mixer_figures(target, samples, settings, rate),
-              "at_run_rate": original.figures(), "source": str(run_path),
-              "targets": {"infidelity": recipe.optimizer.target_infidelity,
-                          "leakage": recipe.optimizer.target_leakage, **verdict.as_dict()},
-              "caution": waveio.CAUTION}
-    atomic.write_json(out / "export.json", report)
-    return report

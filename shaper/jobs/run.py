@@ -7,10 +7,8 @@ the optimiser (README, "Output files").
 
 from __future__ import annotations
 
-import platform
 import time
 from dataclasses import dataclass, replace
-from importlib import metadata
 from pathlib import Path
 
 import numpy as np
@@ -22,23 +20,14 @@ from shaper.io.runfolder import prepare_folder
 from shaper.io.runlog import RunLog
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
-from shaper.jobs.export import check_predistortion, make_waveform, mixer_figures
+from shaper.jobs.export import check_predistortion, make_waveform
 from shaper.jobs.playback import Playback
+from shaper.jobs.report import build_report
 from shaper.optimizer.options import RunOptions
 from shaper.optimizer.starts import Result, optimize, read_history
 from shaper.physics.simulation import Simulation
 from shaper.recipe import Recipe, load_recipe
 from shaper.signal.pulses import to_samples
-
-
-def versions() -> dict[str, str]:
-    out = {"python": platform.python_version()}
-    for package in ("shaper", "numpy", "scipy", "jax", "jaxlib", "optax", "matplotlib"):
-        try:
-            out[package] = metadata.version(package)
-        except metadata.PackageNotFoundError:
-            out[package] = "not installed"
-    return out
 
 
 @dataclass
@@ -47,60 +36,6 @@ class RunOutput:
     report: dict
     folder: Path
     files: list[Path]
-
-
-def build_report(result: Result, playback: Playback, internal: Simulation, clipped: int,
-                 csv_name: str) -> dict:
-    recipe, best, o = result.recipe, result.best, result.recipe.optimizer
-    waveform, exported = playback.wave, playback.nominal
-    members = playback.members
-    verdict = playback.verdict()
-    band = verdict.judged.get("out_of_band")
-    return {
-        **exported.figures(),
-        "waveform": csv_name,
-        "sidecar": Path(csv_name).with_suffix(".json").name,
-        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
-                    "max_out_of_band": recipe.max_out_of_band if band is not None else None,
-                    "ensemble_targets": o.ensemble_targets if members else None,
-                    **verdict.as_dict()},
-        "ensemble": None if members is None else {
-            "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
-            "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
-            "infidelity": members[0], "leakage": members[1]},
-        "trust": playback.trust_block(),
-        "system_model": recipe.system.models or "matrices",
-        "open_system": playback.open_system,
-        "line": playback.line_block(),
-        "mixer": mixer_figures(recipe, result.samples, recipe.export, recipe.sample_rate_hz),
-        "out_of_band_fraction": band,
-        "bandwidth_cutoff_hz": recipe.bandwidth_hz,
-        "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),
-        "clipped_samples": clipped,
-        "before_quantisation": internal.figures(),
-        "costs": best.parts,
-        "cost_weights": dict(zip(result.objective.names, result.objective.weights.tolist(),
-                                 strict=True)),
-        "optimizer": {"method": o.method, "iterations": best.iterations,
-                      "evaluations": best.evaluations, "stop_reason": best.stop_reason,
-                      "stop_detail": best.stop_detail,
-                      "seed": best.seed, "compile_time_s": result.compile_time_s,
-                      "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
-                                  "infidelity": s.infidelity, "leakage": s.leakage,
-                                  "iterations": s.iterations,
-                                  "stop_reason": s.stop_reason, "wall_time_s": s.wall_time_s}
-                                 for s in result.starts]},
-        "samples": int(waveform.fractions.shape[0]),
-        "pulse_samples": recipe.samples,
-        "duration_s": recipe.duration_s,
-        "sample_rate_hz": recipe.sample_rate_hz,
-        "wall_time_s": result.wall_time_s,
-        "recipe": {"name": recipe.name, "path": recipe.path, "sha256": recipe.sha256,
-                   "content": recipe.raw},
-        "versions": versions(),
-        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
-        "caution": waveio.CAUTION,
-    }
 
 
 def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | None = None,
@@ -121,7 +56,8 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     check_predistortion(recipe)  # an impossible inverse is refused before the night's work
     folder = Path(out) if out is not None else Path("results") / recipe.name
     options = (options or RunOptions()).with_(folder=folder, **option_fields)
-    prepare_folder(folder, force, options.resume)
+    prepare_folder(folder, force, options.resume,
+                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"])
     if force and not options.resume:
         for old in list(folder.glob("checkpoint-*.npz")) + [folder / "history.jsonl"]:
             old.unlink(missing_ok=True)

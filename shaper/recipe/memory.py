@@ -18,6 +18,7 @@ from shaper.recipe.schema import ExportSettings, _Reader
 # (16 bytes each), measured within a factor of two on the bundled recipes.
 BYTES_PER_ENTRY = 16 * 16
 MAX_EXPORT_SAMPLES = 10_000_000
+MAX_GRANULARITY = 1_000_000  # samples; AWGs ask for 1 to a few hundred
 
 
 def available_memory() -> int:
@@ -34,33 +35,50 @@ def available_memory() -> int:
 
 
 def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
-                    export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
-    """Refuse, before anything is allocated, a problem that cannot fit in this machine.
+                   export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
+    """Refuse, before anything is allocated, a problem that cannot fit in this machine,
+    naming the key that makes it big.
 
-    ``lab_phases``: optimised in the lab frame over that many carrier phases (its slices
-    resolve the carrier: :mod:`shaper.signal.labdrive`)."""
-    from shaper.physics.grid import substeps
+    The optimiser's slices are the exported samples (padding included) times the finest
+    sub-steps any part of the chain needs: the line's ``oversample``, the IF, and every
+    drive's carrier offset from the frame. ``lab_phases``: optimised in the lab frame over
+    that many carrier phases (its slices resolve the carrier: :mod:`shaper.signal.labdrive`).
+    """
+    from shaper.physics.grid import carrier_substeps, substeps
 
-    n, g = pulse["samples"], export.granularity
+    n, g, period = pulse["samples"], export.granularity, 1 / pulse["sample_rate_hz"]
     exported = -(-n // g) * g
     if exported > MAX_EXPORT_SAMPLES:
         r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
                                      f"{exported} samples, more than any AWG memory "
                                      f"({MAX_EXPORT_SAMPLES}); check the granularity")
-    steps = max(oversample, substeps(export.if_frequency_hz, 1 / pulse["sample_rate_hz"])
-                if export.if_frequency_hz else 1)
+    causes = {"line.oversample": oversample,
+              "export.if_frequency": substeps(export.if_frequency_hz, period),
+              "system.drive": max([carrier_substeps(c.offset_hz, period)
+                                   for c in system.channels] + [1])}
+    steps = max(causes.values())
     d = system.dimension
-    slices = n * steps
+    slices = exported * steps
     if lab_phases:
         from shaper.physics.labframe import POINTS_PER_CYCLE, lab_terms
         fastest = lab_terms(system).fastest_hz(abs(export.if_frequency_hz))
-        slices = lab_phases * 2 * max(n * steps, math.ceil(
-            exported / pulse["sample_rate_hz"] * fastest * POINTS_PER_CYCLE))
+        slices = lab_phases * 2 * max(slices, math.ceil(exported * period * fastest
+                                                        * POINTS_PER_CYCLE))
     need = (members + 1) * slices * d * d * BYTES_PER_ENTRY
     have = available_memory()
     if need > 0.8 * have:
-        key = "system.levels" if d > 64 else "pulse.duration"
+        # the factor furthest above what a typical recipe has names the key to change
+        typical = {"system.levels": (d * d / 64, "fewer levels"),
+                   "pulse.duration": (n / 2000, "a shorter pulse or a lower sample rate"),
+                   "cost.ensemble_scales": ((members + 1) / 6, "a smaller ensemble"),
+                   "optimizer.lab_frame": (2 * lab_phases or 1, "the rotating frame"),
+                   "export.granularity": (exported / max(n, 1), "a smaller granularity")}
+        cause = max(causes, key=causes.get)
+        typical[cause] = (steps / 4, "fewer sub-steps" if cause == "line.oversample" else
+                          "a carrier nearer the frame" if cause == "system.drive" else
+                          "a smaller IF")
+        key = max(typical, key=lambda k: typical[k][0])
         r.fail(key, f"this problem needs about {need / 2**30:.1f} GiB ({slices} propagator "
                     f"slices x {members + 1} system(s) x {d}^2 levels) and this machine has "
-                    f"{have / 2**30:.1f} GiB available; use fewer levels, a shorter pulse or a "
-                    f"smaller ensemble")
+                    f"{have / 2**30:.1f} GiB available; this key makes it big: try "
+                    f"{typical[key][1]}")

@@ -17,7 +17,10 @@ from shaper.errors import InputError
 from shaper.physics.systems import NAME, NAME_RULE, System, from_matrices
 from shaper.physics.transmons import SPECTRA, TransmonSpec, coupled_transmons
 from shaper.recipe.schema import KEYS, _Reader
-from shaper.recipe.units import parse_quantity
+from shaper.recipe.units import format_quantity, parse_quantity
+
+MAX_COUPLING_HZ = 1e9  # above this a coupling is a unit slip
+MAX_CARRIER_OFFSET_HZ = 20e9  # a drive this far from the frame is one too
 
 
 class Model(NamedTuple):
@@ -132,8 +135,12 @@ def _transmons(r: _Reader, t: dict) -> System:
         if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
                                                                  for p in pair)):
             r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
-        couplings.append((pair[0], pair[1], r.number(item, "strength", f"{where}.strength",
-                                                     kind="frequency")))
+        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
+        if abs(g) > MAX_COUPLING_HZ:
+            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
+                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
+                                        f"couplings are MHz to tens of MHz (check the unit)")
+        couplings.append((pair[0], pair[1], g))
     frame = r.number(t, "frame_frequency", "system.frame_frequency",
                      specs[0].qubit_frequency_hz, kind="frequency", positive=True)
     drives = []
@@ -141,9 +148,14 @@ def _transmons(r: _Reader, t: dict) -> System:
         for key in ("name", "transmon"):
             if not isinstance(item.get(key), str):
                 r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
-        drives.append((item["name"], item["transmon"],
-                       r.number(item, "frequency", f"{where}.frequency", kind="frequency",
-                                positive=True)))
+        carrier = r.number(item, "frequency", f"{where}.frequency", kind="frequency",
+                           positive=True)
+        if abs(carrier - frame) > MAX_CARRIER_OFFSET_HZ:
+            r.fail(f"{where}.frequency", f"{format_quantity(carrier, 'Hz')} is more than "
+                                         f"{format_quantity(MAX_CARRIER_OFFSET_HZ, 'Hz')} from "
+                                         f"the frame {format_quantity(frame, 'Hz')}; a drive "
+                                         f"sits near the transmons' frequencies (check the unit)")
+        drives.append((item["name"], item["transmon"], carrier))
     try:
         return coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
     except InputError as exc:

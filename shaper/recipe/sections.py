@@ -47,6 +47,7 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                      pulse["sample_rate_hz"])
     line = read_line(r, r.table(raw, "line", "line"), [c.name for c in system.channels],
                      pulse["sample_rate_hz"])
+    _check_cutoffs(r, line, pulse["duration_s"])
     if export.predistort and not line.active:
         r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
     if optimizer.lab_frame and system.lab is None:
@@ -127,6 +128,26 @@ def _gate(r: _Reader, t: dict, system: System) -> tuple[Target, bool]:
         r.fail("gate.target" if spec not in ("matrix", "state") else f"gate.{spec}", str(exc))
 
 
+MIN_CUTOFF_CYCLES = 0.1  # a line cutoff times the pulse's duration below this passes nothing
+
+
+def _check_cutoffs(r: _Reader, line, duration_s: float) -> None:
+    """A line stage whose cutoff is far below 1 / duration lets none of the pulse through:
+    the optimiser would stop at once with the gate undone ("converged" at infidelity ~0.7)."""
+    for channel, stages in line.stages.items():
+        for i, st in enumerate(stages):
+            if st.cutoff_hz and st.cutoff_hz * duration_s < MIN_CUTOFF_CYCLES:
+                r.fail(f"line.{channel}[{i}].cutoff",
+                       f"{format_quantity(st.cutoff_hz, 'Hz')} passes almost nothing of a "
+                       f"{format_quantity(duration_s, 's')} pulse (cutoff x duration < "
+                       f"{MIN_CUTOFF_CYCLES}); check the unit (lines between a DAC and a chip "
+                       f"pass tens to hundreds of MHz)")
+
+
+MAX_RABI_HZ = 10e9  # a Rabi frequency above this is a unit slip, not a drive
+MAX_FLUX_HZ = 50e9  # a frequency excursion above this is too
+
+
 def _pulse(r: _Reader, t: dict, system: System) -> dict:
     r.check_keys(t, "pulse")
     duration = r.number(t, "duration", "pulse.duration", kind="time", positive=True)
@@ -159,6 +180,13 @@ def _pulse(r: _Reader, t: dict, system: System) -> dict:
             limits[c] = max(-ranges[c][0], ranges[c][1])
         else:
             ranges[c] = (-limits[c], limits[c])
+    for c, v in limits.items():
+        key, bound = ("pulse.max_flux", MAX_FLUX_HZ) if c in bb else ("pulse.max_rabi",
+                                                                      MAX_RABI_HZ)
+        if v > bound and not (c in bb and c in ranges and "max_flux" not in t):
+            r.fail(key, f"{format_quantity(v, 'Hz')} on channel {c} is above "
+                        f"{format_quantity(bound, 'Hz')}, beyond any transmon drive; check "
+                        f"the unit (e.g. \"60 MHz\")")
     if not any(v > 0 for v in limits.values()):
         r.fail("pulse.max_rabi", "every channel is switched off (limit 0): nothing drives the "
                                  "system")
@@ -329,7 +357,19 @@ def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],
                         f"its full scale {format_quantity(full[c], 'Hz')} (export.full_scale); "
                         f"lower the limit or raise the full scale")
     bits = r.number(t, "dac_bits", "export.dac_bits", 16, integer=True, minimum=2)
+    from shaper.recipe.memory import MAX_GRANULARITY
+    if r.number(t, "granularity", "export.granularity", 1, integer=True,
+                minimum=1) > MAX_GRANULARITY:
+        r.fail("export.granularity", f"must be at most {MAX_GRANULARITY} samples, got "
+                                     f"{t['granularity']!r}")
     if_hz = r.number(t, "if_frequency", "export.if_frequency", 0.0, kind="frequency")
+    if if_hz < 0:
+        r.fail("export.if_frequency", f"must be 0 or more, got {t['if_frequency']!r}; give the "
+                                      f"IF's size and choose the side of the LO with "
+                                      f"export.sideband")
+    if "sideband" in t and not if_hz:
+        r.fail("export.sideband", "needs an IF (export.if_frequency): without one there is "
+                                  "no sideband to choose")
     if abs(if_hz) >= rate / 2:
         r.fail("export.if_frequency", f"must lie below the Nyquist frequency "
                                       f"{format_quantity(rate / 2, 'Hz')} of the sample rate")

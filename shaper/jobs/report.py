@@ -1,0 +1,140 @@
+"""The report blocks: ``report.json`` of a run and ``export.json`` of an export, assembled
+from a :class:`~shaper.jobs.playback.Playback` (each figure computed once), and an
+earlier run read back (README, "Output files").
+"""
+
+from __future__ import annotations
+
+import platform
+import time
+from dataclasses import replace
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+from shaper.errors import ResultError
+from shaper.io import atomic, waveio
+from shaper.jobs.export import make_waveform
+from shaper.jobs.playback import Playback, baseband, simulate_played
+from shaper.optimizer.starts import Result
+from shaper.physics.simulation import Simulation
+from shaper.recipe import ExportSettings, Recipe, load_recipe
+from shaper.recipe.derive import at_samples
+
+
+def versions() -> dict[str, str]:
+    out = {"python": platform.python_version()}
+    for package in ("shaper", "numpy", "scipy", "jax", "jaxlib", "optax", "matplotlib"):
+        try:
+            out[package] = metadata.version(package)
+        except metadata.PackageNotFoundError:
+            out[package] = "not installed"
+    return out
+
+
+def build_report(result: Result, playback: Playback, internal: Simulation, clipped: int,
+                 csv_name: str) -> dict:
+    recipe, best, o = result.recipe, result.best, result.recipe.optimizer
+    waveform, exported = playback.wave, playback.nominal
+    members = playback.members
+    verdict = playback.verdict()
+    band = verdict.judged.get("out_of_band")
+    return {
+        **exported.figures(),
+        "waveform": csv_name,
+        "sidecar": Path(csv_name).with_suffix(".json").name,
+        "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
+                    "max_out_of_band": recipe.max_out_of_band if band is not None else None,
+                    "ensemble_targets": o.ensemble_targets if members else None,
+                    **verdict.as_dict()},
+        "ensemble": None if members is None else {
+            "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
+            "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
+            "infidelity": members[0], "leakage": members[1]},
+        "trust": playback.trust_block(),
+        "system_model": recipe.system.models or "matrices",
+        "open_system": playback.open_system,
+        "line": playback.line_block(),
+        "mixer": mixer_figures(recipe, result.samples, recipe.export, recipe.sample_rate_hz),
+        "out_of_band_fraction": band,
+        "bandwidth_cutoff_hz": recipe.bandwidth_hz,
+        "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),
+        "clipped_samples": clipped,
+        "before_quantisation": internal.figures(),
+        "costs": best.parts,
+        "cost_weights": dict(zip(result.objective.names, result.objective.weights.tolist(),
+                                 strict=True)),
+        "optimizer": {"method": o.method, "iterations": best.iterations,
+                      "evaluations": best.evaluations, "stop_reason": best.stop_reason,
+                      "stop_detail": best.stop_detail,
+                      "seed": best.seed, "compile_time_s": result.compile_time_s,
+                      "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
+                                  "infidelity": s.infidelity, "leakage": s.leakage,
+                                  "iterations": s.iterations,
+                                  "stop_reason": s.stop_reason, "wall_time_s": s.wall_time_s}
+                                 for s in result.starts]},
+        "samples": int(waveform.fractions.shape[0]),
+        "pulse_samples": recipe.samples,
+        "duration_s": recipe.duration_s,
+        "sample_rate_hz": recipe.sample_rate_hz,
+        "wall_time_s": result.wall_time_s,
+        "recipe": {"name": recipe.name, "path": recipe.path, "sha256": recipe.sha256,
+                   "content": recipe.raw},
+        "versions": versions(),
+        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "caution": waveio.CAUTION,
+    }
+
+
+def export_report(playback: Playback, files: list, original: Simulation, samples: np.ndarray,
+                  settings: ExportSettings, rate: float, *, method: str, clipped: int, source,
+                  recipe: Recipe) -> dict:
+    """``export.json`` of ``shaper export``: what the new file plays, beside the run's own
+    figures at its own rate (``original``)."""
+    played, verdict, wave = playback.nominal, playback.verdict(), playback.wave
+    report = {**played.figures(), "waveform": files[0].name, "files": [f.name for f in files],
+              "sample_rate_hz": rate, "resampling": method, "samples": wave.fractions.shape[0],
+              "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,
+              "sideband": settings.sideband, "clipped_samples": clipped,
+              "values": "dac_codes" if wave.codes else "fractions",
+              "trust": playback.trust_block(),
+              "line": playback.line_block(),
+              "mixer": mixer_figures(playback.recipe, samples, settings, rate),
+              "at_run_rate": original.figures(), "source": str(source),
+              "targets": {"infidelity": recipe.optimizer.target_infidelity,
+                          "leakage": recipe.optimizer.target_leakage, **verdict.as_dict()},
+              "caution": waveio.CAUTION}
+    return report
+
+
+def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettings,
+                  rate: float) -> dict | None:
+    """Figures of the same pulse exported *without* the mixer correction and played through
+    the recipe's mixer: what the correction is worth. None without a mixer."""
+    if not settings.mixer:
+        return None
+    plain, _ = make_waveform(recipe, samples_hz, replace(settings, mixer={}), rate)
+    played = simulate_played(recipe, plain)
+    return {"channels": {c: vars(m) for c, m in settings.mixer.items()},
+            "uncorrected": {"infidelity": played.infidelity, "leakage": played.leakage}}
+
+
+def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
+    """An earlier run: its recipe, pulse samples (Hz, baseband), report and folder."""
+    path = Path(path)
+    report_path = path / "report.json" if path.is_dir() else path
+    report = atomic.read_json(report_path, ResultError,
+                              "no report.json here; give a run folder or its report.json")
+    for key in ("recipe", "waveform"):
+        if key not in report:
+            raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")
+    recipe = load_recipe(report["recipe"]["content"])
+    wave = waveio.read_waveform(report_path.parent / report["waveform"])
+    samples = baseband(recipe, wave)
+    n = int(report.get("pulse_samples", samples.shape[0]))
+    samples = samples[wave.pulse_start:wave.pulse_start + n]
+    recipe = at_samples(recipe, n, rate_hz=wave.sample_rate_hz)
+    return recipe, samples, report, report_path.parent
+
+
