@@ -11,7 +11,8 @@ from helpers import run_cli as cli
 
 from shaper.errors import WaveformError
 from shaper.io.waveform_import import read_any
-from shaper.io.waveio import read_waveform, write_waveform
+from shaper.io.waveio import read_waveform
+from shaper.io.writers import write_waveform
 from shaper.jobs.export import make_waveform, resample
 from shaper.jobs.playback import simulate_played
 from shaper.jobs.run import run
@@ -70,7 +71,7 @@ def test_round_trip_within_half_a_dac_step(demo, tmp_path):
     for bits in (16, 12):
         settings = recipe.export.__class__(**{**recipe.export.__dict__, "dac_bits": bits})
         wave, _ = make_waveform(recipe, demo.result.samples, settings, recipe.sample_rate_hz)
-        from shaper.io.waveio import write_waveform
+        from shaper.io.writers import write_waveform
         folder = tmp_path / str(bits)
         folder.mkdir()
         write_waveform(folder, "w", wave, recipe.system, recipe_name="x", recipe_sha256="0")

@@ -344,7 +344,7 @@ offset_q = -0.002
     assert np.allclose(a, samples[:, 0] - samples[:, 1] * math.tan(phi) - 0.004 * 100e6,
                        atol=2 * step)
     # integer codes: the file holds whole numbers and reads back to the same fractions
-    from shaper.io.waveio import write_waveform
+    from shaper.io.writers import write_waveform
     files = write_waveform(tmp_path, "mix", wave, recipe.system, recipe_name="mix",
                            recipe_sha256=recipe.sha256)
     body = files[0].read_text().splitlines()[1:]

@@ -70,7 +70,7 @@ def _cases():
         ("not whole samples", edit('"20 ns"', '"20.1 ns"'),
          r"pulse\.duration: .*nearest valid durations: 20 ns \(48 samples\) or 20\.4167 ns"),
         ("levels below two", edit("levels = 4", "levels = 1"),
-         r"system\.levels: must be at least 2"),
+         r"system\.levels: must be from 2"),
         ("limit above full scale", DEMO + '[export]\nfull_scale = "50 MHz"\n',
          r"pulse\.max_rabi: the limit 60 MHz of channel q0 is above its full scale 50 MHz"),
         ("unknown target", edit('target = "X"', 'target = "W"'),

@@ -109,8 +109,8 @@ def test_every_channel_keeps_its_own_limit_whatever_the_names(tmp_path, second):
     params = rng.normal(scale=30.0, size=layout.shape)  # deep saturation
     samples = to_samples(params, layout)
     wave, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
-    from shaper.io import waveio
-    files = waveio.write_waveform(tmp_path, recipe.name, wave, recipe.system,
+    from shaper.io import writers
+    files = writers.write_waveform(tmp_path, recipe.name, wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     assert all(tmp_path in f.resolve().parents for f in files)
     meta = json.loads(files[1].read_text())

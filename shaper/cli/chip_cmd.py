@@ -16,6 +16,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run the tasks on a Dask distributed scheduler, e.g. "
                              "tcp://10.0.0.5:8786 (pip install \".[cluster]\")")
+    parser.add_argument("--wait-workers", default="3 min", metavar="TIME",
+                        help="with --scheduler: how long to wait for a first worker before "
+                             "giving up with exit 3 (default '3 min')")
     parser.add_argument("--resume", action="store_true",
                         help="continue a run in --out: finished gates are kept")
     parser.add_argument("--force", action="store_true", help="start over in --out")
@@ -30,18 +33,25 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     if args.scheduler and args.workers:
         raise InputError("--workers is for local runs; a Dask cluster has its own workers")
+    from shaper.recipe.units import parse_quantity
+
+    wait = parse_quantity(args.wait_workers, "time", key="--wait-workers", bare_check=False)
+    if not 0 < wait <= 7 * 86400:
+        raise InputError(f"--wait-workers must be a positive time up to a week, got "
+                         f"{args.wait_workers!r}")
     chip = load_chip(args.chip)
     folder = Path(args.out) if args.out else Path("results") / chip.name
     from shaper.io import atomic
     from shaper.jobs.chip import DaskExecutor, LocalExecutor, run_chip
 
     atomic.lock_folder(folder)
-    executor = DaskExecutor(args.scheduler) if args.scheduler else \
+    echo = lambda text: print(text, file=sys.stderr, flush=True)  # noqa: E731
+    executor = DaskExecutor(args.scheduler, wait_workers_s=wait, echo=echo,
+                            debug=getattr(args, "debug", False)) if args.scheduler else \
         LocalExecutor(args.workers or os.cpu_count() or 1)
     try:
         rows = run_chip(chip, folder, executor=executor, resume=args.resume, force=args.force,
-                        echo=lambda text: print(text, file=sys.stderr, flush=True),
-                        progress=not args.quiet)
+                        echo=echo, progress=not args.quiet)
     finally:
         executor.close()
     print((folder / "chip.md").read_text(), end="")

@@ -69,25 +69,7 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
                                 f"the recipe's {sorted(c.name for c in system.channels)}")
         fractions = _order(path, list(wave.column_names), wave.fractions, system)
         return replace(wave, fractions=fractions, column_names=system.control_names)
-    meta_rate, meta_scale = None, None
-    if path.suffix == ".csv":
-        names, data, times = _read_plain_csv(path, system)
-    elif path.suffix == ".npy":
-        data = _load_numpy(path)
-        names, times = list(system.control_names), None
-    elif path.suffix == ".npz":
-        with _open_npz(path) as archive:
-            if "samples" not in archive:
-                raise WaveformError(f"{path}: expected an array named 'samples' (n, controls)")
-            data = _real(path, archive["samples"])
-            names = [str(c) for c in archive["columns"]] if "columns" in archive \
-                else list(system.control_names)
-            meta_rate = _scalar(path, archive, "sample_rate_hz")
-            meta_scale = _scalar(path, archive, "full_scale_hz")
-        times = None
-    else:
-        raise WaveformError(f"{path}: unknown waveform type {path.suffix!r}; use .csv, .npy "
-                            f"or .npz")
+    names, data, times, meta_rate, meta_scale = _read_plain(path, system)
     if data.ndim == 1 and len(system.control_names) == 1:
         data = data[:, None]
     if data.ndim != 2 or data.shape[1] != len(names):
@@ -109,6 +91,30 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
     full = scale if isinstance(scale, dict) else {c.name: float(scale) for c in system.channels}
     return Waveform(fractions=_order(path, names, data, system), sample_rate_hz=float(rate),
                     full_scale_hz=full, column_names=system.control_names)
+
+
+def _read_plain(path: Path, system: System):
+    """A file without our sidecar: its column names, samples, times (CSV only) and the
+    sample rate and full scale it carries (npz only)."""
+    meta_rate, meta_scale, times = None, None, None
+    if path.suffix == ".csv":
+        names, data, times = _read_plain_csv(path, system)
+    elif path.suffix == ".npy":
+        data = _load_numpy(path)
+        names = list(system.control_names)
+    elif path.suffix == ".npz":
+        with _open_npz(path) as archive:
+            if "samples" not in archive:
+                raise WaveformError(f"{path}: expected an array named 'samples' (n, controls)")
+            data = _real(path, archive["samples"])
+            names = [str(c) for c in archive["columns"]] if "columns" in archive \
+                else list(system.control_names)
+            meta_rate = _scalar(path, archive, "sample_rate_hz")
+            meta_scale = _scalar(path, archive, "full_scale_hz")
+    else:
+        raise WaveformError(f"{path}: unknown waveform type {path.suffix!r}; use .csv, .npy "
+                            f"or .npz")
+    return names, data, times, meta_rate, meta_scale
 
 
 def _real(path: Path, data) -> np.ndarray:

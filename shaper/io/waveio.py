@@ -124,21 +124,9 @@ def to_fractions(samples_hz: np.ndarray, system: System, full_scale_hz: dict[str
     return np.clip(fractions, -1.0, 1.0), int(np.count_nonzero(over))
 
 
-def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: System, *,
-                   recipe_name: str, recipe_sha256: str, format: str = "csv") -> list[Path]:
-    """Write the waveform in a registered file format (:mod:`shaper.io.writers`) atomically.
-
-    Returns:
-        The paths written, the waveform file first.
-    """
-    from shaper.io.writers import WRITERS
-
-    return WRITERS[format].write(Path(folder), name, waveform, system,
-                                 {"recipe": recipe_name, "recipe_sha256": recipe_sha256})
-
-
 def read_waveform(csv_path: str | Path) -> Waveform:
-    """Read a waveform written by :func:`write_waveform` (CSV + JSON sidecar).
+    """Read a waveform written by :func:`shaper.io.writers.write_waveform` (CSV + JSON
+    sidecar).
 
     Raises:
         WaveformError: missing or malformed file or sidecar, NaN, values beyond full scale,

@@ -101,3 +101,14 @@ WRITERS: dict[str, Writer] = {
                       numbers_per_channel,
                       lambda name, system: [f"{name}_{c.name}.txt" for c in system.channels]),
 }
+
+
+def write_waveform(folder: str | Path, name: str, waveform: Waveform, system: System, *,
+                   recipe_name: str, recipe_sha256: str, format: str = "csv") -> list[Path]:
+    """Write the waveform in a registered file format (:mod:`shaper.io.writers`) atomically.
+
+    Returns:
+        The paths written, the waveform file first.
+    """
+    return WRITERS[format].write(Path(folder), name, waveform, system,
+                                 {"recipe": recipe_name, "recipe_sha256": recipe_sha256})

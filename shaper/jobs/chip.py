@@ -13,6 +13,7 @@ run give the same table.
 
 from __future__ import annotations
 
+import logging
 import os
 import shutil
 import sys
@@ -36,8 +37,9 @@ def run_task(task: Task, root: str) -> dict:
         os.environ.update(_PINNED)
     from shaper.jobs.gateset import derive, optimised_row
     from shaper.jobs.run import finish
-    from shaper.jobs.sweep import Sweep, parse_durations
+    from shaper.jobs.sweep import Sweep
     from shaper.recipe import load_recipe
+    from shaper.recipe.units import parse_durations
 
     root_path = Path(root)
     folder = root_path / "gates" / task.id
@@ -49,7 +51,8 @@ def run_task(task: Task, root: str) -> dict:
     atomic.write_json(marker, {"task": task.id, "digest": task.digest})
     recipe = load_recipe(task.recipe)
     sweep = Sweep(recipe, folder / "sweep", resume=True, echo=lambda text: None)
-    shortest = sweep.run(parse_durations(task.durations), plots=False)
+    shortest = sweep.run(parse_durations(task.durations, key=task.durations_key),
+                         plots=False)
     n = shortest if shortest is not None else max(sweep.points)
     output = finish(sweep.result_at(n), folder / "shortest", plots_too=False)
     result = output.result
@@ -84,27 +87,70 @@ class LocalExecutor:
         from concurrent.futures import as_completed
         return as_completed(futures)
 
+    def result(self, future):
+        from concurrent.futures.process import BrokenProcessPool
+        try:
+            return future.result()
+        except BrokenProcessPool as exc:
+            raise EnvironmentFailure(f"a worker process died ({exc}); the finished gates are "
+                                     f"saved: run again with --resume") from None
+
     def close(self):
         self.pool.shutdown(cancel_futures=True)
 
 
+DASK_LOGGERS = ("distributed", "tornado", "asyncio", "bokeh")
+WAIT_WORKERS_S = 180.0
+
+
 class DaskExecutor:
     """The same tasks on a Dask distributed cluster (``pip install ".[cluster]"``). The
-    workers must see ``root`` (a shared filesystem, as on a batch system)."""
+    workers must see ``root`` (a shared filesystem, as on a batch system).
 
-    def __init__(self, address: str, timeout_s: float = 10.0):
+    A scheduler without workers is waited for at most ``wait_workers_s`` (saying so at
+    once); a lost scheduler or cancelled tasks end the run as a machine failure (exit 3,
+    ``--resume`` continues). Dask's own log stays off stderr unless ``debug``.
+    """
+
+    def __init__(self, address: str, timeout_s: float = 10.0, *,
+                 wait_workers_s: float = WAIT_WORKERS_S, echo=print, debug: bool = False):
         try:
             from distributed import Client
         except ImportError:
             raise EnvironmentFailure("--scheduler needs Dask: pip install \".[cluster]\" "
                                      "(dask.distributed)") from None
+        self.debug = debug
+        self._silence()
         try:
             self.client = Client(address, timeout=timeout_s)
         except (OSError, TimeoutError) as exc:
             raise EnvironmentFailure(f"cannot reach the Dask scheduler at {address!r} within "
                                      f"{timeout_s:g} s: {exc}") from None
         workers = len(self.client.scheduler_info().get("workers", {}))
+        if not workers:
+            echo(f"the Dask scheduler at {address} has no workers yet; waiting up to "
+                 f"{wait_workers_s:g} s for one (--wait-workers)")
+            try:
+                self.client.wait_for_workers(1, timeout=wait_workers_s)
+            except (TimeoutError, OSError):
+                self.client.close()
+                raise EnvironmentFailure(f"no worker joined the Dask scheduler at {address} "
+                                         f"within {wait_workers_s:g} s (--wait-workers); start "
+                                         f"workers and run again with --resume") from None
+            workers = len(self.client.scheduler_info().get("workers", {}))
+        self.address = address
         self.description = f"the Dask scheduler at {address} ({workers} worker(s))"
+        self._silence()  # loggers Dask made while connecting
+
+    def _silence(self) -> None:
+        """Dask's log (reconnection tracebacks and the like) off stderr unless debugging:
+        every logger under its names, since Dask's config gives some their own level."""
+        if self.debug:
+            return
+        names = [n for n in list(logging.root.manager.loggerDict)
+                 if n.split(".")[0] in DASK_LOGGERS] + list(DASK_LOGGERS)
+        for name in names:
+            logging.getLogger(name).setLevel(logging.CRITICAL + 1)
 
     def submit(self, fn, *args):
         return self.client.submit(fn, *args, pure=False)
@@ -113,8 +159,27 @@ class DaskExecutor:
         from distributed import as_completed
         return as_completed(futures)
 
+    def result(self, future):
+        return future.result()
+
+    def lost(self, exc: BaseException) -> EnvironmentFailure | None:
+        """The machine failure an exception of the loop means, or None (a task's own)."""
+        from asyncio import CancelledError
+        from concurrent.futures import CancelledError as FutureCancelled
+
+        from distributed.comm.core import CommClosedError
+        if isinstance(exc, CancelledError | FutureCancelled | CommClosedError | OSError
+                      | TimeoutError):
+            return EnvironmentFailure(f"lost the Dask scheduler at {self.address} or its tasks "
+                                      f"({type(exc).__name__}); the finished gates are saved: "
+                                      f"run again with --resume")
+        return None
+
     def close(self):
-        self.client.close()
+        try:
+            self.client.close(timeout=5)
+        except Exception:  # noqa: BLE001 - a scheduler already gone cannot be closed politely
+            pass
 
 
 def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bool = False,
@@ -124,21 +189,11 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
     Raises:
         ResultError: ``out`` holds another chip's run, or a run that ``resume``/``force``
             should continue or replace.
+        EnvironmentFailure: the workers or the scheduler were lost (``--resume`` goes on).
     """
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
-    state_path = out / "chip.json"
-    state = {"chip": chip.name, "chip_sha256": chip.sha256, "tasks": {}}
-    if state_path.exists() and not force:
-        if not resume:
-            raise ResultError(f"{out} already holds a chip run (chip.json); pass --resume to "
-                              f"continue it or --force to start over")
-        state = atomic.read_json(state_path, ResultError, "unreadable")
-        if state.get("chip") != chip.name:
-            raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
-                              f"{chip.name!r}")
-    if force and (out / "gates").exists():
-        shutil.rmtree(out / "gates")  # start over: no task resumes its earlier sweep
+    state = _state(chip, out, resume, force)
     done = {t.id: state["tasks"][t.id]["rows"] for t in chip.tasks
             if state["tasks"].get(t.id, {}).get("digest") == t.digest}
     todo = [t for t in chip.tasks if t.id not in done]
@@ -151,34 +206,58 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
         bar = tqdm(total=len(todo), unit="gate", file=sys.stderr, dynamic_ncols=True,
                    bar_format="{l_bar}{bar}| {n_fmt}/{total_fmt} [{elapsed} < {remaining}]")
     started = time.monotonic()
-    futures = {executor.submit(run_task, t, str(out)): t for t in todo}
     try:
-        for future in executor.completed(list(futures)):
-            task = futures[future]
-            outcome = future.result()
-            rows = outcome["rows"]
-            state["tasks"][task.id] = {"digest": task.digest, "rows": rows,
-                                       "compiles": outcome["compiles"],
-                                       "wall_time_s": outcome["wall_time_s"],
-                                       "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
-            atomic.write_json(state_path, state)
-            done[task.id] = rows
-            for row in rows:
-                line = describe(GateRow(**row))
-                if bar is not None:
-                    bar.write(line, file=sys.stderr)
-                else:
-                    echo(line)
-            if bar is not None:
-                bar.update(1)
+        _run_tasks(executor, todo, out, state, done,
+                   say=bar.write if bar is not None else echo,
+                   tick=bar.update if bar is not None else (lambda n: None))
     finally:
         if bar is not None:
             bar.close()
     rows = [GateRow(**r) for t in chip.tasks for r in done[t.id]]
     state["wall_time_s"] = time.monotonic() - started
-    atomic.write_json(state_path, state)
+    atomic.write_json(out / "chip.json", state)
     write_summary(chip, out, rows)
     return rows
+
+
+def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
+    """chip.json: what finished earlier (a resumed run), or a fresh state."""
+    state_path = out / "chip.json"
+    state = {"chip": chip.name, "chip_sha256": chip.sha256, "tasks": {}}
+    if state_path.exists() and not force:
+        if not resume:
+            raise ResultError(f"{out} already holds a chip run (chip.json); pass --resume to "
+                              f"continue it or --force to start over")
+        state = atomic.read_json(state_path, ResultError, "unreadable")
+        if state.get("chip") != chip.name:
+            raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
+                              f"{chip.name!r}")
+    if force and (out / "gates").exists():
+        shutil.rmtree(out / "gates")  # start over: no task resumes its earlier sweep
+    return state
+
+
+def _run_tasks(executor, todo, out: Path, state: dict, done: dict, *, say, tick) -> None:
+    """Submit every task; record each as it finishes (chip.json written at once)."""
+    futures = {executor.submit(run_task, t, str(out)): t for t in todo}
+    try:
+        for future in executor.completed(list(futures)):
+            task = futures[future]
+            outcome = executor.result(future)
+            state["tasks"][task.id] = {"digest": task.digest, "rows": outcome["rows"],
+                                       "compiles": outcome["compiles"],
+                                       "wall_time_s": outcome["wall_time_s"],
+                                       "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+            atomic.write_json(out / "chip.json", state)
+            done[task.id] = outcome["rows"]
+            for row in outcome["rows"]:
+                say(describe(GateRow(**row)))
+            tick(1)
+    except Exception as exc:
+        lost = getattr(executor, "lost", lambda e: None)(exc)
+        if lost is None:
+            raise
+        raise lost from None
 
 
 def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:

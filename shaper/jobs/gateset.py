@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from shaper.errors import InputError
-from shaper.io import atomic, waveio
+from shaper.io import atomic, writers
 from shaper.physics.targets import DERIVED, plan, slug  # noqa: F401 (part of this job)
 from shaper.recipe import Recipe
 from shaper.recipe import derive as recipes
@@ -80,7 +80,7 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
     samples = rotated(recipe, samples_hz, phase_deg)
     wave, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
     folder.mkdir(parents=True, exist_ok=True)
-    files = waveio.write_waveform(folder, recipe.name, wave, recipe.system,
+    files = writers.write_waveform(folder, recipe.name, wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     playback = Playback(recipe, wave)
     played, verdict = playback.nominal, playback.verdict()

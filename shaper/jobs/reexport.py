@@ -10,7 +10,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from shaper.errors import InputError, ResultError, WaveformError
-from shaper.io import atomic, waveio
+from shaper.io import atomic, writers
 from shaper.io.runfolder import keep_replaced
 from shaper.io.writers import WRITERS
 from shaper.jobs.export import make_waveform, resample
@@ -63,7 +63,7 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     wave, clipped = make_waveform(target, samples, settings, rate)
     playback = Playback(target, wave)
     writer()
-    files = waveio.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
+    files = writers.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
                                   recipe_sha256=recipe.sha256, format=format)
     report = export_report(playback, files, original, samples, settings, rate,
                            method=method, clipped=clipped, source=run_path, recipe=recipe)

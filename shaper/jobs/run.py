@@ -15,7 +15,7 @@ import numpy as np
 
 from shaper.costs.problem import recipe_layout
 from shaper.costs.verdict import summary
-from shaper.io import atomic, waveio
+from shaper.io import atomic, waveio, writers
 from shaper.io.runfolder import prepare_folder
 from shaper.io.runlog import RunLog
 from shaper.jobs import plots
@@ -101,7 +101,7 @@ def rescue_writer(folder: Path, watchdog):
             tracker.save(best_x)
         samples = to_samples(np.asarray(best_x, float), layout)[:recipe.samples]
         waveform, _ = make_waveform(recipe, samples, recipe.export, recipe.sample_rate_hz)
-        files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+        files = writers.write_waveform(folder, recipe.name, waveform, recipe.system,
                                       recipe_name=recipe.name, recipe_sha256=recipe.sha256)
         atomic.write_json(folder / "rescue.json", {
             "stop_reason": message, "waveform": files[0].name,
@@ -132,7 +132,7 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     stage("export")
     waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
                                       recipe.sample_rate_hz)
-    files = waveio.write_waveform(folder, recipe.name, waveform, recipe.system,
+    files = writers.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     playback = Playback(recipe, waveform)
     exported = playback.nominal

@@ -21,41 +21,21 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper.errors import InputError, ResultError
-from shaper.io import atomic, waveio
+from shaper.errors import ResultError
+from shaper.io import atomic, waveio, writers
 from shaper.optimizer.objective import Objective, make_objective
 from shaper.optimizer.options import RunOptions
 from shaper.optimizer.starts import Result, optimize
 from shaper.optimizer.tracker import StartResult
-from shaper.recipe import Recipe
+from shaper.recipe import Recipe, units
 from shaper.recipe.derive import at_samples
-from shaper.recipe.units import format_quantity, parse_quantity
+from shaper.recipe.units import format_quantity
 from shaper.signal.chain import for_recipe
 
 
 def parse_durations(text: str) -> list[float]:
-    """``"6ns:30ns:2ns"`` (start:stop:step, stop included) or ``"10ns,12ns,20ns"``, in seconds.
-
-    Raises:
-        InputError: malformed, non-positive, or more than 500 points.
-    """
-    def one(part):
-        return parse_quantity(part.strip(), "time", key="--durations")
-    if ":" in text:
-        pieces = text.split(":")
-        if len(pieces) != 3:
-            raise InputError(f"--durations {text!r}: write start:stop:step, e.g. 6ns:30ns:2ns")
-        start, stop, step = (one(p) for p in pieces)
-        if step <= 0 or stop < start:
-            raise InputError(f"--durations {text!r}: needs start <= stop and a positive step")
-        values = list(np.arange(start, stop + step / 2, step))
-    else:
-        values = [one(p) for p in text.split(",") if p.strip()]
-    if not values or min(values) <= 0:
-        raise InputError(f"--durations {text!r}: durations must be positive")
-    if len(values) > 500:
-        raise InputError(f"--durations {text!r}: {len(values)} points; at most 500")
-    return sorted(values)
+    """``--durations``: :func:`shaper.recipe.units.parse_durations` naming the option."""
+    return units.parse_durations(text, key="--durations")
 
 
 def bucket(samples: int, hold: int) -> int:
@@ -178,7 +158,7 @@ class Sweep:
                            incoherent_error=budget and budget["incoherent_error"],
                            total_error=budget and budget["infidelity"])
         if not self.stop:  # an interrupted point is not finished: it is redone on resume
-            waveio.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
+            writers.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
             self.points[n] = point
             self.save()

@@ -17,10 +17,11 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from shaper.errors import RecipeError
+from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
-from shaper.physics.targets import plan, slug
+from shaper.physics.targets import gate, plan, slug
 from shaper.recipe.schema import _Reader
+from shaper.recipe.units import parse_durations
 
 CHIP_KEYS = {
     "": ("name", "description", "gates", "template", "qubit", "coupling"),
@@ -45,13 +46,31 @@ class Task:
     derived: tuple[tuple[str, float], ...]
     recipe: dict
     durations: str
+    durations_key: str = "gates.single_durations"  # where the chip file sets them
 
     @property
     def digest(self) -> str:
-        """What the task computes: a changed qubit or template changes it (and redoes it)."""
-        text = json.dumps({"recipe": self.recipe, "durations": self.durations,
-                           "derived": self.derived}, sort_keys=True)
-        return hashlib.sha256(text.encode()).hexdigest()
+        """What the task computes: a changed qubit, template or response file changes it
+        (and redoes it)."""
+        what = {"recipe": self.recipe, "durations": self.durations, "derived": self.derived}
+        files = _response_files(self.recipe)
+        if files:
+            what["files"] = files
+        return hashlib.sha256(json.dumps(what, sort_keys=True).encode()).hexdigest()
+
+
+def _response_files(recipe: dict) -> dict[str, str]:
+    """The sha256 of every measured-response file the recipe's line names (absolute)."""
+    out = {}
+    for stages in recipe.get("line", {}).values():
+        for stage in stages if isinstance(stages, list) else [stages]:
+            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
+                try:
+                    out[stage["file"]] = hashlib.sha256(Path(stage["file"]).read_bytes()
+                                                        ).hexdigest()
+                except OSError:
+                    out[stage["file"]] = "unreadable"
+    return out
 
 
 @dataclass(frozen=True)
@@ -71,6 +90,9 @@ def _check(r: _Reader, table: dict, section: str, where: str) -> None:
 def load_chip(path: str | Path) -> Chip:
     """Read and check a chip file; build (and check) every task's recipe.
 
+    Every key is checked (type, range, meaning) here, before any task runs, whether or not
+    the chip uses it (a pair gate on a chip without pairs is still refused if wrong).
+
     Raises:
         RecipeError: naming the chip file and the key.
     """
@@ -88,13 +110,82 @@ def load_chip(path: str | Path) -> Chip:
     name = raw.get("name")
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("name", f"expected {NAME_RULE}, got {str(name)[:60]!r}")
-    gates = r.table(raw, "gates", "gates")
+    gates = _gates(r, r.table(raw, "gates", "gates"))
+    template = _template(r, r.table(raw, "template", "template"))
+    specs = _qubits(r, raw)
+    pairs = _pairs(r, raw, specs)
+    tasks = _tasks(r, raw, specs, pairs, gates["single"], gates, template,
+                   raw.get("coupling", []))
+    return Chip(name=name, path=str(path), sha256=hashlib.sha256(text).hexdigest(),
+                qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks))
+
+
+DURATIONS = {"single_durations": "12ns:24ns:4ns", "pair_durations": "40ns:80ns:10ns",
+             "fixed_pair_durations": "120ns:200ns:40ns"}
+PAIR_GATES = {"pair": "CZ", "fixed_pair": "CNOT"}
+
+
+def _gates(r: _Reader, gates: dict) -> dict:
+    """``[gates]`` with its defaults, every key checked whether or not a pair uses it."""
     _check(r, gates, "gates", "gates")
-    template = r.table(raw, "template", "template")
+    single = gates.get("single", ["X", "X/2", "Y", "Y/2", "-X/2"])
+    if not isinstance(single, list) or not single or not all(isinstance(g, str)
+                                                             for g in single):
+        r.fail("gates.single", f"expected a non-empty list of one-qubit gate names, got "
+                               f"{str(single)[:60]!r}")
+    seen = set()
+    for i, label in enumerate(single):
+        _gate_name(r, label, 1, f"gates.single[{i}]")
+        if label.strip().upper() in seen:
+            r.fail(f"gates.single[{i}]", f"{label!r} is listed twice")
+        seen.add(label.strip().upper())
+    out = {"single": single}
+    for key, default in PAIR_GATES.items():
+        out[key] = gates.get(key, default)
+        _gate_name(r, out[key], 2, f"gates.{key}")
+    for key, default in DURATIONS.items():
+        out[key] = gates.get(key, default)
+        parse_durations(out[key], key=f"gates.{key}", path=r.path)
+    if "cross_resonance_rabi" in gates:
+        out["cross_resonance_rabi"] = gates["cross_resonance_rabi"]
+        r.number(gates, "cross_resonance_rabi", "gates.cross_resonance_rabi",
+                 kind="frequency", positive=True)
+    return out
+
+
+def _gate_name(r: _Reader, label, qubits: int, where: str) -> None:
+    if not isinstance(label, str):
+        r.fail(where, f"expected a gate name (text), got {str(label)[:60]!r}")
+    try:
+        gate(label, qubits=qubits)
+    except InputError as exc:
+        r.fail(where, str(exc))
+
+
+# set per qubit or per gate task by the chip, so a template may not set them
+TEMPLATE_PULSE_OWN = ("duration", "max_rabi", "max_flux", "flux_range")
+
+
+def _template(r: _Reader, template: dict) -> dict:
     _check(r, template, "template", "template")
     for key, value in template.items():
         if not isinstance(value, dict):
             r.fail(f"template.{key}", f"expected a table [template.{key}]")
+    base = Path(r.path).parent if r.path else Path.cwd()
+    for stages in template.get("line", {}).values():
+        for stage in stages if isinstance(stages, list) else [stages]:
+            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
+                # found beside the chip file, wherever the task runs (README, "Chips")
+                stage["file"] = str((base / stage["file"]).resolve())
+    for key in TEMPLATE_PULSE_OWN:
+        if key in template.get("pulse", {}):
+            r.fail(f"template.pulse.{key}", "set by the chip for each gate (the qubits' "
+                                            "max_rabi, max_flux, flux_range; [gates] "
+                                            "*_durations); remove it from the template")
+    return template
+
+
+def _qubits(r: _Reader, raw: dict) -> dict[str, dict]:
     qubits = raw.get("qubit")
     if not isinstance(qubits, list) or not qubits:
         r.fail("qubit", "expected one or more [[qubit]] tables")
@@ -110,16 +201,25 @@ def load_chip(path: str | Path) -> Chip:
         for key in ("frequency", "anharmonicity", "max_rabi"):
             if key not in q:
                 r.fail(f"{where}.{key}", f"missing required key (qubit {qname!r})")
-        if q.get("flux") and "max_flux" not in q and "flux_range" not in q:
+        tunable = r.flag(q, "flux", f"{where}.flux", False)
+        if tunable and "max_flux" not in q and "flux_range" not in q:
             r.fail(f"{where}.max_flux", f"qubit {qname!r} is tunable (flux = true) and needs "
                                         f"a flux limit: max_flux or flux_range")
+        for key in ("max_flux", "flux_range"):
+            if key in q and not tunable:
+                r.fail(f"{where}.{key}", f"qubit {qname!r} is fixed (no flux = true); only a "
+                                         f"tunable qubit has a flux limit")
         specs[qname] = q
+    return specs
+
+
+def _pairs(r: _Reader, raw: dict, specs: dict) -> list[tuple[str, str]]:
     pairs = []
-    couplings = raw.get("coupling", [])
     for where, c in r.tables(raw, "coupling", "coupling", "coupling", keys=CHIP_KEYS):
         between = c.get("between")
-        if not isinstance(between, list) or len(between) != 2:
-            r.fail(f"{where}.between", f"expected two qubit names, got {between!r}")
+        if not (isinstance(between, list) and len(between) == 2
+                and all(isinstance(nm, str) for nm in between)):
+            r.fail(f"{where}.between", f"expected two qubit names, got {str(between)[:60]!r}")
         for nm in between:
             if nm not in specs:
                 r.fail(f"{where}.between", f"no qubit named {nm!r}; qubits: "
@@ -129,15 +229,7 @@ def load_chip(path: str | Path) -> Chip:
         if "strength" not in c:
             r.fail(f"{where}.strength", "missing required key")
         pairs.append((between[0], between[1]))
-    single = gates.get("single", ["X", "X/2", "Y", "Y/2", "-X/2"])
-    if not isinstance(single, list) or not all(isinstance(g, str) for g in single):
-        r.fail("gates.single", f"expected a list of one-qubit gate names, got {single!r}")
-    for key in ("single_durations", "pair_durations"):
-        if key in gates and not isinstance(gates[key], str):
-            r.fail(f"gates.{key}", "expected durations as text, e.g. \"12ns:24ns:4ns\"")
-    tasks = _tasks(r, raw, specs, pairs, single, gates, template, couplings)
-    return Chip(name=name, path=str(path), sha256=hashlib.sha256(text).hexdigest(),
-                qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks))
+    return pairs
 
 
 # levels per transmon unless a qubit says: 4 keeps the bundled chip's gates within their
@@ -154,12 +246,25 @@ def _transmon(q: dict) -> dict:
     return out
 
 
+def _flux_probe(q: dict) -> dict:
+    """A one-transmon recipe carrying a tunable qubit's flux keys, for the recipe reader to
+    check them whether or not a pair uses the qubit."""
+    flux = f"{q['name']}_flux"
+    pulse = {"duration": "40 ns", "sample_rate": "2.4 GS/s", "max_rabi": {q["name"]: 0}}
+    for key in ("max_flux", "flux_range"):
+        if key in q:
+            pulse[key] = {flux: q[key]}
+    return {"name": "probe", "system": {"model": "transmons",
+                                        "transmon": [{**_transmon(q), "flux": True}]},
+            "gate": {"target": "I"}, "pulse": pulse}
+
+
 def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task:
     """A fixed-frequency pair: the first qubit controls, a tone at the second's frequency on
     its line (cross-resonance), the second's own drive; the frame at the second's frequency
     (README, "Two-qubit gates on fixed-frequency pairs")."""
     a, b = qa["name"], qb["name"]
-    gate = gates.get("fixed_pair", "CNOT")
+    gate = gates["fixed_pair"]
     recipe = {"name": f"{name}-{a}-{b}-{slug(gate)}",
               "system": {"model": "transmons", "frame_frequency": qb["frequency"],
                          "transmon": [_transmon(qa), _transmon(qb)],
@@ -173,7 +278,7 @@ def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task
               **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
     recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
     return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (), checked(recipe, f"coupling[{i}]"),
-                gates.get("fixed_pair_durations", "120ns:200ns:40ns"))
+                gates["fixed_pair_durations"], "gates.fixed_pair_durations")
 
 
 def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
@@ -190,7 +295,10 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
         return recipe
 
     base = {k: copy.deepcopy(v) for k, v in template.items()}
-    durations = gates.get("single_durations", "12ns:24ns:4ns")
+    for i, q in enumerate(specs.values()):  # flux keys, checked even without a pair
+        if q.get("flux"):
+            checked(_flux_probe(q), f"qubit[{i}]")
+    durations = gates["single_durations"]
     for i, (qname, q) in enumerate(specs.items()):
         for parent, derived in plan(single, 1):
             transmon = _transmon(q)
@@ -205,35 +313,41 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
                       **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
             recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
             tasks.append(Task(f"{qname}-{slug(parent)}", qname, parent, tuple(derived),
-                              checked(recipe, f"qubit[{i}]"), durations))
-    pair_gate = gates.get("pair", "CZ")
-    pair_durations = gates.get("pair_durations", "40ns:80ns:10ns")
+                              checked(recipe, f"qubit[{i}]"), durations,
+                              "gates.single_durations"))
+    pair_gate, pair_durations = gates["pair"], gates["pair_durations"]
     for i, (a, b) in enumerate(pairs):
         qa, qb = specs[a], specs[b]
         if not (qa.get("flux") or qb.get("flux")):
             tasks.append(_cross_resonance(r, name, i, qa, qb, couplings[i], gates, base,
                                           checked))
             continue
-        transmons = []
-        for q in (qa, qb):
-            t = _transmon(q)
-            if q.get("flux"):
-                t["flux"] = True
-            transmons.append(t)
-        pulse = {**base.get("pulse", {}), "duration": "40 ns",
-                 "max_rabi": {a: 0, b: 0}}  # the flux makes the gate; the drives stay off
-        pulse.setdefault("sample_rate", "2.4 GS/s")
-        for key in ("max_flux", "flux_range"):
-            values = {q["name"] + "_flux": q[key] for q in (qa, qb) if q.get("flux") and key in q}
-            if values:
-                pulse[key] = values
-        recipe = {"name": f"{name}-{a}-{b}-{slug(pair_gate)}",
-                  "system": {"model": "transmons", "transmon": transmons,
-                             "coupling": [{"between": [a, b],
-                                           "strength": couplings[i]["strength"]}]},
-                  "gate": {"target": pair_gate, "virtual_z": True}, "pulse": pulse,
-                  **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
-        tasks.append(Task(f"{a}-{b}-{slug(pair_gate)}", f"{a}-{b}", pair_gate, (),
-                          checked(recipe, f"coupling[{i}]"), pair_durations))
+        tasks.append(_flux_pair(name, i, qa, qb, couplings[i], pair_gate, pair_durations,
+                                base, checked))
     return tasks
 
+
+def _flux_pair(name, i, qa, qb, coupling, pair_gate, pair_durations, base, checked) -> Task:
+    """A pair with a tunable qubit: the gate made by the flux, the drives off."""
+    a, b = qa["name"], qb["name"]
+    transmons = []
+    for q in (qa, qb):
+        t = _transmon(q)
+        if q.get("flux"):
+            t["flux"] = True
+        transmons.append(t)
+    pulse = {**base.get("pulse", {}), "duration": "40 ns",
+             "max_rabi": {a: 0, b: 0}}  # the flux makes the gate; the drives stay off
+    pulse.setdefault("sample_rate", "2.4 GS/s")
+    for key in ("max_flux", "flux_range"):
+        values = {q["name"] + "_flux": q[key] for q in (qa, qb) if q.get("flux") and key in q}
+        if values:
+            pulse[key] = values
+    recipe = {"name": f"{name}-{a}-{b}-{slug(pair_gate)}",
+              "system": {"model": "transmons", "transmon": transmons,
+                         "coupling": [{"between": [a, b],
+                                       "strength": coupling["strength"]}]},
+              "gate": {"target": pair_gate, "virtual_z": True}, "pulse": pulse,
+              **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+    return Task(f"{a}-{b}-{slug(pair_gate)}", f"{a}-{b}", pair_gate, (),
+                checked(recipe, f"coupling[{i}]"), pair_durations, "gates.pair_durations")

@@ -19,6 +19,7 @@ from shaper.physics.transmons import SPECTRA, TransmonSpec, coupled_transmons
 from shaper.recipe.schema import KEYS, _Reader
 from shaper.recipe.units import format_quantity, parse_quantity
 
+MAX_TRANSMON_LEVELS = 64  # a transmon has a handful of bound levels; more is a typo
 MAX_COUPLING_HZ = 1e9  # above this a coupling is a unit slip
 MAX_CARRIER_OFFSET_HZ = 20e9  # a drive this far from the frame is one too
 
@@ -90,8 +91,9 @@ def _transmon(r: _Reader, t: dict) -> System:
         if key not in t:
             r.fail(f"system.{key}", "missing required key (model = \"transmon\")")
     levels = r.number(t, "levels", "system.levels", integer=True)
-    if levels < 2:
-        r.fail("system.levels", f"must be at least 2 (levels 0 and 1 are the qubit), "
+    if not 2 <= levels <= MAX_TRANSMON_LEVELS:
+        r.fail("system.levels", f"must be from 2 (levels 0 and 1 are the qubit) to "
+                                f"{MAX_TRANSMON_LEVELS} (a transmon keeps a few bound levels), "
                                 f"got {levels}")
     fq = r.number(t, "qubit_frequency", "system.qubit_frequency", kind="frequency",
                   positive=True)
@@ -119,8 +121,8 @@ def _transmons(r: _Reader, t: dict) -> System:
         if not isinstance(name, str) or not NAME.fullmatch(name):
             r.fail(f"{where}.name", f"expected {NAME_RULE}, got {str(name)[:80]!r}")
         levels = r.number(item, "levels", f"{where}.levels", integer=True)
-        if levels < 2:
-            r.fail(f"{where}.levels", f"must be at least 2, got {levels}")
+        if not 2 <= levels <= MAX_TRANSMON_LEVELS:
+            r.fail(f"{where}.levels", f"must be from 2 to {MAX_TRANSMON_LEVELS}, got {levels}")
         specs.append(TransmonSpec(
             name=name, levels=levels,
             qubit_frequency_hz=r.number(item, "qubit_frequency", f"{where}.qubit_frequency",

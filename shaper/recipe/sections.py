@@ -7,6 +7,7 @@ import numpy as np
 from shaper.errors import InputError
 from shaper.physics.systems import NAME, NAME_RULE, System
 from shaper.physics.targets import Target, gate, state_transfer
+from shaper.recipe.instrument import read_export
 from shaper.recipe.lines import read_line
 from shaper.recipe.memory import fits_in_memory
 from shaper.recipe.models import read_system
@@ -14,12 +15,8 @@ from shaper.recipe.schema import (
     DEFAULT_WEIGHTS,
     ENSEMBLE_RULES,
     GUESSES,
-    KEYS,
     LAB_FRAME,
     METHODS,
-    PADDING,
-    ExportSettings,
-    MixerSettings,
     OptimizerSettings,
     Recipe,
     VerdictSettings,
@@ -43,7 +40,7 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     pulse = _pulse(r, r.table(raw, "pulse", "pulse"), system)
     weights, detunings, scales = _cost(r, r.table(raw, "cost", "cost"), system)
     optimizer = _optimizer(r, r.table(raw, "optimizer", "optimizer"))
-    export = _export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
+    export = read_export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
                      pulse["sample_rate_hz"])
     line = read_line(r, r.table(raw, "line", "line"), [c.name for c in system.channels],
                      pulse["sample_rate_hz"])
@@ -340,77 +337,3 @@ def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
         r.fail("verdict.extra_levels", f"at most 8 levels more per transmon, got {extra}")
     return VerdictSettings(lab_frame=lab, carrier_phase_deg=phase, carrier_phases=phases,
                            extra_levels=extra)
-
-
-def _export(r: _Reader, t: dict, system: System, limits: dict[str, float],
-            rate: float) -> ExportSettings:
-    r.check_keys(t, "export")
-    channels = [c.name for c in system.channels]
-    # a channel that is not driven still has a column: give it any positive full scale
-    fallback = max(limits.values())
-    full = r.per_channel(t["full_scale"], "export.full_scale", channels) \
-        if "full_scale" in t else {c: limits[c] or fallback for c in channels}
-    for c in channels:
-        if limits[c] > full[c] * (1 + 1e-12):
-            key = "pulse.max_flux" if c.endswith("_flux") else "pulse.max_rabi"
-            r.fail(key, f"the limit {format_quantity(limits[c], 'Hz')} of channel {c} is above "
-                        f"its full scale {format_quantity(full[c], 'Hz')} (export.full_scale); "
-                        f"lower the limit or raise the full scale")
-    bits = r.number(t, "dac_bits", "export.dac_bits", 16, integer=True, minimum=2)
-    from shaper.recipe.memory import MAX_GRANULARITY
-    if r.number(t, "granularity", "export.granularity", 1, integer=True,
-                minimum=1) > MAX_GRANULARITY:
-        r.fail("export.granularity", f"must be at most {MAX_GRANULARITY} samples, got "
-                                     f"{t['granularity']!r}")
-    if_hz = r.number(t, "if_frequency", "export.if_frequency", 0.0, kind="frequency")
-    if if_hz < 0:
-        r.fail("export.if_frequency", f"must be 0 or more, got {t['if_frequency']!r}; give the "
-                                      f"IF's size and choose the side of the LO with "
-                                      f"export.sideband")
-    if "sideband" in t and not if_hz:
-        r.fail("export.sideband", "needs an IF (export.if_frequency): without one there is "
-                                  "no sideband to choose")
-    if abs(if_hz) >= rate / 2:
-        r.fail("export.if_frequency", f"must lie below the Nyquist frequency "
-                                      f"{format_quantity(rate / 2, 'Hz')} of the sample rate")
-    if bits > 32:
-        r.fail("export.dac_bits", f"must be at most 32, got {bits}")
-    return ExportSettings(
-        full_scale_hz=full, dac_bits=bits,
-        granularity=r.number(t, "granularity", "export.granularity", 1, integer=True,
-                             minimum=1),
-        padding=r.choice(t, "padding", "export.padding", PADDING, "after"),
-        clip=r.flag(t, "clip", "export.clip", False),
-        if_frequency_hz=if_hz,
-        sideband=r.choice(t, "sideband", "export.sideband", ("lower", "upper"), "lower"),
-        predistort=r.flag(t, "predistort", "export.predistort", False),
-        mixer=_mixers(r, r.table(t, "mixer", "export.mixer"), system),
-        codes=r.flag(t, "codes", "export.codes", False))
-
-
-def _mixers(r: _Reader, t: dict, system) -> dict[str, MixerSettings]:
-    """``[export.mixer.<channel>]``: the imperfections the export corrects, per I/Q channel."""
-    iq = [c.name for c in system.channels if c.kind == "iq"]
-    out = {}
-    for name, table in t.items():
-        where = f"export.mixer.{name}"
-        if name not in iq:
-            r.fail(where, f"no I/Q channel of that name; I/Q channels: {', '.join(iq)}")
-        if not isinstance(table, dict):
-            r.fail(where, f"expected a table of {', '.join(KEYS['export.mixer'])}")
-        r.check_keys(table, "export.mixer", where)
-        d = MixerSettings()
-        values = {k: r.number(table, k, f"{where}.{k}", getattr(d, k))
-                  for k in KEYS["export.mixer"]}
-        if not 0.5 <= values["gain"] <= 2.0:
-            r.fail(f"{where}.gain", f"expected the Q/I gain ratio between 0.5 and 2, got "
-                                    f"{values['gain']}")
-        if abs(values["phase_deg"]) > 30:
-            r.fail(f"{where}.phase_deg", f"expected a phase error within +-30 degrees, got "
-                                         f"{values['phase_deg']}")
-        for k in ("offset_i", "offset_q"):
-            if abs(values[k]) > 0.5:
-                r.fail(f"{where}.{k}", f"expected a DC offset within +-0.5 of full scale, got "
-                                       f"{values[k]}")
-        out[name] = MixerSettings(**values)
-    return out

@@ -136,3 +136,43 @@ def format_quantity(value: float, unit: str) -> str:
         if abs(value) >= scale * 0.9999999:
             return f"{value / scale:.6g} {prefix}{unit}"
     return f"{value:.6g} {unit}"
+
+
+MAX_DURATIONS = 500  # points of one sweep
+
+
+def parse_durations(text, *, key: str, path: str | None = None) -> list[float]:
+    """``"6ns:30ns:2ns"`` (start:stop:step, stop included) or ``"10ns,12ns,20ns"``, in
+    seconds, sorted; the count is known (and bounded) before any list is made.
+
+    Raises:
+        RecipeError: naming ``key``: not text, malformed, non-positive, or more than
+            :data:`MAX_DURATIONS` points.
+    """
+    def fail(why: str):
+        raise RecipeError(f"{str(text)[:60]!r}: {why}", path=path, key=key)
+
+    if not isinstance(text, str):
+        fail("expected durations as text, e.g. \"12ns:24ns:4ns\" or \"10ns,20ns\"")
+
+    def one(part):
+        return parse_quantity(part.strip(), "time", key=key, path=path)
+    if ":" in text:
+        pieces = text.split(":")
+        if len(pieces) != 3:
+            fail("write start:stop:step, e.g. 6ns:30ns:2ns")
+        start, stop, step = (one(p) for p in pieces)
+        if not (step > 0 and stop >= start):
+            fail("needs start <= stop and a positive step")
+        count = math.floor((stop - start) / step + 0.5) + 1
+        if count > MAX_DURATIONS:
+            fail(f"{count} points; at most {MAX_DURATIONS} (a larger step?)")
+        values = [start + k * step for k in range(count)]
+    else:
+        parts = [p for p in text.split(",") if p.strip()]
+        if len(parts) > MAX_DURATIONS:
+            fail(f"{len(parts)} points; at most {MAX_DURATIONS}")
+        values = [one(p) for p in parts]
+    if not values or min(values) <= 0:
+        fail("durations must be positive")
+    return sorted(values)
