@@ -111,7 +111,7 @@ def load_chip(path: str | Path) -> Chip:
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("name", f"expected {NAME_RULE}, got {str(name)[:60]!r}")
     gates = _gates(r, r.table(raw, "gates", "gates"))
-    template = _template(r, r.table(raw, "template", "template"))
+    template = _template(r, r.table(raw, "template", "template"), raw)
     specs = _qubits(r, raw)
     pairs = _pairs(r, raw, specs)
     tasks = _tasks(r, raw, specs, pairs, gates["single"], gates, template,
@@ -166,13 +166,27 @@ def _gate_name(r: _Reader, label, qubits: int, where: str) -> None:
 TEMPLATE_PULSE_OWN = ("duration", "max_rabi", "max_flux", "flux_range")
 
 
-def _template(r: _Reader, template: dict) -> dict:
+def _channel_names(raw: dict) -> list[str]:
+    """Every channel a task of this chip can have: each qubit's drive, flux line (tunable)
+    and cross-resonance tone (for a fixed pair)."""
+    out = []
+    for q in raw.get("qubit", []) if isinstance(raw.get("qubit"), list) else []:
+        if isinstance(q, dict) and isinstance(q.get("name"), str):
+            out += [q["name"], f"{q['name']}_flux", f"{q['name']}_cr"]
+    return out
+
+
+def _template(r: _Reader, template: dict, raw: dict) -> dict:
     _check(r, template, "template", "template")
     for key, value in template.items():
         if not isinstance(value, dict):
             r.fail(f"template.{key}", f"expected a table [template.{key}]")
     base = Path(r.path).parent if r.path else Path.cwd()
-    for stages in template.get("line", {}).values():
+    channels = _channel_names(raw)
+    for channel, stages in template.get("line", {}).items():
+        if channel != "oversample" and channel not in channels:
+            r.fail(f"template.line.{channel}", f"no channel of that name on this chip; "
+                                               f"channels: {', '.join(channels)}")
         for stage in stages if isinstance(stages, list) else [stages]:
             if isinstance(stage, dict) and isinstance(stage.get("file"), str):
                 # found beside the chip file, wherever the task runs (README, "Chips")
@@ -265,6 +279,7 @@ def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task
     (README, "Two-qubit gates on fixed-frequency pairs")."""
     a, b = qa["name"], qb["name"]
     gate = gates["fixed_pair"]
+    recipe_channels = [a, b, f"{a}_cr"]
     recipe = {"name": f"{name}-{a}-{b}-{slug(gate)}",
               "system": {"model": "transmons", "frame_frequency": qb["frequency"],
                          "transmon": [_transmon(qa), _transmon(qb)],
@@ -275,7 +290,7 @@ def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task
               "pulse": {**base.get("pulse", {}), "duration": "160 ns",
                         "max_rabi": {a: 0, b: qb["max_rabi"],
                                      f"{a}_cr": gates.get("cross_resonance_rabi", "100 MHz")}},
-              **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+              **_rest(base, recipe_channels)}
     recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
     return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (), checked(recipe, f"coupling[{i}]"),
                 gates["fixed_pair_durations"], "gates.fixed_pair_durations")
@@ -306,11 +321,12 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
                       "qubit_frequency": q["frequency"], "anharmonicity": q["anharmonicity"],
                       "qubit": qname, **{k: q[k] for k in ("t1", "t2", "spectrum",
                                                              "offset_charge") if k in q}}
+            recipe_channels = [qname]
             recipe = {"name": f"{name}-{qname}-{slug(parent)}", "system": system,
                       "gate": {"target": parent},
                       "pulse": {**base.get("pulse", {}), "duration": "20 ns",
                                 "max_rabi": q["max_rabi"]},
-                      **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+                      **_rest(base, recipe_channels)}
             recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
             tasks.append(Task(f"{qname}-{slug(parent)}", qname, parent, tuple(derived),
                               checked(recipe, f"qubit[{i}]"), durations,
@@ -330,6 +346,7 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
 def _flux_pair(name, i, qa, qb, coupling, pair_gate, pair_durations, base, checked) -> Task:
     """A pair with a tunable qubit: the gate made by the flux, the drives off."""
     a, b = qa["name"], qb["name"]
+    recipe_channels = [a, b] + [f"{q['name']}_flux" for q in (qa, qb) if q.get("flux")]
     transmons = []
     for q in (qa, qb):
         t = _transmon(q)
@@ -348,6 +365,18 @@ def _flux_pair(name, i, qa, qb, coupling, pair_gate, pair_durations, base, check
                          "coupling": [{"between": [a, b],
                                        "strength": coupling["strength"]}]},
               "gate": {"target": pair_gate, "virtual_z": True}, "pulse": pulse,
-              **{k: copy.deepcopy(v) for k, v in base.items() if k != "pulse"}}
+              **_rest(base, recipe_channels)}
     return Task(f"{a}-{b}-{slug(pair_gate)}", f"{a}-{b}", pair_gate, (),
                 checked(recipe, f"coupling[{i}]"), pair_durations, "gates.pair_durations")
+
+
+def _rest(base: dict, channels: list[str]) -> dict:
+    """The template's tables besides [pulse] for one task: a [template.line.<channel>]
+    applies to the tasks whose system has that channel (a qubit's drive ``q``, its flux
+    line ``q_flux``, a cross-resonance tone ``q_cr``)."""
+    out = {k: copy.deepcopy(v) for k, v in base.items() if k not in ("pulse", "line")}
+    line = {k: copy.deepcopy(v) for k, v in base.get("line", {}).items()
+            if k == "oversample" or k in channels}
+    if any(k != "oversample" for k in line):
+        out["line"] = line
+    return out

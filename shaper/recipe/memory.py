@@ -34,10 +34,11 @@ def available_memory() -> int:
     return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
 
 
-def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
-                   export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
-    """Refuse, before anything is allocated, a problem that cannot fit in this machine,
-    naming the key that makes it big.
+def need_bytes(system: System, samples: int, sample_rate_hz: float, members: int,
+               export: ExportSettings, oversample: int = 1,
+               lab_phases: int = 0) -> tuple[int, int, dict[str, int]]:
+    """What one value-and-gradient of the optimiser holds at once: ``(bytes, slices,
+    sub-steps per sample by cause)``.
 
     The optimiser's slices are the exported samples (padding included) times the finest
     sub-steps any part of the chain needs: the line's ``oversample``, the IF, and every
@@ -46,27 +47,46 @@ def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
     """
     from shaper.physics.grid import carrier_substeps, substeps
 
-    n, g, period = pulse["samples"], export.granularity, 1 / pulse["sample_rate_hz"]
-    exported = -(-n // g) * g
-    if exported > MAX_EXPORT_SAMPLES:
-        r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
-                                     f"{exported} samples, more than any AWG memory "
-                                     f"({MAX_EXPORT_SAMPLES}); check the granularity")
+    period = 1 / sample_rate_hz
+    exported = -(-samples // export.granularity) * export.granularity
     causes = {"line.oversample": oversample,
               "export.if_frequency": substeps(export.if_frequency_hz, period),
               "system.drive": max([carrier_substeps(c.offset_hz, period)
                                    for c in system.channels] + [1])}
-    steps = max(causes.values())
-    d = system.dimension
-    slices = exported * steps
+    slices = exported * max(causes.values())
     if lab_phases:
         from shaper.physics.labframe import POINTS_PER_CYCLE, lab_terms
         fastest = lab_terms(system).fastest_hz(abs(export.if_frequency_hz))
         slices = lab_phases * 2 * max(slices, math.ceil(exported * period * fastest
                                                         * POINTS_PER_CYCLE))
-    need = (members + 1) * slices * d * d * BYTES_PER_ENTRY
+    d = system.dimension
+    return (members + 1) * slices * d * d * BYTES_PER_ENTRY, slices, causes
+
+
+def estimate(recipe) -> int:
+    """:func:`need_bytes` of a loaded recipe (bytes)."""
+    line = recipe.line
+    return need_bytes(recipe.system, recipe.samples, recipe.sample_rate_hz,
+                      len(recipe.ensemble_scales), recipe.export,
+                      line.oversample if line.active and not recipe.export.predistort else 1,
+                      len(recipe.verdict.phases_rad()) if recipe.optimizer.lab_frame else 0)[0]
+
+
+def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
+                   export: ExportSettings, oversample: int = 1, lab_phases: int = 0) -> None:
+    """Refuse, before anything is allocated, a problem that cannot fit in this machine,
+    naming the key that makes it big (:func:`need_bytes` says what is counted)."""
+    n, g = pulse["samples"], export.granularity
+    exported = -(-n // g) * g
+    if exported > MAX_EXPORT_SAMPLES:
+        r.fail("export.granularity", f"padding {n} samples to a multiple of {g} gives "
+                                     f"{exported} samples, more than any AWG memory "
+                                     f"({MAX_EXPORT_SAMPLES}); check the granularity")
+    need, slices, causes = need_bytes(system, n, pulse["sample_rate_hz"], members, export,
+                                      oversample, lab_phases)
     have = available_memory()
     if need > 0.8 * have:
+        d, steps = system.dimension, max(causes.values())
         # the factor furthest above what a typical recipe has names the key to change
         typical = {"system.levels": (d * d / 64, "fewer levels"),
                    "pulse.duration": (n / 2000, "a shorter pulse or a lower sample rate"),

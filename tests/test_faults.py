@@ -1,0 +1,225 @@
+"""Machine faults during long commands (README, "Commands": exit 3 is the machine's part):
+a full disk during chip and sweep, Ctrl-C to a chip from a terminal, three runs at once,
+and the up-front memory estimate against a measured peak. Each case says what exit code
+it must give and which files must survive, then shows that --resume completes."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from helpers import demo_text
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def chip_text(qubits: int, iterations: int = 60) -> str:
+    text = f"""name = "faults"
+[gates]
+single = ["X", "X/2"]
+single_durations = "10ns,14ns,18ns"
+[template.optimizer]
+max_iterations = {iterations}
+target_infidelity = 1e-12
+"""
+    for i in range(qubits):
+        text += f"""
+[[qubit]]
+name = "q{i}"
+frequency = "{5.0 + 0.1 * i:.2f} GHz"
+anharmonicity = "-220 MHz"
+max_rabi = "60 MHz"
+levels = 3
+"""
+    return text
+
+
+def shaper(*args, **kwargs) -> subprocess.Popen:
+    return subprocess.Popen([sys.executable, "-m", "shaper", *map(str, args)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            **kwargs)
+
+
+def finished_tasks(folder: Path) -> int:
+    try:
+        return len(json.loads((folder / "chip.json").read_text())["tasks"])
+    except (OSError, ValueError, KeyError):
+        return 0
+
+
+def wait_for(condition, timeout_s: float, proc: subprocess.Popen) -> None:
+    deadline = time.monotonic() + timeout_s
+    while not condition():
+        assert proc.poll() is None, proc.communicate()
+        assert time.monotonic() < deadline, "the run never got there"
+        time.sleep(0.2)
+
+
+@pytest.fixture
+def small_disk(tmp_path):
+    """A real small filesystem (tmpfs): the suite runs as root in CI; elsewhere skipped."""
+    mount = tmp_path / "disk"
+    mount.mkdir()
+    if os.geteuid() != 0 or subprocess.run(["mount", "-t", "tmpfs", "-o", "size=64m", "tmpfs",
+                                            str(mount)], capture_output=True).returncode:
+        pytest.skip("mounting a tmpfs needs root (CI runs as root)")
+    yield mount
+    subprocess.run(["umount", "-l", str(mount)], capture_output=True)
+
+
+def fill(mount: Path) -> Path:
+    """Fill the filesystem to the last byte: every later write fails with ENOSPC."""
+    filler = mount / "filler"
+    fd = os.open(filler, os.O_WRONLY | os.O_CREAT)
+    try:
+        for size in (1 << 20, 65536, 4096, 1):
+            try:
+                while True:
+                    os.write(fd, b"\0" * size)
+            except OSError:
+                pass
+    finally:
+        os.close(fd)
+    return filler
+
+
+def test_a_full_disk_during_chip_loses_no_finished_gate(tmp_path, small_disk):
+    chip = tmp_path / "chip.toml"
+    chip.write_text(chip_text(4))
+    out = small_disk / "run"
+    proc = shaper("chip", chip, "--out", out, "--workers", 1, "--quiet")
+    wait_for(lambda: finished_tasks(out) >= 1, 300, proc)
+    filler = fill(small_disk)
+    kept = json.loads((out / "chip.json").read_text())["tasks"]
+    _, err = proc.communicate(timeout=300)
+    assert proc.returncode == 3, err
+    last = err.strip().splitlines()[-1]
+    assert "No space left on device" in last and "Traceback" not in err, err
+    # chip.json is whole (atomic writes) and holds at least what had finished
+    state = json.loads((out / "chip.json").read_text())
+    assert set(kept) <= set(state["tasks"])
+    filler.unlink()
+    done = shaper("chip", chip, "--out", out, "--workers", 1, "--quiet", "--resume")
+    _, err = done.communicate(timeout=600)
+    assert done.returncode == 1, err  # targets of 1e-12: not met, but every gate done
+    assert f"{len(state['tasks'])} finished earlier and kept" in err
+    assert finished_tasks(out) == 8 and (out / "chip.csv").exists()
+
+
+def test_a_full_disk_during_sweep_loses_no_finished_point(tmp_path, small_disk):
+    recipe = tmp_path / "sweep.toml"
+    recipe.write_text(demo_text("sweep") + "\n[optimizer]\nmax_iterations = 60\n"
+                      "target_infidelity = 1e-12\n")
+    out = small_disk / "sweep"
+    proc = shaper("sweep", recipe, "--durations", "6ns:30ns:2ns", "--out", out, "--quiet",
+                  "--no-plots", "--workers", 1)
+
+    def points() -> list:
+        try:
+            return json.loads((out / "sweep.json").read_text())["points"]
+        except (OSError, ValueError, KeyError):
+            return []
+    wait_for(lambda: len(points()) >= 2, 300, proc)
+    filler = fill(small_disk)
+    _, err = proc.communicate(timeout=300)
+    assert proc.returncode == 3, err
+    assert "No space left on device" in err.strip().splitlines()[-1], err
+    kept = points()
+    assert len(kept) >= 2
+    filler.unlink()
+    done = shaper("sweep", recipe, "--durations", "6ns:30ns:2ns", "--out", out, "--quiet",
+                  "--no-plots", "--workers", 1, "--resume")
+    _, err = done.communicate(timeout=600)
+    assert done.returncode in (0, 1) and "Traceback" not in err, err
+    final = points()
+    assert len(final) == 13
+    for point in kept:  # the finished points are kept as they were, not recomputed
+        assert point in final
+
+
+def test_ctrl_c_to_a_chip_keeps_finished_gates_and_resume_completes(tmp_path):
+    # a terminal's Ctrl-C reaches the whole foreground process group: the command and its
+    # worker processes (here: a new session, signalled as a group)
+    chip = tmp_path / "chip.toml"
+    chip.write_text(chip_text(6))
+    out = tmp_path / "run"
+    proc = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet",
+                  start_new_session=True)
+    wait_for(lambda: finished_tasks(out) >= 1, 300, proc)
+    os.killpg(proc.pid, signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err and err.strip().splitlines()[-1].endswith("interrupted"), err
+    kept = finished_tasks(out)
+    assert kept >= 1
+    done = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet", "--resume")
+    _, err = done.communicate(timeout=600)
+    assert done.returncode == 1, err
+    assert f"{kept} finished earlier and kept" in err and finished_tasks(out) == 12
+
+
+def test_three_runs_at_once_into_different_folders(tmp_path):
+    recipe = tmp_path / "demo.toml"
+    recipe.write_text(demo_text("demo") + "\n[optimizer]\nmax_iterations = 200\n")
+    procs = [shaper("optimize", recipe, "--out", tmp_path / f"run{i}", "--quiet",
+                    "--no-plots") for i in range(3)]
+    results = [p.communicate(timeout=600) for p in procs]
+    assert [p.returncode for p in procs] == [0, 0, 0], results
+    # the same seed and recipe: the same pulse, whatever else ran beside it
+    files = [(tmp_path / f"run{i}" / "demo.csv").read_bytes() for i in range(3)]
+    assert files[0] == files[1] == files[2]
+    # and a second run into a folder in use is refused at once
+    first = shaper("optimize", recipe, "--out", tmp_path / "busy", "--quiet", "--no-plots")
+    time.sleep(0.5)
+    second = shaper("optimize", recipe, "--out", tmp_path / "busy", "--quiet", "--no-plots",
+                    "--force")
+    _, err = second.communicate(timeout=120)
+    first.communicate(timeout=600)
+    assert second.returncode == 2 and "in use" in err, err
+
+
+def test_the_memory_estimate_bounds_the_measured_peak(tmp_path):
+    # a problem the estimate puts near 1 GiB: two 5-level transmons (d = 25), an ensemble of
+    # 9 and 1600 slices; the optimiser's peak (maximum resident set of the process, less
+    # what the same process holds before it optimises) must stay below the estimate, and
+    # the estimate within 8x of it (so it refuses only what would not fit); measured here:
+    # 2.8 GB estimated, 0.95 GB peak
+    from shaper.recipe import load_recipe
+    from shaper.recipe.memory import estimate
+
+    text = (ROOT / "recipes" / "cz-flux.toml").read_text()
+    path = tmp_path / "big.toml"
+    path.write_text(text.replace("levels = 4", "levels = 5") + "\n")
+    raw = load_recipe(path).raw
+    raw = {**raw, "pulse": {**raw["pulse"], "duration": "400 ns", "sample_rate": "4 GS/s",
+                            "zero_ends": False},
+           "cost": {**raw.get("cost", {}), "ensemble_scales": [0.98, 0.99, 1.0, 1.01, 1.02],
+                    "ensemble_detunings": ["-1 MHz", "1 MHz"]}}
+    recipe = load_recipe(raw)
+    need = estimate(recipe)
+    script = tmp_path / "peak.py"
+    script.write_text(f"""
+import resource, sys, json
+from shaper.recipe import load_recipe
+from shaper.optimizer.objective import make_objective
+import jax, numpy as np
+recipe = load_recipe(json.loads({json.dumps(json.dumps(raw))}))
+objective = make_objective(recipe)
+x = np.zeros(objective.layout.shape)
+objective.problem  # built
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+jax.block_until_ready(objective.value_and_grad(x, objective.problem, objective.weights))
+after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+print(after - before)
+""")
+    proc = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                          timeout=600)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    peak = int(proc.stdout.strip().splitlines()[-1])
+    assert need / 8 < peak < need, (need, peak)
