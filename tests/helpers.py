@@ -152,3 +152,12 @@ def duffing_lab(levels, qubit_hz, alpha_hz):
     a = np.diag(np.sqrt(np.arange(1, levels)), 1).astype(complex)
     return np.diag(qubit_hz * n + 0.5 * alpha_hz * n * (n - 1)).astype(complex), \
         a + a.conj().T, n
+
+
+def verdict_code(report) -> int:
+    """The exit code a finished command must give for its report (README, "Commands"): 0
+    when the report says the targets are met, 1 when it says they are not."""
+    import json
+
+    data = json.loads(Path(report).read_text())
+    return 0 if data["targets"]["met"] else 1

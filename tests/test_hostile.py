@@ -13,7 +13,7 @@ import time
 from pathlib import Path
 
 import pytest
-from helpers import demo_text
+from helpers import demo_text, verdict_code
 from helpers import run_cli as cli
 
 from shaper.errors import RecipeError
@@ -211,7 +211,7 @@ def run_folder(tmp_path_factory):
     recipe = folder.parent / "demo.toml"
     recipe.write_text(demo_text("demo") + "\n[optimizer]\nmax_iterations = 60\n")
     code, _, err = cli("optimize", recipe, "--out", folder, "--quiet", "--no-plots")
-    assert code in (0, 1) and (folder / "report.json").exists(), err
+    assert code == verdict_code(folder / "report.json"), err
     return folder
 
 
@@ -250,7 +250,7 @@ def test_export_never_replaces_a_run_waveform_silently(run_folder, tmp_path):
     # with --force: the run's waveform is kept, and its report follows it
     code, out, err = cli("export", folder, "--out", folder, "--sample-rate", "1.2GS/s",
                          "--force")
-    assert code in (0, 1) and "Traceback" not in err, err
+    assert code == verdict_code(folder / "export.json") and "Traceback" not in err, err
     report = json.loads((folder / "report.json").read_text())
     assert report["waveform"] == "demo.replaced-1.csv"
     assert (folder / "demo.replaced-1.csv").read_bytes() == before["demo.csv"]
@@ -258,7 +258,8 @@ def test_export_never_replaces_a_run_waveform_silently(run_folder, tmp_path):
     assert json.loads((folder / "export.json").read_text())["sample_rate_hz"] == 1.2e9
     # the kept run is still a run: export reads it back from its report
     code, _, err = cli("export", folder, "--out", tmp_path / "again")
-    assert code in (0, 1) and (tmp_path / "again" / "demo.csv").exists(), err
+    assert code == verdict_code(tmp_path / "again" / "export.json"), err
+    assert (tmp_path / "again" / "demo.csv").exists()
     # a second forced export keeps the first export too, under the next number
     code, _, err = cli("export", folder, "--out", folder, "--force")
     assert (folder / "demo.replaced-2.csv").exists() and (folder / "export.replaced-2.json"
@@ -276,7 +277,7 @@ def test_optimize_force_keeps_the_earlier_run(run_folder, tmp_path):
     code, _, err = cli("optimize", recipe, "--out", folder, "--quiet", "--no-plots")
     assert code == 2 and "--force" in err
     code, _, err = cli("optimize", recipe, "--out", folder, "--quiet", "--no-plots", "--force")
-    assert code in (0, 1), err
+    assert code == verdict_code(folder / "report.json"), err
     assert (folder / "demo.replaced-1.csv").read_bytes() == old
     kept = json.loads((folder / "report.replaced-1.json").read_text())
     assert kept["waveform"] == "demo.replaced-1.csv"

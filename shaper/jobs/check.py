@@ -10,6 +10,9 @@ scale error.
 
 from __future__ import annotations
 
+import hashlib
+import pickle
+
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -21,33 +24,45 @@ from shaper.jobs.playback import Playback
 from shaper.physics._jax import device
 from shaper.recipe import Recipe
 from shaper.recipe.derive import with_levels
-from shaper.signal.chain import for_waveform
 
 
-def _sensitivity(recipe: Recipe, wave: Waveform, detunings: np.ndarray,
-                 scales: np.ndarray) -> dict:
-    qubits = qubit_count(recipe)
-    samples = wave.to_hz(recipe.system)
-    chain = for_waveform(recipe, wave)
-    problem = waveform_problem(recipe, samples.shape[0], steps=chain.steps, dt=chain.period_s)
-    flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
-                 drive=None if chain.identity else chain)
-    x = device(samples, float)
-
-    def infidelity(delta, scale):
-        drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
-        return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
-
-    vs_detuning = jax.jit(jax.vmap(lambda d: infidelity(d, 1.0)))(device(detunings, float))
-    vs_scale = jax.jit(jax.vmap(lambda s: infidelity(0.0, s)))(device(scales, float))
-    # three programs, one eigendecomposition each (DEVELOPERS.md): never op by op
-    slope_d, slope_s = jax.jit(jax.grad(infidelity, argnums=(0, 1)))(0.0, 1.0)
+def _sensitivity(playback: Playback, detunings: np.ndarray, scales: np.ndarray) -> dict:
+    recipe, chain = playback.recipe, playback.chain
+    problem = waveform_problem(recipe, playback.samples.shape[0], steps=chain.steps,
+                               dt=chain.period_s)
+    flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
+                 virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
+    vs_detuning, vs_scale, slopes = _programs(flags)
+    x = device(playback.samples, float)
+    curve_d = vs_detuning(x, problem, device(detunings, float))
+    curve_s = vs_scale(x, problem, device(scales, float))
+    slope_d, slope_s = slopes(x, problem)
     return {"detuning_hz": detunings.tolist(),
-            "infidelity_vs_detuning": np.asarray(vs_detuning).tolist(),
+            "infidelity_vs_detuning": np.asarray(curve_d).tolist(),
             "amplitude_scale": scales.tolist(),
-            "infidelity_vs_scale": np.asarray(vs_scale).tolist(),
+            "infidelity_vs_scale": np.asarray(curve_s).tolist(),
             "d_infidelity_d_detuning_per_mhz": float(slope_d) * 1e6,
             "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
+
+
+_PROGRAMS: dict[str, tuple] = {}
+
+
+def _programs(flags: dict) -> tuple:
+    """The three jitted programs of the sensitivity (one eigendecomposition each,
+    DEVELOPERS.md: never op by op), built once per process for these flags (keyed by an
+    exact digest of them, as :func:`shaper.jobs.playback._members_program`)."""
+    key = hashlib.sha256(pickle.dumps(flags)).hexdigest()
+    if key not in _PROGRAMS:
+        def infidelity(x, problem, delta, scale):
+            drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
+            return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
+
+        _PROGRAMS[key] = (
+            jax.jit(lambda x, p, d: jax.vmap(lambda di: infidelity(x, p, di, 1.0))(d)),
+            jax.jit(lambda x, p, s: jax.vmap(lambda si: infidelity(x, p, 0.0, si))(s)),
+            jax.jit(lambda x, p: jax.grad(infidelity, argnums=(2, 3))(x, p, 0.0, 1.0)))
+    return _PROGRAMS[key]
 
 
 def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
@@ -82,7 +97,7 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
     outside = np.ones(system.dimension, bool)
     outside[system.computational] = False
     worst_outside = float(sim.populations[:, :, outside].max()) if outside.any() else 0.0
-    sens = _sensitivity(recipe, wave,
+    sens = _sensitivity(playback,
                         np.linspace(-detuning_span_hz, detuning_span_hz, points),
                         np.linspace(1 - scale_span, 1 + scale_span, points))
     o = recipe.optimizer
