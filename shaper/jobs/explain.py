@@ -1,0 +1,195 @@
+"""Why a result missed its targets and what to try next, read from its report.
+
+One explanation layer for every command that judges a file (optimize, export, check, sweep,
+gate sets, chips): :func:`explain` reads the figures a report already holds (the
+optimiser's own, the exported file's in the optimiser's model, with more levels, in the lab
+frame, every ensemble member, the run's own rate against an export's) and names the first
+place, in that order, where the targets were lost, with the concrete next step: a command
+or a recipe key (README, "When a result misses its targets"). Nothing is simulated here.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+BUDGET_STOPS = ("iteration limit", "time limit")
+
+
+class Reason(NamedTuple):
+    cause: str  # a short name: budget, converged above the target, ensemble spread, ...
+    why: str  # one sentence from the run's own numbers
+    next: str  # what to run or change
+
+    def line(self) -> str:
+        return f"why: {self.why}. next: {self.next}"
+
+
+def explain(report: dict, *, recipe: str = "RECIPE") -> list[Reason]:
+    """The reasons a report's targets were missed (empty when met), first cause first.
+
+    ``recipe``: how to name the recipe in a suggested command (its path).
+    """
+    targets = report.get("targets") or {}
+    if targets.get("met", True):
+        return []
+    limits = (targets.get("infidelity", 1.0), targets.get("leakage", 1.0))
+    out = []
+    if "at_run_rate" in report:  # an export: lost between the run and the new file?
+        out += _export_reasons(report, limits, recipe)
+        if out:
+            return out
+    own = report.get("before_quantisation")
+    optimizer = report.get("optimizer")
+    if own is not None and optimizer is not None and _over(own, limits):
+        return [_optimiser_reason(report, own, optimizer, limits, recipe)]
+    trust = report.get("trust") or {}
+    rotating = trust.get("rotating_frame") or _figures(report)
+    if _over(rotating, limits):
+        members = _ensemble_reason(report, limits, recipe)
+        if members is not None and not _over(_figures(report), limits):
+            return [members]
+        if own is not None and not _over(own, limits):
+            return [Reason("quantisation",
+                           f"the optimiser's samples reach {_pair(own)} but the exported "
+                           f"file reaches {_pair(rotating)}",
+                           "more DAC bits (export.dac_bits), or check export.granularity "
+                           "padding")]
+        return [Reason("the file misses in the optimiser's own model",
+                       f"the file reaches {_pair(rotating)} in the optimiser's model",
+                       f"optimise again (shaper optimize {recipe}) or check the file with "
+                       f"shaper check {recipe} FILE")]
+    more = trust.get("more_levels")
+    if more and _over(more, limits):
+        levels = more.get("levels", [])
+        kept = (trust.get("rotating_frame") or {}).get("levels", [])
+        return [Reason("levels",
+                       f"with {_levels(levels)} levels the same file reaches {_pair(more)} "
+                       f"(with {_levels(kept)}: {_pair(rotating)}): the pulse leans on "
+                       f"levels the model truncates",
+                       f"keep more levels ({_levels_key(report)} = {max(levels or [2])}) "
+                       f"and optimise again")]
+    lab = trust.get("lab_frame")
+    if lab and _over(lab, limits):
+        return [Reason("lab frame",
+                       f"with the drive's counter-rotating terms (lab frame, worst carrier "
+                       f"phase) the file reaches {_pair(lab)}, in the rotating frame "
+                       f"{_pair(more or rotating)}",
+                       f"a longer pulse (the error falls with duration: shaper sweep "
+                       f"{recipe} --durations {_longer(report)}), or optimise in the lab frame "
+                       f"(optimizer.lab_frame = true)")]
+    members = _ensemble_reason(report, limits, recipe)
+    if members is not None:
+        return [members]
+    return [Reason("other", "the judged figures miss the targets ("
+                   + ", ".join(f"{m['name']} {m['value']:.2e} > {m['limit']:.2e}"
+                               for m in targets.get("missed", [])) + ")",
+                   f"shaper check {recipe} FILE --plots DIR shows where")]
+
+
+def _optimiser_reason(report, own, optimizer, limits, recipe) -> Reason:
+    """The optimiser itself did not get there: its budget, or where it converged."""
+    stop = optimizer.get("stop_reason", "")
+    iterations = optimizer.get("iterations", 0)
+    if stop in BUDGET_STOPS:
+        unit = "--iterations" if stop == "iteration limit" else "--hours"
+        return Reason("budget",
+                      f"the optimiser stopped at its {stop} after {iterations} iterations, "
+                      f"at {_pair(own)}",
+                      f"a larger budget: shaper optimize {recipe} {unit} ... (or "
+                      f"optimizer.max_iterations / max_time)")
+    members = _ensemble_reason(report, limits, recipe)
+    if members is not None and not _over(_nominal(report), limits):
+        return members
+    starts = len(optimizer.get("starts") or []) or 1
+    return Reason("converged above the target",
+                  f"the optimiser stopped ({stop}) at {_pair(own)} after {iterations} "
+                  f"iterations from {starts} start(s): the targets may be out of reach at "
+                  f"{_duration(report)}",
+                  f"a longer pulse (shaper sweep {recipe} --durations {_longer(report)} "
+                  f"finds the shortest that passes), more starts (--starts 4), or looser "
+                  f"targets")
+
+
+def _ensemble_reason(report, limits, recipe) -> Reason | None:
+    ensemble = report.get("ensemble")
+    if not ensemble:
+        return None
+    worst = {"infidelity": max(ensemble["infidelity"]), "leakage": max(ensemble["leakage"])}
+    if not _over(worst, limits):
+        return None
+    rule = (report.get("targets") or {}).get("ensemble_targets") or "every"
+    mean = {"infidelity": sum(ensemble["infidelity"]) / len(ensemble["infidelity"]),
+            "leakage": sum(ensemble["leakage"]) / len(ensemble["leakage"])}
+    hint = "" if rule == "mean" or _over(mean, limits) else \
+        " or judge the members' mean (optimizer.ensemble_targets = \"mean\", met here)"
+    return Reason("ensemble spread",
+                  f"the worst ensemble member reaches {_pair(worst)} at {_duration(report)} "
+                  f"(nominal {_pair(_nominal(report))})",
+                  f"a longer pulse (shaper sweep {recipe} --durations {_longer(report)}), "
+                  f"a narrower ensemble (cost.ensemble_detunings / ensemble_scales){hint}")
+
+
+def _export_reasons(report, limits, recipe) -> list[Reason]:
+    """An export that misses where its run met: the resampling or the new instrument."""
+    run, new = report["at_run_rate"], _figures(report)
+    if _over(run, limits) or not _over((report.get("trust") or {}).get("rotating_frame")
+                                       or new, limits):
+        return []
+    if report.get("resampling", "none") != "none" and not report["resampling"].startswith(
+            "hold"):
+        rate = report.get("sample_rate_hz", 0)
+        return [Reason("resampling",
+                       f"the run meets the targets at its own rate ({_pair(run)}); resampled "
+                       f"({report['resampling']}) to {rate / 1e9:g} GS/s it reaches "
+                       f"{_pair(new)}",
+                       f"optimise at that rate, starting from this file: in a copy of "
+                       f"{recipe}, pulse.sample_rate = \"{rate / 1e9:g} GS/s\" and "
+                       f"optimizer.initial = the new {report.get('waveform', 'waveform')} "
+                       f"(its path), then shaper optimize")]
+    return [Reason("the new instrument",
+                   f"the run meets the targets ({_pair(run)}); the new file reaches "
+                   f"{_pair(new)} ({report.get('dac_bits')}-bit, IF "
+                   f"{report.get('if_frequency_hz', 0) / 1e6:g} MHz)",
+                   "more DAC bits (--bits), or optimise with the instrument's settings in "
+                   "the recipe's [export]")]
+
+
+def _figures(report: dict) -> dict:
+    return {"infidelity": report.get("infidelity", 0.0), "leakage": report.get("leakage", 0.0)}
+
+
+def _nominal(report: dict) -> dict:
+    return report.get("before_quantisation") or _figures(report)
+
+
+def _over(fig: dict | None, limits) -> bool:
+    return bool(fig) and (fig["infidelity"] > limits[0] or fig["leakage"] > limits[1])
+
+
+def _pair(fig: dict) -> str:
+    return f"infidelity {fig['infidelity']:.2e}, leakage {fig['leakage']:.2e}"
+
+
+def _levels(levels) -> str:
+    return "x".join(str(n) for n in levels) or "?"
+
+
+def _levels_key(report: dict) -> str:
+    system = ((report.get("recipe") or {}).get("content") or {}).get("system") or {}
+    return "levels on every [[system.transmon]]" if system.get("model") == "transmons" \
+        else "system.levels"
+
+
+def _longer(report: dict) -> str:
+    """A sweep from this duration to twice it, in whole nanoseconds."""
+    seconds = report.get("duration_s")
+    if not seconds:
+        return "START:STOP:STEP"
+    start = max(1, round(seconds * 1e9))
+    step = max(1, round(start / 4))
+    return f"{start}ns:{2 * start}ns:{step}ns"
+
+
+def _duration(report: dict) -> str:
+    seconds = report.get("duration_s")
+    return f"{seconds * 1e9:.3g} ns" if seconds else "this duration"

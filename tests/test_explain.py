@@ -1,0 +1,121 @@
+"""The morning after: every miss says why, from the run's own numbers, and what to run next
+(README, "When a result misses its targets"). Each cause is produced by a real run (or a
+bundled result) and read back from the report and from the command's last lines."""
+
+from __future__ import annotations
+
+import copy
+import json
+from pathlib import Path
+
+import pytest
+from helpers import demo_text, verdict_code
+from helpers import run_cli as cli
+
+from shaper.jobs.explain import explain
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def bundled(name: str) -> dict:
+    return json.loads((ROOT / "results" / name / "report.json").read_text())
+
+
+def test_a_met_target_needs_no_explanation():
+    assert explain(bundled("demo-x180")) == []
+
+
+def test_the_lab_frame_is_named_where_the_rotating_frame_passes():
+    # results/short-x180: 5.7e-8 in the rotating frame with 7 levels, 5.1e-5 in the lab frame
+    report = bundled("short-x180")
+    (reason,) = explain(report, recipe="recipes/short-x180.toml")
+    assert reason.cause == "lab frame"
+    assert "5.12e-05" in reason.why and "optimizer.lab_frame = true" in reason.next
+    assert "shaper sweep recipes/short-x180.toml --durations" in reason.next
+
+
+def test_truncated_levels_are_named_with_the_key_to_change():
+    # results/cz-line: 2.8e-5 on 4x4 levels, 6.8e-3 on 6x6
+    (reason,) = explain(bundled("cz-line"))
+    assert reason.cause == "levels"
+    assert "6x6" in reason.why and "levels on every [[system.transmon]] = 6" in reason.next
+
+
+def write_demo(tmp_path: Path, extra: str = "", duration: str = "20 ns") -> Path:
+    path = tmp_path / "demo.toml"
+    path.write_text(demo_text("demo").replace('"20 ns"', f'"{duration}"') + extra)
+    return path
+
+
+def last_lines(out: str) -> str:
+    return "\n".join(out.strip().splitlines()[-4:])
+
+
+def test_a_spent_budget_says_so_and_how_to_give_more(tmp_path):
+    recipe = write_demo(tmp_path)
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
+                         "--no-plots", "--iterations", 3)
+    report = json.loads((tmp_path / "run" / "report.json").read_text())
+    assert code == 1 == verdict_code(tmp_path / "run" / "report.json"), err
+    assert report["explanation"][0]["cause"] == "budget"
+    tail = last_lines(out)
+    assert "why: the optimiser stopped at its iteration limit after 3 iterations" in tail
+    assert f"next: a larger budget: shaper optimize {recipe} --iterations" in tail
+
+
+def test_a_target_out_of_reach_at_that_duration_suggests_a_sweep(tmp_path):
+    # 6 ns at a 60 MHz limit cannot make a pi pulse (its area needs 8.3 ns at full drive:
+    # the Rabi formula, theta = 2 pi Omega t)
+    recipe = write_demo(tmp_path, "\n[optimizer]\nstall_iterations = 20\n", duration="6 ns")
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
+                         "--no-plots")
+    assert code == 1, err
+    (reason,) = [type("R", (), r) for r in
+                 json.loads((tmp_path / "run" / "report.json").read_text())["explanation"]]
+    assert reason.cause == "converged above the target"
+    assert "out of reach at 6 ns" in reason.why
+    assert f"shaper sweep {recipe} --durations 6ns:12ns:2ns" in reason.next
+    assert "why: the optimiser stopped" in last_lines(out)
+
+
+def test_an_ensemble_that_spreads_past_the_target_is_named():
+    # the demo's real report, given the worst member a real run of the +-0.5 MHz ensemble
+    # at 24 ns reached (README, "When a result misses its targets"): nominal met, members not
+    report = copy.deepcopy(bundled("demo-x180"))
+    report["ensemble"] = {"detuning_hz": [-5e5, 5e5], "amplitude_scale": [1.0, 1.0],
+                          "infidelity": [3.1e-6, 2.9e-6], "leakage": [4e-8, 4e-8]}
+    report["targets"]["met"] = False
+    report["trust"]["lab_frame"]["infidelity"] = 3.1e-6
+    (reason,) = explain(report)
+    assert reason.cause == "ensemble spread"
+    assert "worst ensemble member reaches infidelity 3.10e-06" in reason.why
+    assert 'optimizer.ensemble_targets = "mean", met here' in reason.next
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("explain")
+    recipe = write_demo(folder)
+    code, _, err = cli("optimize", recipe, "--out", folder / "run", "--quiet", "--no-plots")
+    assert code == 0, err
+    return folder / "run"
+
+
+def test_an_export_lost_in_resampling_says_optimise_at_that_rate(demo_run, tmp_path):
+    # 2.4 GS/s -> 1.1 GS/s is no whole ratio: box-averaged, the pulse's shape changes
+    code, out, err = cli("export", demo_run, "--out", tmp_path / "e", "--sample-rate",
+                         "1.1GS/s")
+    report = json.loads((tmp_path / "e" / "export.json").read_text())
+    assert code == verdict_code(tmp_path / "e" / "export.json") == 1, err
+    (reason,) = [r for r in report["explanation"]]
+    assert reason["cause"] == "resampling" and "pulse.sample_rate = \"1.1 GS/s\"" in \
+        reason["next"]
+    assert "why: the run meets the targets at its own rate" in last_lines(out)
+
+
+def test_an_export_to_a_coarse_dac_names_the_instrument(demo_run, tmp_path):
+    code, out, err = cli("export", demo_run, "--out", tmp_path / "e", "--bits", "4")
+    report = json.loads((tmp_path / "e" / "export.json").read_text())
+    assert code == 1, err
+    assert report["explanation"][0]["cause"] == "the new instrument"
+    assert "4-bit" in report["explanation"][0]["why"]
