@@ -4,7 +4,6 @@ bundled result) and read back from the report and from the command's last lines.
 
 from __future__ import annotations
 
-import copy
 import json
 from pathlib import Path
 
@@ -35,9 +34,10 @@ def test_the_lab_frame_is_named_where_the_rotating_frame_passes():
 
 
 def test_truncated_levels_are_named_with_the_key_to_change():
-    # results/cz-line: 2.8e-5 on 4x4 levels, 6.8e-3 on 6x6
-    (reason,) = explain(bundled("cz-line"))
-    assert reason.cause == "levels"
+    # results/cz-line: 2.8e-5 on 4x4 levels, 6.8e-3 on 6x6; its optimiser also ran out of
+    # iterations, named second (the smaller part of the miss)
+    reason, budget = explain(bundled("cz-line"))
+    assert reason.cause == "levels" and budget.cause == "budget"
     assert "6x6" in reason.why and "levels on every [[system.transmon]] = 6" in reason.next
 
 
@@ -52,7 +52,7 @@ def last_lines(out: str) -> str:
 
 
 def test_a_spent_budget_says_so_and_how_to_give_more(tmp_path):
-    recipe = write_demo(tmp_path)
+    recipe = write_demo(tmp_path, duration="10 ns")
     code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
                          "--no-plots", "--iterations", 3)
     report = json.loads((tmp_path / "run" / "report.json").read_text())
@@ -64,32 +64,33 @@ def test_a_spent_budget_says_so_and_how_to_give_more(tmp_path):
 
 
 def test_a_target_out_of_reach_at_that_duration_suggests_a_sweep(tmp_path):
-    # 6 ns at a 60 MHz limit cannot make a pi pulse (its area needs 8.3 ns at full drive:
+    # 5 ns at a 60 MHz limit cannot make a pi pulse (its area needs 8.3 ns at full drive:
     # the Rabi formula, theta = 2 pi Omega t)
-    recipe = write_demo(tmp_path, "\n[optimizer]\nstall_iterations = 20\n", duration="6 ns")
+    recipe = write_demo(tmp_path, "\n[optimizer]\nstall_iterations = 20\n", duration="5 ns")
     code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
                          "--no-plots")
     assert code == 1, err
     (reason,) = [type("R", (), r) for r in
                  json.loads((tmp_path / "run" / "report.json").read_text())["explanation"]]
     assert reason.cause == "converged above the target"
-    assert "out of reach at 6 ns" in reason.why
-    assert f"shaper sweep {recipe} --durations 6ns:12ns:2ns" in reason.next
+    assert "out of reach at 5 ns" in reason.why
+    assert f"shaper sweep {recipe} --durations 5ns:10ns:1ns" in reason.next
     assert "why: the optimiser stopped" in last_lines(out)
 
 
-def test_an_ensemble_that_spreads_past_the_target_is_named():
-    # the demo's real report, given the worst member a real run of the +-0.5 MHz ensemble
-    # at 24 ns reached (README, "When a result misses its targets"): nominal met, members not
-    report = copy.deepcopy(bundled("demo-x180"))
-    report["ensemble"] = {"detuning_hz": [-5e5, 5e5], "amplitude_scale": [1.0, 1.0],
-                          "infidelity": [3.1e-6, 2.9e-6], "leakage": [4e-8, 4e-8]}
-    report["targets"]["met"] = False
-    report["trust"]["lab_frame"]["infidelity"] = 3.1e-6
-    (reason,) = explain(report)
-    assert reason.cause == "ensemble spread"
-    assert "worst ensemble member reaches infidelity 3.10e-06" in reason.why
-    assert 'optimizer.ensemble_targets = "mean", met here' in reason.next
+def test_an_ensemble_that_spreads_past_the_target_is_named(tmp_path):
+    # +-2 MHz of detuning on a 12.5 ns X gate: the nominal pulse reaches ~1e-7, the members
+    # ~8e-4 (measured); the spread is named first, as the largest miss
+    recipe = write_demo(tmp_path, '\n[cost]\nensemble_detunings = ["-2 MHz", "0 MHz", '
+                                  '"2 MHz"]\n', duration="12.5 ns")
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
+                         "--no-plots")
+    report = json.loads((tmp_path / "run" / "report.json").read_text())
+    assert code == 1, err
+    first = report["explanation"][0]
+    assert first["cause"] == "ensemble spread", report["explanation"]
+    assert "the worst ensemble member reaches" in first["why"]
+    assert "cost.ensemble_detunings" in first["next"]
 
 
 @pytest.fixture(scope="module")
@@ -107,7 +108,7 @@ def test_an_export_lost_in_resampling_says_optimise_at_that_rate(demo_run, tmp_p
                          "1.1GS/s")
     report = json.loads((tmp_path / "e" / "export.json").read_text())
     assert code == verdict_code(tmp_path / "e" / "export.json") == 1, err
-    (reason,) = [r for r in report["explanation"]]
+    (reason,) = report["explanation"]
     assert reason["cause"] == "resampling" and "pulse.sample_rate = \"1.1 GS/s\"" in \
         reason["next"]
     assert "why: the run meets the targets at its own rate" in last_lines(out)

@@ -123,3 +123,6 @@ def _print_summary(v: dict) -> None:
           + (f", out-of-band <= {t['max_out_of_band']:g}" if t.get("max_out_of_band") else ""))
     for miss in t["missed"]:
         print(f"  missed: {miss['name']} {miss['value']:.3e} > {miss['limit']:g}")
+    from shaper.cli.text import explanation_lines
+    for text in explanation_lines(v):
+        print(text)

@@ -68,4 +68,7 @@ def run(args: argparse.Namespace) -> int:
     print(f"CAUTION: {report['caution']}")
     from shaper.costs.verdict import summary
     print(summary(report["targets"]))
+    from shaper.cli.text import explanation_lines
+    for text in explanation_lines(report):
+        print(text)
     return 0 if report["targets"]["met"] else 1

@@ -149,7 +149,7 @@ def _print_summary(recipe, output) -> None:
     print(f"{recipe.name}: infidelity {trust['infidelity']:.3e}, leakage "
           f"{trust['leakage']:.3e} (on the exported {r['samples']} samples, "
           f"{recipe.export.dac_bits}-bit DAC)")
-    from shaper.cli.text import line_summary, trust_summary
+    from shaper.cli.text import explanation_lines, line_summary, trust_summary
     for text in trust_summary(r.get("trust")) + line_summary(r.get("line"), r.get("mixer")):
         print(text)
     print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; wall time "
@@ -158,6 +158,8 @@ def _print_summary(recipe, output) -> None:
     print(f"CAUTION: {r['caution']}")
     from shaper.costs.verdict import summary
     print(summary(r["targets"]))
+    for text in explanation_lines(r):
+        print(text)
 
 
 def _gate_set(recipe, options, folder: Path, args, painter) -> int:
@@ -172,4 +174,7 @@ def _gate_set(recipe, options, folder: Path, args, painter) -> int:
     missed = [r.gate for r in rows if not r.met]
     print("targets met by every gate" if not missed else
           f"targets NOT met by: {', '.join(missed)}")
+    for r in rows:
+        if not r.met and r.why:
+            print(f"{r.gate}: {r.why}")
     return 0 if not missed else 1

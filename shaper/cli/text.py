@@ -46,3 +46,12 @@ def line_summary(line: dict | None, mixer: dict | None = None) -> list[str]:
         out.append(f"  mixer corrected in the samples; uncorrected it would give infidelity "
                    f"{u['infidelity']:.3e}, leakage {u['leakage']:.3e}")
     return out
+
+
+def explanation_lines(report: dict) -> list[str]:
+    """A missed report's ``explanation`` (shaper.jobs.explain): why, then what to run next;
+    the last lines a command prints."""
+    out = []
+    for reason in report.get("explanation") or []:
+        out += [f"why: {reason['why']}", f"next: {reason['next']}"]
+    return out

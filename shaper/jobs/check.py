@@ -20,6 +20,7 @@ import numpy as np
 from shaper.costs import evaluate
 from shaper.costs.problem import qubit_count, waveform_problem
 from shaper.io.waveio import Waveform
+from shaper.jobs.explain import explain
 from shaper.jobs.playback import Playback
 from shaper.physics._jax import device
 from shaper.recipe import Recipe
@@ -123,6 +124,10 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
         "sensitivity": sens,
         "recipe": recipe.name,
     }
+    verdict["explanation"] = [r._asdict() for r in explain(
+        {**verdict, "targets": {**verdict["targets"], "met": judged.met},
+         "duration_s": samples.shape[0] / wave.sample_rate_hz},
+        recipe=recipe.path or recipe.name)]
     return verdict, {"wave": wave, "dt": dt, "simulation": sim, "recipe": recipe}
 
 

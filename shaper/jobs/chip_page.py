@@ -61,6 +61,13 @@ th{background:#eee}tr.fail td{background:#fdd}.ok{color:#060}.bad{color:#a00}
 img{max-width:100%;margin:0.5em 0}.caution{border-left:4px solid #c80;padding:0.3em 0.8em}"""
 
 
+def _whys(failing) -> str:
+    """Why each failing gate missed and what to try (shaper.jobs.explain), as a list."""
+    items = [f"<li><b>{html.escape((r.subject + ' ') if r.subject else '')}"
+             f"{html.escape(r.gate)}</b>: {html.escape(r.why)}</li>" for r in failing if r.why]
+    return f'<h2>Why, and what to try</h2><ul id="why">{"".join(items)}</ul>' if items else ""
+
+
 def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
     """Write ``chip.html``: status, failing gates, the table, the plots, the caution."""
     failing = [r for r in rows if not r.met]
@@ -91,6 +98,7 @@ def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
 {html.escape(time.strftime('%Y-%m-%d %H:%M:%S %z'))}.</p>
 <table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
 <tbody>{''.join(lines)}</tbody></table>
+{_whys(failing)}
 <div id="plots">{pictures}</div>
 <p class="caution">{html.escape(CAUTION)}</p>
 <script>

@@ -65,6 +65,7 @@ class GateRow:
     # these are the optimiser's model's: rotating frame, the recipe's levels
     rotating_infidelity: float | None = None
     rotating_leakage: float | None = None
+    why: str = ""  # a miss: its cause and what to run next (shaper.jobs.explain)
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
@@ -92,7 +93,12 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
                    waveform=str(files[0].relative_to(folder.parent)),
                    frame_before_rad=list(played.frame_before_rad or []),
                    frame_after_rad=list(played.frame_after_rad or []),
-                   missed="; ".join(m["name"] for m in verdict.as_dict()["missed"]))
+                   missed="; ".join(m["name"] for m in verdict.as_dict()["missed"]),
+                   why=_why({**played.figures(), "duration_s": recipe.duration_s,
+                             "trust": playback.trust_block(),
+                             "targets": {"infidelity": recipe.optimizer.target_infidelity,
+                                         "leakage": recipe.optimizer.target_leakage,
+                                         **verdict.as_dict()}}, recipe))
 
 
 def optimised_row(recipe: Recipe, report: dict, folder: Path, root: Path) -> GateRow:
@@ -106,7 +112,14 @@ def optimised_row(recipe: Recipe, report: dict, folder: Path, root: Path) -> Gat
                    waveform=str((folder / report["waveform"]).relative_to(root)),
                    frame_before_rad=list(report.get("frame_before_rad") or []),
                    frame_after_rad=list(report.get("frame_after_rad") or []),
-                   missed="; ".join(m["name"] for m in report["targets"]["missed"]))
+                   missed="; ".join(m["name"] for m in report["targets"]["missed"]),
+                   why=_why(report, recipe))
+
+
+def _why(report: dict, recipe: Recipe) -> str:
+    from shaper.jobs.explain import explain
+
+    return " ".join(r.line() for r in explain(report, recipe=recipe.path or recipe.name))
 
 
 COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "samples",
@@ -143,6 +156,10 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                      f"{r.phase_deg:g} | {r.duration_s * 1e9:.3f} ns | {r.infidelity:.2e} | "
                      f"{r.leakage:.2e} | {'yes' if r.met else 'NO'} | "
                      f"{_number(r.rotating_infidelity, '.2e')} | {frames} |")
+    failing = [r for r in rows if not r.met and r.why]
+    if failing:
+        lines += ["", "Why the misses missed, and what to try:", ""]
+        lines += [f"- {r.subject + ' ' if r.subject else ''}{r.gate}: {r.why}" for r in failing]
     csv_path, md_path = folder / f"{name}.csv", folder / f"{name}.md"
     atomic.write_text(csv_path, text.getvalue())
     atomic.write_text(md_path, "\n".join(lines) + "\n")

@@ -15,6 +15,7 @@ import numpy as np
 
 from shaper.errors import ResultError
 from shaper.io import atomic, waveio
+from shaper.jobs.explain import explain
 from shaper.jobs.export import make_waveform
 from shaper.jobs.playback import Playback, baseband, simulate_played
 from shaper.optimizer.starts import Result
@@ -40,7 +41,7 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
     members = playback.members
     verdict = playback.verdict()
     band = verdict.judged.get("out_of_band")
-    return {
+    report = {
         **exported.figures(),
         "waveform": csv_name,
         "sidecar": Path(csv_name).with_suffix(".json").name,
@@ -85,6 +86,15 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
         "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "caution": waveio.CAUTION,
     }
+    return explained(report, recipe)
+
+
+def explained(report: dict, recipe: Recipe) -> dict:
+    """The report with ``explanation``: why it missed and what to run next (empty when
+    met; :mod:`shaper.jobs.explain`)."""
+    report["explanation"] = [r._asdict() for r in explain(report, recipe=recipe.path
+                                                          or recipe.name)]
+    return report
 
 
 def export_report(playback: Playback, files: list, original: Simulation, samples: np.ndarray,
@@ -105,7 +115,7 @@ def export_report(playback: Playback, files: list, original: Simulation, samples
               "targets": {"infidelity": recipe.optimizer.target_infidelity,
                           "leakage": recipe.optimizer.target_leakage, **verdict.as_dict()},
               "caution": waveio.CAUTION}
-    return report
+    return explained(report, recipe)
 
 
 def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettings,
