@@ -199,26 +199,61 @@ def test_dask_cluster_gives_the_same_table_as_local_workers(chip_runs):
     assert _rows(tmp / "dask") == _rows(tmp / "local")
 
 
+def _browser() -> str:
+    """Chromium: .ci/run installs Debian's; CI (CI=true) must have it, elsewhere skip."""
+    browser = shutil.which("chromium") or shutil.which("chromium-browser")
+    if not browser:
+        if os.environ.get("CI"):
+            pytest.fail("Chromium is needed for this test (.ci/run installs Debian's chromium)")
+        pytest.skip("no Chromium here (.ci/run installs it; CI fails without it)")
+    return browser
+
+
+HEADLESS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+            "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+
+
 @pytest.mark.filterwarnings("ignore")
 def test_chip_page_opens_in_a_headless_browser(chip_runs, tmp_path):
     tmp, _, _ = chip_runs
-    browser = shutil.which("chromium") or shutil.which("chromium-browser")
-    assert browser, "Chromium is needed for this test (.ci/run installs Debian's chromium)"
+    browser = _browser()
     page = tmp / "local" / "chip.html"
-    dom = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu",
-                          "--disable-quic", "--no-first-run", "--disable-background-networking",
-                          "--disable-component-update", "--disable-sync",
-                          f"--user-data-dir={tmp_path / 'profile'}", "--dump-dom",
-                          page.as_uri()], capture_output=True, text=True, timeout=120).stdout
+    dom = subprocess.run([browser, *HEADLESS, f"--user-data-dir={tmp_path / 'profile'}",
+                          "--dump-dom", page.as_uri()], capture_output=True, text=True,
+                         timeout=120).stdout
     # the DOM after the page's own script ran: every embedded image decoded by the browser
     assert re.search(r'<body[^>]*data-images="decoded"', dom), dom[:500]
-    cells = re.findall(r"<tr[^>]*>(.*?)</tr>", dom, flags=re.S)
-    body = [re.findall(r"<td>(.*?)</td>", c) for c in cells if "<td>" in c]
+    gates = re.search(r'<table id="gates">(.*?)</table>', dom, flags=re.S).group(1)
+    cells = re.findall(r"<tr[^>]*>(.*?)</tr>", gates, flags=re.S)
+    body = [re.findall(r"<td>(.*?)</td>", c, flags=re.S) for c in cells if "<td>" in c]
     assert len(body) == 8
     rows = _rows(tmp / "local")
     shown = {(b[0], b[1], b[4]) for b in body}
     assert shown == {(r["subject"], r["gate"], f"{float(r['infidelity']):.2e}") for r in rows}
+    # every waveform linked, relative to the page; what was given shown (the qubits, the
+    # targets, the version and the chip's digest)
+    for r in rows:
+        assert f'href="{r["waveform"]}"' in dom and (tmp / "local" / r["waveform"]).exists()
+    qubits = re.search(r'<table id="qubits">(.*?)</table>', dom, flags=re.S).group(1)
+    assert "5.0 GHz" in qubits and "-220 MHz" in qubits and "60 MHz" in qubits
+    assert "Targets: infidelity" in dom and "sha256" in dom and "by shaper " in dom
     assert "http" not in re.sub(r"https?://www\.w3\.org", "", page.read_text())  # no fetches
+
+
+@pytest.mark.filterwarnings("ignore")
+def test_chip_page_renders_its_plots(chip_runs, tmp_path):
+    # a screenshot, not only the DOM: the browser must paint the table and the plots
+    import matplotlib.image
+
+    tmp, _, _ = chip_runs
+    shot = tmp_path / "page.png"
+    subprocess.run([_browser(), *HEADLESS, f"--user-data-dir={tmp_path / 'profile'}",
+                    "--window-size=1200,2600", "--hide-scrollbars", f"--screenshot={shot}",
+                    (tmp / "local" / "chip.html").as_uri()], capture_output=True, timeout=120)
+    pixels = matplotlib.image.imread(shot)[:, :, :3]
+    painted = (pixels.sum(axis=2) < 2.9).mean()  # not white
+    colours = len(np.unique((pixels * 15).astype(int).reshape(-1, 3), axis=0))
+    assert painted > 0.05 and colours > 40, (painted, colours)
 
 
 BAD_CHIPS = [

@@ -54,8 +54,8 @@ class Progress:
 
     def __call__(self, record: dict) -> None:
         terms = " ".join(f"{k[5:]}={v:.2e}" for k, v in record.items() if k.startswith("cost_"))
-        text = (f"infidelity={record['infidelity']:.3e} leakage={record['leakage']:.3e} "
-                f"| {terms}")
+        text = (f"best so far: infidelity={record['infidelity']:.3e} "
+                f"leakage={record['leakage']:.3e} | weighted cost terms: {terms}")
         self.count += 1
         sparse = self.count <= 10 or self.count % 10 == 0
         if self.log and sparse:
@@ -77,6 +77,7 @@ def run(args: argparse.Namespace) -> int:
     from shaper.optimizer.interrupt import stop_on_signals
 
     with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
+        args.started = time.monotonic()
         return _run(args, stop)
 
 
@@ -130,13 +131,13 @@ def _run(args: argparse.Namespace, stop) -> int:
             return _gate_set(recipe, setup.options, folder, args, setup.painter)
         output = run_job(recipe, setup.options, out=folder, force=args.force,
                          plots_too=not args.no_plots, painter=setup.painter)
-    _print_summary(recipe, output)
+    _print_summary(recipe, output, time.monotonic() - args.started)
     if stop:
         return stop.exit_code
     return 0 if output.report["targets"]["met"] else 1
 
 
-def _print_summary(recipe, output) -> None:
+def _print_summary(recipe, output, command_s: float) -> None:
     """The last lines of a run: each start, the judged figures, the time, the files."""
     r = output.report
     reason = r["optimizer"]["stop_reason"]
@@ -152,8 +153,9 @@ def _print_summary(recipe, output) -> None:
     from shaper.cli.text import explanation_lines, line_summary, trust_summary
     for text in trust_summary(r.get("trust")) + line_summary(r.get("line"), r.get("mixer")):
         print(text)
-    print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; wall time "
-          f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s)")
+    print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; optimiser "
+          f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s); "
+          f"the whole command {command_s:.2f} s (start-up, re-checks, plots included)")
     print("wrote " + ", ".join(p.name for p in output.files) + f" in {output.folder}")
     print(f"CAUTION: {r['caution']}")
     from shaper.costs.verdict import summary

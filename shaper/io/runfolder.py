@@ -38,15 +38,16 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False, *,
             old = atomic.read_json(report, ResultError, "unreadable report")
             if old.get("optimizer", {}).get("stop_reason") != "interrupted":
                 raise ResultError(f"{folder} holds a finished run (report.json); there is "
-                                  f"nothing to resume. Pass --force to export it again")
+                                  f"nothing to resume. Pass --force (force=True) to export it "
+                                  f"again")
         return {}
     if (folder / "report.json").exists() and not force:
         raise ResultError(f"{folder} already holds a run (report.json); choose another --out "
-                          f"or pass --force to replace it (its waveform and report are kept "
-                          f"as *.replaced-N.*)")
+                          f"(out=) or pass --force (force=True) to replace it (its waveform "
+                          f"and report are kept as *.replaced-N.*)")
     if any(folder.glob("checkpoint-*.npz")) and not force:
         raise ResultError(f"{folder} holds checkpoints of an unfinished run; pass --resume to "
-                          f"continue it or --force to start again")
+                          f"continue it or --force (force=True) to start again")
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except (FileExistsError, NotADirectoryError):

@@ -10,60 +10,13 @@ scale error.
 
 from __future__ import annotations
 
-import hashlib
-import pickle
-
-import jax
-import jax.numpy as jnp
 import numpy as np
 
-from shaper.costs import evaluate
-from shaper.costs.problem import qubit_count, waveform_problem
 from shaper.io.waveio import Waveform
 from shaper.jobs.explain import explain
 from shaper.jobs.playback import Playback
-from shaper.physics._jax import device
 from shaper.recipe import Recipe
 from shaper.recipe.derive import with_levels
-
-
-def _sensitivity(playback: Playback, detunings: np.ndarray, scales: np.ndarray) -> dict:
-    recipe, chain = playback.recipe, playback.chain
-    problem = waveform_problem(recipe, playback.samples.shape[0], steps=chain.steps,
-                               dt=chain.period_s)
-    flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
-                 virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
-    vs_detuning, vs_scale, slopes = _programs(flags)
-    x = device(playback.samples, float)
-    curve_d = vs_detuning(x, problem, device(detunings, float))
-    curve_s = vs_scale(x, problem, device(scales, float))
-    slope_d, slope_s = slopes(x, problem)
-    return {"detuning_hz": detunings.tolist(),
-            "infidelity_vs_detuning": np.asarray(curve_d).tolist(),
-            "amplitude_scale": scales.tolist(),
-            "infidelity_vs_scale": np.asarray(curve_s).tolist(),
-            "d_infidelity_d_detuning_per_mhz": float(slope_d) * 1e6,
-            "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
-
-
-_PROGRAMS: dict[str, tuple] = {}
-
-
-def _programs(flags: dict) -> tuple:
-    """The three jitted programs of the sensitivity (one eigendecomposition each,
-    DEVELOPERS.md: never op by op), built once per process for these flags (keyed by an
-    exact digest of them, as :func:`shaper.jobs.playback._members_program`)."""
-    key = hashlib.sha256(pickle.dumps(flags)).hexdigest()
-    if key not in _PROGRAMS:
-        def infidelity(x, problem, delta, scale):
-            drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
-            return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
-
-        _PROGRAMS[key] = (
-            jax.jit(lambda x, p, d: jax.vmap(lambda di: infidelity(x, p, di, 1.0))(d)),
-            jax.jit(lambda x, p, s: jax.vmap(lambda si: infidelity(x, p, 0.0, si))(s)),
-            jax.jit(lambda x, p: jax.grad(infidelity, argnums=(2, 3))(x, p, 0.0, 1.0)))
-    return _PROGRAMS[key]
 
 
 def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
@@ -89,16 +42,8 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
     dt = 1.0 / wave.sample_rate_hz
     playback = Playback(recipe, wave)
     sim = playback.nominal
-    labels = system.level_labels()
-    populations = {}
-    for j, idx in enumerate(system.computational):
-        final, peak = sim.populations[j, -1], sim.populations[j].max(axis=0)
-        populations[labels[idx]] = {"final": dict(zip(labels, final.tolist(), strict=True)),
-                                    "max": dict(zip(labels, peak.tolist(), strict=True))}
-    outside = np.ones(system.dimension, bool)
-    outside[system.computational] = False
-    worst_outside = float(sim.populations[:, :, outside].max()) if outside.any() else 0.0
-    sens = _sensitivity(playback,
+    populations, worst_outside = _populations(system, sim)
+    sens = playback.sensitivity(
                         np.linspace(-detuning_span_hz, detuning_span_hz, points),
                         np.linspace(1 - scale_span, 1 + scale_span, points))
     o = recipe.optimizer
@@ -131,6 +76,20 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
     return verdict, {"wave": wave, "dt": dt, "simulation": sim, "recipe": recipe}
 
 
+def _populations(system, sim) -> tuple[dict, float]:
+    """Every level's final and largest population per computational input, and the
+    largest population outside the qubit levels during the pulse."""
+    labels = system.level_labels()
+    populations = {}
+    for j, idx in enumerate(system.computational):
+        final, peak = sim.populations[j, -1], sim.populations[j].max(axis=0)
+        populations[labels[idx]] = {"final": dict(zip(labels, final.tolist(), strict=True)),
+                                    "max": dict(zip(labels, peak.tolist(), strict=True))}
+    outside = np.ones(system.dimension, bool)
+    outside[system.computational] = False
+    return populations, float(sim.populations[:, :, outside].max()) if outside.any() else 0.0
+
+
 def write_check_plots(folder, verdict: dict, curves: dict, *, draw=None) -> list:
     """sensitivity.png plus the waveform, spectrum (f01, f12 marked) and population plots.
 
@@ -147,5 +106,12 @@ def write_check_plots(folder, verdict: dict, curves: dict, *, draw=None) -> list
     folder.mkdir(parents=True, exist_ok=True)
     files = write_plots(folder, curves["recipe"], curves["wave"], curves["simulation"], None,
                         dt=curves["dt"], draw=draw)
-    draw(plot_sensitivity, folder / "sensitivity.png", verdict["sensitivity"])
+    recipe = curves["recipe"]
+    draw(plot_sensitivity, folder / "sensitivity.png", verdict["sensitivity"],
+         title=f"{verdict.get('waveform', recipe.name)}: infidelity against detuning and "
+               f"amplitude error",
+         target=recipe.optimizer.target_infidelity,
+         members={"detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
+                  "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist()}
+         if len(recipe.ensemble_scales) > 1 else None)
     return files + [folder / "sensitivity.png"]

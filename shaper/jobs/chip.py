@@ -227,7 +227,8 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
     if state_path.exists() and not force:
         if not resume:
             raise ResultError(f"{out} already holds a chip run (chip.json); pass --resume to "
-                              f"continue it or --force to start over")
+                              f"continue it or --force to start over (resume=True / "
+                              f"force=True from Python)")
         state = atomic.read_json(state_path, ResultError, "unreadable")
         if state.get("chip") != chip.name:
             raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from shaper import __version__
 from shaper.io import atomic
 from shaper.io.waveio import CAUTION
 from shaper.jobs.plots import _figure, _finish
@@ -47,12 +48,57 @@ def write_plots(out: Path, chip, rows) -> list[Path]:
         else:
             ax.set_yscale("log")
             ax.set_ylabel("infidelity (bars), leakage (dots)")
+            targets = _targets(chip)
+            if targets:
+                ax.axhline(targets[0], color="C3", linestyle=":", linewidth=0.9,
+                           label="target infidelity")
+                ax.axhline(targets[1], color="k", linestyle=":", linewidth=0.9,
+                           label="target leakage")
         ax.legend(fontsize=7, ncol=min(len(gates), 6))
         path = out / name
         _finish(fig, path, f"chip {chip.name}: {'durations' if what == 'duration' else 'errors'}"
                            f" of every gate", fit=True)  # rotated gate names
         paths.append(path)
     return paths
+
+
+def _targets(chip) -> tuple[float, float] | None:
+    """The targets the chip's gates are judged against (the template's; the first task's
+    recipe, read as every task is)."""
+    if not chip.tasks:
+        return None
+    from shaper.recipe import load_recipe
+
+    o = load_recipe(chip.tasks[0].recipe).optimizer
+    return o.target_infidelity, o.target_leakage
+
+
+def _qubit_table(chip) -> str:
+    """What was given for each qubit, as the chip file wrote it (its single-qubit tasks'
+    recipes carry it)."""
+    head = ["qubit", "frequency", "anharmonicity", "levels", "max Rabi", "T1", "T2",
+            "spectrum"]
+    rows, seen = [], set()
+    for task in chip.tasks:
+        system = task.recipe.get("system", {})
+        if task.subject in seen or system.get("model") != "transmon":
+            continue
+        seen.add(task.subject)
+        cells = [task.subject, system.get("qubit_frequency"), system.get("anharmonicity"),
+                 system.get("levels"), task.recipe.get("pulse", {}).get("max_rabi"),
+                 system.get("t1", ""), system.get("t2", ""),
+                 system.get("spectrum", "duffing")]
+        rows.append("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells)
+                    + "</tr>")
+    return (f'<table id="qubits"><thead><tr>{"".join(f"<th>{h}</th>" for h in head)}</tr>'
+            f'</thead><tbody>{"".join(rows)}</tbody></table>')
+
+
+def _targets_words(chip) -> str:
+    targets = _targets(chip)
+    return "" if targets is None else (f"Targets: infidelity &le; {targets[0]:g}, leakage "
+                                       f"&le; {targets[1]:g}, judged as the chip plays each "
+                                       f"file (more levels, lab frame).")
 
 
 STYLE = """body{font-family:sans-serif;margin:1.5em;color:#222}
@@ -74,17 +120,17 @@ def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
     status = ("every gate met its targets" if not failing else
               f"{len(failing)} of {len(rows)} gate(s) missed their targets")
     head = ["subject", "gate", "from", "duration (ns)", "infidelity", "leakage", "met",
-            "frame before / after (rad)", "waveform"]
+            "virtual Z before / after (rad)", "waveform"]
     lines = []
     for r in failing + [r for r in rows if r.met]:
         frames = " ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / " + " ".join(
             f"{v:.3f}" for v in r.frame_after_rad) if r.frame_before_rad else ""
         cells = [r.subject, r.gate, r.derived_from or "optimised", f"{r.duration_s * 1e9:.3f}",
-                 f"{r.infidelity:.2e}", f"{r.leakage:.2e}", "yes" if r.met else "NO", frames,
-                 r.waveform]
+                 f"{r.infidelity:.2e}", f"{r.leakage:.2e}", "yes" if r.met else "NO", frames]
         css = "" if r.met else ' class="fail"'
+        link = f'<td><a href="{html.escape(r.waveform)}">{html.escape(r.waveform)}</a></td>'
         lines.append(f"<tr{css}>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells)
-                     + "</tr>")
+                     + link + "</tr>")
     pictures = "".join(
         f'<img alt="{html.escape(p.name)}" src="data:image/png;base64,'
         f'{base64.b64encode(p.read_bytes()).decode()}">' for p in images)
@@ -95,7 +141,12 @@ def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
 <h1>Chip {html.escape(chip.name)}</h1>
 <p class="{'ok' if not failing else 'bad'}" id="status">{html.escape(status)}</p>
 <p>{len(chip.qubits)} qubit(s), {len(chip.pairs)} pair(s); written
-{html.escape(time.strftime('%Y-%m-%d %H:%M:%S %z'))}.</p>
+{html.escape(time.strftime('%Y-%m-%d %H:%M:%S %z'))} by shaper {html.escape(__version__)}
+from {html.escape(Path(chip.path or '').name)} (sha256 <code>{chip.sha256[:16]}</code>).
+{_targets_words(chip)}</p>
+<h2>Qubits</h2>
+{_qubit_table(chip)}
+<h2>Gates</h2>
 <table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
 <tbody>{''.join(lines)}</tbody></table>
 {_whys(failing)}

@@ -143,19 +143,23 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          " ".join(f"{v:.6f}" for v in r.frame_before_rad),
                          " ".join(f"{v:.6f}" for v in r.frame_after_rad), r.waveform,
                          _number(r.rotating_infidelity), _number(r.rotating_leakage)])
+    subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
+    head = (["subject"] if subjects else []) + [
+        "gate", "from", "phase", "duration", "infidelity", "leakage", "met", "rotating frame",
+        "virtual Z before / after (rad)", "file"]
     lines = ["Infidelity and leakage as judged (README, \"How far the figures are trusted\"); "
              "the optimiser's rotating frame beside them.", "",
-             "| subject | gate | from | phase | duration | infidelity | leakage | met | "
-             "rotating frame | frame before / after (rad) |",
-             "|---|---|---|---|---|---|---|---|---|---|"]
+             "| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     for r in rows:
         frames = (" ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / "
                   + " ".join(f"{v:.3f}" for v in r.frame_after_rad)) \
             if r.frame_before_rad else ""
-        lines.append(f"| {r.subject} | {r.gate} | {r.derived_from or 'optimised'} | "
-                     f"{r.phase_deg:g} | {r.duration_s * 1e9:.3f} ns | {r.infidelity:.2e} | "
-                     f"{r.leakage:.2e} | {'yes' if r.met else 'NO'} | "
-                     f"{_number(r.rotating_infidelity, '.2e')} | {frames} |")
+        cells = ([r.subject] if subjects else []) + [
+            r.gate, r.derived_from or "optimised", f"{r.phase_deg:g}",
+            f"{r.duration_s * 1e9:.3f} ns", f"{r.infidelity:.2e}", f"{r.leakage:.2e}",
+            "yes" if r.met else "NO", _number(r.rotating_infidelity, ".2e"), frames,
+            f"[{Path(r.waveform).name}]({r.waveform})"]
+        lines.append("| " + " | ".join(cells) + " |")
     failing = [r for r in rows if not r.met and r.why]
     if failing:
         lines += ["", "Why the misses missed, and what to try:", ""]

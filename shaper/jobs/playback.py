@@ -240,6 +240,28 @@ class Playback:
                 "predistorted": self.wave.predistorted,
                 "predistortion_residual": self.wave.predistortion_residual}
 
+    def sensitivity(self, detunings: np.ndarray, scales: np.ndarray) -> dict:
+        """Infidelity of this file against a detuning offset and an amplitude scale (the
+        recipe's model, the chain's grid), with the first-order slopes."""
+        from shaper.physics._jax import device
+
+        recipe, chain = self.recipe, self.chain
+        problem = waveform_problem(recipe, self.samples.shape[0], steps=chain.steps,
+                                   dt=chain.period_s)
+        flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
+                     virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
+        vs_detuning, vs_scale, slopes = _sensitivity_programs(flags)
+        x = device(self.samples, float)
+        curve_d = vs_detuning(x, problem, device(detunings, float))
+        curve_s = vs_scale(x, problem, device(scales, float))
+        slope_d, slope_s = slopes(x, problem)
+        return {"detuning_hz": detunings.tolist(),
+                "infidelity_vs_detuning": np.asarray(curve_d).tolist(),
+                "amplitude_scale": scales.tolist(),
+                "infidelity_vs_scale": np.asarray(curve_s).tolist(),
+                "d_infidelity_d_detuning_per_mhz": float(slope_d) * 1e6,
+                "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
+
 
 def model_words(system) -> str:
     """Which model the figures come from, in words: the transmon spectrum of every
@@ -303,3 +325,28 @@ def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
         samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
                              1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
     return samples
+
+
+_SENSITIVITY: dict[str, tuple] = {}
+
+
+def _sensitivity_programs(flags: dict) -> tuple:
+    """The three jitted programs of the sensitivity (one eigendecomposition each,
+    DEVELOPERS.md: never op by op), built once per process for these flags (keyed by an
+    exact digest of them, as :func:`_members_program`)."""
+    key = hashlib.sha256(pickle.dumps(flags)).hexdigest()
+    if key not in _SENSITIVITY:
+        import jax
+        import jax.numpy as jnp
+
+        from shaper.costs import evaluate
+
+        def infidelity(x, problem, delta, scale):
+            drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
+            return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
+
+        _SENSITIVITY[key] = (
+            jax.jit(lambda x, p, d: jax.vmap(lambda di: infidelity(x, p, di, 1.0))(d)),
+            jax.jit(lambda x, p, s: jax.vmap(lambda si: infidelity(x, p, 0.0, si))(s)),
+            jax.jit(lambda x, p: jax.grad(infidelity, argnums=(2, 3))(x, p, 0.0, 1.0)))
+    return _SENSITIVITY[key]

@@ -102,7 +102,8 @@ def plot_spectrum(path: Path, samples_hz: np.ndarray, dt: float, channels, *,
     where = f"; the file carries it at an IF of {if_hz / 1e6:g} MHz" if if_hz else ""
     ax.set_xlabel(f"frequency of the envelope relative to the drive (MHz{where})")
     ax.set_ylabel("relative power")
-    ax.set_title("Pulse spectrum (dashed: bandwidth cutoff; dotted: transitions)", fontsize=9)
+    ax.set_title("Pulse spectrum (" + ("dashed: bandwidth cutoff; " if cutoffs else "")
+                 + ("dotted: transitions" if markers else "") + ")", fontsize=9)
     ax.legend(loc="upper right", fontsize=8)
     _finish(fig, path, title)
 
@@ -111,7 +112,8 @@ FLOOR = 1e-9  # populations plot down to here: leakage at a 1e-7 target must sho
 
 
 def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
-                     input_labels, title: str | None = None) -> None:
+                     input_labels, title: str | None = None,
+                     target_leakage: float | None = None) -> None:
     """One panel per computational input state: the population of every level over time,
     on a log scale down to :data:`FLOOR` (a level that never gets there is listed as
     such in the legend, so no level is hidden)."""
@@ -125,6 +127,9 @@ def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
             name = f"|{label}>" if peak >= FLOOR else f"|{label}> (< 1e-9)"
             ax.semilogy(t_ns, np.maximum(curve, FLOOR / 10), label=name,
                         color=f"C{level % 10}")
+        if target_leakage:
+            ax.axhline(target_leakage, color="k", linestyle=":", linewidth=0.9,
+                       label="leakage target")
         ax.set_title(f"start in |{input_labels[j]}>", fontsize=9)
         ax.set_xlabel("time (ns)")
         ax.set_ylim(FLOOR, 2.0)
@@ -133,13 +138,24 @@ def plot_populations(path: Path, populations: np.ndarray, dt: float, labels,
     _finish(fig, path, title)
 
 
-def plot_convergence(path: Path, history: list[dict], title: str | None = None) -> None:
+def plot_convergence(path: Path, history: list[dict], title: str | None = None,
+                     targets: tuple[float, float] | None = None) -> None:
+    """The best point's total cost, infidelity and leakage per iteration, with the targets
+    (dotted); the total cost dashed and on top, so it shows where it equals the
+    infidelity."""
     fig, (ax,) = _figure(6, 3.8)
     it = [h["iteration"] for h in history]
-    for key, label in (("cost", "total cost"), ("infidelity", "infidelity"),
-                       ("leakage", "leakage")):
+    for key, label, style in (("infidelity", "infidelity", dict(color="C0", marker=".")),
+                              ("leakage", "leakage", dict(color="C1", marker=".")),
+                              ("cost", "total cost", dict(color="k", linestyle="--",
+                                                          linewidth=1.2, zorder=3))):
         values = np.maximum([h[key] for h in history], 1e-17)
-        ax.semilogy(it, values, marker=".", label=label)
+        ax.semilogy(it, values, label=label, **style)
+    if targets:
+        ax.axhline(targets[0], color="C0", linestyle=":", linewidth=0.9,
+                   label="target infidelity")
+        ax.axhline(targets[1], color="C1", linestyle=":", linewidth=0.9,
+                   label="target leakage")
     ax.set_xlabel("iteration")
     ax.set_ylabel("value of the best point so far")
     _integer_ticks(ax.xaxis)
@@ -148,19 +164,34 @@ def plot_convergence(path: Path, history: list[dict], title: str | None = None) 
     _finish(fig, path, title)
 
 
-def plot_sensitivity(path: Path, sensitivity: dict, title: str | None = None) -> None:
-    """Infidelity vs detuning offset and vs amplitude scale (log scale)."""
+def plot_sensitivity(path: Path, sensitivity: dict, title: str | None = None,
+                     target: float | None = None, members: dict | None = None) -> None:
+    """Infidelity vs detuning offset and vs amplitude scale (log scale), with the target
+    (dotted) and, for a robust run, the ensemble's members marked where they sit."""
     fig, axes = _figure(9, 3.6, 2)
-    axes[0].semilogy(np.array(sensitivity["detuning_hz"]) / 1e6,
-                     np.maximum(sensitivity["infidelity_vs_detuning"], 1e-16), marker=".")
+    x_d = np.array(sensitivity["detuning_hz"]) / 1e6
+    x_s = (np.array(sensitivity["amplitude_scale"]) - 1) * 100
+    axes[0].semilogy(x_d, np.maximum(sensitivity["infidelity_vs_detuning"], 1e-16), marker=".",
+                     label="this pulse")
     axes[0].set_xlabel("detuning offset (MHz)")
-    axes[1].semilogy((np.array(sensitivity["amplitude_scale"]) - 1) * 100,
-                     np.maximum(sensitivity["infidelity_vs_scale"], 1e-16), marker=".")
+    axes[1].semilogy(x_s, np.maximum(sensitivity["infidelity_vs_scale"], 1e-16), marker=".",
+                     label="this pulse")
     axes[1].set_xlabel("amplitude error (%)")
+    if members:  # the optimised ensemble: where each member's offset sits on each scan
+        for ax, key, scale in ((axes[0], "detuning_hz", 1e-6), (axes[1], "amplitude_scale",
+                                                                 None)):
+            offsets = np.array(members[key], float)
+            offsets = offsets * scale if scale else (offsets - 1) * 100
+            for x in sorted(set(np.round(offsets, 9))):
+                ax.axvline(x, color="C2", linestyle="-.", linewidth=0.8)
+            ax.plot([], [], color="C2", linestyle="-.", label="ensemble members")
     for ax in axes:
+        if target:
+            ax.axhline(target, color="k", linestyle=":", linewidth=0.9, label="target")
         ax.set_ylabel("infidelity")
         ax.grid(True, which="both", alpha=0.3)
-    _finish(fig, path, title or "Sensitivity")
+        ax.legend(fontsize=7)
+    _finish(fig, path, title or "Infidelity against detuning and amplitude error")
 
 
 def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=None,

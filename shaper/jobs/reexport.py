@@ -140,8 +140,9 @@ def _room(out: Path, names: list[str], force: bool):
         held = "a run (report.json) whose waveform" if (out / "report.json").exists() \
             else "files that"
         raise ResultError(f"--out {out} holds {held} this export would replace "
-                          f"({', '.join(taken)}); choose another --out, or pass --force to "
-                          f"keep them as *.replaced-N.* and write the new ones")
+                          f"({', '.join(taken)}); choose another --out (out=), or pass "
+                          f"--force (force=True) to keep them as *.replaced-N.* and write the "
+                          f"new ones")
 
     def make() -> None:
         try:

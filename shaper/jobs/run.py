@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper.costs.problem import recipe_layout
+from shaper.costs.problem import has_ensemble, recipe_layout
 from shaper.costs.verdict import summary
 from shaper.io import atomic, waveio, writers
 from shaper.io.runfolder import prepare_folder
@@ -75,7 +75,7 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
         options = options.with_(on_start_done=on_start_done)
     result = optimize(recipe, options)
     output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog,
-                    painter=painter)
+                    painter=painter, say=log.line)
     r = output.report
     log.line(f"finished: {r['optimizer']['stop_reason']}; infidelity {r['infidelity']:.3e}, "
              f"leakage {r['leakage']:.3e}; {summary(r['targets'])}", echo=False)
@@ -114,14 +114,15 @@ def rescue_writer(folder: Path, watchdog):
 
 
 def finish(result: Result, folder: Path, *, plots_too: bool = True,
-           watchdog=None, painter=None) -> RunOutput:
+           watchdog=None, painter=None, say=None) -> RunOutput:
     """Export the result's samples, re-check what the AWG plays, write report and plots.
 
     Nothing finished is lost to a later step: the waveform files are written first, the
     report as soon as its figures exist, and the extras (the textbook comparison, the
-    plots) are added afterwards; an extra that fails is recorded in the report
-    (``extras_failed``) instead of ending the job. With a ``painter`` the plots are drawn
-    by its helper process while the textbook comparison is computed here.
+    plots, a robust run's sensitivity) are added afterwards; an extra that fails is
+    recorded in the report (``extras_failed``) instead of ending the job. With a
+    ``painter`` the plots are drawn by its helper process while the textbook comparison
+    is computed here. ``say(text)``: each phase as it begins (the command's progress).
     """
     recipe = result.recipe
     folder.mkdir(parents=True, exist_ok=True)
@@ -129,14 +130,15 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     def stage(what: str) -> None:
         if watchdog is not None:
             watchdog.beat(what)
-    stage("export")
+        if say is not None:
+            say(what)
+    stage("writing the waveform")
     waveform, clipped = make_waveform(recipe, result.samples, recipe.export,
                                       recipe.sample_rate_hz)
     files = writers.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     playback = Playback(recipe, waveform)
-    exported = playback.nominal
-    stage("re-simulation of the export")
+    stage("re-simulating the exported file (as the chip plays it: more levels, lab frame)")
     unquantised, _ = make_waveform(recipe, result.samples,  # padded as the optimiser saw
                                    replace(recipe.export, dac_bits=None),
                                    recipe.sample_rate_hz)
@@ -144,22 +146,7 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     report = build_report(result, playback, internal, clipped, files[0].name)
     atomic.write_json(folder / "report.json", report)
     (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
-    stage("report")
-    failed = {}
-    plotted = []
-    if plots_too:
-        try:
-            history = read_history(folder, result.best.index) or result.history
-            plotted = write_plots(folder, recipe, waveform, exported, history,
-                                  draw=painter.draw if painter is not None else None)
-        except Exception as exc:  # noqa: BLE001
-            failed["plots"] = f"{type(exc).__name__}: {exc}"
-    try:
-        report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
-                                                    result.objective.qubits)
-    except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
-        failed["textbook_pulses"] = f"{type(exc).__name__}: {exc}"
-    stage("textbook pulses")
+    failed, plotted = _extras(result, folder, playback, report, plots_too, painter, stage)
     unfinished = painter.finish() if painter is not None else {}
     if unfinished:
         failed["plots"] = "; ".join(f"{Path(k).name}: {v}" for k, v in unfinished.items())
@@ -169,6 +156,41 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     atomic.write_json(folder / "report.json", report)
     files.append(folder / "report.json")
     return RunOutput(result=result, report=report, folder=folder, files=files)
+
+
+def _extras(result: Result, folder: Path, playback: Playback, report: dict, plots_too: bool,
+            painter, stage) -> tuple[dict, list[Path]]:
+    """The plots, a robust run's sensitivity and the textbook comparison, each allowed to
+    fail on its own (what failed, and the plot files)."""
+    from shaper.jobs.painter import draw_here
+
+    recipe, failed, plotted = result.recipe, {}, []
+    draw = painter.draw if painter is not None else draw_here
+    if plots_too:
+        stage("plots")
+        try:
+            history = read_history(folder, result.best.index) or result.history
+            plotted = write_plots(folder, recipe, playback.wave, playback.nominal, history,
+                                  draw=draw)
+        except Exception as exc:  # noqa: BLE001
+            failed["plots"] = f"{type(exc).__name__}: {exc}"
+    if has_ensemble(recipe) and plots_too:  # a robust run shows what it is robust to
+        stage("sensitivity to detuning and amplitude")
+        try:
+            report["sensitivity"] = sensitivity_of(playback)
+            draw(plots.plot_sensitivity, folder / "sensitivity.png", report["sensitivity"],
+                 title=f"{recipe.name}: infidelity against detuning and amplitude error",
+                 target=recipe.optimizer.target_infidelity, members=report["ensemble"])
+            plotted.append(folder / "sensitivity.png")
+        except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
+            failed["sensitivity"] = f"{type(exc).__name__}: {exc}"
+    stage("the textbook comparison (calibrated Gaussian and DRAG)")
+    try:
+        report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
+                                                    result.objective.qubits)
+    except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
+        failed["textbook_pulses"] = f"{type(exc).__name__}: {exc}"
+    return failed, plotted
 
 
 def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
@@ -203,10 +225,26 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
          cutoff_hz=recipe.bandwidth_hz, markers=markers, title=title,
          if_hz=waveform.if_frequency_hz)
     labels = system.level_labels()
+    o = recipe.optimizer
     draw(plots.plot_populations, names[2], simulation.populations, dt, labels,
-         [labels[i] for i in system.computational], title=title)
+         [labels[i] for i in system.computational], title=title,
+         target_leakage=o.target_leakage)
     if history:
-        draw(plots.plot_convergence, names[3], history, title=title)
+        draw(plots.plot_convergence, names[3], history, title=title,
+             targets=(o.target_infidelity, o.target_leakage))
     else:
         names = names[:3]
     return names
+
+
+def sensitivity_of(playback, *, span_hz: float = 5e6, scale_span: float = 0.05,
+                   points: int = 21) -> dict:
+    """The file's infidelity against detuning and amplitude error, over spans that cover
+    the recipe's ensemble with room on each side (a robust run's sensitivity)."""
+    recipe = playback.recipe
+    detunings = np.abs(np.asarray(recipe.ensemble_detunings_hz, float))
+    scales = np.abs(np.asarray(recipe.ensemble_scales, float) - 1)
+    span_hz = max(span_hz, 1.5 * float(detunings.max(initial=0.0)))
+    scale_span = max(scale_span, 1.5 * float(scales.max(initial=0.0)))
+    return playback.sensitivity(np.linspace(-span_hz, span_hz, points),
+                                np.linspace(1 - scale_span, 1 + scale_span, points))
