@@ -190,7 +190,9 @@ def _levels(levels) -> str:
 
 
 def _levels_key(report: dict) -> str:
-    system = ((report.get("recipe") or {}).get("content") or {}).get("system") or {}
+    source = report.get("recipe")  # a run's report: the recipe; check's verdict: its name
+    content = source.get("content") if isinstance(source, dict) else None
+    system = (content or {}).get("system") or {}
     return "levels on every [[system.transmon]]" if system.get("model") == "transmons" \
         else "system.levels"
 
