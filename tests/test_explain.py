@@ -60,7 +60,14 @@ def test_a_spent_budget_says_so_and_how_to_give_more(tmp_path):
     assert report["explanation"][0]["cause"] == "budget"
     tail = last_lines(out)
     assert "why: the optimiser stopped at its iteration limit after 3 iterations" in tail
-    assert f"next: a larger budget: shaper optimize {recipe} --iterations" in tail
+    assert f"next: a larger budget, going on from where it stopped: shaper optimize {recipe} " \
+        f"--resume --iterations 6" in tail
+    # and that is what it does: the same run goes on to 40 iterations from its checkpoints
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
+                         "--no-plots", "--resume", "--iterations", 40)
+    more = json.loads((tmp_path / "run" / "report.json").read_text())["optimizer"]
+    assert code == verdict_code(tmp_path / "run" / "report.json"), err
+    assert more["iterations"] > 3 and more["starts"][0]["iterations"] > 3
 
 
 def test_a_target_out_of_reach_at_that_duration_suggests_a_sweep(tmp_path):

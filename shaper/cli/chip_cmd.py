@@ -22,6 +22,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--resume", action="store_true",
                         help="continue a run in --out: finished gates are kept")
     parser.add_argument("--force", action="store_true", help="start over in --out")
+    from shaper.cli import budget
+
+    budget.add_arguments(parser, what="the whole chip (tasks not finished are left for "
+                                      "--resume)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -39,6 +43,9 @@ def run(args: argparse.Namespace) -> int:
     if not 0 < wait <= 7 * 86400:
         raise InputError(f"--wait-workers must be a positive time up to a week, got "
                          f"{args.wait_workers!r}")
+    from shaper.cli import budget
+
+    limits = budget.read(args)
     chip = load_chip(args.chip)
     folder = Path(args.out) if args.out else Path("results") / chip.name
     from shaper.io import atomic
@@ -51,7 +58,8 @@ def run(args: argparse.Namespace) -> int:
         LocalExecutor(args.workers or os.cpu_count() or 1)
     try:
         rows = run_chip(chip, folder, executor=executor, resume=args.resume, force=args.force,
-                        echo=echo, progress=not args.quiet)
+                        echo=echo, progress=not args.quiet,
+                        budget={k: limits[k] for k in ("iterations", "starts", "deadline")})
     finally:
         executor.close()
     print((folder / "chip.md").read_text(), end="")
@@ -60,6 +68,10 @@ def run(args: argparse.Namespace) -> int:
     from shaper.io.waveio import CAUTION
     print(f"CAUTION: {CAUTION}")
     failing = [f"{r.subject} {r.gate}" for r in rows if not r.met]
+    unfinished = len(chip.tasks) - len({(r.subject, r.derived_from or r.gate) for r in rows})
+    if unfinished > 0:
+        print(f"{unfinished} task(s) not finished within --hours; run again with --resume")
+        return 1
     if failing:
         print(f"targets NOT met by {len(failing)} gate(s): {', '.join(failing)}")
         return 1

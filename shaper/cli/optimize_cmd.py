@@ -22,13 +22,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="overwrite an earlier run in the output folder")
     parser.add_argument("--resume", action="store_true",
                         help="continue from the checkpoints in the output folder")
-    parser.add_argument("--starts", type=int, help="independently seeded starts (default: the "
-                                                   "recipe's optimizer.starts)")
     parser.add_argument("--workers", type=int, default=0,
                         help="worker processes for the starts (default: one per core, at most "
                              "one per start; 1: one after another in this process)")
-    parser.add_argument("--hours", type=float, help="wall-clock budget in hours")
-    parser.add_argument("--iterations", type=int, help="iteration budget per start")
+    from shaper.cli import budget
+
+    budget.add_arguments(parser, what="the run (with --resume, a larger one continues it)")
     parser.add_argument("--checkpoint-every", type=int, default=100, metavar="N",
                         help="checkpoint every N iterations (default 100)")
     parser.add_argument("--checkpoint-seconds", type=float, default=60.0, metavar="T",
@@ -82,15 +81,15 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, stop) -> int:
+    from shaper.cli import budget
     from shaper.errors import InputError
     from shaper.recipe import load_recipe
 
-    for name in ("starts", "iterations", "checkpoint_every"):
+    budget.read(args)  # checks --hours, --iterations, --starts
+    for name in ("checkpoint_every",):
         value = getattr(args, name)
         if value is not None and value < 1:
             raise InputError(f"--{name.replace('_', '-')} must be at least 1, got {value}")
-    if args.hours is not None and not args.hours > 0:
-        raise InputError(f"--hours must be positive, got {args.hours}")
     from shaper.recipe.units import parse_quantity
     stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit",
                                  bare_check=False)

@@ -17,7 +17,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--durations", required=True,
                         help="start:stop:step (e.g. 6ns:30ns:2ns) or a list (10ns,12ns,20ns)")
     parser.add_argument("--out", help="output folder (default: results/<name>-sweep)")
-    parser.add_argument("--starts", type=int, help="starts per duration (default: the recipe's)")
+    from shaper.cli import budget
+
+    budget.add_arguments(parser, what="the whole sweep (durations not reached are left for "
+                                      "--resume)")
     parser.add_argument("--workers", type=int, default=0,
                         help="worker processes for the starts of each duration (default: one "
                              "per core, at most one per start)")
@@ -35,14 +38,14 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, stop) -> int:
+    from shaper.cli import budget
     from shaper.errors import InputError
     from shaper.jobs.sweep import parse_durations
     from shaper.recipe import load_recipe
 
-    for name in ("starts", "workers"):
-        value = getattr(args, name)
-        if value is not None and value < (1 if name == "starts" else 0):
-            raise InputError(f"--{name} must be at least 1, got {value}")
+    if args.workers is not None and args.workers < 0:
+        raise InputError(f"--workers must be at least 1, got {args.workers}")
+    args.budget = budget.read(args)
     recipe = load_recipe(args.recipe).one_gate("shaper sweep")
     durations = parse_durations(args.durations)
 
@@ -61,9 +64,9 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     from shaper.jobs.sweep import Sweep
     from shaper.recipe.units import format_quantity
 
-    if args.starts:
+    if args.starts or args.iterations:
         from shaper.recipe.derive import with_budget
-        recipe = with_budget(recipe, starts=args.starts)
+        recipe = with_budget(recipe, starts=args.starts, iterations=args.iterations)
     folder = Path(args.out) if args.out else Path("results") / f"{recipe.name}-sweep"
     echo = (lambda text: None) if args.quiet else (lambda text: print(text, file=sys.stderr,
                                                                       flush=True))
@@ -73,7 +76,7 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
         return stop.exit_code
     atomic.lock_folder(folder)
     sweep = Sweep(recipe, folder, seed=args.seed, resume=args.resume, stop=stop, echo=echo,
-                  workers=workers if starts > 1 else 1)
+                  workers=workers if starts > 1 else 1, deadline=args.budget["deadline"])
     shortest = sweep.run(durations, plots=not args.no_plots)
     chosen = shortest / recipe.sample_rate_hz if shortest else None
     print(sweep.table())
@@ -87,6 +90,11 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     if stop:
         print(f"interrupted; continue with --resume (finished durations are kept in {folder})")
         return stop.exit_code
+    if shortest is None and sweep.budget_reached:
+        print(f"the --hours budget ran out after {len(sweep.points)} duration(s) without a "
+              f"passing one; continue with --resume (and a budget): finished durations are "
+              f"kept in {folder}")
+        return 1
     if shortest is None:
         longest = sweep.points[max(sweep.points)] if sweep.points else None
         print("targets NOT met at any duration of the sweep"

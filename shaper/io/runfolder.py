@@ -36,7 +36,10 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False, *,
         report = folder / "report.json"
         if report.exists() and not force:
             old = atomic.read_json(report, ResultError, "unreadable report")
-            if old.get("optimizer", {}).get("stop_reason") != "interrupted":
+            # interrupted, or stopped by a budget (a larger one continues it)
+            if old.get("optimizer", {}).get("stop_reason") not in ("interrupted",
+                                                                     "iteration limit",
+                                                                     "time limit"):
                 raise ResultError(f"{folder} holds a finished run (report.json); there is "
                                   f"nothing to resume. Pass --force (force=True) to export it "
                                   f"again")

@@ -27,11 +27,20 @@ from shaper.jobs.gateset import GateRow, describe, write_table
 from shaper.recipe.chip import Chip, Task
 
 
-def run_task(task: Task, root: str) -> dict:
+def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
     """One task, in a worker: the sweep, the shortest passing pulse's export, the derived
-    gates. Returns ``rows`` (dictionaries, paths relative to ``root``), ``compiles`` (of
-    the objective, in this task) and ``wall_time_s``."""
+    gates. Returns ``rows`` (dictionaries, paths relative to ``root``; None: the budget
+    ran out before the task could finish, ``--resume`` redoes it), ``compiles`` (of the
+    objective, in this task) and ``wall_time_s``.
+
+    ``budget``: the command line's ``iterations`` and ``starts`` (per optimisation) and
+    ``deadline`` (``time.time()`` by which the whole chip ends, ``--hours``); not part of
+    the task's digest, so a resumed chip keeps what finished under another budget.
+    """
     started = time.monotonic()
+    budget = budget or {}
+    if budget.get("deadline") is not None and time.time() >= budget["deadline"]:
+        return {"rows": None, "compiles": 0, "wall_time_s": 0.0}
     if "jax" not in sys.modules:  # a fresh worker: one thread, as the starts' workers
         from shaper.optimizer.parallel import _PINNED
         os.environ.update(_PINNED)
@@ -49,10 +58,17 @@ def run_task(task: Task, root: str) -> dict:
         shutil.rmtree(folder)  # another qubit or template: its earlier work does not apply
     folder.mkdir(parents=True, exist_ok=True)
     atomic.write_json(marker, {"task": task.id, "digest": task.digest})
-    recipe = load_recipe(task.recipe)
-    sweep = Sweep(recipe, folder / "sweep", resume=True, echo=lambda text: None)
+    from shaper.recipe.derive import with_budget
+
+    recipe = with_budget(load_recipe(task.recipe), iterations=budget.get("iterations"),
+                         starts=budget.get("starts"))
+    sweep = Sweep(recipe, folder / "sweep", resume=True, echo=lambda text: None,
+                  deadline=budget.get("deadline"))
     shortest = sweep.run(parse_durations(task.durations, key=task.durations_key),
                          plots=False)
+    if shortest is None and (sweep.budget_reached or not sweep.points):
+        return {"rows": None, "compiles": sweep.compiles, "wall_time_s":
+                time.monotonic() - started}
     n = shortest if shortest is not None else max(sweep.points)
     output = finish(sweep.result_at(n), folder / "shortest", plots_too=False)
     result = output.result
@@ -183,8 +199,9 @@ class DaskExecutor:
 
 
 def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bool = False,
-             echo=print, progress: bool = True) -> list[GateRow]:
-    """Run every task not finished yet; write the summary; return every row.
+             echo=print, progress: bool = True, budget: dict | None = None) -> list[GateRow]:
+    """Run every task not finished yet; write the summary; return every finished row.
+    ``budget``: as :func:`run_task` takes it (``--iterations``, ``--starts``, ``--hours``).
 
     Raises:
         ResultError: ``out`` holds another chip's run, or a run that ``resume``/``force``
@@ -200,24 +217,49 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
     echo(f"chip {chip.name}: {len(chip.qubits)} qubit(s), {len(chip.pairs)} pair(s), "
          f"{len(chip.tasks)} optimisation(s); {len(done)} finished earlier and kept, "
          f"{len(todo)} to run on {executor.description}")
-    bar = None
+    bar, weights = None, {t.id: expected_cost(t) for t in todo}
     if progress and todo:
         from tqdm import tqdm
-        bar = tqdm(total=len(todo), unit="gate", file=sys.stderr, dynamic_ncols=True,
-                   bar_format="{l_bar}{bar}| {n_fmt}/{total_fmt} [{elapsed} < {remaining}]")
-    started = time.monotonic()
+        # the bar counts work, not tasks: a pair's task costs far more than a qubit's, so
+        # the time left is weighed by each task's expected cost (expected_cost)
+        bar = tqdm(total=sum(weights.values()), file=sys.stderr, dynamic_ncols=True,
+                   bar_format="{l_bar}{bar}| {postfix} [{elapsed} < {remaining}]")
+        bar.set_postfix_str(f"0/{len(todo)} tasks")
+    started, finished = time.monotonic(), []
+
+    def tick(task) -> None:
+        finished.append(task.id)
+        if bar is not None:
+            bar.set_postfix_str(f"{len(finished)}/{len(todo)} tasks", refresh=False)
+            bar.update(weights[task.id])
     try:
-        _run_tasks(executor, todo, out, state, done,
-                   say=bar.write if bar is not None else echo,
-                   tick=bar.update if bar is not None else (lambda n: None))
+        _run_tasks(executor, todo, out, state, done, budget,
+                   say=bar.write if bar is not None else echo, tick=tick)
     finally:
         if bar is not None:
             bar.close()
-    rows = [GateRow(**r) for t in chip.tasks for r in done[t.id]]
+    rows = [GateRow(**r) for t in chip.tasks if t.id in done for r in done[t.id]]
+    missing = [t.id for t in chip.tasks if t.id not in done]
+    if missing:
+        echo(f"{len(missing)} task(s) not finished within the budget (--hours): "
+             f"{', '.join(missing)}; run again with --resume (and a budget) to finish them")
     state["wall_time_s"] = time.monotonic() - started
     atomic.write_json(out / "chip.json", state)
     write_summary(chip, out, rows)
     return rows
+
+
+def expected_cost(task: Task) -> float:
+    """A task's expected share of the work: its durations times their samples times d^3
+    (one eigendecomposition of a d x d slice) times the systems propagated together.
+    Only relative sizes matter (the progress bar's time left)."""
+    from shaper.recipe import load_recipe
+    from shaper.recipe.units import parse_durations
+
+    recipe = load_recipe(task.recipe)
+    durations = parse_durations(task.durations, key=task.durations_key)
+    samples = sum(durations) * recipe.sample_rate_hz
+    return samples * recipe.system.dimension ** 3 * (len(recipe.ensemble_scales) + 1)
 
 
 def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
@@ -238,13 +280,17 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
     return state
 
 
-def _run_tasks(executor, todo, out: Path, state: dict, done: dict, *, say, tick) -> None:
+def _run_tasks(executor, todo, out: Path, state: dict, done: dict, budget, *, say,
+               tick) -> None:
     """Submit every task; record each as it finishes (chip.json written at once)."""
-    futures = {executor.submit(run_task, t, str(out)): t for t in todo}
+    futures = {executor.submit(run_task, t, str(out), budget): t for t in todo}
     try:
         for future in executor.completed(list(futures)):
             task = futures[future]
             outcome = executor.result(future)
+            if outcome["rows"] is None:  # the budget ran out first: not finished
+                tick(task)
+                continue
             state["tasks"][task.id] = {"digest": task.digest, "rows": outcome["rows"],
                                        "compiles": outcome["compiles"],
                                        "wall_time_s": outcome["wall_time_s"],
@@ -253,7 +299,7 @@ def _run_tasks(executor, todo, out: Path, state: dict, done: dict, *, say, tick)
             done[task.id] = outcome["rows"]
             for row in outcome["rows"]:
                 say(describe(GateRow(**row)))
-            tick(1)
+            tick(task)
     except Exception as exc:
         lost = getattr(executor, "lost", lambda e: None)(exc)
         if lost is None:

@@ -106,12 +106,13 @@ def _optimiser_reason(report, own, optimizer, limits, recipe) -> Reason:
     stop = optimizer.get("stop_reason", "")
     iterations = optimizer.get("iterations", 0)
     if stop in BUDGET_STOPS:
-        unit = "--iterations" if stop == "iteration limit" else "--hours"
+        more = f"--iterations {2 * iterations}" if stop == "iteration limit" else "--hours ..."
         return Reason("budget",
                       f"the optimiser stopped at its {stop} after {iterations} iterations, "
                       f"at {_pair(own)}",
-                      f"a larger budget: shaper optimize {recipe} {unit} ... (or "
-                      f"optimizer.max_iterations / max_time)")
+                      f"a larger budget, going on from where it stopped: shaper optimize "
+                      f"{recipe} --resume {more} (the same --out; or optimizer.max_iterations "
+                      f"/ max_time)")
     members = _ensemble_reason(report, limits, recipe)
     if members is not None and not _over(_nominal(report), limits):
         return members

@@ -79,15 +79,24 @@ class SweepPoint:
     rotating_infidelity: float | None = None
     rotating_leakage: float | None = None
     judged_on: str = ""
+    starts: int = 0  # how many starts the point ran (0: the recipe's)
+    retried: bool = False  # failed while a longer duration passed: run again, more starts
+
+
+RETRY_STARTS = 4  # at least this many starts when a point is retried
 
 
 class Sweep:
     """One sweep over durations of a recipe, writing into ``folder``."""
 
     def __init__(self, recipe: Recipe, folder: Path, *, seed: int | None = None,
-                 resume: bool = False, stop=None, echo=print, workers: int = 1):
+                 resume: bool = False, stop=None, echo=print, workers: int = 1,
+                 deadline: float | None = None):
         self.recipe, self.folder, self.stop, self.echo = recipe, Path(folder), stop, echo
         self.workers = workers
+        self.deadline = deadline  # time.time() by which the sweep ends (--hours), or None
+        self.budget_reached = False
+        self.retry_starts = max(RETRY_STARTS, 2 * recipe.optimizer.starts)
         self.seed = recipe.optimizer.seed if seed is None else seed
         # compiled objectives: by padded size, or (IF or line sub-steps: no shared padding)
         # by the duration's own sample count, negated
@@ -100,7 +109,8 @@ class Sweep:
                 raise ResultError(f"{self.folder} already holds a sweep (sweep.json); pass "
                                   f"--resume to continue it or choose another --out")
             data = atomic.read_json(state, ResultError, "unreadable")
-            if data.get("recipe_sha256") != recipe.sha256:
+            if data.get("recipe_sha256") != recipe.sha256 and \
+                    data.get("problem_sha256") != recipe.problem_sha256:
                 raise ResultError(f"{state}: this sweep belongs to another recipe; start a new "
                                   f"one in another folder")
             self.points = {p["samples"]: SweepPoint(**p) for p in data["points"]}
@@ -125,10 +135,33 @@ class Sweep:
         """The exported waveform of duration ``n`` (our CSV with its JSON sidecar)."""
         return self.folder / f"pulse-{n}.csv"
 
-    def solve(self, n: int, warm: np.ndarray | None,
-              requested_s: float | None = None) -> tuple[SweepPoint, Result]:
-        """Optimise at ``n`` samples (or load the finished point); judge the export."""
-        if n in self.points and self.samples_path(n).exists():
+    def time_left(self) -> float | None:
+        return None if self.deadline is None else self.deadline - time.time()
+
+    def out_of_time(self) -> bool:
+        """True (and remembered) once the sweep's --hours budget is spent."""
+        left = self.time_left()
+        if left is not None and left <= 0:
+            self.budget_reached = True
+        return self.budget_reached
+
+    def retry(self, n: int, warm: np.ndarray | None) -> SweepPoint:
+        """A failing point while a longer duration passes: once more with more starts
+        (its first start is kept from the checkpoint), within the budget."""
+        point = self.points[n]
+        if point.met or point.retried or self.out_of_time():
+            return point
+        self.echo(f"{format_quantity(point.duration_s, 's'):>10}: misses the targets while a "
+                  f"longer duration meets them; again with {self.retry_starts} starts")
+        point, _ = self.solve(n, warm, point.requested_s, starts=self.retry_starts)
+        return point
+
+    def solve(self, n: int, warm: np.ndarray | None, requested_s: float | None = None,
+              starts: int | None = None) -> tuple[SweepPoint, Result]:
+        """Optimise at ``n`` samples (or load the finished point); judge the export.
+        ``starts``: run that many starts (a retry) even if the point is finished."""
+        if n in self.points and self.samples_path(n).exists() and (
+                starts is None or self.points[n].retried):
             return self.points[n], None
         from shaper.jobs.export import make_waveform
         from shaper.jobs.playback import Playback
@@ -139,7 +172,8 @@ class Sweep:
         work = self.folder / f"duration-{n}"  # checkpoints and history of this duration
         resume = any(work.glob("checkpoint-*.npz"))
         result = optimize(recipe, RunOptions(seed=self.seed, folder=work, resume=resume,
-                                             workers=self.workers, stop=self.stop),
+                                             workers=self.workers, stop=self.stop,
+                                             starts=starts, time_left_s=self.time_left()),
                           objective=objective, first=None if warm is None else stretch(warm, n))
         wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
         playback = Playback(recipe, wave)
@@ -156,7 +190,8 @@ class Sweep:
                            missed="" if verdict.met else verdict.summary(),
                            coherent_error=budget and budget["coherent_error"],
                            incoherent_error=budget and budget["incoherent_error"],
-                           total_error=budget and budget["infidelity"])
+                           total_error=budget and budget["infidelity"],
+                           starts=len(result.starts), retried=starts is not None)
         if not self.stop:  # an interrupted point is not finished: it is redone on resume
             writers.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
@@ -174,6 +209,7 @@ class Sweep:
     def save(self) -> None:
         atomic.write_json(self.folder / "sweep.json", {
             "recipe": self.recipe.name, "recipe_sha256": self.recipe.sha256,
+            "problem_sha256": self.recipe.problem_sha256,
             "points": [vars(p) for _, p in sorted(self.points.items())]})
 
     def pulse(self, n: int) -> np.ndarray | None:
@@ -226,6 +262,8 @@ class Sweep:
         warm = None
         first_pass = None
         for i, n in enumerate(grid):
+            if self.out_of_time():
+                return None
             point, _ = self.solve(n, warm, asked[n])
             if self.stop:
                 return None
@@ -234,13 +272,28 @@ class Sweep:
                 first_pass = i
         if first_pass is None:
             return None
+        for n in grid[first_pass + 1:]:  # a failure above a pass: a start that went astray
+            if not self.points[n].met and not self.stop:
+                self.retry(n, self.pulse(grid[first_pass]))
+        while first_pass > 0 and not self.stop and \
+                self.retry(grid[first_pass - 1], self.pulse(grid[first_pass - 2])
+                           if first_pass > 1 else None).met:
+            first_pass -= 1
+        return self._bisect(grid, first_pass)
+
+    def _bisect(self, grid: list[int], first_pass: int) -> int | None:
+        """Whole samples between the last failing and the first passing grid point; a
+        failing midpoint is retried with more starts before it counts."""
+        hold = self.recipe.hold
         lo = grid[first_pass - 1] if first_pass > 0 else None
         hi = grid[first_pass]
-        while lo is not None and hi - lo > hold:
+        while lo is not None and hi - lo > hold and not self.out_of_time():
             mid = lo + ((hi - lo) // (2 * hold)) * hold
             point, _ = self.solve(mid, self.pulse(lo))
             if self.stop:
                 return None
+            if not point.met:
+                point = self.retry(mid, self.pulse(lo))
             if point.met:
                 hi = mid
             else:
@@ -293,7 +346,9 @@ class Sweep:
                 if budget and p.total_error is not None else ("| | " if budget else "")
             rotating = "" if p.rotating_infidelity is None else \
                 f"{p.rotating_infidelity:.3e}, {p.rotating_leakage:.3e}"
+            meets = ("yes" if p.met else "no") + (f" (retried, {p.starts} starts)"
+                                                  if p.retried else "")
             lines.append(f"| {format_quantity(p.duration_s, 's')} | {asked} | {p.samples} | "
-                         f"{p.infidelity:.3e} | {p.leakage:.3e} | {'yes' if p.met else 'no'} | "
+                         f"{p.infidelity:.3e} | {p.leakage:.3e} | {meets} | "
                          f"{rotating} | {extra}{p.iterations} | {p.wall_time_s:.1f} |")
         return "\n".join(lines) + "\n"

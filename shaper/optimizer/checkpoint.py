@@ -54,8 +54,11 @@ def _read(path: Path) -> tuple[dict[str, np.ndarray], dict]:
     return arrays, json.loads(text)
 
 
-def load(path: str | Path, recipe_sha256: str) -> tuple[dict[str, np.ndarray], dict, str]:
-    """The newest good checkpoint at ``path`` (or its ``.prev``).
+def load(path: str | Path, recipe_sha256: str,
+         problem_sha256: str | None = None) -> tuple[dict[str, np.ndarray], dict, str]:
+    """The newest good checkpoint at ``path`` (or its ``.prev``), of this recipe: the same
+    digest, or the same problem (``problem_sha256``: the recipe without its budgets, so a
+    run continues with another --iterations, --hours or --starts).
 
     Returns:
         (arrays, meta, note): ``note`` says whether the previous checkpoint had to be used.
@@ -74,7 +77,9 @@ def load(path: str | Path, recipe_sha256: str) -> tuple[dict[str, np.ndarray], d
         except Exception as exc:  # truncated zip, bad checksum, bad JSON: try the older one
             problems.append(f"{candidate.name}: {type(exc).__name__}: {exc}")
             continue
-        if meta.get("recipe_sha256") != recipe_sha256:
+        same = meta.get("recipe_sha256") == recipe_sha256 or (
+            problem_sha256 is not None and meta.get("problem_sha256") == problem_sha256)
+        if not same:
             raise ResultError(f"{candidate}: this checkpoint belongs to another recipe (sha256 "
                               f"{str(meta.get('recipe_sha256'))[:12]}..., this recipe "
                               f"{recipe_sha256[:12]}...); start a new run or use the recipe "

@@ -65,14 +65,17 @@ def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | Non
     """A start's state on disk: (its result if it had finished, the resume tuple if not)."""
     if path is None or not (path.exists() or checkpoint.previous(path).exists()):
         return None, None
-    arrays, meta, note = checkpoint.load(path, recipe.sha256)
+    arrays, meta, note = checkpoint.load(path, recipe.sha256, recipe.problem_sha256)
     if note:
         LOG.warning(f"{path.name}: {note}")
     if meta.get("method") != recipe.optimizer.method:
         raise ResultError(f"{path}: written by method {meta.get('method')!r}, the recipe now "
                           f"asks for {recipe.optimizer.method!r}")
     b = meta["best"]
-    if meta["finished"]:
+    o = recipe.optimizer
+    more = (meta.get("stop_reason") == "iteration limit" and meta["iteration"] < o.max_iterations
+            or meta.get("stop_reason") == "time limit")  # a larger budget: go on
+    if meta["finished"] and not more:
         return StartResult(seed=meta["seed"], params=arrays["best_x"], cost=b["cost"],
                            parts=b["parts"], infidelity=b["infidelity"],
                            leakage=b["leakage"], iterations=meta["iteration"],

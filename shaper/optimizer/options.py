@@ -33,6 +33,10 @@ class RunOptions:
             interrupt`); with workers it reaches them through a file in ``folder``.
         watchdog: a :class:`~shaper.optimizer.watchdog.Watchdog`, beaten after every
             evaluation of a serial start (worker processes run their own with its limit).
+        starts: run this many starts instead of ``optimizer.starts`` (a sweep's retry;
+            the recipe, its digest and its compiled objective stay the same).
+        time_left_s: the wall clock left of a larger budget (a sweep's or a chip's
+            ``--hours``): the run stops at the earlier of this and ``optimizer.max_time``.
     """
 
     seed: int | None = None
@@ -45,6 +49,8 @@ class RunOptions:
     on_start_done: Callable | None = None
     stop: object = None
     watchdog: object = None
+    starts: int | None = None
+    time_left_s: float | None = None
 
     def __post_init__(self):
         if self.folder is not None and not isinstance(self.folder, Path):
@@ -56,6 +62,8 @@ class RunOptions:
         if not self.checkpoint_seconds > 0:
             raise InputError(f"checkpoint_seconds must be positive, got "
                              f"{self.checkpoint_seconds!r}")
+        if self.starts is not None and (not isinstance(self.starts, int) or self.starts < 1):
+            raise InputError(f"starts must be a whole number >= 1, got {self.starts!r}")
         if self.resume and self.folder is None:
             raise InputError("resume needs the folder that holds the checkpoints")
 

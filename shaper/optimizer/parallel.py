@@ -80,7 +80,7 @@ def _worker(raw_recipe, path, index, seed, options, job):
     return result, compile_time
 
 
-def run_parallel(recipe, seed, options, *, deadline, first=None):
+def run_parallel(recipe, seed, options, *, deadline, first=None, count=None):
     """Run every start of ``recipe`` on ``options.workers`` processes.
 
     Returns:
@@ -100,7 +100,7 @@ def run_parallel(recipe, seed, options, *, deadline, first=None):
                              initializer=pin_threads, initargs=(os.getpid(),)) as pool:
         futures = [pool.submit(_worker, recipe.raw if recipe.path is None else None,
                                recipe.path, i, seed + i, options.for_worker(), job)
-                   for i in range(recipe.optimizer.starts)]
+                   for i in range(count or recipe.optimizer.starts)]
         pending = set(futures)
         while pending:
             if stop and stop_file:  # pass a signal on to the workers

@@ -76,18 +76,19 @@ def optimize(recipe_or_path, options: RunOptions | None = None, *,
         folder.mkdir(parents=True, exist_ok=True)
     t0 = time.monotonic()
     objective = objective or make_objective(recipe)
-    deadline = t0 + o.max_time_s
+    deadline = t0 + min(o.max_time_s, options.time_left_s or o.max_time_s)
+    count = options.starts or o.starts
     watchdog = options.watchdog
-    if options.workers > 1 and o.starts > 1:
+    if options.workers > 1 and count > 1:
         from shaper.optimizer.parallel import run_parallel
         starts, compile_time = run_parallel(recipe, seed, options, deadline=deadline,
-                                            first=first)
+                                            first=first, count=count)
     else:
         compile_time = compile_now(objective)
         if watchdog is not None:
             watchdog.beat("compile")
         starts = []
-        for i in range(o.starts):
+        for i in range(count):
             start = run_one(recipe, objective, i, seed + i, options, deadline=deadline,
                             first=first)
             starts.append(start)

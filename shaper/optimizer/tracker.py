@@ -196,7 +196,8 @@ class Tracker:
         value, best_x, parts, infid, leak = self.best
         arrays = {"x": np.asarray(x), "best_x": best_x}
         arrays.update({f"state_{i}": np.asarray(a) for i, a in enumerate(state_leaves)})
-        meta = {"recipe_sha256": self.s.recipe.sha256, "method": self.o.method,
+        meta = {"recipe_sha256": self.s.recipe.sha256,
+                "problem_sha256": self.s.recipe.problem_sha256, "method": self.o.method,
                 "seed": self.s.seed, "index": self.s.index, "iteration": self.iteration,
                 "evaluations": self.evaluations, "stall_best": self.stall_best,
                 "stall_at": self.stall_at, "finished": finished,

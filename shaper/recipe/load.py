@@ -80,6 +80,19 @@ def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe
         raise RecipeError(str(exc), path=path, key="system") from None
     files = {st.source: st.sha256 for stages in recipe.line.stages.values() for st in stages
              if st.sha256}
+    problem = budget_free(raw)
     if files:  # a changed response file is another recipe (its checkpoints are refused)
-        recipe = replace(recipe, sha256=digest({"recipe": raw, "files": files}))
-    return recipe
+        return replace(recipe, sha256=digest({"recipe": raw, "files": files}),
+                       problem_sha256=digest({"recipe": problem, "files": files}))
+    return replace(recipe, problem_sha256=digest(problem))
+
+
+BUDGETS = ("max_iterations", "max_time", "starts")  # [optimizer] keys that only bound a run
+
+
+def budget_free(raw: dict) -> dict:
+    """The recipe without the optimiser's budgets: a larger budget is the same problem."""
+    optimizer = raw.get("optimizer")
+    if not isinstance(optimizer, dict) or not any(k in optimizer for k in BUDGETS):
+        return raw
+    return {**raw, "optimizer": {k: v for k, v in optimizer.items() if k not in BUDGETS}}

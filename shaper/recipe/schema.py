@@ -212,6 +212,9 @@ class Recipe:
     line: LineSettings = field(default_factory=LineSettings)
     verdict: VerdictSettings = field(default_factory=VerdictSettings)
     raw: dict = field(repr=False)
+    # the digest without the optimiser's budgets (max_iterations, max_time, starts): what a
+    # checkpoint or a sweep belongs to, so a run continues with a larger budget
+    problem_sha256: str = ""
 
     @property
     def dt(self) -> float:
