@@ -78,6 +78,13 @@ def test_a_report_simulates_each_file_once(tmp_path, monkeypatch):
     report = json.loads((out.folder / "report.json").read_text())
     assert report["line"]["with_line"]["infidelity"] == report["infidelity"]
     assert report["trust"]["lab_frame"] is not None
+    # the pictures a gate engineer decides with, all drawn (README, "Output files"): the
+    # robust run's sensitivity with its members, the textbook comparison
+    assert "extras_failed" not in report, report.get("extras_failed")
+    for name in ("waveform.png", "spectrum.png", "populations.png", "convergence.png",
+                 "sensitivity.png", "textbook.png"):
+        assert (out.folder / name).stat().st_size > 10_000, name
+    assert len(report["sensitivity"]["detuning_hz"]) == 21
 
 
 def _digest(play) -> tuple:

@@ -54,17 +54,29 @@ def _integer_ticks(axis) -> None:
 
 
 def plot_waveform(path: Path, samples_hz: np.ndarray, dt: float, names, limits=None,
-                  title: str | None = None) -> None:
+                  title: str | None = None, delivered: np.ndarray | None = None,
+                  delivered_dt: float | None = None) -> None:
+    """The DAC's held samples per control and, where the signal chain changes them (an
+    IF, a mixer, the line), what reaches the chip in the drive frame (thin lines, on the
+    chain's finer grid)."""
     fig, (ax,) = _figure(8, 3.8)
     t_ns = np.arange(samples_hz.shape[0] + 1) * dt * 1e9
     for k, name in enumerate(names):
-        ax.stairs(samples_hz[:, k] / 1e6, t_ns, label=name, linewidth=1.4)
+        ax.stairs(samples_hz[:, k] / 1e6, t_ns, label=f"{name} (DAC)", linewidth=1.4,
+                  color=f"C{k % 10}")
+    if delivered is not None:
+        t_fine = (np.arange(delivered.shape[0]) + 0.5) * delivered_dt * 1e9
+        for k, name in enumerate(names):
+            ax.plot(t_fine, delivered[:, k] / 1e6, color=f"C{k % 10}", linewidth=0.8,
+                    linestyle="--", label=f"{name} at the chip")
     for lim in sorted(set(limits or [])):
         ax.axhline(lim / 1e6, color="grey", linestyle=":", linewidth=0.8)
         ax.axhline(-lim / 1e6, color="grey", linestyle=":", linewidth=0.8)
     ax.set_xlabel("time (ns)")
     ax.set_ylabel("MHz (Rabi frequency; flux: shift)")
-    ax.set_title("Drive samples as held by the DAC (dotted: amplitude limit)", fontsize=9)
+    ax.set_title("Drive samples as held by the DAC" + (" and as the chip sees them (dashed)"
+                                                        if delivered is not None else "")
+                 + " (dotted: amplitude limit)", fontsize=9)
     ax.legend(loc="upper right", fontsize=8)
     _finish(fig, path, title)
 
@@ -219,4 +231,25 @@ def plot_sweep(path: Path, points: list, targets: tuple[float, float], chosen_s=
     ax.set_ylabel("error (best start, as exported)")
     ax.set_title("Best result per duration", fontsize=9)
     ax.legend(fontsize=8)
+    _finish(fig, path, title)
+
+
+def plot_textbook(path: Path, ours: dict, textbook: dict, targets: tuple[float, float],
+                  title: str | None = None) -> None:
+    """The optimised pulse beside the calibrated textbook ones at the same duration
+    (infidelity and leakage, log scale), with the targets."""
+    kinds = [("optimised", ours)] + [(k, v) for k, v in textbook.items()
+                                     if isinstance(v, dict)]
+    fig, (ax,) = _figure(6, 3.6)
+    x = np.arange(len(kinds))
+    ax.bar(x - 0.2, [max(v["infidelity"], 1e-16) for _, v in kinds], 0.4, label="infidelity")
+    ax.bar(x + 0.2, [max(v["leakage"], 1e-16) for _, v in kinds], 0.4, label="leakage")
+    ax.axhline(targets[0], color="C0", linestyle=":", linewidth=0.9, label="target infidelity")
+    ax.axhline(targets[1], color="C1", linestyle=":", linewidth=0.9, label="target leakage")
+    ax.set_yscale("log")
+    ax.set_xticks(x, [k.replace("gaussian", "Gaussian").replace("drag", "DRAG")
+                      for k, _ in kinds])
+    ax.set_ylabel("as exported")
+    ax.set_title("Against the calibrated textbook pulses of the same length", fontsize=9)
+    ax.legend(fontsize=7)
     _finish(fig, path, title)

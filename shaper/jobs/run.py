@@ -188,6 +188,14 @@ def _extras(result: Result, folder: Path, playback: Playback, report: dict, plot
     try:
         report["textbook_pulses"] = textbook_pulses(recipe, recipe_layout(recipe),
                                                     result.objective.qubits)
+        if plots_too and any(isinstance(v, dict) for v in report["textbook_pulses"].values()):
+            o = recipe.optimizer
+            # both in the optimiser's model (rotating frame, the recipe's levels)
+            draw(plots.plot_textbook, folder / "textbook.png",
+                 {"infidelity": report["infidelity"], "leakage": report["leakage"]},
+                 report["textbook_pulses"], (o.target_infidelity, o.target_leakage),
+                 title=f"{recipe.name}: {recipe.target.label}, {recipe.duration_s * 1e9:g} ns")
+            plotted.append(folder / "textbook.png")
     except Exception as exc:  # noqa: BLE001 - an extra must not cost the result
         failed["textbook_pulses"] = f"{type(exc).__name__}: {exc}"
     return failed, plotted
@@ -215,8 +223,13 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
                                   "convergence.png")]
     channels = [SimpleNamespace(name=c.name, columns=tuple(c.columns)) for c in system.channels]
+    from shaper.signal.chain import for_waveform
+
+    chain = for_waveform(recipe, waveform)
+    delivered = None if chain.identity else np.asarray(chain(samples), float)
     draw(plots.plot_waveform, names[0], samples, dt, list(system.control_names),
-         limits=list(recipe.limits_hz.values()), title=title)
+         limits=list(recipe.limits_hz.values()), title=title, delivered=delivered,
+         delivered_dt=chain.dt_s)
     markers = {}
     for q, tf in system.transition_frequencies.items():
         markers[f"{q} f01"] = tf["f01_hz"]
