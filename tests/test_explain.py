@@ -70,19 +70,21 @@ def test_a_spent_budget_says_so_and_how_to_give_more(tmp_path):
     assert more["iterations"] > 3 and more["starts"][0]["iterations"] > 3
 
 
-def test_a_target_out_of_reach_at_that_duration_suggests_a_sweep(tmp_path):
-    # 5 ns at a 60 MHz limit cannot make a pi pulse (its area needs 8.3 ns at full drive:
-    # the Rabi formula, theta = 2 pi Omega t)
+def test_a_target_out_of_reach_is_said_before_the_night_and_after_it(tmp_path):
+    # 5 ns at a 60 MHz limit cannot make a pi pulse: a rotation by theta takes at least
+    # theta / (2 pi Omega) = 8.33 ns (the Rabi formula, theta = 2 pi Omega t)
     recipe = write_demo(tmp_path, "\n[optimizer]\nstall_iterations = 20\n", duration="5 ns")
-    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
-                         "--no-plots")
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--no-plots")
     assert code == 1, err
-    (reason,) = [type("R", (), r) for r in
-                 json.loads((tmp_path / "run" / "report.json").read_text())["explanation"]]
-    assert reason.cause == "converged above the target"
-    assert "out of reach at 5 ns" in reason.why
-    assert f"shaper sweep {recipe} --durations 5ns:10ns:1ns" in reason.next
-    assert "why: the optimiser stopped" in last_lines(out)
+    said = err.index("warning: the X rotation at most 60 MHz of Rabi frequency takes at least "
+                     "8.33 ns")
+    assert said < err.index("start 0")  # before the optimiser ran
+    bound, reason = json.loads((tmp_path / "run" / "report.json").read_text())["explanation"]
+    assert bound["cause"] == "speed limit" and "8.33 ns" in bound["next"]
+    assert reason["cause"] == "converged above the target"
+    assert "out of reach at 5 ns" in reason["why"]
+    assert f"shaper sweep {recipe} --durations 5ns:10ns:1ns" in reason["next"]
+    assert "why: the X rotation" in "\n".join(out.strip().splitlines()[-4:])
 
 
 def test_an_ensemble_that_spreads_past_the_target_is_named(tmp_path):

@@ -51,6 +51,32 @@ def explain(report: dict, *, recipe: str = "RECIPE") -> list[Reason]:
     return out + found
 
 
+ROTATIONS = {"X": 0.5, "Y": 0.5, "-X": 0.5, "-Y": 0.5, "X/2": 0.25, "Y/2": 0.25,
+             "-X/2": 0.25, "-Y/2": 0.25}  # rotation angle / 2 pi of a one-qubit gate
+
+
+def speed_limit(recipe) -> Reason | None:
+    """Said before the night, where a cheap bound exists: a one-qubit rotation by theta
+    driven at Rabi frequency at most Omega takes at least theta / (2 pi Omega) (Rabi's
+    resonant solution, the fastest rotation of a driven two-level system); a pulse
+    shorter than that cannot reach the targets, whatever the optimiser does."""
+    label = recipe.target.label.upper()
+    channels = recipe.system.channels
+    if label not in ROTATIONS or len(channels) != 1 or channels[0].kind != "iq" \
+            or not recipe.target.is_gate:
+        return None
+    limit = recipe.limits_hz[channels[0].name]
+    shortest = ROTATIONS[label] / limit if limit > 0 else float("inf")
+    if recipe.duration_s >= shortest:
+        return None
+    return Reason("speed limit",
+                  f"the {label} rotation at most {limit / 1e6:g} MHz of Rabi frequency takes at "
+                  f"least {shortest * 1e9:.3g} ns; this pulse is {recipe.duration_s * 1e9:.3g} "
+                  f"ns, so the targets are out of reach",
+                  f"a pulse of at least {shortest * 1e9:.3g} ns (pulse.duration), or a higher "
+                  f"pulse.max_rabi if the line allows it")
+
+
 def _model_reasons(report, own, limits, recipe) -> list[Reason]:
     """Where the file loses its targets between the optimiser's model and the judged one:
     every cause that applies, the one furthest over the targets first."""

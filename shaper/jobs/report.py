@@ -15,7 +15,7 @@ import numpy as np
 
 from shaper.errors import ResultError
 from shaper.io import atomic, waveio
-from shaper.jobs.explain import explain
+from shaper.jobs.explain import explain, speed_limit
 from shaper.jobs.export import make_waveform
 from shaper.jobs.playback import Playback, baseband, simulate_played
 from shaper.optimizer.starts import Result
@@ -92,8 +92,9 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
 def explained(report: dict, recipe: Recipe) -> dict:
     """The report with ``explanation``: why it missed and what to run next (empty when
     met; :mod:`shaper.jobs.explain`)."""
-    report["explanation"] = [r._asdict() for r in explain(report, recipe=recipe.path
-                                                          or recipe.name)]
+    reasons = explain(report, recipe=recipe.path or recipe.name)
+    bound = speed_limit(recipe) if reasons else None
+    report["explanation"] = [r._asdict() for r in ([bound] if bound else []) + reasons]
     return report
 
 

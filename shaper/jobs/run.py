@@ -73,6 +73,11 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
             if caller is not None:
                 caller(start)
         options = options.with_(on_start_done=on_start_done)
+    from shaper.jobs.explain import speed_limit
+
+    bound = speed_limit(recipe)  # said before the night, not after it
+    if bound is not None:
+        log.line(f"warning: {bound.why}. {bound.next}")
     result = optimize(recipe, options)
     output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog,
                     painter=painter, say=log.line)
