@@ -115,18 +115,33 @@ def test_derived_gates_meet_the_targets_by_independent_resimulation(tmp_path):
             < 1e-9
 
 
-@pytest.mark.parametrize("command", ["sweep", "check"])
-def test_one_gate_commands_refuse_a_gate_set(tmp_path, command):
+def test_check_refuses_a_gate_set_unless_told_the_gate(tmp_path):
     path = tmp_path / "set.toml"
     path.write_text(SET)
-    args = ["--durations", "10ns"] if command == "sweep" else [ROOT / "results" / "demo-x180"
-                                                                / "demo-x180.csv"]
-    code, _, err = cli(command, path, *args)
+    wave = ROOT / "results" / "demo-x180" / "demo-x180.csv"
+    code, _, err = cli("check", path, wave)
     assert code == 2 and "gate.targets" in err and "works on one gate" in err
-    if command == "check":  # one gate of the set, named
-        code, out, err = cli(command, path, *args, "--gate", "x", "--json")
-        verdict = json.loads(out)
-        assert code == (0 if verdict["pass"] else 1) and verdict["infidelity"] < 1, err
+    code, out, err = cli("check", path, wave, "--gate", "x", "--json")  # one gate, named
+    verdict = json.loads(out)
+    assert code == (0 if verdict["pass"] else 1) and verdict["infidelity"] < 1, err
+
+
+def test_a_sweep_of_a_gate_set_finds_each_gates_shortest_duration(tmp_path):
+    # the set's gates that must be played (X, X/2) each swept; Y, Y/2, -X/2, -Y/2 derived
+    # from them by a drive phase at their parent's shortest duration
+    path = tmp_path / "set.toml"
+    path.write_text(SET.replace("[optimizer]", "[optimizer]\nmax_iterations = 300"))
+    out = tmp_path / "sweep"
+    code, stdout, err = cli("sweep", path, "--durations", "10ns,15ns", "--out", out,
+                            "--quiet", "--workers", 2)
+    rows = _rows(out)
+    assert code == (0 if all(r["met"] == "yes" for r in rows) else 1), err
+    assert sorted(r["gate"] for r in rows) == sorted(["X", "X/2", "Y", "Y/2", "-X/2", "-Y/2"])
+    by_gate = {r["gate"]: r for r in rows}
+    for child, parent in (("Y", "X"), ("Y/2", "X/2"), ("-X/2", "X/2"), ("-Y/2", "X/2")):
+        assert by_gate[child]["derived_from"] == parent
+        assert by_gate[child]["duration_s"] == by_gate[parent]["duration_s"]
+    assert (out / "gates" / "x" / "sweep" / "sweep.json").exists()  # a chip's layout
 
 
 def _rows(folder: Path) -> list[dict]:

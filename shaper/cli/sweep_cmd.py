@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import os
 import sys
 from pathlib import Path
 
@@ -46,7 +47,9 @@ def _run(args: argparse.Namespace, stop) -> int:
     if args.workers is not None and args.workers < 0:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     args.budget = budget.read(args)
-    recipe = load_recipe(args.recipe).one_gate("shaper sweep")
+    recipe = load_recipe(args.recipe)
+    if recipe.gate_set:
+        return _gate_set(args, recipe)
     durations = parse_durations(args.durations)
 
     from shaper.jobs.painter import Painter
@@ -57,7 +60,6 @@ def _run(args: argparse.Namespace, stop) -> int:
 
 
 def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
-    import os
 
     from shaper.io import atomic
     from shaper.jobs.run import finish
@@ -115,3 +117,36 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     print(f"CAUTION: {output.report['caution']}")
     print("targets met")
     return 0
+
+
+def _gate_set(args: argparse.Namespace, recipe) -> int:
+    """``[gate] targets``: the shortest duration of every gate that must be played (each
+    its own sweep, on local workers), the others derived; a one-subject chip run
+    (README, "Gate sets")."""
+    from shaper.io import atomic
+    from shaper.io.waveio import CAUTION
+    from shaper.jobs.chip import LocalExecutor, gate_set_chip, run_chip
+
+    chip = gate_set_chip(recipe, args.durations)
+    folder = Path(args.out) if args.out else Path("results") / f"{recipe.name}-sweep"
+    atomic.lock_folder(folder)
+    executor = LocalExecutor(max(1, min(args.workers or os.cpu_count() or 1, len(chip.tasks))))
+    try:
+        rows = run_chip(chip, folder, executor=executor, resume=args.resume,
+                        echo=lambda text: print(text, file=sys.stderr, flush=True),
+                        progress=not args.quiet,
+                        budget={k: args.budget[k] for k in ("iterations", "starts",
+                                                            "deadline")})
+    finally:
+        executor.close()
+    print((folder / "chip.md").read_text(), end="")
+    print(f"wrote chip.csv, chip.md and chip.html (one row per gate) in {folder}")
+    print(f"CAUTION: {CAUTION}")
+    missing = len(chip.tasks) - len({r.derived_from or r.gate for r in rows})
+    failing = [r.gate for r in rows if not r.met]
+    if missing > 0:
+        print(f"{missing} gate sweep(s) not finished within --hours; run again with --resume")
+        return 1
+    print("targets met by every gate" if not failing else
+          f"targets NOT met by: {', '.join(failing)}")
+    return 0 if not failing else 1

@@ -21,6 +21,8 @@ import time
 from dataclasses import asdict
 from pathlib import Path
 
+import numpy as np
+
 from shaper.errors import EnvironmentFailure, ResultError
 from shaper.io import atomic
 from shaper.jobs.gateset import GateRow, describe, write_table
@@ -317,3 +319,42 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
     files += images
     files.append(write_page(out / "chip.html", chip, rows, images))
     return files
+
+
+def gate_set_chip(recipe, durations: str) -> Chip:
+    """A recipe's gate set as the tasks of a one-subject chip: every gate that must be
+    played swept over ``durations`` (``--durations``), the derived ones from their parent
+    at its shortest duration (``shaper sweep`` of a gate set)."""
+    from shaper.physics.targets import plan, slug
+    from shaper.recipe.derive import for_gate
+    from shaper.recipe.units import parse_durations
+
+    parse_durations(durations, key="--durations")  # refused here, not in a worker
+    qubits = int(round(np.log2(len(recipe.system.computational))))
+    subject = recipe.system.qubit_names[0] if qubits == 1 else recipe.name
+    tasks = []
+    for parent, derived in plan(recipe.gate_set, qubits):
+        raw = _absolute_files(for_gate(recipe, parent).raw, recipe.path)
+        tasks.append(Task(slug(parent), subject, parent, tuple(derived), raw, durations,
+                          "--durations"))
+    return Chip(name=recipe.name, path=recipe.path, sha256=recipe.sha256,
+                qubits=(subject,), pairs=(), tasks=tuple(tasks))
+
+
+def _absolute_files(raw: dict, path: str | None) -> dict:
+    """The recipe with the files it names (measured responses, a first guess) made
+    absolute beside ``path``: a task's recipe is read again in a worker, elsewhere."""
+    if not path:
+        return raw
+    import copy
+
+    raw, base = copy.deepcopy(raw), Path(path).parent
+    for stages in raw.get("line", {}).values():
+        for stage in stages if isinstance(stages, list) else [stages]:
+            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
+                stage["file"] = str((base / stage["file"]).resolve())
+    initial = raw.get("optimizer", {}).get("initial")
+    if isinstance(initial, str) and initial.endswith((".csv", ".npy", ".npz")) \
+            and (base / initial).exists():
+        raw["optimizer"]["initial"] = str((base / initial).resolve())
+    return raw
