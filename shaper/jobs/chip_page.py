@@ -23,6 +23,8 @@ from shaper.jobs.plots import _figure, _finish
 def write_plots(out: Path, chip, rows) -> list[Path]:
     """``chip-durations.png`` (shortest duration of each gate, per subject) and
     ``chip-errors.png`` (infidelity and leakage of each gate, log scale)."""
+    if not rows:  # nothing finished yet (a budget spent before any gate): no plots
+        return []
     subjects = list(dict.fromkeys(r.subject for r in rows))
     gates = list(dict.fromkeys(r.gate for r in rows))
     paths = []
