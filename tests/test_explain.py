@@ -129,3 +129,14 @@ def test_an_export_to_a_coarse_dac_names_the_instrument(demo_run, tmp_path):
     assert code == 1, err
     assert report["explanation"][0]["cause"] == "the new instrument"
     assert "4-bit" in report["explanation"][0]["why"]
+
+
+def test_a_sweep_with_no_passing_duration_says_why_in_its_table(tmp_path):
+    # 5 ns and 5.83 ns: both below the 8.33 ns a pi pulse needs at 60 MHz (Rabi formula)
+    recipe = write_demo(tmp_path)
+    code, out, err = cli("sweep", recipe, "--durations", "5ns,6ns", "--out", tmp_path / "s",
+                         "--quiet", "--no-plots")
+    assert code == 1, err
+    summary = (tmp_path / "s" / "sweep.md").read_text()
+    assert "## Why the longest duration missed, and what to try" in summary
+    assert "takes at least 8.33 ns" in summary and "why: the X rotation" in out

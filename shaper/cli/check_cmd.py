@@ -107,11 +107,9 @@ def _print_summary(v: dict) -> None:
           f"at +-{100 * (max(s['amplitude_scale']) - 1):.3g} %: "
           f"{s['infidelity_vs_scale'][0]:.3e}, {s['infidelity_vs_scale'][-1]:.3e}")
     t = v["targets"]
-    o = v.get("open_system")
-    if o:
-        print(f"  with decoherence: infidelity {o['infidelity']:.3e} = coherent "
-              f"{o['coherent_error']:.3e} (the pulse) + incoherent {o['incoherent_error']:.3e} "
-              f"(T1/T2); leakage {o['leakage']:.3e}")
+    from shaper.cli.text import coherence_lines
+    for text in coherence_lines(v.get("open_system")):
+        print(text)
     for text in line_summary(v.get("line")):
         print(text)
     if v.get("ensemble"):

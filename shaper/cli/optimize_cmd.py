@@ -101,14 +101,14 @@ def _run(args: argparse.Namespace, stop) -> int:
         print("shaper optimize: interrupted before the run began", file=sys.stderr)
         return stop.exit_code
     from shaper.io.runfolder import prepare_folder
-    # refuses at once, before JAX is loaded; with --force an earlier waveform and report
-    # are kept as *.replaced-N.*
-    prepare_folder(folder, args.force, args.resume,
-                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"])
-    from shaper.recipe.derive import with_budget
+    from shaper.recipe.derive import budget_of, with_budget
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
+    # refuses at once, before JAX is loaded; with --force an earlier waveform and report
+    # are kept as *.replaced-N.*
+    prepare_folder(folder, args.force, args.resume, budget=budget_of(recipe),
+                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"])
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
     workers = workers if starts > 1 else 1
@@ -149,8 +149,14 @@ def _print_summary(recipe, output, command_s: float) -> None:
     print(f"{recipe.name}: infidelity {trust['infidelity']:.3e}, leakage "
           f"{trust['leakage']:.3e} (on the exported {r['samples']} samples, "
           f"{recipe.export.dac_bits}-bit DAC)")
-    from shaper.cli.text import explanation_lines, line_summary, trust_summary
-    for text in trust_summary(r.get("trust")) + line_summary(r.get("line"), r.get("mixer")):
+    from shaper.cli.text import (
+        coherence_lines,
+        explanation_lines,
+        line_summary,
+        trust_summary,
+    )
+    for text in (trust_summary(r.get("trust")) + coherence_lines(r.get("open_system"))
+                 + line_summary(r.get("line"), r.get("mixer"))):
         print(text)
     print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; optimiser "
           f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s); "

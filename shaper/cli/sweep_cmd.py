@@ -102,6 +102,15 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
         print("targets NOT met at any duration of the sweep"
               + (f"; the longest, {format_quantity(longest.duration_s, 's')}: "
                  f"{longest.missed}" if longest else ""))
+        if longest is not None:  # why the longest missed, and what to try: its report
+            from shaper.cli.text import explanation_lines
+
+            output = finish(sweep.result_at(longest.samples), folder / "longest",
+                            plots_too=False)
+            why = explanation_lines(output.report)
+            sweep.add_to_summary("Why the longest duration missed, and what to try", why)
+            for text in why:
+                print(text)
         return 1
     output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots,
                     painter=painter)

@@ -55,3 +55,18 @@ def explanation_lines(report: dict) -> list[str]:
     for reason in report.get("explanation") or []:
         out += [f"why: {reason['why']}", f"next: {reason['next']}"]
     return out
+
+
+def coherence_lines(open_system: dict | None) -> list[str]:
+    """With T1/T2 given: the coherence times and the error budget (the pulse's own error
+    and what decay and dephasing add), as a report's ``open_system`` holds them."""
+    if not open_system:
+        return []
+    times = ", ".join(
+        f"{q}: " + " ".join(f"{k[:2].upper()} {v * 1e6:g} us" for k, v in t.items()
+                            if v is not None)
+        for q, t in (open_system.get("coherence_times") or {}).items())
+    return [f"  with decoherence: infidelity {open_system['infidelity']:.3e} = coherent "
+            f"{open_system['coherent_error']:.3e} (the pulse) + incoherent "
+            f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}); "
+            f"leakage {open_system['leakage']:.3e}"]

@@ -16,13 +16,14 @@ from shaper.io import atomic
 
 
 def prepare_folder(folder: Path, force: bool, resume: bool = False, *,
-                   keep: Sequence[str] = ()) -> dict[str, str]:
+                   keep: Sequence[str] = (), budget: dict | None = None) -> dict[str, str]:
     """Create and lock the run folder; refuse to overwrite an earlier run unless ``force``.
 
     The lock (:func:`shaper.io.atomic.lock_folder`) keeps a second run out of the folder while
     this process lives. With ``force`` over an earlier run, the files named in ``keep``
     (its waveform and report) are kept under new names (:func:`keep_replaced`); returns
-    what was renamed.
+    what was renamed. ``budget`` (the run's ``max_iterations`` and ``max_time_s``): a
+    finished run that stopped at a smaller budget may be resumed to go on.
     """
     if folder.exists() and not folder.is_dir():
         raise ResultError(f"{folder} is a file, not a folder; choose another --out")
@@ -36,10 +37,7 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False, *,
         report = folder / "report.json"
         if report.exists() and not force:
             old = atomic.read_json(report, ResultError, "unreadable report")
-            # interrupted, or stopped by a budget (a larger one continues it)
-            if old.get("optimizer", {}).get("stop_reason") not in ("interrupted",
-                                                                     "iteration limit",
-                                                                     "time limit"):
+            if not _can_go_on(old, budget):
                 raise ResultError(f"{folder} holds a finished run (report.json); there is "
                                   f"nothing to resume. Pass --force (force=True) to export it "
                                   f"again")
@@ -58,6 +56,22 @@ def prepare_folder(folder: Path, force: bool, resume: bool = False, *,
                           f"choose another --out") from None
     atomic.lock_folder(folder)
     return keep_replaced(folder, keep) if force else {}
+
+
+def _can_go_on(report: dict, budget: dict | None) -> bool:
+    """An earlier run resumes if it was interrupted, or stopped at a budget that the new
+    one exceeds (more iterations, or more time)."""
+    optimizer = report.get("optimizer", {})
+    stop = optimizer.get("stop_reason")
+    if stop == "interrupted":
+        return True
+    old = ((report.get("recipe") or {}).get("content") or {}).get("optimizer") or {}
+    budget = budget or {}
+    if stop == "iteration limit":
+        return budget.get("max_iterations", 0) > optimizer.get("iterations", 0)
+    if stop == "time limit":
+        return budget.get("max_time", 0) != old.get("max_time")
+    return False
 
 
 REPORTS = ("report.json", "export.json")  # the files whose references follow a renaming

@@ -121,14 +121,19 @@ def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
     failing = [r for r in rows if not r.met]
     status = ("every gate met its targets" if not failing else
               f"{len(failing)} of {len(rows)} gate(s) missed their targets")
+    budget = any(r.incoherent_error is not None for r in rows)
     head = ["subject", "gate", "from", "duration (ns)", "infidelity", "leakage", "met",
-            "virtual Z before / after (rad)", "waveform"]
+            "virtual Z before / after (rad)"] + (
+        ["T1/T2: coherent + incoherent error"] if budget else []) + ["waveform"]
     lines = []
     for r in failing + [r for r in rows if r.met]:
         frames = " ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / " + " ".join(
             f"{v:.3f}" for v in r.frame_after_rad) if r.frame_before_rad else ""
         cells = [r.subject, r.gate, r.derived_from or "optimised", f"{r.duration_s * 1e9:.3f}",
                  f"{r.infidelity:.2e}", f"{r.leakage:.2e}", "yes" if r.met else "NO", frames]
+        if budget:
+            cells.append("" if r.incoherent_error is None else
+                         f"{r.coherent_error:.2e} + {r.incoherent_error:.2e}")
         css = "" if r.met else ' class="fail"'
         link = f'<td><a href="{html.escape(r.waveform)}">{html.escape(r.waveform)}</a></td>'
         lines.append(f"<tr{css}>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells)

@@ -66,6 +66,9 @@ class GateRow:
     rotating_infidelity: float | None = None
     rotating_leakage: float | None = None
     why: str = ""  # a miss: its cause and what to run next (shaper.jobs.explain)
+    # with T1/T2 given: the error budget (README, "Decoherence"), else None
+    coherent_error: float | None = None
+    incoherent_error: float | None = None
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
@@ -113,7 +116,9 @@ def optimised_row(recipe: Recipe, report: dict, folder: Path, root: Path) -> Gat
                    frame_before_rad=list(report.get("frame_before_rad") or []),
                    frame_after_rad=list(report.get("frame_after_rad") or []),
                    missed="; ".join(m["name"] for m in report["targets"]["missed"]),
-                   why=_why(report, recipe))
+                   why=_why(report, recipe),
+                   coherent_error=(report.get("open_system") or {}).get("coherent_error"),
+                   incoherent_error=(report.get("open_system") or {}).get("incoherent_error"))
 
 
 def _why(report: dict, recipe: Recipe) -> str:
@@ -144,9 +149,11 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          " ".join(f"{v:.6f}" for v in r.frame_after_rad), r.waveform,
                          _number(r.rotating_infidelity), _number(r.rotating_leakage)])
     subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
+    budget = any(r.incoherent_error is not None for r in rows)
     head = (["subject"] if subjects else []) + [
         "gate", "from", "phase", "duration", "infidelity", "leakage", "met", "rotating frame",
-        "virtual Z before / after (rad)", "file"]
+        "virtual Z before / after (rad)", "file"] + (
+        ["T1/T2: coherent + incoherent error"] if budget else [])
     lines = ["Infidelity and leakage as judged (README, \"How far the figures are trusted\"); "
              "the optimiser's rotating frame beside them.", "",
              "| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
@@ -158,7 +165,9 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
             r.gate, r.derived_from or "optimised", f"{r.phase_deg:g}",
             f"{r.duration_s * 1e9:.3f} ns", f"{r.infidelity:.2e}", f"{r.leakage:.2e}",
             "yes" if r.met else "NO", _number(r.rotating_infidelity, ".2e"), frames,
-            f"[{Path(r.waveform).name}]({r.waveform})"]
+            f"[{Path(r.waveform).name}]({r.waveform})"] + (
+            [f"{r.coherent_error:.2e} + {r.incoherent_error:.2e}"
+             if r.incoherent_error is not None else ""] if budget else [])
         lines.append("| " + " | ".join(cells) + " |")
     failing = [r for r in rows if not r.met and r.why]
     if failing:

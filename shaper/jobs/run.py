@@ -27,6 +27,7 @@ from shaper.optimizer.options import RunOptions
 from shaper.optimizer.starts import Result, optimize, read_history
 from shaper.physics.simulation import Simulation
 from shaper.recipe import Recipe, load_recipe
+from shaper.recipe.derive import budget_of
 from shaper.signal.pulses import to_samples
 
 
@@ -57,7 +58,8 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     folder = Path(out) if out is not None else Path("results") / recipe.name
     options = (options or RunOptions()).with_(folder=folder, **option_fields)
     prepare_folder(folder, force, options.resume,
-                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"])
+                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"],
+                   budget=budget_of(recipe))
     if force and not options.resume:
         for old in list(folder.glob("checkpoint-*.npz")) + [folder / "history.jsonl"]:
             old.unlink(missing_ok=True)

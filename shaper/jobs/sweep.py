@@ -253,6 +253,15 @@ class Sweep:
                        title=f"{self.recipe.name}: {self.recipe.target.label} at every "
                              f"duration")
 
+    def add_to_summary(self, heading: str, lines: list[str]) -> None:
+        """A section at the end of sweep.md (the explanation of a sweep that missed)."""
+        if not lines:
+            return
+        path = self.folder / "sweep.md"
+        text = path.read_text() if path.exists() else ""
+        atomic.write_text(path, text + f"\n## {heading}\n\n"
+                          + "\n".join(f"- {line}" for line in lines) + "\n")
+
     def _run(self, durations_s: list[float]) -> int | None:
         rate, hold = self.recipe.sample_rate_hz, self.recipe.hold
         asked = {}

@@ -117,3 +117,10 @@ def with_budget(recipe: Recipe, *, iterations: int | None = None,
         if starts:
             o["starts"] = starts
     return derived(recipe, edit)
+
+
+def budget_of(recipe: Recipe) -> dict:
+    """What a resumed run may go on to: its iterations and its time budget as written
+    (:func:`shaper.io.runfolder.prepare_folder`)."""
+    return {"max_iterations": recipe.optimizer.max_iterations,
+            "max_time": (recipe.raw.get("optimizer") or {}).get("max_time")}
