@@ -30,6 +30,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    import time
+
+    started = time.monotonic()
+    try:
+        return _run(args)
+    finally:
+        print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
+
+
+def _run(args: argparse.Namespace) -> int:
     from shaper.errors import InputError
     from shaper.recipe.chip import load_chip
 

@@ -32,10 +32,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    import time
+
     from shaper.optimizer.interrupt import stop_on_signals
 
+    started = time.monotonic()
     with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
-        return _run(args, stop)
+        try:
+            return _run(args, stop)
+        finally:
+            print(f"the whole command took {time.monotonic() - started:.1f} s",
+                  file=sys.stderr)
 
 
 def _run(args: argparse.Namespace, stop) -> int:
@@ -92,26 +99,8 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     if stop:
         print(f"interrupted; continue with --resume (finished durations are kept in {folder})")
         return stop.exit_code
-    if shortest is None and sweep.budget_reached:
-        print(f"the --hours budget ran out after {len(sweep.points)} duration(s) without a "
-              f"passing one; continue with --resume (and a budget): finished durations are "
-              f"kept in {folder}")
-        return 1
     if shortest is None:
-        longest = sweep.points[max(sweep.points)] if sweep.points else None
-        print("targets NOT met at any duration of the sweep"
-              + (f"; the longest, {format_quantity(longest.duration_s, 's')}: "
-                 f"{longest.missed}" if longest else ""))
-        if longest is not None:  # why the longest missed, and what to try: its report
-            from shaper.cli.text import explanation_lines
-
-            output = finish(sweep.result_at(longest.samples), folder / "longest",
-                            plots_too=False)
-            why = explanation_lines(output.report)
-            sweep.add_to_summary("Why the longest duration missed, and what to try", why)
-            for text in why:
-                print(text)
-        return 1
+        return _no_pass(sweep, folder)
     output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots,
                     painter=painter)
     trust = output.report.get("trust") or output.report
@@ -159,3 +148,30 @@ def _gate_set(args: argparse.Namespace, recipe) -> int:
     print("targets met by every gate" if not failing else
           f"targets NOT met by: {', '.join(failing)}")
     return 0 if not failing else 1
+
+
+def _no_pass(sweep, folder: Path) -> int:
+    """No duration passed: the budget ran out, or the longest missed (why, and what to
+    try, from its report)."""
+    from shaper.jobs.run import finish
+    from shaper.recipe.units import format_quantity
+
+    if sweep.budget_reached:
+        print(f"the --hours budget ran out after {len(sweep.points)} duration(s) without a "
+              f"passing one; continue with --resume (and a budget): finished durations are "
+              f"kept in {folder}")
+        return 1
+    longest = sweep.points[max(sweep.points)] if sweep.points else None
+    print("targets NOT met at any duration of the sweep"
+          + (f"; the longest, {format_quantity(longest.duration_s, 's')}: "
+             f"{longest.missed}" if longest else ""))
+    if longest is not None:  # why the longest missed, and what to try: its report
+        from shaper.cli.text import explanation_lines
+
+        output = finish(sweep.result_at(longest.samples), folder / "longest",
+                        plots_too=False)
+        why = explanation_lines(output.report)
+        sweep.add_to_summary("Why the longest duration missed, and what to try", why)
+        for text in why:
+            print(text)
+    return 1

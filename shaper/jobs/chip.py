@@ -312,9 +312,15 @@ def _run_tasks(executor, todo, out: Path, state: dict, done: dict, budget, *, sa
 def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
     """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png`` and the
     self-contained ``chip.html`` (images embedded: open it in any browser, no server)."""
-    from shaper.jobs.chip_page import write_page, write_plots
+    from shaper.jobs.chip_page import QUBIT_HEAD, qubits_given, write_page, write_plots
 
     files = write_table(out, "chip", rows)
+    given = qubits_given(chip)
+    if given:  # what was given, in chip.md too
+        lines = ["", "## The qubits as given", "", "| " + " | ".join(QUBIT_HEAD) + " |",
+                 "|" + "---|" * len(QUBIT_HEAD)] + ["| " + " | ".join(r) + " |" for r in given]
+        atomic.write_text(out / "chip.md", (out / "chip.md").read_text()
+                          + "\n".join(lines) + "\n")
     images = write_plots(out, chip, rows)
     files += images
     files.append(write_page(out / "chip.html", chip, rows, images))

@@ -75,23 +75,30 @@ def _targets(chip) -> tuple[float, float] | None:
     return o.target_infidelity, o.target_leakage
 
 
-def _qubit_table(chip) -> str:
+QUBIT_HEAD = ["qubit", "frequency", "anharmonicity", "levels", "max Rabi", "T1", "T2",
+              "spectrum"]
+
+
+def qubits_given(chip) -> list[list[str]]:
     """What was given for each qubit, as the chip file wrote it (its single-qubit tasks'
-    recipes carry it)."""
-    head = ["qubit", "frequency", "anharmonicity", "levels", "max Rabi", "T1", "T2",
-            "spectrum"]
+    recipes carry it): one row per qubit, the columns of :data:`QUBIT_HEAD`."""
     rows, seen = [], set()
     for task in chip.tasks:
         system = task.recipe.get("system", {})
         if task.subject in seen or system.get("model") != "transmon":
             continue
         seen.add(task.subject)
-        cells = [task.subject, system.get("qubit_frequency"), system.get("anharmonicity"),
-                 system.get("levels"), task.recipe.get("pulse", {}).get("max_rabi"),
-                 system.get("t1", ""), system.get("t2", ""),
-                 system.get("spectrum", "duffing")]
-        rows.append("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells)
-                    + "</tr>")
+        rows.append([str(c) for c in (
+            task.subject, system.get("qubit_frequency"), system.get("anharmonicity"),
+            system.get("levels"), task.recipe.get("pulse", {}).get("max_rabi"),
+            system.get("t1", ""), system.get("t2", ""), system.get("spectrum", "duffing"))])
+    return rows
+
+
+def _qubit_table(chip) -> str:
+    head = QUBIT_HEAD
+    rows = ["<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in cells) + "</tr>"
+            for cells in qubits_given(chip)]
     return (f'<table id="qubits"><thead><tr>{"".join(f"<th>{h}</th>" for h in head)}</tr>'
             f'</thead><tbody>{"".join(rows)}</tbody></table>')
 
