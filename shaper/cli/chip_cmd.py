@@ -33,10 +33,9 @@ def run(args: argparse.Namespace) -> int:
     import time
 
     started = time.monotonic()
-    try:
-        return _run(args)
-    finally:
-        print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
+    code = _run(args)  # an error is one line (exit 2/3): no time after it
+    print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
+    return code
 
 
 def _run(args: argparse.Namespace) -> int:

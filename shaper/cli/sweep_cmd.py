@@ -38,11 +38,9 @@ def run(args: argparse.Namespace) -> int:
 
     started = time.monotonic()
     with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
-        try:
-            return _run(args, stop)
-        finally:
-            print(f"the whole command took {time.monotonic() - started:.1f} s",
-                  file=sys.stderr)
+        code = _run(args, stop)  # an error is one line (exit 2/3): no time after it
+    print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
+    return code
 
 
 def _run(args: argparse.Namespace, stop) -> int:
