@@ -252,6 +252,8 @@ def test_chip_page_opens_in_a_headless_browser(chip_runs, tmp_path):
     qubits = re.search(r'<table id="qubits">(.*?)</table>', dom, flags=re.S).group(1)
     assert "5.0 GHz" in qubits and "-220 MHz" in qubits and "60 MHz" in qubits
     assert "Targets: infidelity" in dom and "sha256" in dom and "by shaper " in dom
+    pairs = re.search(r'<table id="pairs">(.*?)</table>', dom, flags=re.S).group(1)
+    assert "qa-qb" in pairs and "kHz" in pairs
     assert "http" not in re.sub(r"https?://www\.w3\.org", "", page.read_text())  # no fetches
 
 

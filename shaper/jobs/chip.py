@@ -321,9 +321,14 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
                  "|" + "---|" * len(QUBIT_HEAD)] + ["| " + " | ".join(r) + " |" for r in given]
         atomic.write_text(out / "chip.md", (out / "chip.md").read_text()
                           + "\n".join(lines) + "\n")
+    from shaper.jobs.chip_pairs import pair_zz, write_pairs
+
+    pairs = pair_zz(chip)
+    if pairs:
+        files.append(write_pairs(out, pairs))
     images = write_plots(out, chip, rows)
     files += images
-    files.append(write_page(out / "chip.html", chip, rows, images))
+    files.append(write_page(out / "chip.html", chip, rows, images, pairs=pairs))
     return files
 
 

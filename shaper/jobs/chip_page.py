@@ -123,7 +123,21 @@ def _whys(failing) -> str:
     return f'<h2>Why, and what to try</h2><ul id="why">{"".join(items)}</ul>' if items else ""
 
 
-def write_page(path: Path, chip, rows, images: list[Path]) -> Path:
+def _pair_table(pairs) -> str:
+    if not pairs:
+        return ""
+    rows = "".join(
+        f"<tr><td>{html.escape(p['pair'])}</td><td>{html.escape(p['strength'])}</td>"
+        f"<td>{html.escape(p['levels'])}</td><td>"
+        + ("hybridised" if p["static_zz_hz"] is None else f"{p['static_zz_hz'] / 1e3:.1f} kHz")
+        + "</td></tr>" for p in pairs)
+    return ('<h2>Static ZZ of each coupled pair</h2><p>At rest, by exact diagonalisation of '
+            'the pair\'s static Hamiltonian; no other neighbour is modelled.</p>'
+            '<table id="pairs"><thead><tr><th>pair</th><th>coupling</th><th>levels</th>'
+            f'<th>static ZZ</th></tr></thead><tbody>{rows}</tbody></table>')
+
+
+def write_page(path: Path, chip, rows, images: list[Path], *, pairs=()) -> Path:
     """Write ``chip.html``: status, failing gates, the table, the plots, the caution."""
     failing = [r for r in rows if not r.met]
     status = ("every gate met its targets" if not failing else
@@ -160,6 +174,7 @@ from {html.escape(Path(chip.path or '').name)} (sha256 <code>{chip.sha256[:16]}<
 {_targets_words(chip)}</p>
 <h2>Qubits</h2>
 {_qubit_table(chip)}
+{_pair_table(pairs)}
 <h2>Gates</h2>
 <table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
 <tbody>{''.join(lines)}</tbody></table>

@@ -286,3 +286,26 @@ def _transitions(transmons, ladders, frame) -> dict:
     return out
 
 
+
+
+def static_zz(static: np.ndarray, dims: Sequence[int], a: int = 0, b: int = 1) -> float:
+    """The static ZZ (Hz) of transmons ``a`` and ``b`` at rest: ``E11 - E10 - E01 + E00`` of
+    the dressed levels that the bare states (the others in 0) become, each the eigenstate
+    of largest overlap, by exact diagonalisation of the static Hamiltonian (Hz; any frame
+    linear in the excitation number cancels).
+
+    Raises:
+        InputError: two bare states claim the same dressed state (a resonance: the pair
+            is too strongly hybridised for a ZZ to mean anything).
+    """
+    energies, vectors = np.linalg.eigh(np.asarray(static, complex))
+    strides = [int(np.prod(dims[i + 1:])) for i in range(len(dims))]
+    chosen = {}
+    for bits in ((0, 0), (0, 1), (1, 0), (1, 1)):
+        index = bits[0] * strides[a] + bits[1] * strides[b]
+        chosen[bits] = int(np.argmax(np.abs(vectors[index, :]) ** 2))
+    if len(set(chosen.values())) < 4:
+        raise InputError("two bare states of the pair map to one dressed state (a "
+                         "resonance): no static ZZ")
+    e = {bits: float(energies[k]) for bits, k in chosen.items()}
+    return e[(1, 1)] - e[(1, 0)] - e[(0, 1)] + e[(0, 0)]
