@@ -140,3 +140,15 @@ def test_a_sweep_with_no_passing_duration_says_why_in_its_table(tmp_path):
     summary = (tmp_path / "s" / "sweep.md").read_text()
     assert "## Why the longest duration missed, and what to try" in summary
     assert "takes at least 8.33 ns" in summary and "why: the X rotation" in out
+
+
+def test_a_coarse_dac_in_the_recipe_is_named_as_quantisation(tmp_path):
+    # 5-bit DAC codes: the optimiser's samples meet the targets, their quantised file not
+    recipe = write_demo(tmp_path, "\n[export]\ndac_bits = 5\n")
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
+                         "--no-plots")
+    report = json.loads((tmp_path / "run" / "report.json").read_text())
+    assert code == 1, err
+    assert report["before_quantisation"]["infidelity"] < 1e-6 < report["infidelity"]
+    assert report["explanation"][0]["cause"] == "quantisation"
+    assert "export.dac_bits" in report["explanation"][0]["next"]
