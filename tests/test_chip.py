@@ -254,6 +254,9 @@ def test_chip_page_opens_in_a_headless_browser(chip_runs, tmp_path):
     assert "Targets: infidelity" in dom and "sha256" in dom and "by shaper " in dom
     pairs = re.search(r'<table id="pairs">(.*?)</table>', dom, flags=re.S).group(1)
     assert "qa-qb" in pairs and "kHz" in pairs
+    # every single-qubit gate played again with its neighbours, and said so
+    assert all(r["neighbours_infidelity"] for r in rows if "-" not in r["subject"])
+    assert 'id="neighbours"' in dom and "with neighbours" in dom
     assert "http" not in re.sub(r"https?://www\.w3\.org", "", page.read_text())  # no fetches
 
 

@@ -312,17 +312,30 @@ def _run_tasks(executor, todo, out: Path, state: dict, done: dict, budget, *, sa
 def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
     """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png`` and the
     self-contained ``chip.html`` (images embedded: open it in any browser, no server)."""
-    from shaper.jobs.chip_page import QUBIT_HEAD, qubits_given, write_page, write_plots
+    from shaper.jobs.chip_page import (
+        QUBIT_HEAD,
+        neighbours_summary,
+        qubits_given,
+        write_page,
+        write_plots,
+    )
+    from shaper.jobs.chip_pairs import pair_zz, with_neighbours, write_pairs
 
+    for row in rows:  # every single-qubit gate again, its coupled neighbours present
+        near = with_neighbours(chip, row, out)
+        if near is not None:
+            row.neighbours_infidelity, row.neighbours_leakage = near["infidelity"], \
+                near["leakage"]
     files = write_table(out, "chip", rows)
+    words = neighbours_summary(chip, rows)
+    if words:
+        atomic.write_text(out / "chip.md", (out / "chip.md").read_text() + f"\n{words}\n")
     given = qubits_given(chip)
     if given:  # what was given, in chip.md too
         lines = ["", "## The qubits as given", "", "| " + " | ".join(QUBIT_HEAD) + " |",
                  "|" + "---|" * len(QUBIT_HEAD)] + ["| " + " | ".join(r) + " |" for r in given]
         atomic.write_text(out / "chip.md", (out / "chip.md").read_text()
                           + "\n".join(lines) + "\n")
-    from shaper.jobs.chip_pairs import pair_zz, write_pairs
-
     pairs = pair_zz(chip)
     if pairs:
         files.append(write_pairs(out, pairs))
