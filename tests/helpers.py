@@ -161,3 +161,19 @@ def verdict_code(report) -> int:
 
     data = json.loads(Path(report).read_text())
     return 0 if data["targets"]["met"] else 1
+
+
+def chip_text(name: str, qubits, *, single: str = '["X"]', durations: str = "10ns,12ns",
+              optimizer: str = "", couplings=()) -> str:
+    """An invented chip file for the tests: ``qubits`` as ``(name, frequency, anharmonicity,
+    levels or None)``, ``couplings`` as ``(a, b, strength)``, every drive limited to 60 MHz."""
+    text = f'name = "{name}"\n[gates]\nsingle = {single}\nsingle_durations = "{durations}"\n'
+    if optimizer:
+        text += f"[template.optimizer]\n{optimizer}\n"
+    for q, frequency, anharmonicity, levels in qubits:
+        text += (f'\n[[qubit]]\nname = "{q}"\nfrequency = "{frequency}"\n'
+                 f'anharmonicity = "{anharmonicity}"\nmax_rabi = "60 MHz"\n'
+                 + (f"levels = {levels}\n" if levels else ""))
+    for a, b, strength in couplings:
+        text += f'\n[[coupling]]\nbetween = ["{a}", "{b}"]\nstrength = "{strength}"\n'
+    return text

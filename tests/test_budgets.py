@@ -8,28 +8,11 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from helpers import demo_text
+from helpers import chip_text, demo_text
 from helpers import run_cli as cli
 
-CHIP = """name = "budget"
-[gates]
-single = ["X"]
-single_durations = "10ns,12ns"
-[template.optimizer]
-max_iterations = 200
-[[qubit]]
-name = "qa"
-frequency = "5.0 GHz"
-anharmonicity = "-220 MHz"
-max_rabi = "60 MHz"
-levels = 3
-[[qubit]]
-name = "qb"
-frequency = "5.3 GHz"
-anharmonicity = "-210 MHz"
-max_rabi = "60 MHz"
-levels = 3
-"""
+CHIP = chip_text("budget", [("qa", "5.0 GHz", "-220 MHz", 3), ("qb", "5.3 GHz", "-210 MHz", 3)],
+                 optimizer="max_iterations = 200")
 
 
 def sweep_points(folder: Path) -> list[dict]:

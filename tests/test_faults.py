@@ -14,30 +14,16 @@ import time
 from pathlib import Path
 
 import pytest
-from helpers import demo_text
+from helpers import chip_text, demo_text
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def chip_text(qubits: int, iterations: int = 60) -> str:
-    text = f"""name = "faults"
-[gates]
-single = ["X", "X/2"]
-single_durations = "10ns,14ns,18ns"
-[template.optimizer]
-max_iterations = {iterations}
-target_infidelity = 1e-12
-"""
-    for i in range(qubits):
-        text += f"""
-[[qubit]]
-name = "q{i}"
-frequency = "{5.0 + 0.1 * i:.2f} GHz"
-anharmonicity = "-220 MHz"
-max_rabi = "60 MHz"
-levels = 3
-"""
-    return text
+def faults_chip(qubits: int, iterations: int = 60) -> str:
+    return chip_text("faults", [(f"q{i}", f"{5.0 + 0.1 * i:.2f} GHz", "-220 MHz", 3)
+                                for i in range(qubits)], single='["X", "X/2"]',
+                     durations="10ns,14ns,18ns",
+                     optimizer=f"max_iterations = {iterations}\ntarget_infidelity = 1e-12")
 
 
 def shaper(*args, **kwargs) -> subprocess.Popen:
@@ -91,7 +77,7 @@ def fill(mount: Path) -> Path:
 
 def test_a_full_disk_during_chip_loses_no_finished_gate(tmp_path, small_disk):
     chip = tmp_path / "chip.toml"
-    chip.write_text(chip_text(4))
+    chip.write_text(faults_chip(4))
     out = small_disk / "run"
     proc = shaper("chip", chip, "--out", out, "--workers", 1, "--quiet")
     wait_for(lambda: finished_tasks(out) >= 1, 300, proc)
@@ -147,7 +133,7 @@ def test_ctrl_c_to_a_chip_keeps_finished_gates_and_resume_completes(tmp_path):
     # a terminal's Ctrl-C reaches the whole foreground process group: the command and its
     # worker processes (here: a new session, signalled as a group)
     chip = tmp_path / "chip.toml"
-    chip.write_text(chip_text(6))
+    chip.write_text(faults_chip(6))
     out = tmp_path / "run"
     proc = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet",
                   start_new_session=True)

@@ -6,6 +6,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import scipy.linalg
+from helpers import chip_text
 
 from shaper.physics.transmons import TransmonSpec, coupled_transmons, static_zz
 
@@ -62,23 +63,9 @@ def test_a_chip_reports_each_pairs_zz_from_its_own_hamiltonian(tmp_path):
     from shaper.recipe.chip import load_chip
 
     path = tmp_path / "chip.toml"
-    path.write_text("""name = "zz"
-[gates]
-single = ["X"]
-[[qubit]]
-name = "qa"
-frequency = "5.0 GHz"
-anharmonicity = "-220 MHz"
-max_rabi = "60 MHz"
-[[qubit]]
-name = "qb"
-frequency = "5.3 GHz"
-anharmonicity = "-210 MHz"
-max_rabi = "60 MHz"
-[[coupling]]
-between = ["qa", "qb"]
-strength = "6 MHz"
-""")
+    path.write_text(chip_text("zz", [("qa", "5.0 GHz", "-220 MHz", None),
+                                      ("qb", "5.3 GHz", "-210 MHz", None)],
+                              couplings=[("qa", "qb", "6 MHz")]))
     (pair,) = pair_zz(load_chip(path))
     full = static_zz(duffing_pair(4, 5.0e9, 5.3e9, -220e6, -210e6, 6e6, rwa=False), (4, 4))
     assert pair["pair"] == "qa-qb" and pair["levels"] == "4x4"
@@ -89,23 +76,9 @@ strength = "6 MHz"
     assert f"{full / 1e3:.1f} kHz" in (tmp_path / "chip.md").read_text()
 
 
-NEIGHBOURS = """name = "pairchip"
-[gates]
-single = ["X"]
-[[qubit]]
-name = "q0"
-frequency = "5.1 GHz"
-anharmonicity = "-220 MHz"
-max_rabi = "60 MHz"
-[[qubit]]
-name = "q1"
-frequency = "5.4 GHz"
-anharmonicity = "-210 MHz"
-max_rabi = "60 MHz"
-[[coupling]]
-between = ["q0", "q1"]
-strength = "5 MHz"
-"""
+NEIGHBOURS = chip_text("pairchip", [("q0", "5.1 GHz", "-220 MHz", None),
+                                     ("q1", "5.4 GHz", "-210 MHz", None)],
+                       couplings=[("q0", "q1", "5 MHz")])
 
 
 def test_a_gate_with_its_neighbour_present_matches_an_independent_simulation(tmp_path):

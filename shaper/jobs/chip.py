@@ -372,11 +372,10 @@ def _absolute_files(raw: dict, path: str | None) -> dict:
         return raw
     import copy
 
+    from shaper.recipe.lines import resolve_files
+
     raw, base = copy.deepcopy(raw), Path(path).parent
-    for stages in raw.get("line", {}).values():
-        for stage in stages if isinstance(stages, list) else [stages]:
-            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
-                stage["file"] = str((base / stage["file"]).resolve())
+    resolve_files(raw.get("line", {}), base)
     initial = raw.get("optimizer", {}).get("initial")
     if isinstance(initial, str) and initial.endswith((".csv", ".npy", ".npz")) \
             and (base / initial).exists():

@@ -20,6 +20,7 @@ from pathlib import Path
 from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
 from shaper.physics.targets import gate, plan, slug
+from shaper.recipe.lines import resolve_files, stage_files
 from shaper.recipe.schema import _Reader
 from shaper.recipe.units import parse_durations
 
@@ -62,14 +63,11 @@ class Task:
 def _response_files(recipe: dict) -> dict[str, str]:
     """The sha256 of every measured-response file the recipe's line names (absolute)."""
     out = {}
-    for stages in recipe.get("line", {}).values():
-        for stage in stages if isinstance(stages, list) else [stages]:
-            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
-                try:
-                    out[stage["file"]] = hashlib.sha256(Path(stage["file"]).read_bytes()
-                                                        ).hexdigest()
-                except OSError:
-                    out[stage["file"]] = "unreadable"
+    for stage in stage_files(recipe.get("line", {})):
+        try:
+            out[stage["file"]] = hashlib.sha256(Path(stage["file"]).read_bytes()).hexdigest()
+        except OSError:
+            out[stage["file"]] = "unreadable"
     return out
 
 
@@ -183,14 +181,12 @@ def _template(r: _Reader, template: dict, raw: dict) -> dict:
             r.fail(f"template.{key}", f"expected a table [template.{key}]")
     base = Path(r.path).parent if r.path else Path.cwd()
     channels = _channel_names(raw)
-    for channel, stages in template.get("line", {}).items():
+    for channel in template.get("line", {}):
         if channel != "oversample" and channel not in channels:
             r.fail(f"template.line.{channel}", f"no channel of that name on this chip; "
                                                f"channels: {', '.join(channels)}")
-        for stage in stages if isinstance(stages, list) else [stages]:
-            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
-                # found beside the chip file, wherever the task runs (README, "Chips")
-                stage["file"] = str((base / stage["file"]).resolve())
+    # found beside the chip file, wherever the task runs (README, "Chips")
+    resolve_files(template.get("line", {}), base)
     for key in TEMPLATE_PULSE_OWN:
         if key in template.get("pulse", {}):
             r.fail(f"template.pulse.{key}", "set by the chip for each gate (the qubits' "

@@ -240,3 +240,19 @@ KINDS: dict[str, Kind] = {
 
 def register_reader(name: str, keys: tuple[str, ...], read: Callable) -> None:
     KINDS[name] = Kind(keys, read)
+
+
+def stage_files(line: dict):
+    """The stage tables of a raw ``[line]`` table that name a file (measured responses),
+    for a chip or a task to resolve or hash them; the keys are checked by :func:`read_line`."""
+    for stages in line.values() if isinstance(line, dict) else ():
+        for stage in stages if isinstance(stages, list) else [stages]:
+            if isinstance(stage, dict) and isinstance(stage.get("file"), str):
+                yield stage
+
+
+def resolve_files(line: dict, base: Path) -> None:
+    """Make every stage file of a raw ``[line]`` table absolute beside ``base`` (in place):
+    the recipe is read again elsewhere (a worker, a task)."""
+    for stage in stage_files(line):
+        stage["file"] = str((base / stage["file"]).resolve())
