@@ -321,11 +321,7 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
     )
     from shaper.jobs.chip_pairs import pair_zz, with_neighbours, write_pairs
 
-    for row in rows:  # every single-qubit gate again, its coupled neighbours present
-        near = with_neighbours(chip, row, out)
-        if near is not None:
-            row.neighbours_infidelity, row.neighbours_leakage = near["infidelity"], \
-                near["leakage"]
+    with_neighbours(chip, rows, out)  # every single-qubit gate alone and with neighbours
     files = write_table(out, "chip", rows)
     words = neighbours_summary(chip, rows)
     if words:

@@ -20,11 +20,12 @@ def pair_zz(chip: Chip) -> list[dict]:
     from shaper.physics.transmons import static_zz
     from shaper.recipe import load_recipe
 
-    out = []
+    out, pairs = [], {f"{a}-{b}" for a, b in chip.pairs}
     for task in chip.tasks:
         system = task.recipe.get("system", {})
-        if system.get("model") != "transmons" or len(system.get("transmon", [])) != 2:
-            continue
+        if task.subject not in pairs or system.get("model") != "transmons" \
+                or len(system.get("transmon", [])) != 2:
+            continue  # a pair's gate task holds the pair (a qubit's holds its neighbourhood)
         recipe = load_recipe(task.recipe)
         coupling = system["coupling"][0]
         try:
@@ -59,88 +60,44 @@ def write_pairs(out: Path, pairs: list[dict]) -> Path:
     return path
 
 
-def neighbourhood(chip: Chip, subject: str):
-    """The qubit ``subject`` with its coupled neighbours at rest, as the chip's pair tasks
-    hold them: ``(system, neighbour names)``, the qubit first (its frame, its drive), each
-    neighbour not driven and, if tunable, at its idle point. None without neighbours."""
-    from shaper.physics.transmons import TransmonSpec, coupled_transmons
-    from shaper.recipe.units import parse_quantity
-
-    def hz(value, key):
-        return parse_quantity(value, "frequency", key=key, path=chip.path)
-
-    specs, couplings = {}, []
+def task_of(chip: Chip, row):
+    """The chip task a gate row comes from (its subject and its optimised parent)."""
+    parent = row.derived_from or row.gate
     for task in chip.tasks:
-        system = task.recipe.get("system", {})
-        if system.get("model") == "transmons" and subject in task.subject.split("-"):
-            specs.update({t["name"]: t for t in system["transmon"]})
-            a, b = task.subject.split("-")
-            couplings.append((a, b, hz(system["coupling"][0]["strength"], "strength")))
-    if not couplings:
-        return None
-    order = [subject] + sorted(set(specs) - {subject})
-    transmons = [TransmonSpec(
-        name=n, levels=int(specs[n]["levels"]),
-        qubit_frequency_hz=hz(specs[n]["qubit_frequency"], "frequency"),
-        anharmonicity_hz=hz(specs[n]["anharmonicity"], "anharmonicity"),
-        spectrum=specs[n].get("spectrum", "duffing"),
-        offset_charge=float(specs[n].get("offset_charge", 0.0))) for n in order]
-    return coupled_transmons(transmons, couplings), order[1:]
+        if task.subject == row.subject and task.parent.upper() == parent.upper():
+            return task
+    return None
 
 
-def with_neighbours(chip: Chip, row, root: Path, *, virtual_z: bool = True) -> dict | None:
-    """A single-qubit gate's exported file played on its qubit with the coupled
-    neighbours present (rotating frame, the chip's levels, virtual Z on every qubit):
-    the gate times the identity on the neighbours, averaged over all their computational
-    states. None for a pair's gate, a qubit without neighbours, or a file whose chain
-    (IF, line) this check does not replay."""
+def played_elsewhere(chip: Chip, row, root: Path):
+    """A single-qubit gate's exported file played on the other recipe of its task
+    (README, "Chips: neighbours"): in its neighbourhood if it was optimised alone, alone
+    if it was optimised in its neighbourhood. ``(where, Playback)`` with ``where`` one of
+    ``"near"``, ``"alone"``; None for a pair's gate or a qubit without neighbours."""
     from shaper.io.waveio import read_waveform
-    from shaper.physics.simulation import simulate
-    from shaper.physics.targets import gate
+    from shaper.jobs.playback import Playback
+    from shaper.recipe import load_recipe
 
-    if "-" in row.subject:
+    task = task_of(chip, row)
+    if task is None or (task.near is None and task.alone is None):
         return None
-    found = neighbourhood(chip, row.subject)
-    if found is None:
-        return None
-    system, neighbours = found
-    wave = read_waveform(root / row.waveform)
-    if wave.if_frequency_hz or wave.predistorted or wave.mixer_corrected:
-        return None
-    samples = np.zeros((wave.fractions.shape[0], system.controls.shape[0]))
-    for name, column in zip(wave.column_names, wave.fractions.T, strict=True):
-        channel = name.rsplit("_", 1)[0]
-        samples[:, system.control_names.index(name)] = column * wave.full_scale_hz[channel]
-    target = gate([row.gate] + ["I"] * len(neighbours))
-    played = simulate(dressed(system), target, samples, 1 / wave.sample_rate_hz,
-                      virtual_z=virtual_z)
-    return {"infidelity": played.infidelity, "leakage": played.leakage,
-            "neighbours": neighbours}
+    where, raw = ("near", task.near) if task.near is not None else ("alone", task.alone)
+    raw = {**raw, "gate": {**raw["gate"], "target": row.gate}}
+    return where, Playback(load_recipe(raw), read_waveform(root / row.waveform))
 
 
-def dressed(system):
-    """The system written in the eigenbasis of its drift (the dressed states, each named
-    after the bare state it overlaps most), so that its computational states are the
-    coupled qubits' own: a lab calibrates and reads out these, and their phases are the
-    frames virtual Z tracks. What remains between them is the conditional phase (the
-    static ZZ) and the drive's real effect on the neighbours.
-
-    Raises:
-        InputError: two bare states claim one dressed state (a resonance).
-    """
-    from shaper.errors import InputError
-    from shaper.physics.systems import from_matrices
-
-    _, vectors = np.linalg.eigh(system.drift)
-    bare = np.argmax(np.abs(vectors) ** 2, axis=0)  # the bare state of each eigenvector
-    if len(set(bare.tolist())) != len(bare):
-        raise InputError("two bare states map to one dressed state (a resonance)")
-    v = np.zeros_like(vectors)
-    v[:, bare] = vectors
-    v = v * np.exp(-1j * np.angle(np.diag(v)))[None, :]  # each real and positive on its own
-    turn = lambda m: v.conj().T @ m @ v  # noqa: E731
-    return from_matrices(turn(system.drift),
-                         {n: turn(c) for n, c in zip(system.control_names, system.controls,
-                                                     strict=True)},
-                         dims=system.dims, computational=system.computational,
-                         qubit_names=system.qubit_names)
+def with_neighbours(chip: Chip, rows, root: Path) -> None:
+    """Give every single-qubit gate row both figures, alone and with its neighbours: its
+    own verdict is one of them, its file played on the other recipe the other (each the
+    verdict's most faithful figure there)."""
+    for row in rows:
+        found = played_elsewhere(chip, row, root)
+        if found is None:
+            continue
+        where, playback = found
+        infidelity, leakage, _ = playback.trusted()
+        if where == "near":
+            row.neighbours_infidelity, row.neighbours_leakage = infidelity, leakage
+        else:
+            row.neighbours_infidelity, row.neighbours_leakage = row.infidelity, row.leakage
+            row.alone_infidelity, row.alone_leakage = infidelity, leakage

@@ -69,10 +69,13 @@ class GateRow:
     # with T1/T2 given: the error budget (README, "Decoherence"), else None
     coherent_error: float | None = None
     incoherent_error: float | None = None
-    # a chip's single-qubit gate played with its coupled neighbours present (dressed basis,
-    # rotating frame; shaper.jobs.chip_pairs.with_neighbours), else None
+    # a chip's single-qubit gate with its coupled neighbours present (dressed basis,
+    # rotating frame), and alone where it was optimised with them
+    # (shaper.jobs.chip_pairs.with_neighbours; README, "Chips: neighbours"), else None
     neighbours_infidelity: float | None = None
     neighbours_leakage: float | None = None
+    alone_infidelity: float | None = None
+    alone_leakage: float | None = None
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
@@ -134,7 +137,7 @@ def _why(report: dict, recipe: Recipe) -> str:
 COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "samples",
            "infidelity", "leakage", "met", "frame_before_rad", "frame_after_rad", "waveform",
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
-           "neighbours_leakage")
+           "neighbours_leakage", "alone_infidelity", "alone_leakage")
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -153,15 +156,18 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          " ".join(f"{v:.6f}" for v in r.frame_before_rad),
                          " ".join(f"{v:.6f}" for v in r.frame_after_rad), r.waveform,
                          _number(r.rotating_infidelity), _number(r.rotating_leakage),
-                         _number(r.neighbours_infidelity), _number(r.neighbours_leakage)])
+                         _number(r.neighbours_infidelity), _number(r.neighbours_leakage),
+                         _number(r.alone_infidelity), _number(r.alone_leakage)])
     subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
     budget = any(r.incoherent_error is not None for r in rows)
     near = any(r.neighbours_infidelity is not None for r in rows)
+    alone = any(r.alone_infidelity is not None for r in rows)
     head = (["subject"] if subjects else []) + [
         "gate", "from", "phase", "duration", "infidelity", "leakage", "met", "rotating frame",
         "virtual Z before / after (rad)", "file"] + (
         ["T1/T2: coherent + incoherent error"] if budget else []) + (
-        ["with neighbours: infidelity, leakage"] if near else [])
+        ["with neighbours: infidelity, leakage"] if near else []) + (
+        ["alone: infidelity, leakage"] if alone else [])
     lines = ["Infidelity and leakage as judged (README, \"How far the figures are trusted\"); "
              "the optimiser's rotating frame beside them.", "",
              "| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
@@ -177,7 +183,9 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
             [f"{r.coherent_error:.2e} + {r.incoherent_error:.2e}"
              if r.incoherent_error is not None else ""] if budget else []) + (
             [f"{r.neighbours_infidelity:.2e}, {r.neighbours_leakage:.2e}"
-             if r.neighbours_infidelity is not None else ""] if near else [])
+             if r.neighbours_infidelity is not None else ""] if near else []) + (
+            [f"{r.alone_infidelity:.2e}, {r.alone_leakage:.2e}"
+             if r.alone_infidelity is not None else ""] if alone else [])
         lines.append("| " + " | ".join(cells) + " |")
     failing = [r for r in rows if not r.met and r.why]
     if failing:

@@ -118,6 +118,28 @@ def gate(spec: str | Sequence[str] | np.ndarray, *, qubits: int | None = None) -
     return Target(label=label, unitary=unitary)
 
 
+def on_qubits(target: Target, positions: Sequence[int], qubits: int) -> Target:
+    """``target`` acting on the qubits at ``positions`` (in its own qubit order) of a
+    ``qubits``-qubit register, the identity on the others; the label stays.
+
+    Raises:
+        InputError: positions repeated, out of range, or not as many as the target's qubits.
+    """
+    k = int(np.log2(target.dimension))
+    positions = [int(p) for p in positions]
+    if len(positions) != k or len(set(positions)) != k or not all(
+            0 <= p < qubits for p in positions):
+        raise InputError(f"target {target.label!r} acts on {k} qubit(s); got positions "
+                         f"{positions} of {qubits}")
+    rest = [q for q in range(qubits) if q not in positions]
+    full = np.kron(target.unitary, np.eye(2 ** len(rest)))  # order: positions, then rest
+    order = positions + rest  # axis j of `full` is qubit order[j]
+    tensor = full.reshape([2] * (2 * qubits))
+    back = np.argsort(order)
+    tensor = tensor.transpose(list(back) + [qubits + b for b in back])
+    return Target(label=target.label, unitary=tensor.reshape(2 ** qubits, 2 ** qubits))
+
+
 def state_transfer(initial: Sequence[complex], final: Sequence[complex]) -> Target:
     """A state-to-state target; both vectors live on the computational subspace.
 

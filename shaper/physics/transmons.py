@@ -78,6 +78,7 @@ class TransmonSpec:
     t2_s: float | None = None  # coherence time of the 0-1 superposition (None: T2 = 2 T1)
     spectrum: str = "duffing"  # or "charge": levels of the Cooper-pair box (physics.charge)
     offset_charge: float = 0.0  # n_g of the charge model, in Cooper pairs
+    driven: bool = True  # False: a spectator with no drive line of its own (README, "Chips")
 
     def __post_init__(self):
         if not isinstance(self.levels, int | np.integer) or self.levels < 2:
@@ -212,8 +213,9 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
                    drives={})
     controls, channels = _Controls(), []
     for q, t in enumerate(transmons):
-        channels.append(controls.iq(t.name, q, 0.0, ladders[q].lowering, dims))
-        lab.drives[t.name] = drive_ops[q]
+        if t.driven:
+            channels.append(controls.iq(t.name, q, 0.0, ladders[q].lowering, dims))
+            lab.drives[t.name] = drive_ops[q]
     for name, on, carrier in drives:
         q = names.index(on)
         channels.append(controls.iq(name, q, carrier - frame, ladders[q].lowering, dims))

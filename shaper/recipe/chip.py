@@ -21,19 +21,21 @@ from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
 from shaper.physics.targets import gate, plan, slug
 from shaper.recipe.lines import resolve_files, stage_files
+from shaper.recipe.neighbours import MODES, NEIGHBOUR_LEVELS, near_recipe, near_system
 from shaper.recipe.schema import _Reader
 from shaper.recipe.units import parse_durations
 
 CHIP_KEYS = {
     "": ("name", "description", "gates", "template", "qubit", "coupling"),
     "gates": ("single", "single_durations", "pair", "pair_durations", "fixed_pair",
-              "fixed_pair_durations", "cross_resonance_rabi"),
+              "fixed_pair_durations", "cross_resonance_rabi", "neighbours", "neighbour_levels"),
     "template": ("pulse", "cost", "optimizer", "export", "line", "verdict"),
     "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
               "max_flux", "flux_range", "spectrum", "offset_charge"),
     "coupling": ("between", "strength"),
 }
 MAX_QUBITS = 200
+MAX_NEIGHBOUR_LEVELS = 6  # a neighbourhood of 4 transmons at 6 levels is already d = 1296
 
 
 @dataclass(frozen=True)
@@ -48,6 +50,11 @@ class Task:
     recipe: dict
     durations: str
     durations_key: str = "gates.single_durations"  # where the chip file sets them
+    # a single-qubit gate of a qubit with neighbours (README, "Chips: neighbours"): the
+    # recipe it is played on besides its own, alone (optimised in the neighbourhood) or
+    # in its neighbourhood (optimised alone); None: no other
+    alone: dict | None = None
+    near: dict | None = None
 
     @property
     def digest(self) -> str:
@@ -144,6 +151,12 @@ def _gates(r: _Reader, gates: dict) -> dict:
     for key, default in DURATIONS.items():
         out[key] = gates.get(key, default)
         parse_durations(out[key], key=f"gates.{key}", path=r.path)
+    out["neighbours"] = r.choice(gates, "neighbours", "gates.neighbours", MODES, "check")
+    out["neighbour_levels"] = r.number(gates, "neighbour_levels", "gates.neighbour_levels",
+                                       NEIGHBOUR_LEVELS, integer=True)
+    if not 2 <= out["neighbour_levels"] <= MAX_NEIGHBOUR_LEVELS:
+        r.fail("gates.neighbour_levels", f"must be from 2 to {MAX_NEIGHBOUR_LEVELS}, got "
+                                         f"{out['neighbour_levels']}")
     if "cross_resonance_rabi" in gates:
         out["cross_resonance_rabi"] = gates["cross_resonance_rabi"]
         r.number(gates, "cross_resonance_rabi", "gates.cross_resonance_rabi",
@@ -324,9 +337,17 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
                                 "max_rabi": q["max_rabi"]},
                       **_rest(base, recipe_channels)}
             recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
+            checked(recipe, f"qubit[{i}]")
+            system = near_system(qname, specs, couplings, gates["neighbour_levels"], _transmon)
+            near = None if system is None else checked(near_recipe(recipe, system, qname),
+                                                       f"qubit[{i}]")
+            if near is not None and gates["neighbours"] == "optimise":
+                recipe, near, alone = near, None, recipe
+            else:
+                alone = None
             tasks.append(Task(f"{qname}-{slug(parent)}", qname, parent, tuple(derived),
-                              checked(recipe, f"qubit[{i}]"), durations,
-                              "gates.single_durations"))
+                              recipe, durations, "gates.single_durations", alone=alone,
+                              near=near))
     pair_gate, pair_durations = gates["pair"], gates["pair_durations"]
     for i, (a, b) in enumerate(pairs):
         qa, qb = specs[a], specs[b]

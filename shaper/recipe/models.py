@@ -14,6 +14,7 @@ from typing import NamedTuple
 import numpy as np
 
 from shaper.errors import InputError
+from shaper.physics.dressed import dressed
 from shaper.physics.systems import NAME, NAME_RULE, System, from_matrices
 from shaper.physics.transmons import SPECTRA, TransmonSpec, coupled_transmons
 from shaper.recipe.schema import KEYS, _Reader
@@ -22,6 +23,9 @@ from shaper.recipe.units import format_quantity, parse_quantity
 MAX_TRANSMON_LEVELS = 64  # a transmon has a handful of bound levels; more is a typo
 MAX_COUPLING_HZ = 1e9  # above this a coupling is a unit slip
 MAX_CARRIER_OFFSET_HZ = 20e9  # a drive this far from the frame is one too
+# the basis a transmons system's computational states are named in (README, "Coupled
+# transmons: the dressed basis"): the bare product states, or what they become at rest
+BASES = ("bare", "dressed")
 
 
 class Model(NamedTuple):
@@ -129,7 +133,8 @@ def _transmons(r: _Reader, t: dict) -> System:
                                         kind="frequency", positive=True),
             anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
                                       kind="frequency"),
-            flux=r.flag(item, "flux", f"{where}.flux", False), **_coherence(r, item, where),
+            flux=r.flag(item, "flux", f"{where}.flux", False),
+            driven=r.flag(item, "driven", f"{where}.driven", True), **_coherence(r, item, where),
             **_spectrum(r, item, where)))
     couplings = []
     for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
@@ -158,10 +163,20 @@ def _transmons(r: _Reader, t: dict) -> System:
                                          f"the frame {format_quantity(frame, 'Hz')}; a drive "
                                          f"sits near the transmons' frequencies (check the unit)")
         drives.append((item["name"], item["transmon"], carrier))
+    basis = r.choice(t, "basis", "system.basis", BASES, "bare")
     try:
-        return coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
+        system = coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
     except InputError as exc:
         r.fail("system.drive" if "drive" in str(exc) else "system", str(exc))
+    if not system.channels:
+        r.fail("system.transmon", "no transmon is driven (driven = false on every one) and "
+                                  "none has a flux line: nothing to optimise")
+    if basis == "bare":
+        return system
+    try:
+        return dressed(system)
+    except InputError as exc:
+        r.fail("system.basis", f"{exc} (frame {format_quantity(frame, 'Hz')})")
 
 
 def _matrices(r: _Reader, t: dict) -> System:
@@ -215,7 +230,8 @@ def _matrices(r: _Reader, t: dict) -> System:
 MODELS: dict[str, Model] = {
     "transmon": Model(("levels", "qubit_frequency", "anharmonicity", "drive_frequency",
                        "qubit", "t1", "t2", "spectrum", "offset_charge"), _transmon),
-    "transmons": Model(("transmon", "coupling", "frame_frequency", "drive"), _transmons),
+    "transmons": Model(("transmon", "coupling", "frame_frequency", "drive", "basis"),
+                       _transmons),
     "matrices": Model(("unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
                        "computational", "collapse", "collapse_rate"), _matrices),
 }

@@ -6,7 +6,7 @@ import numpy as np
 
 from shaper.errors import InputError
 from shaper.physics.systems import NAME, NAME_RULE, System
-from shaper.physics.targets import Target, gate, state_transfer
+from shaper.physics.targets import Target, gate, on_qubits, state_transfer
 from shaper.recipe.instrument import read_export
 from shaper.recipe.lines import read_line
 from shaper.recipe.memory import fits_in_memory
@@ -81,7 +81,8 @@ def _gate_set(r: _Reader, t: dict, system: System) -> tuple[str, ...]:
                                f"\"Y\"], got {str(names)[:60]!r}")
     if len(set(names)) != len(names):
         r.fail("gate.targets", f"names a gate twice: {names}")
-    qubits = int(np.log2(len(system.computational)))
+    positions = _acts_on(r, t, system)
+    qubits = len(positions) if positions else int(np.log2(len(system.computational)))
     for i, name in enumerate(names):
         try:
             gate(name, qubits=qubits)
@@ -98,7 +99,39 @@ def _gate(r: _Reader, t: dict, system: System) -> tuple[Target, bool]:
     if spec is None:
         r.fail("gate.target", "missing required key (or targets, for a set of gates)")
     virtual_z = r.flag(t, "virtual_z", "gate.virtual_z", False)
-    qubits = int(np.log2(len(system.computational)))
+    positions = _acts_on(r, t, system)
+    if positions and spec == "state":
+        r.fail("gate.on", "names the qubits a gate acts on; a state target has none")
+    target, virtual_z = _gate_on(r, t, system, spec, virtual_z,
+                                 len(positions) if positions else None)
+    if positions:
+        target = on_qubits(target, positions, len(system.dims))
+    return target, virtual_z
+
+
+def _acts_on(r: _Reader, t: dict, system: System) -> list[int] | None:
+    """``[gate] on``: the qubits (names) a gate acts on, the identity on the others
+    (spectators, README, "Chips"); None without it."""
+    if "on" not in t:
+        return None
+    names = t["on"]
+    if not (isinstance(names, list) and names and all(isinstance(n, str) for n in names)
+            and len(set(names)) == len(names)):
+        r.fail("gate.on", f"expected a list of different qubit names, got {str(names)[:60]!r}")
+    if 2 ** len(system.dims) != len(system.computational):
+        r.fail("gate.on", "needs a system of qubits (2^n computational states)")
+    for i, name in enumerate(names):
+        if name not in system.qubit_names:
+            r.fail(f"gate.on[{i}]", f"no qubit named {name!r}; qubits: "
+                                    f"{', '.join(system.qubit_names)}")
+    return [system.qubit_names.index(n) for n in names]
+
+
+def _gate_on(r: _Reader, t: dict, system: System, spec, virtual_z: bool,
+             acting: int | None) -> tuple[Target, bool]:
+    """The target as written, on ``acting`` qubits (None: all of the system's)."""
+    qubits = acting or int(np.log2(len(system.computational)))
+    size = 2 ** acting if acting else len(system.computational)
     try:
         if spec == "state":
             for key in ("initial_state", "final_state"):
@@ -114,13 +147,11 @@ def _gate(r: _Reader, t: dict, system: System) -> tuple[Target, bool]:
         if spec == "matrix":
             if "matrix" not in t:
                 r.fail("gate.matrix", "missing required key (target = \"matrix\")")
-            m = r.matrix(t, "matrix", "gate.matrix", size=len(system.computational),
-                         imag_key="matrix_imag")
+            m = r.matrix(t, "matrix", "gate.matrix", size=size, imag_key="matrix_imag")
             return gate(m), virtual_z
-        if 2 ** qubits != len(system.computational) and virtual_z:
+        if 2 ** qubits != size and virtual_z:
             r.fail("gate.virtual_z", "frame updates need 2^n computational states")
-        return gate(spec, qubits=qubits if 2 ** qubits == len(system.computational) else None), \
-            virtual_z
+        return gate(spec, qubits=qubits if 2 ** qubits == size else None), virtual_z
     except InputError as exc:
         r.fail("gate.target" if spec not in ("matrix", "state") else f"gate.{spec}", str(exc))
 
