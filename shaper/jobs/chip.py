@@ -320,8 +320,10 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
         write_plots,
     )
     from shaper.jobs.chip_pairs import pair_zz, with_neighbours, write_pairs
+    from shaper.jobs.chip_simultaneous import together, write_together
 
     with_neighbours(chip, rows, out)  # every single-qubit gate alone and with neighbours
+    played_together = together(chip, rows, out) if chip.simultaneous else []
     files = write_table(out, "chip", rows)
     words = neighbours_summary(chip, rows)
     if words:
@@ -335,9 +337,12 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
     pairs = pair_zz(chip)
     if pairs:
         files.append(write_pairs(out, pairs))
+    if played_together:
+        files.append(write_together(out, played_together))
     images = write_plots(out, chip, rows)
     files += images
-    files.append(write_page(out / "chip.html", chip, rows, images, pairs=pairs))
+    files.append(write_page(out / "chip.html", chip, rows, images, pairs=pairs,
+                            together=played_together))
     return files
 
 

@@ -201,7 +201,23 @@ def _gate_table(rows) -> tuple[list[str], list[str]]:
     return head, lines
 
 
-def write_page(path: Path, chip, rows, images: list[Path], *, pairs=()) -> Path:
+def _together_table(found) -> str:
+    if not found:
+        return ""
+    rows = "".join(
+        f"<tr><td>{html.escape(e['pair'])}</td><td>{html.escape(e['gate'])}</td>"
+        f"<td>{e['infidelity']:.2e}, {e['leakage']:.2e}</td>"
+        f"<td>{e['alone'][0]:.2e}, {e['alone'][1]:.2e}</td></tr>" for e in found)
+    return ('<h2>Gates played at the same time</h2><p>Both files of a pair at once on the '
+            'pair (dressed basis, rotating frame), each line reaching the other qubit by its '
+            'crosstalk ratio: the joint infidelity of the gate on both, and each file\'s own.'
+            '</p><table id="together"><thead><tr><th>pair</th><th>gate</th><th>together: '
+            'infidelity, leakage</th><th>each alone</th></tr></thead>'
+            f'<tbody>{rows}</tbody></table>')
+
+
+def write_page(path: Path, chip, rows, images: list[Path], *, pairs=(),
+               together=()) -> Path:
     """Write ``chip.html``: status, failing gates, the table, the plots, the caution."""
     failing = [r for r in rows if not r.met]
     status = ("every gate met its targets" if not failing else
@@ -224,6 +240,7 @@ from {html.escape(Path(chip.path or '').name)} (sha256 <code>{chip.sha256[:16]}<
 <h2>Qubits</h2>
 {_qubit_table(chip)}
 {_pair_table(pairs)}
+{_together_table(together)}
 <h2>Gates</h2>
 <table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
 <tbody>{''.join(lines)}</tbody></table>

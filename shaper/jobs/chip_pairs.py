@@ -101,3 +101,7 @@ def with_neighbours(chip: Chip, rows, root: Path) -> None:
         else:
             row.neighbours_infidelity, row.neighbours_leakage = row.infidelity, row.leakage
             row.alone_infidelity, row.alone_leakage = infidelity, leakage
+            budget = playback.open_system  # T1/T2 of the qubit alone (closed neighbourhood)
+            if budget is not None:
+                row.coherent_error = budget["coherent_error"]
+                row.incoherent_error = budget["incoherent_error"]

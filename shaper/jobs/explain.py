@@ -40,6 +40,9 @@ def explain(report: dict, *, recipe: str = "RECIPE") -> list[Reason]:
             return out
     own = report.get("before_quantisation")
     optimizer = report.get("optimizer")
+    zz = _neighbours_reason(report, limits, recipe)
+    if zz is not None:
+        return [zz]
     if own is not None and optimizer is not None and _over(own, limits):
         return [_optimiser_reason(report, own, optimizer, limits, recipe)]
     found = _model_reasons(report, own, limits, recipe)
@@ -75,6 +78,30 @@ def speed_limit(recipe) -> Reason | None:
                   f"ns, so the targets are out of reach",
                   f"a pulse of at least {shortest * 1e9:.3g} ns (pulse.duration), or a higher "
                   f"pulse.max_rabi if the line allows it")
+
+
+# the idle conditional phase explains a miss when it is at least this share of the error
+IDLE_SHARE = 0.5
+
+
+def _neighbours_reason(report, limits, recipe) -> Reason | None:
+    """Beside spectators (``trust.idle``): the static ZZ's conditional phase over the
+    pulse's duration, which virtual Z cannot undo, is most of the miss."""
+    trust = report.get("trust") or {}
+    idle = trust.get("idle")
+    judged = _figures(trust if "infidelity" in trust else report)
+    if not idle or judged.get("infidelity") is None or judged["infidelity"] <= limits[0] \
+            or idle["infidelity"] < IDLE_SHARE * judged["infidelity"]:
+        return None
+    return Reason(
+        "neighbours' ZZ",
+        f"left idle for the same {idle['duration_s'] * 1e9:.3g} ns beside its neighbours, "
+        f"the qubit loses infidelity {idle['infidelity']:.2e} to the static ZZ's "
+        f"conditional phase (no frame update undoes it; the drive can refocus it, given "
+        f"time); the gate reaches {_pair(judged)}",
+        f"a longer pulse, room for the drive to refocus the conditional phase (shaper "
+        f"sweep {recipe} --durations {_longer(report)}), or less ZZ on the chip (a weaker "
+        f"coupling, a larger detuning)")
 
 
 def _model_reasons(report, own, limits, recipe) -> list[Reason]:

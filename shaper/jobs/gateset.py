@@ -76,6 +76,9 @@ class GateRow:
     neighbours_leakage: float | None = None
     alone_infidelity: float | None = None
     alone_leakage: float | None = None
+    # [gates] simultaneous: the worst joint infidelity of this gate played at the same time
+    # as a neighbour's (shaper.jobs.chip_simultaneous), else None
+    simultaneous_infidelity: float | None = None
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
@@ -137,7 +140,7 @@ def _why(report: dict, recipe: Recipe) -> str:
 COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "samples",
            "infidelity", "leakage", "met", "frame_before_rad", "frame_after_rad", "waveform",
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
-           "neighbours_leakage", "alone_infidelity", "alone_leakage")
+           "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity")
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -157,7 +160,8 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          " ".join(f"{v:.6f}" for v in r.frame_after_rad), r.waveform,
                          _number(r.rotating_infidelity), _number(r.rotating_leakage),
                          _number(r.neighbours_infidelity), _number(r.neighbours_leakage),
-                         _number(r.alone_infidelity), _number(r.alone_leakage)])
+                         _number(r.alone_infidelity), _number(r.alone_leakage),
+                         _number(r.simultaneous_infidelity)])
     subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
     budget = any(r.incoherent_error is not None for r in rows)
     near = any(r.neighbours_infidelity is not None for r in rows)

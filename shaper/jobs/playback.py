@@ -174,7 +174,29 @@ class Playback:
                                 **self.lab.figures()}
         if self.members is not None:
             out["ensemble"] = "rotating frame, the recipe's levels"
+        if self.idle is not None:
+            out["idle"] = self.idle
         return out
+
+    @cached_property
+    def idle(self) -> dict | None:
+        """A gate beside spectators (``[gate] on``): the same system left alone for the
+        pulse's duration, every qubit's identity the target, virtual Z on every qubit. What
+        remains is the conditional phase of the static ZZ, which no frame update undoes
+        (README, "Chips: neighbours"); the explanation weighs a miss against it. None
+        without spectators."""
+        recipe = self.recipe
+        acting = recipe.raw.get("gate", {}).get("on")
+        if not acting or len(acting) >= len(recipe.system.dims) or not recipe.target.is_gate:
+            return None
+        from shaper.physics.targets import gate
+
+        dt = 1.0 / self.wave.sample_rate_hz
+        still = simulate(recipe.system, gate(["I"] * len(recipe.system.dims)),
+                         np.zeros_like(self.samples), dt, virtual_z=True,
+                         method=recipe.optimizer.propagator)
+        return {"duration_s": len(self.samples) * dt, "infidelity": still.infidelity,
+                "leakage": still.leakage}
 
     def verdict(self) -> Verdict:
         """The one rule (:mod:`shaper.costs.verdict`) without margin, on the most faithful

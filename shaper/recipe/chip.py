@@ -17,25 +17,26 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from shaper.errors import InputError, RecipeError
+from shaper.errors import RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
-from shaper.physics.targets import gate, plan, slug
+from shaper.physics.targets import plan, slug
+from shaper.recipe.chip_gates import read_gates
 from shaper.recipe.lines import resolve_files, stage_files
-from shaper.recipe.neighbours import MODES, NEIGHBOUR_LEVELS, near_recipe, near_system
+from shaper.recipe.neighbours import near_recipe, near_system, read_crosstalk
 from shaper.recipe.schema import _Reader
-from shaper.recipe.units import parse_durations
 
 CHIP_KEYS = {
-    "": ("name", "description", "gates", "template", "qubit", "coupling"),
+    "": ("name", "description", "gates", "template", "qubit", "coupling", "crosstalk"),
     "gates": ("single", "single_durations", "pair", "pair_durations", "fixed_pair",
-              "fixed_pair_durations", "cross_resonance_rabi", "neighbours", "neighbour_levels"),
+              "fixed_pair_durations", "cross_resonance_rabi", "neighbours", "neighbour_levels",
+              "simultaneous"),
     "template": ("pulse", "cost", "optimizer", "export", "line", "verdict"),
     "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
               "max_flux", "flux_range", "spectrum", "offset_charge"),
     "coupling": ("between", "strength"),
+    "crosstalk": ("from", "to", "ratio"),
 }
 MAX_QUBITS = 200
-MAX_NEIGHBOUR_LEVELS = 6  # a neighbourhood of 4 transmons at 6 levels is already d = 1296
 
 
 @dataclass(frozen=True)
@@ -86,6 +87,8 @@ class Chip:
     qubits: tuple[str, ...]
     pairs: tuple[tuple[str, str], ...]
     tasks: tuple[Task, ...]
+    simultaneous: bool = False  # [gates] simultaneous: play neighbours' gates at once
+    crosstalk: tuple[tuple[str, str, complex], ...] = ()  # (from, to, amplitude ratio)
 
 
 def _check(r: _Reader, table: dict, section: str, where: str) -> None:
@@ -115,62 +118,16 @@ def load_chip(path: str | Path) -> Chip:
     name = raw.get("name")
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("name", f"expected {NAME_RULE}, got {str(name)[:60]!r}")
-    gates = _gates(r, r.table(raw, "gates", "gates"))
+    gates = read_gates(r, r.table(raw, "gates", "gates"), CHIP_KEYS)
     template = _template(r, r.table(raw, "template", "template"), raw)
     specs = _qubits(r, raw)
     pairs = _pairs(r, raw, specs)
     tasks = _tasks(r, raw, specs, pairs, gates["single"], gates, template,
                    raw.get("coupling", []))
     return Chip(name=name, path=str(path), sha256=hashlib.sha256(text).hexdigest(),
-                qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks))
-
-
-DURATIONS = {"single_durations": "12ns:24ns:4ns", "pair_durations": "40ns:80ns:10ns",
-             "fixed_pair_durations": "120ns:200ns:40ns"}
-PAIR_GATES = {"pair": "CZ", "fixed_pair": "CNOT"}
-
-
-def _gates(r: _Reader, gates: dict) -> dict:
-    """``[gates]`` with its defaults, every key checked whether or not a pair uses it."""
-    _check(r, gates, "gates", "gates")
-    single = gates.get("single", ["X", "X/2", "Y", "Y/2", "-X/2"])
-    if not isinstance(single, list) or not single or not all(isinstance(g, str)
-                                                             for g in single):
-        r.fail("gates.single", f"expected a non-empty list of one-qubit gate names, got "
-                               f"{str(single)[:60]!r}")
-    seen = set()
-    for i, label in enumerate(single):
-        _gate_name(r, label, 1, f"gates.single[{i}]")
-        if label.strip().upper() in seen:
-            r.fail(f"gates.single[{i}]", f"{label!r} is listed twice")
-        seen.add(label.strip().upper())
-    out = {"single": single}
-    for key, default in PAIR_GATES.items():
-        out[key] = gates.get(key, default)
-        _gate_name(r, out[key], 2, f"gates.{key}")
-    for key, default in DURATIONS.items():
-        out[key] = gates.get(key, default)
-        parse_durations(out[key], key=f"gates.{key}", path=r.path)
-    out["neighbours"] = r.choice(gates, "neighbours", "gates.neighbours", MODES, "check")
-    out["neighbour_levels"] = r.number(gates, "neighbour_levels", "gates.neighbour_levels",
-                                       NEIGHBOUR_LEVELS, integer=True)
-    if not 2 <= out["neighbour_levels"] <= MAX_NEIGHBOUR_LEVELS:
-        r.fail("gates.neighbour_levels", f"must be from 2 to {MAX_NEIGHBOUR_LEVELS}, got "
-                                         f"{out['neighbour_levels']}")
-    if "cross_resonance_rabi" in gates:
-        out["cross_resonance_rabi"] = gates["cross_resonance_rabi"]
-        r.number(gates, "cross_resonance_rabi", "gates.cross_resonance_rabi",
-                 kind="frequency", positive=True)
-    return out
-
-
-def _gate_name(r: _Reader, label, qubits: int, where: str) -> None:
-    if not isinstance(label, str):
-        r.fail(where, f"expected a gate name (text), got {str(label)[:60]!r}")
-    try:
-        gate(label, qubits=qubits)
-    except InputError as exc:
-        r.fail(where, str(exc))
+                qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks),
+                simultaneous=gates["simultaneous"],
+                crosstalk=read_crosstalk(r, raw, specs, CHIP_KEYS))
 
 
 # set per qubit or per gate task by the chip, so a template may not set them

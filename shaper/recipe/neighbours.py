@@ -13,6 +13,10 @@ every qubit (a frame update on a neighbour is as free as on the qubit).
 alone and plays its file again in the neighbourhood; ``"optimise"`` optimises it in the
 neighbourhood and plays its file again alone. Either way a gate has both figures.
 
+``[gates] simultaneous = true`` plays the gates of every coupled pair (and every pair with
+a ``[[crosstalk]]``) at the same time on the pair, each line reaching the other qubit by
+its complex amplitude ratio (:func:`read_crosstalk`; README, "Chips: simultaneous gates").
+
 Nothing here imports JAX.
 """
 
@@ -48,15 +52,22 @@ def near_system(subject: str, specs: dict, couplings: list[dict], levels: int,
     if not near:
         return None
     members = [subject] + near
-    transmons = [transmon(specs[subject])]
+    transmons = [_closed(transmon(specs[subject]))]
     for name in near:
-        t = transmon(specs[name])
+        t = _closed(transmon(specs[name]))
         t.update({"levels": levels, "driven": False})
         transmons.append(t)
     return {"model": "transmons", "basis": "dressed", "transmon": transmons,
             "coupling": [{"between": list(c["between"]), "strength": c["strength"]}
                          for c in couplings
                          if c["between"][0] in members and c["between"][1] in members]}
+
+
+def _closed(transmon: dict) -> dict:
+    """Without T1/T2: a neighbourhood is judged closed (the open system of d = 36 is a
+    superoperator of 1296^2 per slice, gigabytes); the qubit's T1/T2 error budget comes
+    from its gate alone (README, "Chips: neighbours")."""
+    return {k: v for k, v in transmon.items() if k not in ("t1", "t2")}
 
 
 def near_recipe(alone: dict, system: dict, subject: str) -> dict:
@@ -70,3 +81,39 @@ def near_recipe(alone: dict, system: dict, subject: str) -> dict:
     out["pulse"]["max_rabi"] = {subject: limit} if not isinstance(limit, dict) else limit
     out["verdict"] = {**NEAR_VERDICT, **out.get("verdict", {})}
     return out
+
+
+MAX_CROSSTALK = 1.0  # a line reaching a neighbour more strongly than its own qubit is a typo
+
+
+def read_crosstalk(r, raw: dict, specs: dict, keys: dict) -> tuple[tuple[str, str, complex],
+                                                                 ...]:
+    """``[[crosstalk]]``: ``from`` (a qubit whose drive line leaks), ``to`` (the qubit it
+    reaches), ``ratio = [re, im]``: the drive amplitude at ``to`` per unit at ``from``
+    (both as Rabi frequencies), once per ordered pair.
+
+    Raises:
+        RecipeError: naming the chip file and the key.
+    """
+    out, seen = [], set()
+    for where, item in r.tables(raw, "crosstalk", "crosstalk", "crosstalk", keys=keys):
+        for key in ("from", "to"):
+            if item.get(key) not in specs:
+                r.fail(f"{where}.{key}", f"expected a qubit name of this chip, got "
+                                         f"{str(item.get(key))[:60]!r}; qubits: "
+                                         f"{', '.join(specs)}")
+        if item["from"] == item["to"] or (item["from"], item["to"]) in seen:
+            r.fail(f"{where}.to", f"{item['from']} -> {item['to']}: two different qubits, "
+                                  f"once per direction")
+        ratio = item.get("ratio")
+        if not (isinstance(ratio, list) and len(ratio) == 2 and all(
+                isinstance(x, int | float) and not isinstance(x, bool) for x in ratio)):
+            r.fail(f"{where}.ratio", f"expected [real, imaginary] of the amplitude ratio, got "
+                                     f"{str(ratio)[:60]!r}")
+        value = complex(ratio[0], ratio[1])
+        if not abs(value) <= MAX_CROSSTALK:
+            r.fail(f"{where}.ratio", f"|ratio| = {abs(value):.3g}; at most {MAX_CROSSTALK:g} "
+                                     f"(a line reaches its own qubit most)")
+        seen.add((item["from"], item["to"]))
+        out.append((item["from"], item["to"], value))
+    return tuple(out)

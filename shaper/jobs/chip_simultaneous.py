@@ -1,0 +1,147 @@
+"""Neighbouring qubits' gates played at the same time (README, "Chips: simultaneous
+gates"): ``[gates] simultaneous = true``.
+
+For every pair of qubits that is coupled or has a ``[[crosstalk]]`` entry, and every
+single-qubit gate both qubits have, the two exported files are played together on the
+pair: both transmons (the chip's levels), their coupling, in the dressed basis, the frame
+at the first qubit's frequency; each qubit's own drive at its own carrier, and each line's
+leak into the other qubit as one more drive of that qubit at the leaking line's carrier,
+its envelope the line's own times the complex amplitude ratio. The target is the gate on
+both, with virtual Z on both; the shorter file is padded with zeros. This is a check of
+the files as made, not a joint optimisation.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from shaper.io import atomic
+
+
+def pair_recipe(chip, a: str, b: str, label: str) -> dict:
+    """The recipe of ``a`` and ``b`` playing ``label`` together, from the chip's qubit
+    tables as the single-qubit task of each holds them alone."""
+    transmons = []
+    for name in (a, b):
+        system = _task_recipe(chip, name)["system"]
+        one = next(t for t in system["transmon"] if t["name"] == name) \
+            if system["model"] == "transmons" else {
+                "name": name, "levels": system["levels"],
+                "qubit_frequency": system["qubit_frequency"],
+                "anharmonicity": system["anharmonicity"],
+                **{k: system[k] for k in ("spectrum", "offset_charge") if k in system}}
+        transmons.append({**one, "driven": False})
+    fa, fb = (t["qubit_frequency"] for t in transmons)
+    couplings = [{"between": [x, y], "strength": c} for x, y, c in _couplings(chip)
+                 if {x, y} == {a, b}]
+    limits = {q: _task_recipe(chip, q)["pulse"]["max_rabi"] for q in (a, b)}
+    base = _task_recipe(chip, a)
+    drives = [{"name": a, "transmon": a, "frequency": fa},
+              {"name": b, "transmon": b, "frequency": fb},
+              {"name": f"{a}_to_{b}", "transmon": b, "frequency": fa},
+              {"name": f"{b}_to_{a}", "transmon": a, "frequency": fb}]
+    pulse = {k: v for k, v in base["pulse"].items() if k in ("duration", "sample_rate")}
+    return {"name": f"{chip.name}-{a}-{b}-together", "system": {
+                "model": "transmons", "basis": "dressed", "transmon": transmons,
+                "coupling": couplings, "drive": drives},
+            "gate": {"target": [label, label], "virtual_z": True},
+            "pulse": {**pulse, "max_rabi": {**limits, f"{a}_to_{b}": 0, f"{b}_to_{a}": 0}},
+            "verdict": {"lab_frame": "off", "extra_levels": 0}}
+
+
+def _couplings(chip):
+    """The chip's couplings ``(a, b, strength)`` as its pair tasks hold them."""
+    out = []
+    for task in chip.tasks:
+        system = task.recipe.get("system", {})
+        if task.subject in {f"{x}-{y}" for x, y in chip.pairs}:
+            c = system["coupling"][0]
+            out.append((c["between"][0], c["between"][1], c["strength"]))
+    return out
+
+
+def together(chip, rows, root: Path) -> list[dict]:
+    """Every pair's gates played at once (module docstring): one entry per pair and gate,
+    with each file's own figures beside the joint one."""
+    from shaper.io.waveio import Waveform, read_waveform
+    from shaper.jobs.playback import Playback
+    from shaper.recipe import load_recipe
+
+    leak = {(f, t): r for f, t, r in chip.crosstalk}
+    pairs = list(chip.pairs) + [(f, t) for f, t, _ in chip.crosstalk]
+    singles = {(r.subject, r.gate): r for r in rows if r.subject in chip.qubits}
+    out, done = [], set()
+    for a, b in pairs:
+        if frozenset((a, b)) in done:
+            continue
+        done.add(frozenset((a, b)))
+        for (subject, label), row_a in singles.items():
+            row_b = singles.get((b, label))
+            if subject != a or row_b is None:
+                continue
+            waves = [read_waveform(root / r.waveform) for r in (row_a, row_b)]
+            if any(w.if_frequency_hz or w.predistorted or w.mixer_corrected for w in waves):
+                continue  # this check plays baseband files only (said in the README)
+            envelopes = [_envelope(w, q) for w, q in zip(waves, (a, b), strict=True)]
+            n = max(len(e) for e in envelopes)
+            wa, wb = (np.pad(e, (0, n - len(e))) for e in envelopes)
+            columns = [wa, wb, leak.get((a, b), 0) * wa, leak.get((b, a), 0) * wb]
+            samples = np.stack([part for w in columns for part in (w.real, w.imag)], axis=1)
+            raw = pair_recipe(chip, a, b, label)
+            raw["pulse"]["duration"] = f"{n / waves[0].sample_rate_hz!r} s"
+            recipe = load_recipe(raw)
+            names = [f"{c}_{p}" for c in (a, b, f"{a}_to_{b}", f"{b}_to_{a}") for p in "iq"]
+            wave = Waveform(fractions=samples, sample_rate_hz=waves[0].sample_rate_hz,
+                            full_scale_hz={c.name: 1.0 for c in recipe.system.channels},
+                            column_names=tuple(names))
+            played = Playback(recipe, wave).nominal
+            out.append({"pair": f"{a}-{b}", "gate": label, "infidelity": played.infidelity,
+                        "leakage": played.leakage, "alone": [row_a.infidelity,
+                                                             row_b.infidelity],
+                        "crosstalk": [leak.get((a, b), 0), leak.get((b, a), 0)]})
+    for row in rows:  # each gate's worst joint figure over the pairs it is in
+        joint = [e["infidelity"] for e in out if e["gate"] == row.gate
+                 and row.subject in e["pair"].split("-")]
+        row.simultaneous_infidelity = max(joint) if joint else None
+    return out
+
+
+def _task_recipe(chip, subject: str) -> dict:
+    """A qubit's single-qubit gate recipe alone (the chip's own tables for it)."""
+    return next(t.alone or t.recipe for t in chip.tasks if t.subject == subject)
+
+
+def _envelope(wave, channel: str) -> np.ndarray:
+    """A channel's I + iQ in Hz (Rabi frequency) from a baseband waveform file."""
+    names = list(wave.column_names)
+    scale = wave.full_scale_hz[channel]
+    return scale * (wave.fractions[:, names.index(f"{channel}_i")]
+                    + 1j * wave.fractions[:, names.index(f"{channel}_q")])
+
+
+def write_together(out: Path, found: list[dict]) -> Path:
+    """``chip-simultaneous.csv`` and a section of ``chip.md``."""
+    def ratio(z):
+        return f"{complex(z).real:+.4f}{complex(z).imag:+.4f}j"
+
+    lines = ["pair,gate,infidelity,leakage,alone_infidelity_first,alone_infidelity_second,"
+             "crosstalk_first_to_second,crosstalk_second_to_first"] + [
+        f"{e['pair']},{e['gate']},{e['infidelity']:.6e},{e['leakage']:.6e},"
+        f"{e['alone'][0]:.6e},{e['alone'][1]:.6e},{ratio(e['crosstalk'][0])},"
+        f"{ratio(e['crosstalk'][1])}" for e in found]
+    path = out / "chip-simultaneous.csv"
+    atomic.write_text(path, "\n".join(lines) + "\n")
+    table = ["", "## Gates played at the same time", "",
+             "Both files of a pair at once on the pair (dressed basis, rotating frame, the "
+             "chip's levels), each line reaching the other qubit by its crosstalk ratio; the "
+             "joint infidelity of the gate on both, and each file's own (README, \"Chips: "
+             "simultaneous gates\").", "",
+             "| pair | gate | together: infidelity, leakage | each alone | crosstalk |",
+             "|---|---|---|---|---|"] + [
+        f"| {e['pair']} | {e['gate']} | {e['infidelity']:.2e}, {e['leakage']:.2e} | "
+        f"{e['alone'][0]:.2e}, {e['alone'][1]:.2e} | {ratio(e['crosstalk'][0])}, "
+        f"{ratio(e['crosstalk'][1])} |" for e in found]
+    atomic.write_text(out / "chip.md", (out / "chip.md").read_text() + "\n".join(table) + "\n")
+    return path
