@@ -6,8 +6,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import numpy as np
-
 from shaper.io import atomic
 from shaper.recipe.chip import Chip
 
