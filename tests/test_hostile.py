@@ -12,6 +12,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 from helpers import demo_text, verdict_code
 from helpers import run_cli as cli
@@ -90,6 +91,11 @@ CHIP_CASES = [
      "template.pulse.max_rabi", "set by the chip"),
     ("levels-huge", CHIP.replace("levels = 3", "levels = 100000", 1), "qubit[0]",
      "system.levels"),
+    ("neighbours-unknown", gates('neighbours = "ignore"'), "gates.neighbours", "choose"),
+    ("neighbour-levels-huge", gates("neighbour_levels = 40"), "gates.neighbour_levels",
+     "from 2 to"),
+    ("simultaneous-text", gates('simultaneous = "yes"'), "gates.simultaneous", "true"),
+    ("pair-none-typo", gates('pair = "nothing"'), "gates.pair", "unknown gate"),
 ]
 
 
@@ -282,3 +288,68 @@ def test_optimize_force_keeps_the_earlier_run(run_folder, tmp_path):
     kept = json.loads((folder / "report.replaced-1.json").read_text())
     assert kept["waveform"] == "demo.replaced-1.csv"
     assert json.loads((folder / "report.json").read_text())["waveform"] == "demo.csv"
+
+
+# ----- coupled transmons named in their dressed basis, spectators, a gate on some qubits
+
+PAIR_RECIPE = """name = "spectator"
+[system]
+model = "transmons"
+basis = "dressed"
+[[system.transmon]]
+name = "qa"
+levels = 3
+qubit_frequency = "5.0 GHz"
+anharmonicity = "-220 MHz"
+[[system.transmon]]
+name = "qb"
+levels = 3
+qubit_frequency = "5.4 GHz"
+anharmonicity = "-210 MHz"
+driven = false
+[[system.coupling]]
+between = ["qa", "qb"]
+strength = "6 MHz"
+[gate]
+target = "X"
+on = ["qa"]
+virtual_z = true
+[pulse]
+duration = "20 ns"
+sample_rate = "2.4 GS/s"
+max_rabi = {qa = "60 MHz"}
+"""
+SPECTATOR_CASES = [
+    ("basis-unknown", ('basis = "dressed"', 'basis = "sideways"'), "system.basis", "choose"),
+    ("on-unknown-qubit", ('on = ["qa"]', 'on = ["qz"]'), "gate.on[0]", "no qubit named"),
+    ("on-twice", ('on = ["qa"]', 'on = ["qa", "qa"]'), "gate.on", "different"),
+    ("on-too-many", ('on = ["qa"]', 'on = ["qa", "qb"]'), "gate.target", "acts on 1"),
+    ("on-state", ('target = "X"\non = ["qa"]', 'target = "state"\non = ["qa"]\n'
+                  'initial_state = [1, 0, 0, 0]\nfinal_state = [0, 0, 1, 0]'), "gate.on",
+     "state"),
+    ("nothing-driven", ('anharmonicity = "-220 MHz"\n', 'anharmonicity = "-220 MHz"\n'
+                        'driven = false\n'), "system.transmon", "no transmon is driven"),
+    # equal frequencies: |01> and |10> hybridise fully at rest, no dressed labels
+    ("resonant-at-rest", ('"5.4 GHz"', '"5.0 GHz"'), "system.basis", "resonance"),
+]
+
+
+@pytest.mark.parametrize("case,change,key,reason", SPECTATOR_CASES,
+                         ids=[c[0] for c in SPECTATOR_CASES])
+def test_spectator_recipes_name_the_key(tmp_path, case, change, key, reason):
+    path = tmp_path / "r.toml"
+    assert change[0] in PAIR_RECIPE
+    path.write_text(PAIR_RECIPE.replace(change[0], change[1], 1))
+    with pytest.raises(RecipeError) as err:
+        load_recipe(path)
+    assert err.value.key == key and reason in str(err.value), str(err.value)
+    assert str(path) in str(err.value)
+
+
+def test_a_spectator_recipe_reads_as_the_gate_on_one_qubit():
+    recipe = load_recipe(tomllib_loads(PAIR_RECIPE))
+    assert recipe.system.control_names == ("qa_i", "qa_q")  # qb has no line of its own
+    x = np.array([[0, 1], [1, 0]])
+    assert np.allclose(recipe.target.unitary, np.kron(x, np.eye(2)))  # X on qa, I on qb
+    drift = recipe.system.drift
+    assert np.allclose(drift, np.diag(np.diag(drift)), atol=1e-6)  # dressed: diagonal

@@ -153,9 +153,12 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
     nine["system"]["levels"] = 9
     lab_nine = copy.deepcopy(nine)
     lab_nine.setdefault("optimizer", {})["lab_frame"] = True
+    # a chip qubit beside its coupled neighbours (README, "Chips: neighbours"): the qubit
+    # at the recipe's levels with 2 neighbours of 3 levels, 3 of 3, and 2 of 4
+    near = {f"near {n}x{lv}": neighbourhood(raw, n, lv) for n, lv in NEIGHBOURHOODS}
     calls = {name: _objective_call(r) for name, r in
              (("nominal", raw), ("ensemble", ensemble), ("closed", closed), ("open", opened),
-              ("lab", lab), ("nine", nine), ("lab nine", lab_nine))}
+              ("lab", lab), ("nine", nine), ("lab nine", lab_nine), *near.items())}
     best = {name: [] for name in calls}
     for _ in range(5):
         for name, call in calls.items():
@@ -172,7 +175,38 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
              "ratio": ms["lab"] / ms["nominal"]},
             {"what": "lab frame, 4 carrier phases / rotating frame (9 levels)",
              "ms": ms["lab nine"], "baseline_ms": ms["nine"],
-             "ratio": ms["lab nine"] / ms["nine"]}]
+             "ratio": ms["lab nine"] / ms["nine"]}] + [
+        {"what": f"beside {n} neighbours of {lv} levels (d = {_dimension(near[name])}) / "
+                 f"alone (d = {raw['system']['levels']})",
+         "ms": ms[name], "baseline_ms": ms["nominal"], "ratio": ms[name] / ms["nominal"]}
+        for (n, lv), name in zip(NEIGHBOURHOODS, near, strict=True)]
+
+
+NEIGHBOURHOODS = ((2, 3), (3, 3), (2, 4))  # (neighbours, levels each)
+
+
+def neighbourhood(raw: dict, count: int, levels: int) -> dict:
+    """The recipe's one transmon with ``count`` coupled neighbours of ``levels`` levels
+    (made-up frequencies 250 MHz apart, 6 MHz couplings) as a chip's neighbourhood task
+    builds it: dressed basis, the neighbours without a drive line, the gate on the qubit."""
+    import copy
+
+    out = copy.deepcopy(raw)
+    system = raw["system"]
+    qubit = {"name": "q0", "levels": system["levels"],
+             "qubit_frequency": system["qubit_frequency"],
+             "anharmonicity": system["anharmonicity"]}
+    others = [{"name": f"n{i}", "levels": levels, "qubit_frequency": f"{5.35 + 0.25 * i} GHz",
+               "anharmonicity": "-210 MHz", "driven": False} for i in range(count)]
+    out["system"] = {"model": "transmons", "basis": "dressed", "transmon": [qubit, *others],
+                     "coupling": [{"between": ["q0", o["name"]], "strength": "6 MHz"}
+                                  for o in others]}
+    out["gate"] = {**raw.get("gate", {}), "on": ["q0"], "virtual_z": True}
+    return out
+
+
+def _dimension(raw: dict) -> int:
+    return int(np.prod([t["levels"] for t in raw["system"]["transmon"]]))
 
 
 def markdown(startup: list[dict], objectives: list[dict], recipe: str) -> list[str]:

@@ -18,23 +18,15 @@ from pathlib import Path
 import numpy as np
 
 from shaper.io import atomic
+from shaper.jobs.chip_pairs import qubit_table
 
 
 def pair_recipe(chip, a: str, b: str, label: str) -> dict:
     """The recipe of ``a`` and ``b`` playing ``label`` together, from the chip's qubit
     tables as the single-qubit task of each holds them alone."""
-    transmons = []
-    for name in (a, b):
-        system = _task_recipe(chip, name)["system"]
-        one = next(t for t in system["transmon"] if t["name"] == name) \
-            if system["model"] == "transmons" else {
-                "name": name, "levels": system["levels"],
-                "qubit_frequency": system["qubit_frequency"],
-                "anharmonicity": system["anharmonicity"],
-                **{k: system[k] for k in ("spectrum", "offset_charge") if k in system}}
-        transmons.append({**one, "driven": False})
+    transmons = [{**qubit_table(chip, name), "driven": False} for name in (a, b)]
     fa, fb = (t["qubit_frequency"] for t in transmons)
-    couplings = [{"between": [x, y], "strength": c} for x, y, c in _couplings(chip)
+    couplings = [{"between": [x, y], "strength": c} for x, y, c in chip.couplings
                  if {x, y} == {a, b}]
     limits = {q: _task_recipe(chip, q)["pulse"]["max_rabi"] for q in (a, b)}
     base = _task_recipe(chip, a)
@@ -49,17 +41,6 @@ def pair_recipe(chip, a: str, b: str, label: str) -> dict:
             "gate": {"target": [label, label], "virtual_z": True},
             "pulse": {**pulse, "max_rabi": {**limits, f"{a}_to_{b}": 0, f"{b}_to_{a}": 0}},
             "verdict": {"lab_frame": "off", "extra_levels": 0}}
-
-
-def _couplings(chip):
-    """The chip's couplings ``(a, b, strength)`` as its pair tasks hold them."""
-    out = []
-    for task in chip.tasks:
-        system = task.recipe.get("system", {})
-        if task.subject in {f"{x}-{y}" for x, y in chip.pairs}:
-            c = system["coupling"][0]
-            out.append((c["between"][0], c["between"][1], c["strength"]))
-    return out
 
 
 def together(chip, rows, root: Path) -> list[dict]:

@@ -20,7 +20,7 @@ from pathlib import Path
 from shaper.errors import RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
 from shaper.physics.targets import plan, slug
-from shaper.recipe.chip_gates import read_gates
+from shaper.recipe.chip_gates import NO_GATE, read_gates
 from shaper.recipe.lines import resolve_files, stage_files
 from shaper.recipe.neighbours import near_recipe, near_system, read_crosstalk
 from shaper.recipe.schema import _Reader
@@ -89,6 +89,7 @@ class Chip:
     tasks: tuple[Task, ...]
     simultaneous: bool = False  # [gates] simultaneous: play neighbours' gates at once
     crosstalk: tuple[tuple[str, str, complex], ...] = ()  # (from, to, amplitude ratio)
+    couplings: tuple[tuple[str, str, str], ...] = ()  # (a, b, strength as written)
 
 
 def _check(r: _Reader, table: dict, section: str, where: str) -> None:
@@ -127,6 +128,8 @@ def load_chip(path: str | Path) -> Chip:
     return Chip(name=name, path=str(path), sha256=hashlib.sha256(text).hexdigest(),
                 qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks),
                 simultaneous=gates["simultaneous"],
+                couplings=tuple((a, b, str(c["strength"])) for (a, b), c in
+                                zip(pairs, raw.get("coupling", []), strict=True)),
                 crosstalk=read_crosstalk(r, raw, specs, CHIP_KEYS))
 
 
@@ -308,7 +311,10 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
     pair_gate, pair_durations = gates["pair"], gates["pair_durations"]
     for i, (a, b) in enumerate(pairs):
         qa, qb = specs[a], specs[b]
-        if not (qa.get("flux") or qb.get("flux")):
+        fixed = not (qa.get("flux") or qb.get("flux"))
+        if gates["fixed_pair" if fixed else "pair"] == NO_GATE:
+            continue
+        if fixed:
             tasks.append(_cross_resonance(r, name, i, qa, qb, couplings[i], gates, base,
                                           checked))
             continue

@@ -15,6 +15,7 @@ MAX_NEIGHBOUR_LEVELS = 6  # a neighbourhood of 4 transmons at 6 levels is alread
 DURATIONS = {"single_durations": "12ns:24ns:4ns", "pair_durations": "40ns:80ns:10ns",
              "fixed_pair_durations": "120ns:200ns:40ns"}
 PAIR_GATES = {"pair": "CZ", "fixed_pair": "CNOT"}
+NO_GATE = "none"
 
 
 def read_gates(r: _Reader, gates: dict, keys: dict) -> dict:
@@ -34,7 +35,8 @@ def read_gates(r: _Reader, gates: dict, keys: dict) -> dict:
     out = {"single": single}
     for key, default in PAIR_GATES.items():
         out[key] = gates.get(key, default)
-        _gate_name(r, out[key], 2, f"gates.{key}")
+        if out[key] != NO_GATE:  # "none": no two-qubit gate of that kind (singles only)
+            _gate_name(r, out[key], 2, f"gates.{key}")
     for key, default in DURATIONS.items():
         out[key] = gates.get(key, default)
         parse_durations(out[key], key=f"gates.{key}", path=r.path)
