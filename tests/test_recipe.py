@@ -68,7 +68,8 @@ def _cases():
         ("non-positive duration", edit('"20 ns"', '"-5 ns"'),
          r"pulse\.duration: must be positive"),
         ("not whole samples", edit('"20 ns"', '"20.1 ns"'),
-         r"pulse\.duration: .*nearest valid durations: 20 ns \(48 samples\) or 20\.4167 ns"),
+         r"pulse\.duration: .*nearest valid durations: 20 ns \(48 samples\) or "
+         r"20\.4166666667 ns"),
         ("levels below two", edit("levels = 4", "levels = 1"),
          r"system\.levels: must be from 2"),
         ("limit above full scale", DEMO + '[export]\nfull_scale = "50 MHz"\n',
@@ -93,6 +94,21 @@ def _cases():
 
 
 CASES = _cases()
+
+
+def test_a_suggested_duration_is_accepted_as_written(tmp_path):
+    # the durations an error suggests are printed with digits enough to be accepted back
+    import re
+
+    path = tmp_path / "r.toml"
+    path.write_text(DEMO.replace('"20 ns"', '"12 ns"'))  # 28.8 samples at 2.4 GS/s
+    with pytest.raises(RecipeError) as err:
+        load_recipe(path)
+    found = re.findall(r"([0-9.]+ ns) \((\d+) samples\)", str(err.value))
+    assert [int(n) for _, n in found] == [28, 29]
+    for text, samples in found:
+        path.write_text(DEMO.replace('"20 ns"', f'"{text}"'))
+        assert load_recipe(path).samples == int(samples)
 
 
 @pytest.mark.parametrize("label, text, match", CASES, ids=[c[0] for c in CASES])

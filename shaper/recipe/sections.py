@@ -187,7 +187,9 @@ def _pulse(r: _Reader, t: dict, system: System) -> dict:
     if abs(exact - n) > 1e-6 * max(1.0, exact) or n % hold or n == 0:
         below = max(1, int(exact // hold)) * hold
         options = sorted({below, below + hold})
-        shown = " or ".join(format_quantity(k / rate, "s") + f" ({k} samples)" for k in options)
+        # digits enough to be accepted when copied back into the recipe
+        shown = " or ".join(format_quantity(k / rate, "s", 12) + f" ({k} samples)"
+                            for k in options)
         r.fail("pulse.duration", f"{t['duration']!r} is not a whole number of "
                                  f"{format_quantity(period, 's')} slices at this sample rate; "
                                  f"nearest valid durations: {shown}")

@@ -117,8 +117,9 @@ def _checked(value: float, kind: str, key: str, path: str | None, *, bare: bool,
     return value
 
 
-def format_quantity(value: float, unit: str) -> str:
-    """A short human form of an SI value: ``format_quantity(2e-8, "s")`` gives ``'20 ns'``.
+def format_quantity(value: float, unit: str, digits: int = 6) -> str:
+    """A short human form of an SI value: ``format_quantity(2e-8, "s")`` gives ``'20 ns'``
+    (``digits`` significant digits).
 
     Examples:
         >>> format_quantity(2e-8, "s")
@@ -134,8 +135,8 @@ def format_quantity(value: float, unit: str) -> str:
         prefixes = [p for p in prefixes if p[1] <= 1.0]
     for prefix, scale in prefixes:
         if abs(value) >= scale * 0.9999999:
-            return f"{value / scale:.6g} {prefix}{unit}"
-    return f"{value:.6g} {unit}"
+            return f"{value / scale:.{digits}g} {prefix}{unit}"
+    return f"{value:.{digits}g} {unit}"
 
 
 MAX_DURATIONS = 500  # points of one sweep
