@@ -196,7 +196,10 @@ def test_bench_rows_a_user_feels_run_whole_commands(tmp_path):
     assert [r["what"] for r in objectives] == [
         "ensemble of 9 (detunings x scales) / nominal", "open system (T1, T2) / closed",
         "lab frame, 4 carrier phases / rotating frame (the recipe's levels)",
-        "lab frame, 4 carrier phases / rotating frame (9 levels)"]
+        "lab frame, 4 carrier phases / rotating frame (9 levels)",
+        "beside 2 neighbours of 3 levels (d = 36) / alone (d = 4)",
+        "beside 3 neighbours of 3 levels (d = 108) / alone (d = 4)",
+        "beside 2 neighbours of 4 levels (d = 64) / alone (d = 4)"]
     assert all(r["ratio"] > 0 and r["ms"] > 0 for r in objectives)
     startup = startup_rows(recipe, repeats=1, full=False)
     assert [r["command"] for r in startup] == ["optimize (cold cache)", "optimize (warm cache)"]

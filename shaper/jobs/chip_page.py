@@ -84,13 +84,14 @@ def qubits_given(chip) -> list[list[str]]:
     recipes carry it): one row per qubit, the columns of :data:`QUBIT_HEAD`."""
     rows, seen = [], set()
     for task in chip.tasks:
-        system = task.recipe.get("system", {})
+        alone = task.alone or task.recipe  # a qubit's gate alone (not its neighbourhood)
+        system = alone.get("system", {})
         if task.subject in seen or system.get("model") != "transmon":
             continue
         seen.add(task.subject)
         rows.append([str(c) for c in (
             task.subject, system.get("qubit_frequency"), system.get("anharmonicity"),
-            system.get("levels"), task.recipe.get("pulse", {}).get("max_rabi"),
+            system.get("levels"), alone.get("pulse", {}).get("max_rabi"),
             system.get("t1", ""), system.get("t2", ""), system.get("spectrum", "duffing"))])
     return rows
 
@@ -207,12 +208,12 @@ def _together_table(found) -> str:
     rows = "".join(
         f"<tr><td>{html.escape(e['pair'])}</td><td>{html.escape(e['gate'])}</td>"
         f"<td>{e['infidelity']:.2e}, {e['leakage']:.2e}</td>"
-        f"<td>{e['alone'][0]:.2e}, {e['alone'][1]:.2e}</td></tr>" for e in found)
+        f"<td>{e['own'][0]:.2e}, {e['own'][1]:.2e}</td></tr>" for e in found)
     return ('<h2>Gates played at the same time</h2><p>Both files of a pair at once on the '
             'pair (dressed basis, rotating frame), each line reaching the other qubit by its '
             'crosstalk ratio: the joint infidelity of the gate on both, and each file\'s own.'
             '</p><table id="together"><thead><tr><th>pair</th><th>gate</th><th>together: '
-            'infidelity, leakage</th><th>each alone</th></tr></thead>'
+            'infidelity, leakage</th><th>each as judged</th></tr></thead>'
             f'<tbody>{rows}</tbody></table>')
 
 

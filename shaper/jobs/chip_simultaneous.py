@@ -79,8 +79,8 @@ def together(chip, rows, root: Path) -> list[dict]:
                             column_names=tuple(names))
             played = Playback(recipe, wave).nominal
             out.append({"pair": f"{a}-{b}", "gate": label, "infidelity": played.infidelity,
-                        "leakage": played.leakage, "alone": [row_a.infidelity,
-                                                             row_b.infidelity],
+                        "leakage": played.leakage, "own": [row_a.infidelity,
+                                                           row_b.infidelity],
                         "crosstalk": [leak.get((a, b), 0), leak.get((b, a), 0)]})
     for row in rows:  # each gate's worst joint figure over the pairs it is in
         joint = [e["infidelity"] for e in out if e["gate"] == row.gate
@@ -107,22 +107,22 @@ def write_together(out: Path, found: list[dict]) -> Path:
     def ratio(z):
         return f"{complex(z).real:+.4f}{complex(z).imag:+.4f}j"
 
-    lines = ["pair,gate,infidelity,leakage,alone_infidelity_first,alone_infidelity_second,"
+    lines = ["pair,gate,infidelity,leakage,own_infidelity_first,own_infidelity_second,"
              "crosstalk_first_to_second,crosstalk_second_to_first"] + [
         f"{e['pair']},{e['gate']},{e['infidelity']:.6e},{e['leakage']:.6e},"
-        f"{e['alone'][0]:.6e},{e['alone'][1]:.6e},{ratio(e['crosstalk'][0])},"
+        f"{e['own'][0]:.6e},{e['own'][1]:.6e},{ratio(e['crosstalk'][0])},"
         f"{ratio(e['crosstalk'][1])}" for e in found]
     path = out / "chip-simultaneous.csv"
     atomic.write_text(path, "\n".join(lines) + "\n")
     table = ["", "## Gates played at the same time", "",
              "Both files of a pair at once on the pair (dressed basis, rotating frame, the "
              "chip's levels), each line reaching the other qubit by its crosstalk ratio; the "
-             "joint infidelity of the gate on both, and each file's own (README, \"Chips: "
-             "simultaneous gates\").", "",
-             "| pair | gate | together: infidelity, leakage | each alone | crosstalk |",
+             "joint infidelity of the gate on both, and each file's own figure as judged in the "
+             "gates table (README, \"Chips: simultaneous gates\").", "",
+             "| pair | gate | together: infidelity, leakage | each as judged | crosstalk |",
              "|---|---|---|---|---|"] + [
         f"| {e['pair']} | {e['gate']} | {e['infidelity']:.2e}, {e['leakage']:.2e} | "
-        f"{e['alone'][0]:.2e}, {e['alone'][1]:.2e} | {ratio(e['crosstalk'][0])}, "
+        f"{e['own'][0]:.2e}, {e['own'][1]:.2e} | {ratio(e['crosstalk'][0])}, "
         f"{ratio(e['crosstalk'][1])} |" for e in found]
     atomic.write_text(out / "chip.md", (out / "chip.md").read_text() + "\n".join(table) + "\n")
     return path
