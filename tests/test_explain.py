@@ -152,3 +152,68 @@ def test_a_coarse_dac_in_the_recipe_is_named_as_quantisation(tmp_path):
     assert report["before_quantisation"]["infidelity"] < 1e-6 < report["infidelity"]
     assert report["explanation"][0]["cause"] == "quantisation"
     assert "export.dac_bits" in report["explanation"][0]["next"]
+
+
+SPECTATOR = """name = "beside"
+[system]
+model = "transmons"
+basis = "dressed"
+[[system.transmon]]
+name = "q0"
+levels = 4
+qubit_frequency = "4.95 GHz"
+anharmonicity = "-330 MHz"
+[[system.transmon]]
+name = "q1"
+levels = 3
+qubit_frequency = "5.45 GHz"
+anharmonicity = "-210 MHz"
+driven = false
+[[system.coupling]]
+between = ["q0", "q1"]
+strength = "30 MHz"
+[gate]
+target = "X"
+on = ["q0"]
+virtual_z = true
+[pulse]
+duration = "12.5 ns"
+sample_rate = "2.4 GS/s"
+max_rabi = {q0 = "60 MHz"}
+[optimizer]
+max_iterations = 300
+[verdict]
+lab_frame = "off"
+extra_levels = 1
+"""
+
+
+def test_a_neighbours_zz_is_named_where_it_is_most_of_the_miss(tmp_path):
+    # a strongly coupled neighbour (30 MHz, 0.5 GHz away): left idle for the pulse's 12.5 ns
+    # the conditional phase phi = 2 pi ZZ t costs 1 - F, with the best single-qubit Z
+    # corrections diag(1, e^{-i phi/2}, e^{-i phi/2}, 1): |Tr| = 4 |cos(phi/4)|, F =
+    # (d + |Tr|^2) / (d (d + 1)), d = 4 (Pedersen et al., Phys. Lett. A 367, 47 (2007)); ZZ
+    # from the eigenvalues of the exchange Hamiltonian written out here (Koch et al. 2007)
+    import numpy as np
+
+    recipe = tmp_path / "beside.toml"
+    recipe.write_text(SPECTATOR)
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
+                         "--no-plots")
+    report = json.loads((tmp_path / "run" / "report.json").read_text())
+    assert code == 1, err
+    (reason,) = report["explanation"]
+    assert reason["cause"] == "neighbours' ZZ" and "shaper sweep" in reason["next"]
+    assert "neighbours" in last_lines(out) and "conditional phase" in last_lines(out)
+
+    def ladder(levels, f, alpha):
+        n = np.arange(levels)
+        return np.diag(f * n + alpha / 2 * n * (n - 1)), np.diag(np.sqrt(n[1:]), 1)
+    (h0, a), (h1, b) = ladder(4, 0.0, -330e6), ladder(3, 0.5e9, -210e6)
+    A, B = np.kron(a, np.eye(3)), np.kron(np.eye(4), b)
+    h = np.kron(h0, np.eye(3)) + np.kron(np.eye(4), h1) + 30e6 * (A.T @ B + A @ B.T)
+    energies, vectors = np.linalg.eigh(h)
+    e = {s: energies[np.argmax(np.abs(vectors[s]))] for s in (0, 1, 3, 4)}  # 00 01 10 11
+    phi = 2 * np.pi * (e[4] - e[3] - e[1] + e[0]) * 12.5e-9
+    fidelity = (4 + 16 * np.cos(phi / 4) ** 2) / 20
+    assert report["trust"]["idle"]["infidelity"] == pytest.approx(1 - fidelity, rel=1e-6)

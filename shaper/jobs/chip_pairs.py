@@ -102,7 +102,9 @@ def played_elsewhere(chip: Chip, row, root: Path):
 def with_neighbours(chip: Chip, rows, root: Path) -> None:
     """Give every single-qubit gate row both figures, alone and with its neighbours: its
     own verdict is one of them, its file played on the other recipe the other (each the
-    verdict's most faithful figure there)."""
+    verdict's most faithful figure there), and the lab frame beside its neighbours
+    (:func:`near_lab`). A gate made beside its neighbours that misses there in the lab
+    frame is not met, and says why."""
     for row in rows:
         found = played_elsewhere(chip, row, root)
         if found is None:
@@ -118,3 +120,44 @@ def with_neighbours(chip: Chip, rows, root: Path) -> None:
             if budget is not None:
                 row.coherent_error = budget["coherent_error"]
                 row.incoherent_error = budget["incoherent_error"]
+        near = near_lab(chip, row, root)
+        lab = near.lab
+        row.neighbours_lab_infidelity, row.neighbours_lab_leakage = lab.infidelity, lab.leakage
+        if where == "alone":
+            _judge_lab(row, near)
+
+
+def near_lab(chip: Chip, row, root: Path):
+    """The row's file beside its neighbours in the lab frame (worst carrier phase), at the
+    neighbourhood's own levels: the chip's neighbourhood verdict stays in the rotating
+    frame (one level more), since the lab frame of every sweep point would cost 15-45 s
+    each (README, "Chips: neighbours"); this is that figure for the file kept."""
+    from shaper.io.waveio import read_waveform
+    from shaper.jobs.playback import Playback
+    from shaper.recipe import load_recipe
+
+    task = task_of(chip, row)
+    raw = task.near if task.near is not None else task.recipe
+    raw = {**raw, "gate": {**raw["gate"], "target": row.gate},
+           "verdict": {**raw.get("verdict", {}), "lab_frame": "on", "extra_levels": 0}}
+    return Playback(load_recipe(raw), read_waveform(root / row.waveform))
+
+
+def _judge_lab(row, near) -> None:
+    """A gate made beside its neighbours judged again on its lab-frame figure there."""
+    from shaper.jobs.explain import explain
+
+    recipe, lab = near.recipe, near.lab
+    limits = (recipe.optimizer.target_infidelity, recipe.optimizer.target_leakage)
+    missed = [{"name": name, "value": value, "limit": limit} for name, value, limit in
+              (("infidelity", lab.infidelity, limits[0]), ("leakage", lab.leakage, limits[1]))
+              if value > limit]
+    if not missed or not row.met:
+        return
+    rotating = {"infidelity": row.infidelity, "leakage": row.leakage}
+    report = {"targets": {"met": False, "infidelity": limits[0], "leakage": limits[1],
+                          "missed": missed}, **rotating, "duration_s": row.duration_s,
+              "trust": {"rotating_frame": rotating, "lab_frame": lab.figures()}}
+    row.met = False
+    row.missed = "; ".join(f"{m['name']} beside neighbours, lab frame" for m in missed)
+    row.why = " ".join(r.line() for r in explain(report, recipe=recipe.name))

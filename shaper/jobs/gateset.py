@@ -76,6 +76,8 @@ class GateRow:
     neighbours_leakage: float | None = None
     alone_infidelity: float | None = None
     alone_leakage: float | None = None
+    neighbours_lab_infidelity: float | None = None  # beside them, lab frame, worst phase
+    neighbours_lab_leakage: float | None = None
     # [gates] simultaneous: the worst joint infidelity of this gate played at the same time
     # as a neighbour's (shaper.jobs.chip_simultaneous), else None
     simultaneous_infidelity: float | None = None
@@ -140,7 +142,8 @@ def _why(report: dict, recipe: Recipe) -> str:
 COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "samples",
            "infidelity", "leakage", "met", "frame_before_rad", "frame_after_rad", "waveform",
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
-           "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity")
+           "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity",
+           "neighbours_lab_frame_infidelity", "neighbours_lab_frame_leakage")
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -161,7 +164,9 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          _number(r.rotating_infidelity), _number(r.rotating_leakage),
                          _number(r.neighbours_infidelity), _number(r.neighbours_leakage),
                          _number(r.alone_infidelity), _number(r.alone_leakage),
-                         _number(r.simultaneous_infidelity)])
+                         _number(r.simultaneous_infidelity),
+                         _number(r.neighbours_lab_infidelity),
+                         _number(r.neighbours_lab_leakage)])
     subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
     budget = any(r.incoherent_error is not None for r in rows)
     near = any(r.neighbours_infidelity is not None for r in rows)
@@ -170,8 +175,8 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
         "gate", "from", "phase", "duration", "infidelity", "leakage", "met", "rotating frame",
         "virtual Z before / after (rad)", "file"] + (
         ["T1/T2: coherent + incoherent error"] if budget else []) + (
-        ["with neighbours: infidelity, leakage"] if near else []) + (
-        ["alone: infidelity, leakage"] if alone else [])
+        ["with neighbours: infidelity, leakage", "with neighbours, lab frame"]
+        if near else []) + (["alone: infidelity, leakage"] if alone else [])
     lines = ["Infidelity and leakage as judged (README, \"How far the figures are trusted\"); "
              "the optimiser's rotating frame beside them.", "",
              "| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
@@ -187,7 +192,9 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
             [f"{r.coherent_error:.2e} + {r.incoherent_error:.2e}"
              if r.incoherent_error is not None else ""] if budget else []) + (
             [f"{r.neighbours_infidelity:.2e}, {r.neighbours_leakage:.2e}"
-             if r.neighbours_infidelity is not None else ""] if near else []) + (
+             if r.neighbours_infidelity is not None else "",
+             f"{r.neighbours_lab_infidelity:.2e}, {r.neighbours_lab_leakage:.2e}"
+             if r.neighbours_lab_infidelity is not None else ""] if near else []) + (
             [f"{r.alone_infidelity:.2e}, {r.alone_leakage:.2e}"
              if r.alone_infidelity is not None else ""] if alone else [])
         lines.append("| " + " | ".join(cells) + " |")

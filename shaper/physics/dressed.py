@@ -25,32 +25,40 @@ import numpy as np
 from shaper.errors import InputError
 
 
-def dressing(drift: np.ndarray, excitations: np.ndarray) -> np.ndarray:
+def dressing(drift: np.ndarray, excitations: np.ndarray,
+             computational: np.ndarray | None = None) -> np.ndarray:
     """The unitary ``V`` whose column ``j`` is the eigenvector of ``drift`` that the bare
-    state ``j`` becomes (the one of largest overlap), phased so that ``V[j, j] > 0``;
-    block-diagonal in the excitation number ``excitations`` (whole numbers per state).
+    state ``j`` becomes, phased so that ``V[j, j] > 0``; block-diagonal in the excitation
+    number ``excitations`` (whole numbers per state). Within a block, bare states and
+    eigenvectors are paired one to one for the largest total overlap (scipy's
+    ``linear_sum_assignment``), so that high, nearly degenerate levels never claim one
+    eigenvector twice.
 
     Raises:
-        InputError: two bare states claim one eigenvector (a resonance: the states are
-            hybridised and no bare label fits).
+        InputError: a ``computational`` state (default: every state) keeps half or less
+            of itself in its eigenvector (a resonance: hybridised, no bare label fits).
     """
+    from scipy.optimize import linear_sum_assignment
+
     d = drift.shape[0]
     n = np.rint(np.asarray(excitations, float)).astype(int)
     outside = np.abs(drift[n[:, None] != n[None, :]])
     if outside.size and outside.max() > 1e-9 * max(np.abs(drift).max(), 1.0):
         raise InputError("the drift couples states of different excitation number; the "
                          "dressed basis needs an excitation-conserving drift")
+    must = set(range(d) if computational is None else np.asarray(computational).tolist())
     v = np.zeros((d, d), complex)
     for level in np.unique(n):
         states = np.flatnonzero(n == level)
         _, vectors = np.linalg.eigh(drift[np.ix_(states, states)])
-        owner = np.argmax(np.abs(vectors) ** 2, axis=0)  # the bare state of each vector
-        if len(set(owner.tolist())) != len(states):
-            raise InputError("two bare states become one dressed state (a resonance at "
-                             "rest): the dressed basis has no labels here")
-        for column, bare in enumerate(owner):
+        overlap = np.abs(vectors) ** 2  # [bare, eigenvector]
+        bare, columns = linear_sum_assignment(-overlap)
+        for b, column in zip(bare, columns, strict=True):
+            if states[b] in must and overlap[b, column] <= 0.5 + 1e-6:
+                raise InputError("two bare states become one dressed state (a resonance at "
+                                 "rest): the dressed basis has no labels here")
             vector = vectors[:, column]
-            v[states, states[bare]] = vector * np.exp(-1j * np.angle(vector[bare]))
+            v[states, states[b]] = vector * np.exp(-1j * np.angle(vector[b]))
     return v
 
 
@@ -64,7 +72,7 @@ def dressed(system):
     """
     excitations = (system.lab.excitations if system.lab is not None
                    else np.real(np.diag(sum(system.number_operators))))
-    v = dressing(system.drift, excitations)
+    v = dressing(system.drift, excitations, system.computational)
     vh = v.conj().T
     turn = lambda m: vh @ m @ v  # noqa: E731
     lab = system.lab
