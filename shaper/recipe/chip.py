@@ -302,7 +302,9 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
             near = None if system is None else checked(near_recipe(recipe, system, qname),
                                                        f"qubit[{i}]")
             if near is not None and gates["neighbours"] == "optimise":
-                recipe, near, alone = near, None, recipe
+                # alone, its frame updates as free as beside the neighbours (it is made so)
+                alone = {**recipe, "gate": {**recipe["gate"], "virtual_z": True}}
+                recipe, near = near, None
             else:
                 alone = None
             tasks.append(Task(f"{qname}-{slug(parent)}", qname, parent, tuple(derived),
