@@ -29,6 +29,7 @@ ROOT = Path(__file__).resolve().parents[1]
 CHIP = """name = "test-chip"
 [gates]
 neighbours = "optimise"  # each single-qubit gate optimised beside its coupled neighbours
+simultaneous = true      # and played at the same time as each coupled neighbour's
 single = ["X", "Y"]
 single_durations = "10ns,12ns"
 pair = "CZ"
@@ -280,6 +281,17 @@ def test_a_gate_optimised_beside_its_neighbours_matches_an_independent_simulatio
     assert float(row["neighbours_leakage"]) == pytest.approx(leak, rel=1e-6)
     # and the same file alone has its own figure beside it
     assert float(row["alone_infidelity"]) > 0 and float(row["alone_infidelity"]) != best.fun
+    # every single-qubit gate also beside its neighbours in the lab frame; a miss there is
+    # a miss (README, "Chips: neighbours")
+    for r in _rows(tmp / "local"):
+        if r["subject"] in ("qa", "qb", "qc"):
+            lab = float(r["neighbours_lab_frame_infidelity"])
+            assert lab > 0 and (lab <= 1e-4 or r["met"] == "no")
+    # each coupled pair's gates played together (README, "Chips: simultaneous gates")
+    together = (tmp / "local" / "chip-simultaneous.csv").read_text().splitlines()
+    assert [line.split(",")[:2] for line in together[1:]] == [
+        ["qa-qb", "X"], ["qa-qb", "Y"], ["qb-qc", "X"], ["qb-qc", "Y"]]
+    assert all(float(line.split(",")[2]) > 0 for line in together[1:])
 
 
 def _browser() -> str:
