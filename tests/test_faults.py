@@ -19,10 +19,10 @@ from helpers import chip_text, demo_text
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def faults_chip(qubits: int, iterations: int = 60) -> str:
+def faults_chip(qubits: int, iterations: int = 60, durations: str = "10ns,14ns,18ns") -> str:
     return chip_text("faults", [(f"q{i}", f"{5.0 + 0.1 * i:.2f} GHz", "-220 MHz", 3)
                                 for i in range(qubits)], single='["X", "X/2"]',
-                     durations="10ns,14ns,18ns",
+                     durations=durations,
                      optimizer=f"max_iterations = {iterations}\ntarget_infidelity = 1e-12")
 
 
@@ -133,7 +133,9 @@ def test_ctrl_c_to_a_chip_keeps_finished_gates_and_resume_completes(tmp_path):
     # a terminal's Ctrl-C reaches the whole foreground process group: the command and its
     # worker processes (here: a new session, signalled as a group)
     chip = tmp_path / "chip.toml"
-    chip.write_text(faults_chip(6))
+    # 31 durations per task, so the others are still running when the first is done (with
+    # 3 a compiled worker once ran the remaining eleven within a few polls)
+    chip.write_text(faults_chip(6, durations="10ns:25ns:0.5ns"))
     out = tmp_path / "run"
     proc = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet",
                   start_new_session=True)
