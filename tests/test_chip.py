@@ -337,6 +337,9 @@ def test_chip_page_opens_in_a_headless_browser(chip_runs, tmp_path):
     # every single-qubit gate played again with its neighbours, and said so
     assert all(r["neighbours_infidelity"] for r in rows if "-" not in r["subject"])
     assert 'id="neighbours"' in dom and "with neighbours" in dom
+    assert "with neighbours, lab frame" in dom and "alone: infidelity" in dom
+    together = re.search(r'<table id="together">(.*?)</table>', dom, flags=re.S).group(1)
+    assert together.count("<tr>") == 5  # the head and qa-qb, qb-qc played X and Y at once
     assert "http" not in re.sub(r"https?://www\.w3\.org", "", page.read_text())  # no fetches
 
 
