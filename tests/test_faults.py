@@ -136,10 +136,15 @@ def test_ctrl_c_to_a_chip_keeps_finished_gates_and_resume_completes(tmp_path):
     chip.write_text(faults_chip(6))
     out = tmp_path / "run"
     # Ctrl-C as a terminal delivers it, whatever the suite inherited: a suite started in the
-    # background of a non-interactive shell ignores SIGINT, and so would the command
-    proc = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet",
-                  start_new_session=True,
-                  preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    # background of a non-interactive shell ignores SIGINT, and a child inherits an ignored
+    # signal (a handled one starts at its default); no preexec_fn: a fork beside JAX's
+    # threads warns
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        proc = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet",
+                      start_new_session=True)
+    finally:
+        signal.signal(signal.SIGINT, previous)
     wait_for(lambda: finished_tasks(out) >= 1, 300, proc)
     os.killpg(proc.pid, signal.SIGINT)
     _, err = proc.communicate(timeout=120)
