@@ -19,10 +19,10 @@ from helpers import chip_text, demo_text
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def faults_chip(qubits: int, iterations: int = 60, durations: str = "10ns,14ns,18ns") -> str:
+def faults_chip(qubits: int, iterations: int = 60) -> str:
     return chip_text("faults", [(f"q{i}", f"{5.0 + 0.1 * i:.2f} GHz", "-220 MHz", 3)
                                 for i in range(qubits)], single='["X", "X/2"]',
-                     durations=durations,
+                     durations="10ns,14ns,18ns",
                      optimizer=f"max_iterations = {iterations}\ntarget_infidelity = 1e-12")
 
 

@@ -84,7 +84,7 @@ def qubits_given(chip) -> list[list[str]]:
     recipes carry it): one row per qubit, the columns of :data:`QUBIT_HEAD`."""
     rows, seen = [], set()
     for task in chip.tasks:
-        alone = task.alone or task.recipe  # a qubit's gate alone (not its neighbourhood)
+        alone = task.alone_recipe  # a qubit's gate alone (not its neighbourhood)
         system = alone.get("system", {})
         if task.subject in seen or system.get("model") != "transmon":
             continue

@@ -39,8 +39,7 @@ def pair_zz(chip: Chip) -> list[dict]:
 def qubit_table(chip: Chip, name: str) -> dict:
     """A qubit's ``[[system.transmon]]`` table as the chip's single-qubit gate recipe of
     it holds it alone (its levels, spectrum; no coherence times)."""
-    raw = next(t.alone or t.recipe for t in chip.tasks if t.subject == name)
-    system = raw["system"]
+    system = next(t.alone_recipe for t in chip.tasks if t.subject == name)["system"]
     if system["model"] == "transmons":
         return {k: v for k, v in next(t for t in system["transmon"] if t["name"] == name).items()
                 if k not in ("t1", "t2")}
@@ -87,16 +86,24 @@ def played_elsewhere(chip: Chip, row, root: Path):
     (README, "Chips: neighbours"): in its neighbourhood if it was optimised alone, alone
     if it was optimised in its neighbourhood. ``(where, Playback)`` with ``where`` one of
     ``"near"``, ``"alone"``; None for a pair's gate or a qubit without neighbours."""
-    from shaper.io.waveio import read_waveform
-    from shaper.jobs.playback import Playback
-    from shaper.recipe import load_recipe
-
     task = task_of(chip, row)
     if task is None or (task.near is None and task.alone is None):
         return None
     where, raw = ("near", task.near) if task.near is not None else ("alone", task.alone)
+    return where, _playback(raw, row, root)
+
+
+def _playback(raw: dict, row, root: Path, **verdict):
+    """The row's file on ``raw`` (its target the row's gate; ``verdict`` keys over the
+    recipe's own)."""
+    from shaper.io.waveio import read_waveform
+    from shaper.jobs.playback import Playback
+    from shaper.recipe import load_recipe
+
     raw = {**raw, "gate": {**raw["gate"], "target": row.gate}}
-    return where, Playback(load_recipe(raw), read_waveform(root / row.waveform))
+    if verdict:
+        raw["verdict"] = {**raw.get("verdict", {}), **verdict}
+    return Playback(load_recipe(raw), read_waveform(root / row.waveform))
 
 
 def with_neighbours(chip: Chip, rows, root: Path) -> None:
@@ -132,15 +139,9 @@ def near_lab(chip: Chip, row, root: Path):
     neighbourhood's own levels: the chip's neighbourhood verdict stays in the rotating
     frame (one level more), since the lab frame of every sweep point would cost 15-45 s
     each (README, "Chips: neighbours"); this is that figure for the file kept."""
-    from shaper.io.waveio import read_waveform
-    from shaper.jobs.playback import Playback
-    from shaper.recipe import load_recipe
-
     task = task_of(chip, row)
     raw = task.near if task.near is not None else task.recipe
-    raw = {**raw, "gate": {**raw["gate"], "target": row.gate},
-           "verdict": {**raw.get("verdict", {}), "lab_frame": "on", "extra_levels": 0}}
-    return Playback(load_recipe(raw), read_waveform(root / row.waveform))
+    return _playback(raw, row, root, lab_frame="on", extra_levels=0)
 
 
 def _judge_lab(row, near) -> None:

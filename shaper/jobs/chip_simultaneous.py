@@ -91,7 +91,7 @@ def together(chip, rows, root: Path) -> list[dict]:
 
 def _task_recipe(chip, subject: str) -> dict:
     """A qubit's single-qubit gate recipe alone (the chip's own tables for it)."""
-    return next(t.alone or t.recipe for t in chip.tasks if t.subject == subject)
+    return next(t.alone_recipe for t in chip.tasks if t.subject == subject)
 
 
 def _envelope(wave, channel: str) -> np.ndarray:

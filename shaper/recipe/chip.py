@@ -58,6 +58,11 @@ class Task:
     near: dict | None = None
 
     @property
+    def alone_recipe(self) -> dict:
+        """The gate's recipe on its own qubit or pair (not a neighbourhood)."""
+        return self.alone or self.recipe
+
+    @property
     def digest(self) -> str:
         """What the task computes: a changed qubit, template or response file changes it
         (and redoes it)."""
