@@ -63,7 +63,8 @@ class Evaluation(NamedTuple):
 
 def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
              virtual_z: bool, method: str = "eigh", drive: Callable | None = None,
-             open_system: bool = False, open_scalings: int | None = None) -> Figures:
+             open_system: bool = False, open_scalings: int | None = None,
+             corrected=None) -> Figures:
     """Fidelity and leakage of the samples on the problem's system (nominal parameters).
 
     ``drive``, if given, maps the AWG's samples to what the propagator sees on the grid of
@@ -71,6 +72,8 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
     ``open_system``: the figures of the channel under ``problem.noise`` (the Lindblad
     propagation of :mod:`shaper.physics.lindblad`) instead of the unitary's;
     ``open_scalings`` (static) covers every slice (:func:`open_scalings`).
+    ``corrected``: a :class:`~shaper.signal.labdrive.CorrectedDrive`, the lab frame to
+    second order, judged by a smooth maximum over its carrier phases.
     """
     if drive is not None:
         samples = drive(samples)
@@ -81,6 +84,13 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
                             problem.target, qubits=qubits, virtual_z=virtual_z,
                             scalings=open_scalings)
     dt = (problem.dt * problem.active)[:, None, None]
+    if corrected is not None:
+        from shaper.signal.labdrive import smooth_worst
+        u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
+                                            method=method, extra=corrected.extra(samples)))
+        phases = corrected.kicked(u, samples, jnp.sum(problem.dt * problem.active))
+        return smooth_worst(jax.vmap(lambda v: figures_of(
+            v, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z))(phases))
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                         method=method))
     return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
@@ -89,7 +99,7 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
 def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool,
                      virtual_z: bool, method: str = "eigh",
                      drive: Callable | None = None, open_system: bool = False,
-                     open_scalings: int | None = None) -> Evaluation:
+                     open_scalings: int | None = None, corrected=None) -> Evaluation:
     """Figures of the nominal system and of every ensemble member, in ONE batched propagation.
 
     Member m sees ``drift + sum_q detunings[r, q] n_q`` and the samples times ``scales[r]``,
@@ -104,7 +114,8 @@ def evaluate_members(samples: jax.Array, problem: Problem, *, qubits: int, is_ga
         drift = problem.drift + jnp.einsum("q,qij->ij", detuning, problem.number_operators)
         return evaluate(samples * scale, problem._replace(drift=drift), qubits=qubits,
                         is_gate=is_gate, virtual_z=virtual_z, method=method, drive=drive,
-                        open_system=open_system, open_scalings=open_scalings)
+                        open_system=open_system, open_scalings=open_scalings,
+                        corrected=corrected)
 
     distinct = jax.vmap(one)(problem.detunings, problem.scales)
     return Evaluation(nominal=jax.tree_util.tree_map(lambda a: a[0], distinct),
@@ -165,15 +176,20 @@ def make_problem(recipe: Recipe, layout: Layout | None = None, *, real: int | No
                      else np.zeros((1, 1)), c))
 
 
-def chain_problem(recipe: Recipe, chain, layout: Layout | None = None) -> Problem:
+def chain_problem(recipe: Recipe, chain, layout: Layout | None = None, *,
+                  real: int | None = None) -> Problem:
     """The recipe's problem on the grid of its signal chain (:mod:`shaper.signal.chain`):
-    ``chain.steps`` propagator slices of ``chain.dt_s`` per AWG sample."""
+    ``chain.steps`` propagator slices of ``chain.dt_s`` per AWG sample, the padding and
+    the ring-down included. With a padded ``layout``, the slices after ``real`` samples
+    and their ring-down are identities (a shorter duration on a shared program)."""
+    real = recipe.samples if real is None else real
     if chain.identity:
-        return make_problem(recipe, layout, real=recipe.samples)
+        return make_problem(recipe, layout, real=real)
     problem = make_problem(recipe, layout, steps=chain.steps)
-    slices = (problem.envelope.shape[0] + chain.lead + chain.tail) * chain.steps
+    active = np.zeros(chain.played_samples(problem.envelope.shape[0]) * chain.steps)
+    active[:chain.played_samples(real) * chain.steps] = 1.0
     return problem._replace(dt=device(chain.dt_s, np.float64),
-                            active=device(np.ones(slices), np.float64))
+                            active=device(active, np.float64))
 
 
 def open_scalings(recipe: Recipe, layout: Layout, dt: float) -> int | None:

@@ -92,7 +92,7 @@ def qubits_given(chip) -> list[list[str]]:
         rows.append([str(c) for c in (
             task.subject, system.get("qubit_frequency"), system.get("anharmonicity"),
             system.get("levels"), alone.get("pulse", {}).get("max_rabi"),
-            system.get("t1", ""), system.get("t2", ""), system.get("spectrum", "duffing"))])
+            system.get("t1", ""), system.get("t2", ""), system.get("spectrum", "charge"))])
     return rows
 
 

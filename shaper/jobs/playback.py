@@ -35,8 +35,11 @@ from shaper.costs.verdict import Verdict, judge
 from shaper.io import waveio
 from shaper.physics.simulation import LabSimulation, Simulation, simulate
 from shaper.recipe import Recipe
-from shaper.signal.chain import for_waveform, line_columns
+from shaper.signal.analog import FINE
+from shaper.signal.chain import for_waveform, line_columns, ring_angle
 from shaper.signal.mixer import Mixer
+
+GUIDE_PHASES = 64  # carrier phases of the second-order model (each costs two kicks)
 
 
 class Playback:
@@ -102,7 +105,8 @@ class Playback:
         if not has_ensemble(recipe):
             return None
         from shaper.physics._jax import device
-        problem = waveform_problem(recipe, self.samples.shape[0], steps=self.chain.steps,
+        problem = waveform_problem(recipe, self.chain.played_samples(self.samples.shape[0]),
+                                   steps=self.chain.steps,
                                    dt=self.chain.period_s)
         flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
                      virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator,
@@ -130,19 +134,67 @@ class Playback:
     def lab(self) -> LabSimulation | None:
         """The lab-frame figures on the most faithful system, worst over the carrier
         phase (None where the verdict leaves the lab frame off or the model has none)."""
+        return self._lab(awg=True)
+
+    @cached_property
+    def staircase(self) -> LabSimulation | None:
+        """The same file in the lab frame from an instrument with no output filter (an
+        ideal staircase), at the judged worst carrier phase: the other end of what an
+        instrument can play (README, "The AWG's analog output"). None where there is no
+        lab frame or the recipe's output is already a staircase."""
+        if not self.recipe.line.awg.stages or self.lab is None:
+            return None
+        worst = self.lab.phases_rad[int(np.argmax(self.lab.infidelities))]
+        return self._lab(awg=False, phases=(worst,))
+
+    @cached_property
+    def corrected(self) -> dict | None:
+        """The lab frame to second order (:mod:`shaper.physics.effective`) on the most
+        faithful system, at :data:`GUIDE_PHASES` carrier phases: the phase dependence the
+        exact lab frame is searched by, at the rotating frame's cost (extrapolated from
+        ``s`` and ``2 s`` slices per sample like :meth:`played`). None where the model has
+        no lab frame or the correction does not hold (a resonant process)."""
+        v = self.recipe.verdict
+        if v.lab_frame == "off" or self.recipe.system.lab is None:
+            return None
+        from shaper.physics.simulation import simulate_corrected
+
+        play = self.faithful
+        recipe, chain = play.recipe, play.chain
+        phases = np.pi * np.arange(GUIDE_PHASES) / GUIDE_PHASES
+        try:
+            runs = [simulate_corrected(recipe.system, recipe.target, c(play.samples), c.dt_s,
+                                       phases_rad=phases, start_s=-c.start * c.period_s,
+                                       virtual_z=recipe.virtual_z)
+                    for c in (chain, chain.finer(2))]
+        except ValueError:
+            return None
+        values = runs[1] + (runs[1] - runs[0]) / 3
+        return {"phases_rad": phases, "figures": values}
+
+    def _lab(self, *, awg: bool, phases=None) -> LabSimulation | None:
         v = self.recipe.verdict
         if v.lab_frame == "off" or self.recipe.system.lab is None:
             return None
         from shaper.physics.simulation import simulate_lab
 
         play = self.faithful
-        chain, recipe = play.chain, play.recipe
-        cells = chain.cells(play.samples)  # once: the line's convolution is not repeated
+        recipe = play.recipe
+        chain = play.chain if awg else for_waveform(recipe, play.wave, awg=False)
+        n = play.samples.shape[0]
+        before = chain.before((0.5,), n)
+        fixed = v.phases_rad() if len(v.phases_rad()) == 1 else phases
+        guide = self.corrected if awg and fixed is None else None
         return simulate_lab(recipe.system, recipe.target,
-                            lambda t: chain.envelope_at(cells, t), cells.shape[0],
-                            chain.dt_s, start_s=-chain.start * chain.period_s,
-                            phases_rad=v.phases_rad(), envelope_hz=chain.turning_hz,
-                            virtual_z=recipe.virtual_z)
+                            lambda offsets, halved: chain.lab_envelope(
+                                play.samples, offsets, FINE // 2 if halved else FINE),
+                            before + chain.played_samples(n), chain.period_s,
+                            start_s=-(before + chain.start) * chain.period_s,
+                            phases_rad=fixed, phase_count=v.carrier_phases,
+                            envelope_hz=chain.turning_hz, virtual_z=recipe.virtual_z,
+                            exact_envelope=chain.resolution(n) == 0.0,
+                            guide=None if guide is None else (guide["phases_rad"],
+                                                              guide["figures"]))
 
     def trusted(self) -> tuple[float, float, str]:
         """(infidelity, leakage, what they are): the most faithful figures computed."""
@@ -150,8 +202,9 @@ class Playback:
         levels = "x".join(map(str, play.recipe.system.dims))
         if self.lab is not None:
             phases = self.recipe.verdict.phases_rad()
+            worst = np.degrees(self.lab.figures()["worst_phase_rad"])
             how = (f"at carrier phase {np.degrees(phases[0]):g} deg" if len(phases) == 1
-                   else f"worst of {len(phases)} carrier phases")
+                   else f"worst carrier phase ({worst:.3g} deg)")
             return self.lab.infidelity, self.lab.leakage, f"lab frame, {levels} levels, {how}"
         sim = play.nominal
         return sim.infidelity, sim.leakage, f"rotating frame, {levels} levels"
@@ -162,6 +215,7 @@ class Playback:
         infidelity, leakage, basis = self.trusted()
         out = {"judged_on": basis, "model": model_words(self.recipe.system),
                "infidelity": infidelity, "leakage": leakage,
+               "output": self.output_block(),
                "rotating_frame": {"levels": list(self.recipe.system.dims),
                                   "infidelity": self.nominal.infidelity,
                                   "leakage": self.nominal.leakage}}
@@ -172,11 +226,40 @@ class Playback:
         if self.lab is not None:
             out["lab_frame"] = {"levels": list(self.faithful.recipe.system.dims),
                                 **self.lab.figures()}
+        if self.staircase is not None:
+            out["staircase"] = {"infidelity": self.staircase.infidelity,
+                                "leakage": self.staircase.leakage,
+                                "what": "the same file in the lab frame from an instrument "
+                                        "with no output filter (an ideal staircase), at the "
+                                        "judged worst carrier phase"}
+        if self.corrected is not None:
+            worst = np.max(self.corrected["figures"], axis=0)
+            out["second_order"] = {"infidelity": float(worst[0]), "leakage": float(worst[1]),
+                                   "what": "the lab frame to second order in the "
+                                           "counter-rotating terms (the optimiser's model "
+                                           "with optimizer.lab_frame = \"corrected\"), "
+                                           f"worst of {GUIDE_PHASES} carrier phases"}
         if self.members is not None:
             out["ensemble"] = "rotating frame, the recipe's levels"
         if self.idle is not None:
             out["idle"] = self.idle
         return out
+
+    def output_block(self) -> dict:
+        """What the chip is assumed to receive and for how long: the instrument's output
+        filter (and whether it was assumed), the file's length, the ring-down after it
+        and the footprint (the time before the next gate may start)."""
+        chain, awg = self.chain, self.recipe.line.awg
+        n = self.samples.shape[0]
+        period = chain.period_s
+        return {"awg": awg.summary(),
+                "assumed": (f"assumed: the instrument plays {awg.words()} (no [awg] in the "
+                            f"recipe; give your instrument's from its datasheet)")
+                if awg.assumed else f"the instrument plays {awg.words()}",
+                "file_s": n * period, "ring_down_s": chain.ring * period,
+                "footprint_s": chain.played_samples(n) * period,
+                "ring_residual_rad": chain.ring_residual_rad,
+                "settled": chain.ring_residual_rad <= ring_angle(self.recipe) * (1 + 1e-9)}
 
     @cached_property
     def idle(self) -> dict | None:
@@ -268,7 +351,8 @@ class Playback:
         from shaper.physics._jax import device
 
         recipe, chain = self.recipe, self.chain
-        problem = waveform_problem(recipe, self.samples.shape[0], steps=chain.steps,
+        problem = waveform_problem(recipe, chain.played_samples(self.samples.shape[0]),
+                                   steps=chain.steps,
                                    dt=chain.period_s)
         flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
                      virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)

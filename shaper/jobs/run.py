@@ -81,8 +81,17 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     if bound is not None:
         log.line(f"warning: {bound.why}. {bound.next}")
     result = optimize(recipe, options)
+    from shaper.jobs.escalate import escalate
+
+    if options.watchdog is not None:
+        options.watchdog.beat("judging the file as the chip plays it")
+    log.line("judging the exported file as the chip plays it (more levels, the lab frame)")
+    result, waveform, playback, steps = escalate(
+        recipe, result, options, say=log.line,
+        deadline=time.monotonic() + (options.time_left_s or recipe.optimizer.max_time_s))
     output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog,
-                    painter=painter, say=log.line)
+                    painter=painter, say=log.line, judged=(waveform, playback),
+                    escalation=steps)
     r = output.report
     log.line(f"finished: {r['optimizer']['stop_reason']}; infidelity {r['infidelity']:.3e}, "
              f"leakage {r['leakage']:.3e}; {summary(r['targets'])}", echo=False)
@@ -121,7 +130,8 @@ def rescue_writer(folder: Path, watchdog):
 
 
 def finish(result: Result, folder: Path, *, plots_too: bool = True,
-           watchdog=None, painter=None, say=None) -> RunOutput:
+           watchdog=None, painter=None, say=None, judged=None,
+           escalation: list | None = None) -> RunOutput:
     """Export the result's samples, re-check what the AWG plays, write report and plots.
 
     Nothing finished is lost to a later step: the waveform files are written first, the
@@ -130,6 +140,8 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     recorded in the report (``extras_failed``) instead of ending the job. With a
     ``painter`` the plots are drawn by its helper process while the textbook comparison
     is computed here. ``say(text)``: each phase as it begins (the command's progress).
+    ``judged``: the exported waveform and its Playback, if already made
+    (:mod:`shaper.jobs.escalate`); ``escalation``: its steps, for the report.
     """
     recipe = result.recipe
     folder.mkdir(parents=True, exist_ok=True)
@@ -144,13 +156,15 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
                                       recipe.sample_rate_hz)
     files = writers.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
-    playback = Playback(recipe, waveform)
+    playback = judged[1] if judged is not None else Playback(recipe, waveform)
     stage("re-simulating the exported file (as the chip plays it: more levels, lab frame)")
     unquantised, _ = make_waveform(recipe, result.samples,  # padded as the optimiser saw
                                    replace(recipe.export, dac_bits=None),
                                    recipe.sample_rate_hz)
     internal = Playback(recipe, unquantised).nominal
     report = build_report(result, playback, internal, clipped, files[0].name)
+    if escalation:
+        report["escalation"] = escalation
     atomic.write_json(folder / "report.json", report)
     (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
     failed, plotted = _extras(result, folder, playback, report, plots_too, painter, stage)

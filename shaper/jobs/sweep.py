@@ -23,7 +23,7 @@ import numpy as np
 
 from shaper.errors import ResultError
 from shaper.io import atomic, waveio, writers
-from shaper.optimizer.objective import Objective, make_objective
+from shaper.optimizer.objective import Objective, make_objective, shares_chain
 from shaper.optimizer.options import RunOptions
 from shaper.optimizer.starts import Result, optimize
 from shaper.optimizer.tracker import StartResult
@@ -81,6 +81,7 @@ class SweepPoint:
     judged_on: str = ""
     starts: int = 0  # how many starts the point ran (0: the recipe's)
     retried: bool = False  # failed while a longer duration passed: run again, more starts
+    escalated: str = ""  # the models the optimiser went on in (jobs.escalate), in order
 
 
 RETRY_STARTS = 4  # at least this many starts when a point is retried
@@ -121,7 +122,8 @@ class Sweep:
 
     def objective_for(self, recipe: Recipe) -> Objective:
         size = bucket(recipe.samples, recipe.hold)
-        if not for_recipe(recipe).identity or recipe.optimizer.lab_frame:
+        chain = for_recipe(recipe)
+        if chain.lead or chain.tail or recipe.optimizer.lab_frame == "exact":
             key = -recipe.samples
             if key not in self.objectives:
                 self.objectives[key] = make_objective(recipe)
@@ -129,7 +131,13 @@ class Sweep:
         if size not in self.objectives:
             self.objectives[size] = make_objective(recipe, pad_to=size)
             return self.objectives[size]
-        return self.objectives[size].for_recipe(recipe)
+        shared = self.objectives[size]
+        if not shares_chain(chain, shared.chain):  # another ring-down: its own program
+            key = -recipe.samples
+            if key not in self.objectives:
+                self.objectives[key] = make_objective(recipe)
+            return self.objectives[key]
+        return shared.for_recipe(recipe)
 
     def samples_path(self, n: int) -> Path:
         """The exported waveform of duration ``n`` (our CSV with its JSON sidecar)."""
@@ -163,20 +171,21 @@ class Sweep:
         if n in self.points and self.samples_path(n).exists() and (
                 starts is None or self.points[n].retried):
             return self.points[n], None
-        from shaper.jobs.export import make_waveform
-        from shaper.jobs.playback import Playback
+        from shaper.jobs.escalate import escalate
 
         recipe = recipe_at(self.recipe, n)
         objective = self.objective_for(recipe)
         t0 = time.monotonic()
         work = self.folder / f"duration-{n}"  # checkpoints and history of this duration
         resume = any(work.glob("checkpoint-*.npz"))
-        result = optimize(recipe, RunOptions(seed=self.seed, folder=work, resume=resume,
-                                             workers=self.workers, stop=self.stop,
-                                             starts=starts, time_left_s=self.time_left()),
-                          objective=objective, first=None if warm is None else stretch(warm, n))
-        wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
-        playback = Playback(recipe, wave)
+        options = RunOptions(seed=self.seed, folder=work, resume=resume, workers=self.workers,
+                             stop=self.stop, starts=starts, time_left_s=self.time_left())
+        result = optimize(recipe, options, objective=objective,
+                          first=None if warm is None else stretch(warm, n))
+        left = self.time_left()
+        result, wave, playback, steps = escalate(
+            recipe, result, options, say=self.echo,
+            deadline=None if left is None else time.monotonic() + left)
         played, verdict, budget = playback.nominal, playback.verdict(), playback.open_system
         infidelity, leakage, basis = playback.trusted()
         best = result.best
@@ -191,7 +200,8 @@ class Sweep:
                            coherent_error=budget and budget["coherent_error"],
                            incoherent_error=budget and budget["incoherent_error"],
                            total_error=budget and budget["infidelity"],
-                           starts=len(result.starts), retried=starts is not None)
+                           starts=len(result.starts), retried=starts is not None,
+                           escalated=", ".join(step["model"] for step in steps))
         if not self.stop:  # an interrupted point is not finished: it is redone on resume
             writers.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)

@@ -17,7 +17,6 @@ from shaper import costs
 from shaper.costs.problem import (
     Problem,
     chain_problem,
-    make_problem,
     open_scalings,
     qubit_count,
     recipe_layout,
@@ -27,7 +26,7 @@ from shaper.physics._jax import device
 from shaper.physics.propagator import slice_unitaries
 from shaper.recipe import Recipe, digest
 from shaper.signal.chain import for_recipe
-from shaper.signal.labdrive import LabDrive
+from shaper.signal.labdrive import CorrectedDrive, LabDrive
 from shaper.signal.pulses import Layout, padded, to_samples
 
 
@@ -50,6 +49,7 @@ class Objective:
     traces: list  # one entry per trace of the loss: how often it was (re)compiled
     signature: str = ""  # digest of the recipe without its duration: what for_recipe needs
     slices: Any = None  # jitted (params, problem) -> (slices, d, d) nominal slice unitaries
+    chain: Any = None  # the signal chain the program closes over (signal.chain.Chain)
 
     def slice_states(self, params) -> tuple[np.ndarray, np.ndarray]:
         """Per-slice states of the nominal closed system, for methods that update slice by
@@ -71,12 +71,34 @@ class Objective:
             InputError: the recipe differs in more than its duration (another limit, system
                 or weight would silently keep the old one), or does not fit the padded size.
         """
-        if duration_free_digest(recipe) != self.signature:
+        if duration_free_digest(recipe) != self.signature or not shares_chain(
+                for_recipe(recipe), self.chain):
             raise InputError(f"recipe {recipe.name!r} differs from this objective's in more "
                              f"than its duration; build an objective for it")
         layout = padded(recipe_layout(recipe), self.layout.samples)
         return dataclasses.replace(self, layout=layout,
-                                   problem=make_problem(recipe, layout, real=recipe.samples))
+                                   problem=chain_problem(recipe, self.chain, layout,
+                                                         real=recipe.samples))
+
+
+def shares_chain(chain, other) -> bool:
+    """Whether a recipe of ``chain`` may run on a program compiled for ``other``: the same
+    chain but for the pulse's length (no export padding, the same ring-down)."""
+    def key(c):
+        return tuple(np.asarray(v).tobytes() if isinstance(v, np.ndarray) else v
+                     for f, v in vars(c).items() if f != "ring_residual_rad")
+    return other is not None and not chain.lead and not chain.tail and key(chain) == key(other)
+
+
+CORRECTED_PHASES = 16  # carrier phases of the corrected lab frame (each two kicks)
+
+
+def corrected_phases(recipe: Recipe) -> tuple[float, ...]:
+    """The carrier phases the corrected lab frame is judged on: the verdict's fixed phase,
+    or :data:`CORRECTED_PHASES` over half a turn (its figures are smooth in the phase)."""
+    if recipe.verdict.carrier_phase_deg is not None:
+        return recipe.verdict.phases_rad()
+    return tuple(np.pi * k / CORRECTED_PHASES for k in range(CORRECTED_PHASES))
 
 
 def duration_free_digest(recipe: Recipe) -> str:
@@ -107,12 +129,15 @@ def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
 
     ``pad_to`` (AWG samples): pad the slice count to this shared size with identity slices,
     so that recipes differing only in duration reuse the compiled code
-    (:meth:`Objective.for_recipe`). Not with an IF export or a line (their sub-steps).
+    (:meth:`Objective.for_recipe`). Not with export padding or in the lab frame.
     """
     chain = for_recipe(recipe)  # what reaches the chip, as the propagator sees it
     layout = recipe_layout(recipe)
-    lab = LabDrive.for_chain(chain, recipe.system) if recipe.optimizer.lab_frame else None
-    if pad_to is not None and chain.identity and lab is None:
+    mode = recipe.optimizer.lab_frame
+    lab = LabDrive.for_chain(chain, recipe.system, recipe.samples) if mode == "exact" else None
+    corrected = CorrectedDrive.for_chain(chain, recipe.system, corrected_phases(recipe)) \
+        if mode == "corrected" else None
+    if pad_to is not None and not chain.lead and not chain.tail and lab is None:
         layout = padded(layout, pad_to)
     qubits = qubit_count(recipe)
     problem = chain_problem(recipe, chain, layout)
@@ -120,12 +145,12 @@ def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     if lab is not None:  # the lab frame's operators on its own slices (signal.labdrive)
         problem = problem._replace(controls=device(lab.terms.operators, complex),
                                    dt=device(lab.dt_s, float),
-                                   active=device(np.ones(lab.slices(recipe.samples)), float))
+                                   active=device(np.ones(lab.slices()), float))
         phases = device(np.array(recipe.verdict.phases_rad()), float)
     flags = dict(qubits=qubits, is_gate=recipe.target.is_gate, virtual_z=recipe.virtual_z,
                  method=recipe.optimizer.propagator, drive=drive,
                  open_system=recipe.optimizer.open_system,
-                 open_scalings=open_scalings(recipe, layout, chain.dt_s))
+                 open_scalings=open_scalings(recipe, layout, chain.dt_s), corrected=corrected)
     w = recipe.weights
     terms = costs.terms_for(recipe, layout)
     names = tuple(t.name for t in terms)
@@ -160,7 +185,7 @@ def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
                      value_and_grad=vg, loss=loss, qubits=qubits, traces=traces,
                      signature=duration_free_digest(recipe),
                      slices=None if lab is not None or recipe.optimizer.open_system
-                     else slices)
+                     else slices, chain=chain)
 
 
 @jax.jit

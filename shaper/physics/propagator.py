@@ -82,12 +82,16 @@ def _pade_exponential(phases: jax.Array) -> jax.Array:
 
 
 def slice_unitaries(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike,
-                    *, method: str = "eigh") -> jax.Array:
+                    *, method: str = "eigh", extra: ArrayLike | None = None) -> jax.Array:
     """The propagator of every slice, ``(n, d, d)``, first slice first.
 
-    Args: as :func:`propagate`.
+    Args: as :func:`propagate`; ``extra``: ``(n, d, d)`` Hermitian, Hz, added to each
+    slice's Hamiltonian (a term that is not linear in the controls, such as the lab
+    frame's second-order correction, :mod:`shaper.physics.effective`).
     """
     hamiltonians = drift + jnp.einsum("nk,kij->nij", samples.astype(controls.dtype), controls)
+    if extra is not None:
+        hamiltonians = hamiltonians + extra
     phases = hamiltonians * dt
     if method == "eigh":
         return cycle_exponential(phases)

@@ -16,7 +16,12 @@ from shaper.errors import InputError
 from shaper.physics._jax import device
 from shaper.physics.figures import gate_figures, state_figures
 from shaper.physics.figures import project as project_subspace
-from shaper.physics.propagator import cycle_exponential, ordered_product, propagate
+from shaper.physics.propagator import (
+    cycle_exponential,
+    ordered_product,
+    propagate,
+    slice_unitaries,
+)
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
 
@@ -91,6 +96,68 @@ def _run(drift, controls, samples, dt, computational, target, initial, final, *,
     return jnp.transpose(populations, (2, 0, 1)), fig, u
 
 
+def simulate_corrected(system: System, target: Target, samples: np.ndarray, dt: float, *,
+                       phases_rad: np.ndarray, start_s: float,
+                       virtual_z: bool = False) -> np.ndarray:
+    """``(P, 2)`` infidelity and leakage at every carrier phase of the lab frame to second
+    order (:mod:`shaper.physics.effective`): one propagation with the effective term, then
+    the two kicks per phase. ``samples`` ``(n, k)`` on slices of ``dt`` from ``start_s``
+    (seconds from the pulse start)."""
+    from shaper.physics.effective import correction_for
+
+    corr = correction_for(system)
+    qubits = max(1, int(round(np.log2(len(system.computational)))))
+    dc = len(system.computational)
+    out = _corrected(device(system.drift, complex), device(system.controls, complex),
+                     device(np.asarray(samples, float), float), device(dt, float),
+                     device(system.computational),
+                     device(target.unitary if target.is_gate else np.zeros((dc, dc)), complex),
+                     device(np.asarray(phases_rad, float), float), corr, start_s,
+                     qubits=qubits, virtual_z=virtual_z)
+    return np.asarray(out)
+
+
+def _corrected(drift, controls, samples, dt, computational, target, phases, corr, start_s, *,
+               qubits, virtual_z):
+    """One compiled program per layout (the correction's arrays are arguments: a second
+    file on the same system is not traced again)."""
+    from dataclasses import replace as swap
+
+    from shaper.physics.effective import effective_term, kick
+
+    arrays = (corr.basis, corr.static, corr.raise_, corr.lower, corr.plus, corr.minus)
+    key = (qubits, virtual_z, corr.frame_hz, corr.iq_columns.tobytes(),
+           tuple(a.shape for a in arrays))
+    if key not in _CORRECTED:
+        def program(drift, controls, samples, dt, computational, target, phases, start,
+                    arrays):
+            c = swap(corr, basis=arrays[0], static=arrays[1], raise_=arrays[2],
+                     lower=arrays[3], plus=arrays[4], minus=arrays[5])
+            extra = effective_term(c, samples)
+            u = ordered_product(slice_unitaries(drift, controls, samples, dt, extra=extra))
+            f, total = c.frame_hz, dt * samples.shape[0]
+
+            def one(phase):
+                k0 = kick(c, samples[0], 2 * jnp.pi * f * start + phase)
+                k1 = kick(c, samples[-1], 2 * jnp.pi * f * (start + total) + phase)
+                ends = jax.vmap(jax.scipy.linalg.expm)(jnp.stack([-1j * k1, 1j * k0]))
+                fig = gate_figures(project_subspace(ends[0] @ u @ ends[1], computational),
+                                   target, qubits=qubits, virtual_z=virtual_z)
+                return jnp.stack([1.0 - fig.fidelity, fig.leakage])
+
+            return jax.vmap(one)(phases)
+
+        if len(_CORRECTED) >= 8:
+            _CORRECTED.pop(next(iter(_CORRECTED)))
+        _CORRECTED[key] = jax.jit(program)
+    return _CORRECTED[key](drift, controls, samples, dt, computational, target, phases,
+                           start_s, tuple(device(a, complex if np.iscomplexobj(a) else float)
+                                          for a in arrays))
+
+
+_CORRECTED: dict = {}  # compiled corrected-lab programs, by layout
+
+
 @dataclass(frozen=True)
 class OpenSimulation:
     """The error budget of a waveform on an open system (README, "Decoherence").
@@ -158,11 +225,14 @@ class LabSimulation:
     """A waveform's figures in the lab frame (no rotating-wave approximation), over the
     carrier phase at the pulse start (README, "The lab frame").
 
-    ``infidelity``/``leakage`` are the worst over ``phases_rad`` (each its own worst
-    phase). Every phase is run with ``points_per_cycle`` sub-steps per cycle of the
-    fastest term; the worst phases again with twice as many, and extrapolated (the
-    method's error falls as the fourth power); ``convergence`` is the largest change of
-    their figures between the two.
+    The figures are trigonometric polynomials in the carrier phase (the counter-rotating
+    terms turn as ``exp(2 i phi)``); ``infidelity``/``leakage`` are the worst over every
+    phase run: a spread over half a turn, doubled while its highest harmonic is not small
+    (at most :data:`MAX_PHASES`), then the maximum of its trigonometric interpolant run
+    exactly (:func:`worst_phases`). The worst phases are run again with twice the
+    sub-steps per cycle and extrapolated (the method's error falls as the fourth power);
+    ``convergence`` is the largest change of their figures between the two, plus the
+    change when the envelope's own grid is halved (a Gaussian or measured stage).
     """
 
     phases_rad: list[float]
@@ -171,6 +241,9 @@ class LabSimulation:
     points_per_cycle: int
     slices: int
     convergence: float
+    spread_phases: int = 0
+    search: str = ""  # how the worst phase was found
+    guide_error: float | None = None  # largest |exact - second-order| at the phases run
 
     @property
     def infidelity(self) -> float:
@@ -181,34 +254,100 @@ class LabSimulation:
         return max(self.leakages)
 
     def figures(self) -> dict:
+        worst = int(np.argmax(self.infidelities))
         return {"infidelity": self.infidelity, "leakage": self.leakage,
                 "infidelity_best": min(self.infidelities),
+                "worst_phase_rad": self.phases_rad[worst],
                 "phases_rad": self.phases_rad, "infidelity_per_phase": self.infidelities,
-                "leakage_per_phase": self.leakages,
+                "leakage_per_phase": self.leakages, "spread_phases": self.spread_phases,
+                "search": self.search, "second_order_error": self.guide_error,
                 "points_per_cycle": self.points_per_cycle, "slices": self.slices,
                 "convergence": self.convergence}
 
 
 LAB_CHUNK_ENTRIES = 4_000_000  # slices x d^2 per compiled lab-frame program (memory bound)
+MAX_PHASES = 64  # the spread of carrier phases doubles up to this many
+ALIAS_SHARE = 0.02  # the highest harmonic of the spread, relative to its range, resolved
 
 
-def simulate_lab(system: System, target: Target, envelope_at, cells: int, cell_s: float, *,
-                 start_s: float = 0.0, phases_rad=(0.0,), envelope_hz: float = 0.0,
-                 virtual_z: bool = False, points: int | None = None) -> LabSimulation:
+GUIDE_SHARE = 0.02  # the second-order model may differ this much from the exact figures
+
+
+def guided_phases(run, guide: tuple[np.ndarray, np.ndarray]) -> tuple[dict, float, bool]:
+    """The exact figures where the second-order model (``guide``: phases and their
+    ``[infidelity, leakage]``, :func:`simulate_corrected`) puts each figure's worst and
+    best phase and a quarter turn from the worst, and how far the model is from them.
+
+    Returns ``(figures by phase, largest difference, whether the model holds)``: it holds
+    when every difference is within :data:`GUIDE_SHARE` of the worst exact figure, so the
+    true worst over all phases is within twice that of the worst found."""
+    phases, values = guide
+    worst = int(np.argmax(values[:, 0]))
+    picks = {worst, int(np.argmax(values[:, 1])), int(np.argmin(values[:, 0])),
+             (worst + len(phases) // 2) % len(phases)}
+    figures = {float(phases[i]): run(float(phases[i])) for i in sorted(picks)}
+    error = np.max([np.abs(figures[float(phases[i])] - values[i]) for i in picks], axis=0)
+    top = np.max(np.array(list(figures.values())), axis=0)
+    holds = bool(np.all(error <= GUIDE_SHARE * top + 1e-13))
+    return figures, float(np.max(error)), holds
+
+
+def worst_phases(run, count: int, figures: dict | None = None) -> dict[float, np.ndarray]:
+    """Every carrier phase run and its figures ``[infidelity, leakage]``: ``count`` phases
+    over ``[0, pi)``, doubled while the highest harmonic either figure shows is above
+    :data:`ALIAS_SHARE` of its range (the spread would miss a peak between its phases),
+    then, per figure, the maximum of the spread's trigonometric interpolant run exactly.
+    ``figures``: phases already run (kept)."""
+    figures = dict(figures or {})
+    while True:
+        grid = [np.pi * k / count for k in range(count)]
+        for phase in grid:
+            if phase not in figures:
+                figures[phase] = run(phase)
+        values = np.array([figures[p] for p in grid])  # (count, 2)
+        spectrum = np.fft.rfft(values, axis=0) / count
+        spread = values.max(axis=0) - values.min(axis=0)
+        top = np.abs(spectrum[-1]) + (np.abs(spectrum[-2]) if count > 2 else 0.0)
+        resolved = np.all((top <= ALIAS_SHARE * spread) | (spread <= 1e-3 * np.abs(values).max(
+            axis=0)))
+        if resolved or 2 * count > MAX_PHASES:
+            break
+        count *= 2
+    dense = np.fft.irfft(spectrum * count, 32 * count, axis=0) * 32  # the interpolant
+    for column in range(values.shape[1]):
+        peak = float(np.pi * np.argmax(dense[:, column]) / (32 * count))
+        if all(abs(peak - p) > 1e-9 for p in figures):
+            figures[peak] = run(peak)
+    return figures
+
+
+def simulate_lab(system: System, target: Target, envelope_of, samples: int,
+                 period_s: float, *, start_s: float = 0.0, phases_rad=None,
+                 phase_count: int = 8, envelope_hz: float = 0.0, virtual_z: bool = False,
+                 points: int | None = None, exact_envelope: bool = True,
+                 guide: tuple[np.ndarray, np.ndarray] | None = None) -> LabSimulation:
     """The figures of a played waveform with the drive's counter-rotating terms kept.
 
     Args:
         system: a System with a lab model (:mod:`shaper.physics.labframe`).
         target: what the gate should do.
-        envelope_at: ``times (m,) -> (m, k)`` the drive-frame control values (Hz) at
-            times counted from the pulse start (``Chain.envelope_at``).
-        cells, cell_s: the held grid the envelope is constant or smooth on.
-        start_s: the time of the first cell's start, from the pulse start (padding first:
-            negative).
-        phases_rad: the frame's phase at the pulse start, one run each.
-        envelope_hz: how fast the drive-frame envelope turns within a cell (IF, offsets).
+        envelope_of: ``(offsets, halved) -> (samples * len(offsets), k)`` the drive-frame
+            control values (Hz) at ``k + offsets[j]`` sample periods, in time order
+            (:meth:`shaper.signal.chain.Chain.lab_envelope`); ``halved``: on half the grid
+            of an output without a closed form (its resolution's effect).
+        samples: sample periods simulated (the padding and the ring-down included).
+        period_s: the sample period.
+        start_s: the time of the first simulated sample's start, from the pulse start.
+        phases_rad: fixed carrier phases to run (the sequencer fixes the phase); None:
+            the worst phase is searched (:func:`worst_phases`, from ``phase_count``).
+        envelope_hz: how fast the drive-frame envelope turns (IF, carrier offsets).
         points: sub-steps per cycle of the fastest term (default
             :data:`~shaper.physics.labframe.POINTS_PER_CYCLE`).
+        exact_envelope: every output is in closed form; otherwise the worst phases are
+            also run with the envelope's grid halved (part of ``convergence``).
+        guide: the second-order model's figures over a dense grid of phases
+            (:func:`simulate_corrected`): the worst phase is run where it says, and the
+            spread only where it does not hold (:func:`guided_phases`).
     """
     from shaper.physics import labframe as lf
 
@@ -217,14 +356,16 @@ def simulate_lab(system: System, target: Target, envelope_at, cells: int, cell_s
     qubits = max(1, int(round(np.log2(len(system.computational)))))
     grids = {}
 
-    def run(p: int, phase: float) -> np.ndarray:
-        if p not in grids:
-            steps = lf.steps_per_cell(terms, cell_s, envelope_hz, p)
-            times = lf.node_times(cells, cell_s, steps) + start_s
-            grids[p] = (times, envelope_at(times), cell_s / steps / 2)
-        times, values, dt = grids[p]
-        samples = lf.slice_samples(lf.coefficients(terms, values, times, phase))
-        u = lab_unitary(system.drift, terms.operators, samples, dt)
+    def run(p: int, phase: float, halved: bool = False) -> np.ndarray:
+        if (p, halved) not in grids:
+            steps = lf.steps_per_cell(terms, period_s, envelope_hz, p)
+            offsets = tuple(((np.arange(steps)[:, None] + lf.NODES[None, :]) / steps)
+                            .reshape(-1).tolist())
+            times = lf.node_times(samples, period_s, steps) + start_s
+            grids[(p, halved)] = (times, envelope_of(offsets, halved), period_s / steps / 2)
+        times, values, dt = grids[(p, halved)]
+        coefficients = lf.slice_samples(lf.coefficients(terms, values, times, phase))
+        u = lab_unitary(system.drift, terms.operators, coefficients, dt)
         fig = _lab_figures(device(u, complex), device(system.computational),
                            device(target.unitary if target.is_gate else
                                   np.zeros((len(system.computational),) * 2), complex),
@@ -233,17 +374,36 @@ def simulate_lab(system: System, target: Target, envelope_at, cells: int, cell_s
                            final=None if target.is_gate else tuple(target.final.tolist()))
         return np.array([1.0 - float(fig.fidelity), float(fig.leakage)])
 
-    figures = np.array([run(points, phase) for phase in phases_rad])
+    error, search = None, "fixed carrier phase"
+    if phases_rad is not None:
+        found, spread = {float(p): run(points, float(p)) for p in phases_rad}, 0
+    else:
+        found, holds = {}, False
+        if guide is not None:
+            found, error, holds = guided_phases(lambda phase: run(points, phase), guide)
+            search = (f"the second-order model over {len(guide[0])} phases, exact at "
+                      f"{len(found)} (largest difference {error:.2g})")
+        if not holds:
+            found = worst_phases(lambda phase: run(points, phase), phase_count, found)
+            search = (f"a spread of phases refined to its peaks ({len(found)} run)"
+                      + ("; the second-order model did not hold" if guide is not None else ""))
+        spread = len(found)
+    phases = sorted(found)
+    figures = np.array([found[p] for p in phases])
     change = 0.0
     for j in sorted({int(np.argmax(figures[:, 0])), int(np.argmax(figures[:, 1]))}):
-        fine = run(2 * points, phases_rad[j])
+        fine = run(2 * points, phases[j])
         change = max(change, float(np.max(np.abs(fine - figures[j]))))
+        if not exact_envelope:
+            coarse = run(points, phases[j], halved=True)
+            change = max(change, float(np.max(np.abs(coarse - figures[j]))))
         figures[j] = fine + (fine - figures[j]) / 15.0
-    return LabSimulation(phases_rad=[float(p) for p in phases_rad],
+    return LabSimulation(phases_rad=[float(p) for p in phases],
                          infidelities=figures[:, 0].tolist(),
                          leakages=np.maximum(figures[:, 1], 0.0).tolist(),
-                         points_per_cycle=points, slices=int(grids[points][0].shape[0]),
-                         convergence=change)
+                         points_per_cycle=points, slices=int(grids[(points, False)][0].shape[0]),
+                         convergence=change, spread_phases=spread, search=search,
+                         guide_error=error)
 
 
 def lab_unitary(drift: np.ndarray, operators: np.ndarray, samples: np.ndarray,

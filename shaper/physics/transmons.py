@@ -76,7 +76,7 @@ class TransmonSpec:
     flux: bool = False  # add a baseband control on its number operator
     t1_s: float | None = None  # energy relaxation time (None: no decay)
     t2_s: float | None = None  # coherence time of the 0-1 superposition (None: T2 = 2 T1)
-    spectrum: str = "duffing"  # or "charge": levels of the Cooper-pair box (physics.charge)
+    spectrum: str = "charge"  # the Cooper-pair box (physics.charge), or "duffing"
     offset_charge: float = 0.0  # n_g of the charge model, in Cooper pairs
     driven: bool = True  # False: a spectator with no drive line of its own (README, "Chips")
 

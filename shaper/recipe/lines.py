@@ -58,20 +58,99 @@ class Stage:
         return out
 
 
+AWG_FILTERS = ("bessel", "butterworth", "gaussian", "measured", "none")
+# What an instrument's output does when the recipe does not say (README, "The AWG's analog
+# output"): analog bandwidths of 0.3-0.5 of the sample rate are usual (from memory, common
+# practice, no source); a 4th-order Bessel keeps a pulse's shape (linear phase).
+AWG_DEFAULT_KIND, AWG_DEFAULT_ORDER, AWG_DEFAULT_FRACTION = "bessel", 4, 0.4
+
+
+@dataclass(frozen=True)
+class AwgOutput:
+    """``[awg]``: what the instrument plays between its samples, on every channel.
+
+    Its DAC holds each sample and its output stage low-passes the staircase; ``stages``
+    is that low-pass (empty: an ideal staircase, ``filter = "none"``). ``assumed``: the
+    recipe did not say, the default was taken (every report says so).
+    """
+
+    stages: tuple[Stage, ...] = ()
+    assumed: bool = False
+
+    def words(self) -> str:
+        """The output in words, e.g. "4th-order Bessel low-pass at 960 MHz"."""
+        if not self.stages:
+            return "an ideal staircase (no output filter)"
+        st = self.stages[0]
+        if st.kind == "measured":
+            return f"the measured {st.response} response {Path(st.source).name}"
+        order = f"{st.order}{_ordinal(st.order)}-order " if st.order else ""
+        return f"{order}{st.kind.capitalize()} low-pass at {format_quantity(st.cutoff_hz, 'Hz')}"
+
+    def summary(self) -> dict:
+        return {"filter": self.stages[0].kind if self.stages else "none",
+                **({} if not self.stages else self.stages[0].summary()),
+                "assumed": self.assumed, "words": self.words()}
+
+
+def _ordinal(n: int) -> str:
+    return {1: "st", 2: "nd", 3: "rd"}.get(n if n < 20 else n % 10, "th")
+
+
 @dataclass(frozen=True)
 class LineSettings:
-    """The ``[line]`` section: stages per channel name, and the fine grid's oversampling."""
+    """The ``[line]`` section: stages per channel name, and the fine grid's oversampling;
+    with the instrument's own output (``[awg]``), which every channel passes first."""
 
     stages: dict[str, tuple[Stage, ...]] = field(default_factory=dict)
-    oversample: int = 4  # propagator slices per AWG sample where a line is set
+    oversample: int = 4  # propagator slices per AWG sample where a channel is filtered
+    awg: AwgOutput = field(default_factory=AwgOutput)
 
     @property
     def active(self) -> bool:
+        """The recipe has a ``[line]`` (stages beyond the instrument's own output)."""
         return any(self.stages.values())
 
+    def played(self, channel: str, *, line: bool = True, awg: bool = True) -> tuple[Stage, ...]:
+        """The stages between ``channel``'s DAC and the chip, in order: the instrument's
+        output (unless ``awg`` is False: the ideal staircase), then the channel's line
+        (unless ``line`` is False)."""
+        return (self.awg.stages if awg else ()) + \
+            (self.stages.get(channel, ()) if line else ())
 
-def read_line(r, t: dict, channels: list[str], sample_rate_hz: float) -> LineSettings:
-    """Read ``[line]``: ``oversample`` and one list of stage tables per channel name."""
+
+def read_awg(r, t: dict, sample_rate_hz: float, oversample: int) -> AwgOutput:
+    """Read ``[awg]``: the instrument's output filter (default: :data:`AWG_DEFAULT_KIND` of
+    order 4 at 0.4 of the sample rate, marked as assumed)."""
+    for key in t:
+        if key not in AWG_KEYS:
+            r.fail(f"awg.{key}", f"unknown key; valid keys here: {', '.join(AWG_KEYS)}")
+    if not t:
+        return AwgOutput((Stage(AWG_DEFAULT_KIND, order=AWG_DEFAULT_ORDER,
+                                cutoff_hz=AWG_DEFAULT_FRACTION * sample_rate_hz),),
+                         assumed=True)
+    kind = r.choice(t, "filter", "awg.filter", AWG_FILTERS, AWG_DEFAULT_KIND)
+    if kind == "none":
+        extra = [k for k in t if k != "filter"]
+        if extra:
+            r.fail(f"awg.{extra[0]}", "an ideal staircase (filter = \"none\") takes no other "
+                                      "key")
+        return AwgOutput(())
+    table = {"kind": kind, **{k: v for k, v in t.items() if k != "filter"}}
+    if kind in ("bessel", "butterworth"):
+        table.setdefault("order", AWG_DEFAULT_ORDER)
+    if kind != "measured":
+        table.setdefault("cutoff", AWG_DEFAULT_FRACTION * sample_rate_hz)
+    # the instrument's filter may pass beyond the samples' Nyquist frequency (images of
+    # the staircase then reach the chip): the fine grid of oversample slices resolves it
+    stage = _stage(r, table, "awg", sample_rate_hz * oversample, names={"kind": "filter"})
+    return AwgOutput((stage,))
+
+
+def read_line(r, t: dict, channels: list[str], sample_rate_hz: float,
+              awg: dict | None = None) -> LineSettings:
+    """Read ``[line]``: ``oversample`` and one list of stage tables per channel name; and
+    ``[awg]`` (:func:`read_awg`), the output every channel passes first."""
     stages = {}
     for key, value in t.items():
         if key == "oversample":
@@ -89,18 +168,21 @@ def read_line(r, t: dict, channels: list[str], sample_rate_hz: float) -> LineSet
     oversample = r.number(t, "oversample", "line.oversample", 4, integer=True, minimum=1)
     if oversample > MAX_OVERSAMPLE:
         r.fail("line.oversample", f"must be at most {MAX_OVERSAMPLE}, got {oversample}")
-    return LineSettings(stages=stages, oversample=oversample)
+    return LineSettings(stages=stages, oversample=oversample,
+                        awg=read_awg(r, awg or {}, sample_rate_hz, oversample))
 
 
-def _stage(r, s, where: str, rate: float) -> Stage:
+def _stage(r, s, where: str, rate: float, names: dict | None = None) -> Stage:
     if not isinstance(s, dict):
         r.fail(where, f"expected a stage table with a kind, got {str(s)[:60]!r}")
-    kind = r.choice(s, "kind", f"{where}.kind", tuple(KINDS))
+    kind_key = (names or {}).get("kind", "kind")
+    kind = r.choice(s, "kind", f"{where}.{kind_key}", tuple(KINDS))
     allowed = ("kind",) + KINDS[kind].keys
     for key in s:
         if key not in allowed:
+            names = (a if a != "kind" else kind_key for a in allowed)
             r.fail(f"{where}.{key}", f"not a key of a {kind} stage; its keys: "
-                                     f"{', '.join(allowed)}")
+                                     f"{', '.join(names)}")
     return KINDS[kind].read(r, s, where, rate)
 
 
@@ -108,9 +190,11 @@ def _lowpass(r, s: dict, where: str, rate: float) -> Stage:
     kind = s["kind"]
     cutoff = r.number(s, "cutoff", f"{where}.cutoff", kind="frequency", positive=True)
     if cutoff >= rate / 2:
-        r.fail(f"{where}.cutoff", f"{format_quantity(cutoff, 'Hz')} is at or above the "
-                                  f"Nyquist frequency {format_quantity(rate / 2, 'Hz')} of "
-                                  f"the sample rate; the fine grid cannot resolve it")
+        grid = "the sample rate" if where.startswith("line") else \
+            "the sample rate x line.oversample"
+        r.fail(f"{where}.cutoff", f"{format_quantity(cutoff, 'Hz')} is at or above "
+                                  f"{format_quantity(rate / 2, 'Hz')}, half {grid}; the "
+                                  f"fine grid cannot resolve it")
     order = 0
     if kind != "gaussian":
         order = r.number(s, "order", f"{where}.order", integer=True, minimum=1)
@@ -228,6 +312,8 @@ class Kind(NamedTuple):
     keys: tuple[str, ...]
     read: Callable
 
+
+AWG_KEYS = ("filter", "order", "cutoff", "file", "response")
 
 KINDS: dict[str, Kind] = {
     "bessel": Kind(("order", "cutoff"), _lowpass),

@@ -66,10 +66,12 @@ def need_bytes(system: System, samples: int, sample_rate_hz: float, members: int
 def estimate(recipe) -> int:
     """:func:`need_bytes` of a loaded recipe (bytes)."""
     line = recipe.line
+    filtered = bool(line.awg.stages) or (line.active and not recipe.export.predistort)
     return need_bytes(recipe.system, recipe.samples, recipe.sample_rate_hz,
                       len(recipe.ensemble_scales), recipe.export,
-                      line.oversample if line.active and not recipe.export.predistort else 1,
-                      len(recipe.verdict.phases_rad()) if recipe.optimizer.lab_frame else 0)[0]
+                      line.oversample if filtered else 1,
+                      len(recipe.verdict.phases_rad())
+                      if recipe.optimizer.lab_frame == "exact" else 0)[0]
 
 
 def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,

@@ -34,7 +34,7 @@ DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothn
 # allowed keys per section; a nested table's keys are listed under "section.sub"
 KEYS: dict[str, tuple[str, ...]] = {
     "": ("name", "description", "system", "gate", "pulse", "cost", "optimizer", "export",
-         "line", "verdict"),
+         "line", "awg", "verdict"),
     "system": ("model", "levels", "qubit_frequency", "anharmonicity", "drive_frequency",
                "qubit", "frame_frequency", "transmon", "coupling", "unit", "drift",
                "drift_imag", "controls", "controls_imag", "dims", "computational", "t1", "t2",
@@ -52,13 +52,16 @@ KEYS: dict[str, tuple[str, ...]] = {
     "optimizer": ("method", "max_iterations", "target_infidelity", "target_leakage",
                   "margin", "max_time", "stall_iterations", "seed", "starts", "initial",
                   "drag_scale", "learning_rate", "propagator", "ensemble_targets",
-                  "open_system", "lab_frame"),
+                  "open_system", "lab_frame", "escalate"),
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
                "sideband", "predistort", "mixer", "codes"),
     "export.mixer": ("gain", "phase_deg", "offset_i", "offset_q"),
     "verdict": ("lab_frame", "carrier_phase_deg", "carrier_phases", "extra_levels"),
 }
 LAB_FRAME = ("auto", "on", "off")
+# optimizer.lab_frame: "corrected" (second order, at the rotating frame's cost), "exact"
+# (the verdict's integrator in the loop), "off" (the rotating-wave approximation)
+LAB_MODES = ("auto", "corrected", "exact", "off")
 REQUIRED = {"": ("name", "system", "gate", "pulse"), "system": ("model",),
             "pulse": ("duration", "sample_rate", "max_rabi")}
 
@@ -87,8 +90,9 @@ class OptimizerSettings:
     propagator: str = "eigh"
     ensemble_targets: str = "every"  # or "mean": how the ensemble members meet the targets
     open_system: bool = False  # optimise the channel fidelity with the coherence times
-    lab_frame: bool = False  # optimise with the drive's counter-rotating terms (mean over
-    #                          the verdict's carrier phases; README, "The lab frame")
+    lab_frame: str = "auto"  # the counter-rotating terms in the optimiser (LAB_MODES;
+    #                          README, "The lab frame"); "auto" resolved when read
+    escalate: bool = True  # go on in the verdict's model when only it misses (jobs.escalate)
 
     def __post_init__(self):  # settings guard themselves, however they were made
         _require(self.method in METHODS, "method", self.method)
@@ -102,6 +106,7 @@ class OptimizerSettings:
             _require(math.isfinite(getattr(self, name)) and getattr(self, name) > 0, name,
                      getattr(self, name))
         _require(self.margin >= 1, "margin", self.margin)
+        _require(self.lab_frame in LAB_MODES, "lab_frame", self.lab_frame)
 
 
 @dataclass(frozen=True)

@@ -16,6 +16,7 @@ from shaper.recipe.schema import (
     ENSEMBLE_RULES,
     GUESSES,
     LAB_FRAME,
+    LAB_MODES,
     METHODS,
     OptimizerSettings,
     Recipe,
@@ -43,20 +44,17 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     export = read_export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
                      pulse["sample_rate_hz"])
     line = read_line(r, r.table(raw, "line", "line"), [c.name for c in system.channels],
-                     pulse["sample_rate_hz"])
+                     pulse["sample_rate_hz"], r.table(raw, "awg", "awg"))
     _check_cutoffs(r, line, pulse["duration_s"])
     if export.predistort and not line.active:
         r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
-    if optimizer.lab_frame and system.lab is None:
-        r.fail("optimizer.lab_frame", "the lab frame needs a transmon model (the drive "
-                                      "operator and frame of given matrices are unknown)")
-    if optimizer.lab_frame and optimizer.open_system:
-        r.fail("optimizer.lab_frame", "cannot be combined with optimizer.open_system yet: "
-                                      "choose one")
     verdict = _verdict(r, r.table(raw, "verdict", "verdict"), system)
+    optimizer = _resolve_lab(r, optimizer, system, verdict)
+    filtered = bool(line.awg.stages) or (line.active and not export.predistort)
     fits_in_memory(r, system, pulse, len(scales), export,
-                    line.oversample if line.active and not export.predistort else 1,
-                    lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame else 0)
+                    line.oversample if filtered else 1,
+                    lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame == "exact"
+                    else 0)
     if optimizer.open_system and not system.collapse:
         r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
                                         "operators with rates) to optimise the channel")
@@ -162,14 +160,14 @@ MIN_CUTOFF_CYCLES = 0.1  # a line cutoff times the pulse's duration below this p
 def _check_cutoffs(r: _Reader, line, duration_s: float) -> None:
     """A line stage whose cutoff is far below 1 / duration lets none of the pulse through:
     the optimiser would stop at once with the gate undone ("converged" at infidelity ~0.7)."""
-    for channel, stages in line.stages.items():
-        for i, st in enumerate(stages):
-            if st.cutoff_hz and st.cutoff_hz * duration_s < MIN_CUTOFF_CYCLES:
-                r.fail(f"line.{channel}[{i}].cutoff",
-                       f"{format_quantity(st.cutoff_hz, 'Hz')} passes almost nothing of a "
-                       f"{format_quantity(duration_s, 's')} pulse (cutoff x duration < "
-                       f"{MIN_CUTOFF_CYCLES}); check the unit (lines between a DAC and a chip "
-                       f"pass tens to hundreds of MHz)")
+    where = [(f"line.{channel}[{i}].cutoff", st) for channel, stages in line.stages.items()
+             for i, st in enumerate(stages)]
+    for key, st in [("awg.cutoff", st) for st in line.awg.stages] + where:
+        if st.cutoff_hz and st.cutoff_hz * duration_s < MIN_CUTOFF_CYCLES:
+            r.fail(key, f"{format_quantity(st.cutoff_hz, 'Hz')} passes almost nothing of a "
+                        f"{format_quantity(duration_s, 's')} pulse (cutoff x duration < "
+                        f"{MIN_CUTOFF_CYCLES}); check the unit (lines between a DAC and a "
+                        f"chip pass tens to hundreds of MHz)")
 
 
 MAX_RABI_HZ = 10e9  # a Rabi frequency above this is a unit slip, not a drive
@@ -343,7 +341,50 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",
                                   ENSEMBLE_RULES, d.ensemble_targets),
         open_system=r.flag(t, "open_system", "optimizer.open_system", d.open_system),
-        lab_frame=r.flag(t, "lab_frame", "optimizer.lab_frame", d.lab_frame))
+        lab_frame=_lab_mode(r, t),
+        escalate=r.flag(t, "escalate", "optimizer.escalate", d.escalate))
+
+
+def _lab_mode(r: _Reader, t: dict) -> str:
+    """``optimizer.lab_frame``: a mode of :data:`LAB_MODES` (true and false, the older
+    spelling, are "exact" and "off"); "auto" is resolved by :func:`_resolve_lab` once the
+    system and the verdict are known."""
+    value = t.get("lab_frame", "auto")
+    if isinstance(value, bool):
+        return "exact" if value else "off"
+    return r.choice(t, "lab_frame", "optimizer.lab_frame", LAB_MODES, "auto")
+
+
+def _resolve_lab(r: _Reader, optimizer: OptimizerSettings, system: System,
+                 verdict: VerdictSettings) -> OptimizerSettings:
+    """The optimiser's model of the counter-rotating terms: "auto" is "corrected" wherever
+    the verdict judges a lab frame and the correction holds (a closed system, no resonant
+    counter-rotating process), else "off" (README, "The lab frame")."""
+    from dataclasses import replace
+
+    mode = optimizer.lab_frame
+    judged = system.lab is not None and verdict.lab_frame != "off"
+    if mode == "auto":
+        mode = "corrected" if judged and not optimizer.open_system else "off"
+    if mode in ("corrected", "exact") and system.lab is None:
+        r.fail("optimizer.lab_frame", "the lab frame needs a transmon model (the drive "
+                                      "operator and frame of given matrices are unknown)")
+    if mode in ("corrected", "exact") and optimizer.open_system:
+        if optimizer.lab_frame == "auto":
+            mode = "off"
+        else:
+            r.fail("optimizer.lab_frame", "cannot be combined with optimizer.open_system "
+                                          "yet: choose one")
+    if mode == "corrected":
+        from shaper.physics.effective import correction_for
+        try:
+            correction_for(system)
+        except ValueError as exc:
+            if optimizer.lab_frame == "auto":
+                mode = "off"
+            else:
+                r.fail("optimizer.lab_frame", f"{exc}; use \"exact\"")
+    return replace(optimizer, lab_frame=mode)
 
 
 def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:

@@ -1,0 +1,121 @@
+"""Escalation: the optimiser goes on in the model that judges it (README, "How far the
+figures are trusted").
+
+The optimiser works in a cheaper model than the verdict: the recipe's levels rather than
+``verdict.extra_levels`` more, and the lab frame's counter-rotating terms to second order
+(``optimizer.lab_frame = "corrected"``) or not at all. When the exported file misses its
+targets as the chip plays it while the optimiser met them in its own model, the optimiser
+goes on from its own result in the model that differs, one step at a time:
+
+1. ``levels``: the same file misses with more levels -> optimise on them;
+2. ``lab frame (second order)``: it misses in the lab frame and the optimiser's model had
+   no counter-rotating terms -> optimise with the second-order correction;
+3. ``lab frame (exact)``: it still misses in the lab frame -> optimise with the verdict's
+   own integrator in the loop (slow: the last step).
+
+Every step is judged again on the user's recipe (:meth:`Playback.verdict`), and the loop
+ends when the targets are met, when no model is left, or when the time is spent.
+``optimizer.escalate = false`` turns it off. The report's ``escalation`` block says each
+step's model, iterations, time and judged figures.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import replace
+from pathlib import Path
+
+from shaper.jobs.export import make_waveform
+from shaper.jobs.playback import Playback
+from shaper.optimizer.starts import Result, optimize
+from shaper.recipe import Recipe
+from shaper.recipe.derive import derived
+
+
+def judged(recipe: Recipe, result: Result) -> tuple[object, Playback]:
+    """The exported waveform of ``result`` and its Playback on the user's ``recipe``."""
+    waveform, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
+    return waveform, Playback(recipe, waveform)
+
+
+def next_model(recipe: Recipe, playback: Playback, tried: list[str]) -> tuple[str, Recipe] | None:
+    """The model to optimise in next, as ``(name, recipe)``, or None: the first step of the
+    module docstring whose condition holds and that was not tried yet."""
+    limits = recipe.optimizer.target_infidelity, recipe.optimizer.target_leakage
+
+    def over(sim) -> bool:
+        return not (sim.infidelity <= limits[0] and sim.leakage <= limits[1])
+
+    more = playback.more_levels
+    extra = recipe.verdict.extra_levels
+    if more is not None and "levels" not in tried and over(more.nominal) \
+            and not over(playback.nominal):
+        return "levels", _on_levels(recipe, extra, recipe.optimizer.lab_frame)
+    lab = playback.lab
+    if lab is None or not (lab.infidelity > limits[0] or lab.leakage > limits[1]):
+        return None
+    levels = extra if more is not None else 0
+    if recipe.optimizer.lab_frame == "off" and "lab frame (second order)" not in tried \
+            and playback.corrected is not None:
+        return "lab frame (second order)", _on_levels(recipe, levels, "corrected")
+    if "lab frame (exact)" not in tried:
+        return "lab frame (exact)", _on_levels(recipe, levels, "exact")
+    return None
+
+
+def _on_levels(recipe: Recipe, extra: int, lab_frame: str) -> Recipe:
+    """The user's recipe with ``extra`` more levels per transmon and the optimiser's lab
+    model ``lab_frame``; judged by itself on those levels (no further extra levels)."""
+    from shaper.recipe.derive import with_levels
+
+    base = with_levels(recipe, extra=extra) if extra else recipe
+
+    def edit(raw: dict) -> None:
+        raw.setdefault("optimizer", {})["lab_frame"] = lab_frame
+        raw.setdefault("verdict", {})["extra_levels"] = 0
+    return derived(base, edit)
+
+
+def escalate(recipe: Recipe, result: Result, options, *, say=None,
+             deadline: float | None = None) -> tuple[Result, object, Playback, list[dict]]:
+    """Go on in the verdict's model until the judged figures meet the targets (module
+    docstring). Returns the last result (its recipe the user's), its waveform, its
+    Playback and one record per step."""
+    waveform, playback = judged(recipe, result)
+    steps: list[dict] = []
+    if not recipe.optimizer.escalate:
+        return result, waveform, playback, steps
+    while not playback.verdict().met and _met_own(result):
+        step = next_model(recipe, playback, [s["model"] for s in steps])
+        if step is None or (deadline is not None and time.monotonic() > deadline):
+            break
+        name, model = step
+        before = playback.verdict().judged
+        if say is not None:
+            say(f"escalating: the file misses as the chip plays it ({_words(before)}); "
+                f"optimising again on the {name}")
+        t0 = time.monotonic()
+        folder = None if options.folder is None else Path(options.folder) / \
+            f"escalation-{len(steps) + 1}"
+        again = optimize(model, options.with_(folder=folder, resume=False, starts=1),
+                         first=result.samples)
+        result = replace(again, recipe=recipe)
+        waveform, playback = judged(recipe, result)
+        after = playback.verdict()
+        steps.append({"model": name, "levels": list(model.system.dims),
+                      "lab_frame": model.optimizer.lab_frame,
+                      "iterations": again.best.iterations, "seconds": time.monotonic() - t0,
+                      "judged_before": before, "judged_after": after.judged,
+                      "met": after.met})
+    return result, waveform, playback, steps
+
+
+def _met_own(result: Result) -> bool:
+    """The optimiser met its targets in its own model (escalating a run that did not only
+    costs time: the next model cannot do better)."""
+    from shaper.optimizer.tracker import StopReason
+    return result.best.stop_reason == str(StopReason.TARGETS_MET)
+
+
+def _words(judged_figures: dict) -> str:
+    return ", ".join(f"{k} {v:.2e}" for k, v in judged_figures.items())
