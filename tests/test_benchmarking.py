@@ -13,7 +13,12 @@ from helpers import duffing, pedersen_fidelity
 
 from shaper.errors import InputError
 from shaper.physics.benchmarking import clifford_maps, predict_rb
-from shaper.physics.clifford import compile_cliffords, single_qubit_cliffords
+from shaper.physics.benchmarking_pairs import PairPlayer, estimate_pair_cost, predict_pair_rb
+from shaper.physics.clifford import (
+    compile_cliffords,
+    single_qubit_cliffords,
+)
+from shaper.physics.clifford_pairs import pair_cliffords, pair_gate_unitary
 from shaper.physics.gate_maps import channel_figures, frame_unitary, qubit_maps
 from shaper.physics.interleaved import interleaved_bound, predict_interleaved
 
@@ -359,3 +364,95 @@ def test_bad_runs_are_refused():
     with pytest.raises(InputError, match="lack"):
         predict_rb(qubit_maps({"X/2": rot("X/2")}),
                    compilation=compile_cliffords(FULL))
+
+
+# ---- two qubits ------------------------------------------------------------------------
+
+def test_two_qubit_group_has_11520_elements_and_is_closed():
+    # |C2| = 11,520 modulo phase (Barends et al., Nature 508, 500 (2014), supplement;
+    # Corcoles et al., PRA 87, 030301 (2013)); products of random elements stay inside
+    comp = compile_cliffords(FULL)
+    for name in ("CZ", "CNOT", "iSWAP"):
+        group = pair_cliffords(name, (comp, comp))
+        assert len(group.unitaries) == len(group.index) == 11520
+        counts = group.counts()
+        # the usual compilation averages 1.5 pair gates (from memory; CONVENTIONS s. 10):
+        # 576 x 0 + 5184 x 1 + 5184 x 2 + 576 x 3 over 11520
+        assert counts["class_sizes"] == [576, 5184, 5184, 576]
+        assert counts["mean_pair_gates_per_clifford"] == 1.5
+        print(name, counts)
+    rng = np.random.default_rng(0)
+    a, b = rng.integers(0, 11520, size=(2, 200))
+    group.find(group.unitaries[a] @ group.unitaries[b])  # KeyError if outside
+
+
+def test_local_layers_match_the_tensor_product():
+    # both qubits' maps applied at once equal kron(U_a, U_b) rho kron(U_a, U_b)^dag, built
+    # here with numpy (q0 most significant, README "Conventions"), on 3 x 2 levels
+    rng = np.random.default_rng(1)
+    comp = compile_cliffords(FULL)
+    ua = {g: rot(g, levels=3) @ random_unitary(rng, 3, 0.1) for g in FULL}
+    ub = {g: rot(g) @ random_unitary(rng, 2, 0.1) for g in FULL}
+    cl = pair_cliffords("CZ", (comp, comp))
+    player = PairPlayer(cl, (qubit_maps(ua, levels=3), qubit_maps(ub)), np.eye(36))
+    layer = 5 * 24 + 17
+    a, b = divmod(layer, 24)
+    slots = cl.layer_slots[layer]
+
+    def played(units, seq, levels):  # virtual Z: diag(e^{i n theta}), built here
+        z = {"Z/2": np.pi / 2, "Z": np.pi, "-Z/2": -np.pi / 2}
+        u = np.eye(levels, dtype=complex)
+        for op in seq:
+            step = np.diag(np.exp(1j * z[op] * np.arange(levels))) if op in z else units[op]
+            u = step @ u
+        return u
+
+    assert comp.slot_counts[a] <= slots and comp.slot_counts[b] <= slots
+    u = np.kron(played(ua, comp.sequences[a], 3), played(ub, comp.sequences[b], 2))
+    rho = random_unitary(rng, 6, 1.0)[:, :1] @ random_unitary(rng, 6, 1.0)[:1, :]
+    rho = rho @ rho.conj().T
+    out = player.local(rho[None], np.array([layer]))[0]
+    np.testing.assert_allclose(out, u @ rho @ u.conj().T, atol=1e-13)
+
+
+@pytest.mark.parametrize("name", ["CZ", "CNOT", "iSWAP"])
+def test_ideal_two_qubit_gates_give_zero_error(name):
+    # Magesan et al. (2011): perfect gates do not decay; the recovery undoes every sequence
+    maps = qubit_maps({g: rot(g) for g in FULL})
+    bench = predict_pair_rb(name, pair_gate_unitary(name)[1], (maps, maps),
+                            lengths=(1, 2, 4, 8), sequences=4)
+    assert min(bench.survival) > 1 - 1e-12
+    assert abs(bench.error_per_clifford) < 1e-12
+
+
+def test_depolarised_pair_gate_gives_the_analytic_error_per_clifford():
+    # depolarising (d = 4, Nielsen 2002) after the pair gate only: a Clifford with k pair
+    # gates depolarises by lam^k, so p = mean lam^k = (576 + 5184 lam + 5184 lam^2 +
+    # 576 lam^3) / 11520 (the compilation's classes) and r = 3 (1 - p)/4 (Magesan et al.
+    # 2011); sampled, so within 4 standard errors
+    lam = 0.99
+    maps = qubit_maps({g: rot(g) for g in FULL})
+    cz = pair_gate_unitary("CZ")[1]
+    bench = predict_pair_rb("CZ", depolarising(lam, 4) @ sup(cz), (maps, maps),
+                            lengths=(1, 2, 4, 8, 16, 32, 64), sequences=40, seed=2)
+    p = (576 + 5184 * lam + 5184 * lam ** 2 + 576 * lam ** 3) / 11520
+    assert abs(bench.error_per_clifford - 3 * (1 - p) / 4) < 4 * bench.error_per_clifford_error
+    assert bench.compilation["mean_pair_gates_per_clifford"] == 1.5
+    assert bench.cost["estimated_seconds"] > 0
+    json.dumps(bench.figures())
+    print(f"2q: r = {bench.error_per_clifford:.4e} +- {bench.error_per_clifford_error:.1e}, "
+          f"analytic {3 * (1 - p) / 4:.4e}; estimated {bench.cost['estimated_seconds']:.2f} s,"
+          f" took {bench.seconds:.2f} s")
+
+
+def test_two_qubit_runs_are_refused_when_too_costly_or_malformed():
+    maps = qubit_maps({g: rot(g) for g in FULL})
+    with pytest.raises(InputError, match=r"would take about .* more than max_seconds"):
+        predict_pair_rb("CZ", pair_gate_unitary("CZ")[1], (maps, maps), sequences=5,
+                        max_seconds=1e-9)
+    with pytest.raises(InputError, match="CZ, CNOT or iSWAP"):
+        predict_pair_rb("sqrt(iSWAP)", np.eye(4), (maps, maps))
+    with pytest.raises(InputError, match="4x4 unitary or a 16x16"):
+        predict_pair_rb("CZ", np.eye(9), (maps, maps))
+    cost = estimate_pair_cost((3, 3), (1, 10, 100), 20)
+    assert cost["map_applications"] == pytest.approx(20 * (2 + 11 + 101) * 4.0)
