@@ -166,7 +166,7 @@ def _sampled(cmaps: np.ndarray, lengths: Sequence[int], levels: int, sequences: 
             state = np.einsum("kab,kb->ka", cmaps[draws[:, j]], state)
             g = group.product[draws[:, j], g]
             if interleaved is not None:
-                state = state @ interleaved.T
+                state = np.einsum("ab,kb->ka", interleaved, state)
                 g = group.product[gate_element, g]
         state = np.einsum("kab,kb->ka", cmaps[group.inverse[g]], state)
         values = np.real(state @ read.T)
