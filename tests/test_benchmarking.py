@@ -456,3 +456,14 @@ def test_two_qubit_runs_are_refused_when_too_costly_or_malformed():
         predict_pair_rb("CZ", np.eye(9), (maps, maps))
     cost = estimate_pair_cost((3, 3), (1, 10, 100), 20)
     assert cost["map_applications"] == pytest.approx(20 * (2 + 11 + 101) * 4.0)
+
+
+def test_ideal_gates_on_two_three_level_transmons_give_zero_error():
+    # Magesan et al. (2011) again, with leakage levels present but unpopulated: phases on
+    # them (here a CZ's arbitrary phases on levels 2) change nothing and nothing leaks
+    maps = qubit_maps({g: rot(g, levels=3) for g in FULL}, levels=3)
+    cz = np.diag(np.exp(0.4j * np.arange(9))).astype(complex)
+    cz[np.ix_([0, 1, 3, 4], [0, 1, 3, 4])] = np.diag([1, 1, 1, -1])  # |q0 q1> = 3 q0 + q1
+    bench = predict_pair_rb("CZ", cz, (maps, maps), lengths=(1, 2, 4), sequences=3)
+    assert abs(bench.error_per_clifford) < 1e-12
+    assert bench.leakage is None
