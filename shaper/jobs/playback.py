@@ -172,6 +172,30 @@ class Playback:
         values = runs[1] + (runs[1] - runs[0]) / 3
         return {"phases_rad": phases, "figures": values}
 
+    @cached_property
+    def gate_map(self) -> dict:
+        """The file's map as the chip plays it, for predicted benchmarking: the most
+        faithful levels, the instrument's output and the line on the rotating frame's grid
+        (extrapolated like :meth:`played` is not: the chain's own ``2 s`` slices), the lab
+        frame to second order at the judged worst carrier phase (or the fixed one), the
+        recipe's T1/T2 over the footprint (:func:`shaper.physics.simulation.gate_map`), the
+        best frame updates applied. Keys: ``unitary`` or ``superoperator``, ``levels``,
+        ``computational``, ``footprint_s``, ``phase_rad``, the frame angles."""
+        from shaper.physics.simulation import gate_map
+
+        play = self.faithful
+        recipe, chain = play.recipe, play.chain.finer(2)
+        phase = None
+        if self.lab is not None and self.corrected is not None:
+            phase = self.lab.phases_rad[int(np.argmax(self.lab.infidelities))]
+        mapped = gate_map(recipe.system, recipe.target, chain(play.samples), chain.dt_s,
+                          phase_rad=phase, start_s=-chain.start * chain.period_s,
+                          virtual_z=recipe.virtual_z)
+        return {**mapped, "levels": list(recipe.system.dims),
+                "computational": [int(i) for i in recipe.system.computational],
+                "footprint_s": chain.played_samples(play.samples.shape[0]) * chain.period_s,
+                "phase_rad": phase}
+
     def _lab(self, *, awg: bool, phases=None) -> LabSimulation | None:
         v = self.recipe.verdict
         if v.lab_frame == "off" or self.recipe.system.lab is None:

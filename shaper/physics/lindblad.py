@@ -109,15 +109,20 @@ def scalings_for(drift, controls, samples, dt, noise) -> int:
 
 
 def slice_channels(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike,
-                   noise: ArrayLike, *, scalings: int | None = None) -> jax.Array:
+                   noise: ArrayLike, *, scalings: int | None = None,
+                   extra: ArrayLike | None = None) -> jax.Array:
     """``exp(G_j dt_j)`` of every slice, ``(n, d^2, d^2)``; ``noise`` is the dissipator.
 
     ``scalings`` (static) must cover every slice's generator (:func:`norm_bound`,
     :func:`squarings`); None: taken from the samples, which must then be concrete.
+    ``extra``: ``(n, d, d)`` Hermitian, Hz, added to each slice's Hamiltonian (the lab
+    frame's second-order term, :mod:`shaper.physics.effective`).
     """
     g0 = hamiltonian_superoperator(drift) + noise
     gc = jax.vmap(hamiltonian_superoperator)(jnp.asarray(controls))
     gens = g0 + jnp.einsum("nk,kij->nij", jnp.asarray(samples).astype(gc.dtype), gc)
+    if extra is not None:
+        gens = gens + jax.vmap(hamiltonian_superoperator)(jnp.asarray(extra))
     gens = gens * jnp.reshape(jnp.asarray(dt), (-1, 1, 1))
     if scalings is None:
         if isinstance(gens, jax.core.Tracer):
@@ -128,7 +133,8 @@ def slice_channels(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt
 
 
 def propagate_open(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike,
-                   noise: ArrayLike, *, scalings: int | None = None) -> jax.Array:
+                   noise: ArrayLike, *, scalings: int | None = None,
+                   extra: ArrayLike | None = None) -> jax.Array:
     """The total channel ``S = S_{n-1} ... S_0`` of a piecewise-constant pulse (d^2 x d^2).
 
     Args: as :func:`shaper.physics.propagator.propagate`, plus ``noise``, the ``(d^2, d^2)``
@@ -136,7 +142,7 @@ def propagate_open(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt
     ``conj(U) kron U`` of the unitary propagator.
     """
     return ordered_product(slice_channels(drift, controls, samples, dt, noise,
-                                          scalings=scalings))
+                                          scalings=scalings, extra=extra))
 
 
 def channel_block(s: ArrayLike, computational: ArrayLike, d: int) -> jax.Array:
