@@ -6,6 +6,7 @@ counted, also those inside functions.
 """
 
 import ast
+import os
 from pathlib import Path
 
 PACKAGE = Path(__file__).parent.parent / "shaper"
@@ -102,3 +103,26 @@ def test_reading_a_recipe_does_not_import_jax():
 
 
 graph_cache = graph()
+
+
+def test_the_command_runs_numpy_on_one_blas_thread():
+    # an idle BLAS thread spins beside small-matrix loops (common practice, no source:
+    # OpenBLAS reads OPENBLAS_NUM_THREADS once, when NumPy loads); the command sets one
+    # thread before NumPy is imported, and a value the user chose wins
+    import subprocess
+    import sys
+
+    probe = ("import shaper.cli.main, os, numpy, sys; "
+             "print(os.environ['OPENBLAS_NUM_THREADS'], 'numpy' in sys.modules)")
+    env = {k: v for k, v in os.environ.items() if not k.endswith("_NUM_THREADS")}
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                         env=env, check=True).stdout.split()
+    assert out == ["1", "True"]
+    env["OPENBLAS_NUM_THREADS"] = "2"
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                         env=env, check=True).stdout.split()
+    assert out[0] == "2"
+    probe_loaded = ("import sys; import shaper.cli.main; "
+                    "print('numpy' in sys.modules)")
+    assert subprocess.run([sys.executable, "-c", probe_loaded], capture_output=True,
+                          text=True, env=env, check=True).stdout.strip() == "False"
