@@ -17,6 +17,36 @@ def demo_text(name: str) -> str:
         'name = "demo-x180"', f'name = "{name}"')
 
 
+def pinned(raw: dict, *, duffing: bool = True, staircase: bool = True) -> dict:
+    """A recipe dict made to match the hand-built references here: every transmon on the
+    Duffing ladder (the default is the charge model) and the instrument playing an ideal
+    staircase (the default is a 4th-order Bessel output filter), as this file's
+    piecewise-constant ``expm_product`` and ``duffing`` assume."""
+    import copy
+
+    raw = copy.deepcopy(raw)
+    system = raw.get("system", {})
+    if duffing and system.get("model") == "transmon":
+        system["spectrum"] = "duffing"
+    if duffing and system.get("model") == "transmons":
+        for table in system.get("transmon", []):
+            table["spectrum"] = "duffing"
+    if staircase:
+        raw["awg"] = {"filter": "none"}
+    return raw
+
+
+def pinned_text(text: str, *, duffing: bool = True, staircase: bool = True) -> str:
+    """:func:`pinned` for recipe text (tests that write a recipe file)."""
+    if duffing:
+        text = text.replace("[system]\n", '[system]\nspectrum = "duffing"\n', 1) \
+            if 'model = "transmon"\n' in text else text
+        text = text.replace("[[system.transmon]]\n", '[[system.transmon]]\nspectrum = "duffing"\n')
+    if staircase and "\n[awg]" not in text:
+        text = text.rstrip("\n") + '\n\n[awg]\nfilter = "none"\n'
+    return text
+
+
 def expm_product(drift, controls, samples, dt) -> np.ndarray:
     """U = U_{n-1} ... U_0 with U_j = scipy.linalg.expm(-2 pi i dt H_j) (README, "Conventions")."""
     u = np.eye(drift.shape[0], dtype=complex)

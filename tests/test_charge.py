@@ -96,6 +96,7 @@ def test_demo_pulse_on_the_charge_model_against_an_independent_box():
     raw = tomllib.loads((ROOT / "recipes" / "demo-x180.toml").read_text())
     raw["system"]["spectrum"] = "charge"
     raw["verdict"] = {"lab_frame": "off", "extra_levels": 0}
+    raw["awg"] = {"filter": "none"}  # the held samples themselves, as expm_product plays
     recipe = load_recipe(raw)
     wave = read_waveform(ROOT / "results" / "demo-x180" / "demo-x180.csv")
     play = Playback(recipe, wave)
@@ -134,7 +135,11 @@ def test_spectrum_keys_are_checked():
     with pytest.raises(RecipeError, match=r"system\.spectrum.*duffing, charge"):
         load_recipe({**raw, "system": {**raw["system"], "spectrum": "mathieu"}})
     with pytest.raises(RecipeError, match=r"system\.offset_charge.*spectrum = \"charge\""):
-        load_recipe({**raw, "system": {**raw["system"], "offset_charge": 0.2}})
+        load_recipe({**raw, "system": {**raw["system"], "spectrum": "duffing",
+                                       "offset_charge": 0.2}})
+    # the charge model is the default: an offset charge needs no spectrum key
+    assert load_recipe({**raw, "system": {**raw["system"], "offset_charge": 0.2}}) \
+        .system.models["q0"]["spectrum"] == "charge"
     with pytest.raises(RecipeError, match=r"system.*no transmon has"):
         load_recipe({**raw, "system": {**raw["system"], "spectrum": "charge",
                                        "anharmonicity": "-2 MHz"}})

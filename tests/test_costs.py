@@ -1,18 +1,20 @@
 import jax.numpy as jnp
 import numpy as np
 import pytest
+from helpers import pinned
 
 from shaper import costs
 from shaper.errors import InputError
 from shaper.optimizer.objective import build_objective, make_objective
 from shaper.recipe import load_recipe
 
-DEMO = {"name": "c", "system": {"model": "transmon", "levels": 3, "qubit_frequency": "5 GHz",
-                                "anharmonicity": "-200 MHz"},
-        "gate": {"target": "X"},
-        "pulse": {"duration": "10 ns", "sample_rate": "2 GS/s", "max_rabi": "80 MHz",
-                  "bandwidth": "100 MHz"},
-        "cost": {"smoothness": 0.1}}
+# the Duffing ladder and held samples, as the references of tests/helpers.py build them
+DEMO = pinned({"name": "c", "system": {"model": "transmon", "levels": 3,
+                                       "qubit_frequency": "5 GHz", "anharmonicity": "-200 MHz"},
+               "gate": {"target": "X"},
+               "pulse": {"duration": "10 ns", "sample_rate": "2 GS/s", "max_rabi": "80 MHz",
+                         "bandwidth": "100 MHz"},
+               "cost": {"smoothness": 0.1}})
 
 
 def test_registry_lists_valid_terms():

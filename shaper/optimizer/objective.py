@@ -26,7 +26,7 @@ from shaper.physics._jax import device
 from shaper.physics.propagator import slice_unitaries
 from shaper.recipe import Recipe, digest
 from shaper.signal.chain import for_recipe
-from shaper.signal.labdrive import CorrectedDrive, LabDrive
+from shaper.signal.labdrive import CorrectedDrive, LabDrive, smooth_worst
 from shaper.signal.pulses import Layout, padded, to_samples
 
 
@@ -135,7 +135,8 @@ def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
     layout = recipe_layout(recipe)
     mode = recipe.optimizer.lab_frame
     lab = LabDrive.for_chain(chain, recipe.system, recipe.samples) if mode == "exact" else None
-    corrected = CorrectedDrive.for_chain(chain, recipe.system, corrected_phases(recipe)) \
+    corrected = CorrectedDrive.for_chain(chain, recipe.system, corrected_phases(recipe),
+                                         max(recipe.limits_hz.values())) \
         if mode == "corrected" else None
     if pad_to is not None and not chain.lead and not chain.tail and lab is None:
         layout = padded(layout, pad_to)
@@ -163,10 +164,12 @@ def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
         samples = to_samples(params, layout, problem.envelope)
         if lab is None:
             scores = costs.evaluate_members(samples, problem, **flags)
-        else:  # every carrier phase, batched with the members: the mean of their figures
+        else:  # every carrier phase, batched with the members: the worst, smoothly
             per_phase = jax.vmap(lambda phase: costs.evaluate_members(
                 samples, problem, **{**flags, "drive": lambda x: lab(x, phase)}))(phases)
-            scores = jax.tree_util.tree_map(lambda a: a.mean(axis=0), per_phase)
+            scores = costs.Evaluation(nominal=smooth_worst(per_phase.nominal),
+                                      members=jax.vmap(smooth_worst, in_axes=1)(
+                                          per_phase.members))
         value, parts = total(samples, problem, scores, weights)
         return value, (parts, scores)
 

@@ -39,17 +39,22 @@ from dataclasses import dataclass
 import numpy as np
 
 RESONANCE_HZ = 1e6  # a denominator below this is a multi-photon resonance: not corrected
+NEGLIGIBLE_HZ = 1.0  # a harmonic whose second-order term is below this is left out...
+NEGLIGIBLE_KICK = 1e-6  # ...if its kick is also below this (radians): 1e-12 of a figure
 
 
 @dataclass(frozen=True)
 class Correction:
     """The arrays of the second-order correction of one System, built once per recipe.
 
-    Shapes: ``h`` harmonics ``m = 1 .. h``, ``c`` I/Q channels, ``d`` levels. Every operator
-    is written in the eigenbasis of the static rotating drift (``basis``: its columns).
+    Shapes: ``h`` harmonics (their orders ``m`` in ``orders``), ``c`` I/Q channels, ``d``
+    levels. Every operator is written in the eigenbasis of the static rotating drift
+    (``basis``: its columns).
 
     Attributes:
         frame_hz: the frame frequency ``f``.
+        orders: ``(h,)`` the harmonics kept: those whose second-order term or kick is not
+            negligible at the drives' limit (:data:`NEGLIGIBLE_HZ`, :data:`NEGLIGIBLE_KICK`).
         basis: ``(d, d)`` eigenvectors of the System's drift.
         static: ``(h, d, d)`` ``S^(m)``.
         raise_: ``(c, h, d, d)`` ``X_c^(m+1) / 2`` (multiplies ``w_c``).
@@ -59,6 +64,7 @@ class Correction:
     """
 
     frame_hz: float
+    orders: np.ndarray
     basis: np.ndarray
     static: np.ndarray
     raise_: np.ndarray
@@ -68,8 +74,9 @@ class Correction:
     iq_columns: np.ndarray
 
 
-def correction_for(system) -> Correction:
-    """The :class:`Correction` of a System with a lab model.
+def correction_for(system, drive_hz: float = 1e9) -> Correction:
+    """The :class:`Correction` of a System with a lab model; ``drive_hz``: the largest
+    envelope any channel plays (a harmonic is kept if it matters at that drive).
 
     Raises:
         ValueError: no lab model, or a counter-rotating process is resonant (a
@@ -87,19 +94,28 @@ def correction_for(system) -> Correction:
     top = max([k for k in static] + [k + 1 for dr in drives for k in dr] + [1])
     d = system.dimension
     zero = np.zeros((d, d), complex)
-    harmonics = range(1, top + 1)
+
+    def size(m: int) -> float:  # the largest entry V_m can reach
+        return float(np.abs(static.get(m, zero)).max()) + drive_hz * sum(
+            0.5 * (np.abs(dr.get(m + 1, zero)).max() + np.abs(dr.get(m - 1, zero)).max())
+            for dr in drives)
+    harmonics = [m for m in range(1, top + 1)
+                 if size(m) ** 2 / (m * lab.frame_hz) >= NEGLIGIBLE_HZ
+                 or size(m) / (m * lab.frame_hz) >= NEGLIGIBLE_KICK] or [1]
+    h = len(harmonics)
     s = np.array([static.get(m, zero) for m in harmonics])
     up = np.array([[0.5 * dr.get(m + 1, zero) for m in harmonics] for dr in drives]) \
-        .reshape(len(drives), top, d, d)
+        .reshape(len(drives), h, d, d)
     down = np.array([[0.5 * dr.get(m - 1, zero) for m in harmonics] for dr in drives]) \
-        .reshape(len(drives), top, d, d)
+        .reshape(len(drives), h, d, d)
     gaps = energies[:, None] - energies[None, :]
-    m = np.arange(1, top + 1)[:, None, None] * lab.frame_hz
+    m = np.array(harmonics, float)[:, None, None] * lab.frame_hz
     smallest = float(np.min(np.abs(np.concatenate([m + gaps, -m + gaps]))))
     if smallest < RESONANCE_HZ:
         raise ValueError(f"a counter-rotating process is resonant ({smallest:.3g} Hz from a "
                          f"multiple of the frame): the correction does not hold")
-    return Correction(frame_hz=lab.frame_hz, basis=basis, static=s, raise_=up, lower=down,
+    return Correction(frame_hz=lab.frame_hz, orders=np.array(harmonics, float), basis=basis,
+                      static=s, raise_=up, lower=down,
                       plus=1.0 / (m + gaps), minus=1.0 / (-m + gaps),
                       iq_columns=np.array([c.columns for c in channels], int).reshape(-1, 2))
 
@@ -141,9 +157,8 @@ def kick(corr: Correction, values, theta):
     values there, ``theta`` the frame's phase ``2 pi f t + phi`` (radians)."""
     xp = _xp(values)
     v = turning(corr, values[None])[0]  # (h, d, d)
-    m = xp.arange(1, v.shape[0] + 1)
     k_m = -1j * v * corr.plus  # (K_m)_ab = -i V_ab / (m f + E_a - E_b)
-    k = xp.einsum("h,hij->ij", xp.exp(1j * m * theta), k_m)
+    k = xp.einsum("h,hij->ij", xp.exp(1j * corr.orders * theta), k_m)
     k = k + xp.conj(k.T)
     b = corr.basis
     return b @ k @ b.conj().T

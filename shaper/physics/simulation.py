@@ -105,7 +105,7 @@ def simulate_corrected(system: System, target: Target, samples: np.ndarray, dt: 
     (seconds from the pulse start)."""
     from shaper.physics.effective import correction_for
 
-    corr = correction_for(system)
+    corr = correction_for(system, float(np.max(np.abs(samples), initial=0.0)))
     qubits = max(1, int(round(np.log2(len(system.computational)))))
     dc = len(system.computational)
     out = _corrected(device(system.drift, complex), device(system.controls, complex),
@@ -127,7 +127,7 @@ def _corrected(drift, controls, samples, dt, computational, target, phases, corr
 
     arrays = (corr.basis, corr.static, corr.raise_, corr.lower, corr.plus, corr.minus)
     key = (qubits, virtual_z, corr.frame_hz, corr.iq_columns.tobytes(),
-           tuple(a.shape for a in arrays))
+           corr.orders.tobytes(), tuple(a.shape for a in arrays))
     if key not in _CORRECTED:
         def program(drift, controls, samples, dt, computational, target, phases, start,
                     arrays):
@@ -177,7 +177,8 @@ def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
     from shaper.physics.lindblad import best_channel_angles, channel_block, dissipator
 
     samples = np.asarray(samples, float)
-    corr = correction_for(system) if phase_rad is not None else None
+    corr = correction_for(system, float(np.max(np.abs(samples), initial=0.0))) \
+        if phase_rad is not None else None
     extra = None if corr is None else effective_term(corr, samples)
     ends = [np.eye(system.dimension), np.eye(system.dimension)]
     if corr is not None:

@@ -170,7 +170,7 @@ class VerdictSettings:
 
     lab_frame: str = "auto"
     carrier_phase_deg: float | None = None
-    carrier_phases: int = 4
+    carrier_phases: int = 8
     extra_levels: int = 2
 
     def __post_init__(self):

@@ -93,9 +93,10 @@ class CorrectedDrive:
     start_s: float
 
     @classmethod
-    def for_chain(cls, chain: Chain, system, phases: tuple[float, ...]) -> CorrectedDrive:
+    def for_chain(cls, chain: Chain, system, phases: tuple[float, ...],
+                  drive_hz: float) -> CorrectedDrive:
         from shaper.physics.effective import correction_for
-        return cls(correction_for(system), np.asarray(phases, float),
+        return cls(correction_for(system, drive_hz), np.asarray(phases, float),
                    -chain.start * chain.period_s)
 
     def extra(self, values):
