@@ -13,7 +13,6 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -21,6 +20,7 @@ from shaper.errors import RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
 from shaper.physics.targets import plan, slug
 from shaper.recipe.chip_gates import NO_GATE, read_gates
+from shaper.recipe.files import check_line_files
 from shaper.recipe.lines import resolve_files, stage_files
 from shaper.recipe.neighbours import near_recipe, near_system, read_crosstalk
 from shaper.recipe.schema import _Reader
@@ -75,11 +75,18 @@ class Task:
 
 def _response_files(recipe: dict) -> dict[str, str]:
     """The sha256 of every measured-response file the recipe's line names (absolute)."""
+    from shaper.errors import InputError
+    from shaper.recipe.files import read_bytes
+    from shaper.recipe.lines import MAX_RESPONSE_BYTES
+
+    def unreadable(message: str):
+        raise InputError(message)
     out = {}
     for stage in stage_files(recipe.get("line", {})):
-        try:
-            out[stage["file"]] = hashlib.sha256(Path(stage["file"]).read_bytes()).hexdigest()
-        except OSError:
+        try:  # read and checked by the recipe reader already; bounded here all the same
+            data = read_bytes(stage["file"], MAX_RESPONSE_BYTES, unreadable, text=False)
+            out[stage["file"]] = hashlib.sha256(data).hexdigest()
+        except InputError:
             out[stage["file"]] = "unreadable"
     return out
 
@@ -110,15 +117,10 @@ def load_chip(path: str | Path) -> Chip:
     Raises:
         RecipeError: naming the chip file and the key.
     """
+    from shaper.recipe.load import read_toml
+
     path = Path(path)
-    try:
-        text = path.read_bytes()
-        raw = tomllib.loads(text.decode("utf-8"))
-    except OSError as exc:
-        raise RecipeError(f"cannot read the chip file: {exc.strerror}", path=str(path)) \
-            from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise RecipeError(f"not valid TOML: {exc}", path=str(path)) from None
+    raw, text = read_toml(path, "chip")
     r = _Reader(raw, str(path))
     _check(r, raw, "", "")
     name = raw.get("name")
@@ -164,6 +166,7 @@ def _template(r: _Reader, template: dict, raw: dict) -> dict:
             r.fail(f"template.line.{channel}", f"no channel of that name on this chip; "
                                                f"channels: {', '.join(channels)}")
     # found beside the chip file, wherever the task runs (README, "Chips")
+    check_line_files(template.get("line"), base, "template.line", r.fail)
     resolve_files(template.get("line", {}), base)
     for key in TEMPLATE_PULSE_OWN:
         if key in template.get("pulse", {}):
