@@ -49,6 +49,8 @@ def kind_of(mode: int) -> str | None:
 
 def why_unreadable(exc: OSError) -> str:
     """An ``OSError`` of opening or reading a named file, in words."""
+    if exc.errno == errno.ENOENT:
+        return "no such file"
     if exc.errno == errno.ELOOP:
         return "a loop of symbolic links"
     if exc.errno == errno.ENAMETOOLONG:
@@ -71,7 +73,7 @@ def read_bytes(path: str | Path, limit: int, fail: Callable[[str], None], *,
     try:
         info = os.stat(path)
     except OSError as exc:
-        fail(f"cannot read it: {why_unreadable(exc)}")
+        fail(f"cannot read the file: {why_unreadable(exc)}")
     other = kind_of(info.st_mode)
     if other:
         fail(f"{other}, not a {what} file")
@@ -80,7 +82,7 @@ def read_bytes(path: str | Path, limit: int, fail: Callable[[str], None], *,
     try:
         fd = os.open(path, os.O_RDONLY | os.O_NONBLOCK | os.O_CLOEXEC)
     except OSError as exc:
-        fail(f"cannot read it: {why_unreadable(exc)}")
+        fail(f"cannot read the file: {why_unreadable(exc)}")
     try:
         other = kind_of(os.fstat(fd).st_mode)  # replaced between the two looks?
         if other:
@@ -88,7 +90,7 @@ def read_bytes(path: str | Path, limit: int, fail: Callable[[str], None], *,
         data = _read_at_most(fd, limit + 1, text and (lambda head: _text_head(head, fail,
                                                                           what)))
     except OSError as exc:
-        fail(f"cannot read it: {why_unreadable(exc)}")
+        fail(f"cannot read the file: {why_unreadable(exc)}")
     finally:
         os.close(fd)
     if len(data) > limit:
