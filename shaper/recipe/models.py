@@ -23,6 +23,7 @@ from shaper.recipe.units import format_quantity, parse_quantity
 MAX_TRANSMON_LEVELS = 64  # a transmon has a handful of bound levels; more is a typo
 MAX_COUPLING_HZ = 1e9  # above this a coupling is a unit slip
 MAX_CARRIER_OFFSET_HZ = 20e9  # a drive this far from the frame is one too
+MAX_QUBIT_HZ = 100e9  # a transmon's (or a frame's) frequency above this is a unit slip
 # the basis a transmons system's computational states are named in (README, "Coupled
 # transmons: the dressed basis"): the bare product states, or what they become at rest
 BASES = ("bare", "dressed")
@@ -58,6 +59,16 @@ def read_system(r: _Reader, t: dict) -> System:
         return model.read(r, t)
     except InputError as exc:
         r.fail("system", str(exc))
+
+
+def _frequency(r: _Reader, t: dict, key: str, where: str, default=None) -> float:
+    """A transmon's (or a frame's) frequency: positive and at most :data:`MAX_QUBIT_HZ`,
+    refused here (not after the optimiser ran, when the lab frame would resolve it)."""
+    value = r.number(t, key, f"{where}.{key}", default, kind="frequency", positive=True)
+    if value > MAX_QUBIT_HZ:
+        r.fail(f"{where}.{key}", f"{t[key]!r} is above {format_quantity(MAX_QUBIT_HZ, 'Hz')}, "
+                                 f"beyond any transmon; check the unit (e.g. \"5.1 GHz\")")
+    return value
 
 
 def _spectrum(r: _Reader, t: dict, where: str) -> dict:
@@ -99,11 +110,9 @@ def _transmon(r: _Reader, t: dict) -> System:
         r.fail("system.levels", f"must be from 2 (levels 0 and 1 are the qubit) to "
                                 f"{MAX_TRANSMON_LEVELS} (a transmon keeps a few bound levels), "
                                 f"got {levels}")
-    fq = r.number(t, "qubit_frequency", "system.qubit_frequency", kind="frequency",
-                  positive=True)
+    fq = _frequency(r, t, "qubit_frequency", "system")
     alpha = r.number(t, "anharmonicity", "system.anharmonicity", kind="frequency")
-    fd = r.number(t, "drive_frequency", "system.drive_frequency", fq, kind="frequency",
-                  positive=True)
+    fd = _frequency(r, t, "drive_frequency", "system", fq)
     name = t.get("qubit", "q0")
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
@@ -129,8 +138,7 @@ def _transmons(r: _Reader, t: dict) -> System:
             r.fail(f"{where}.levels", f"must be from 2 to {MAX_TRANSMON_LEVELS}, got {levels}")
         specs.append(TransmonSpec(
             name=name, levels=levels,
-            qubit_frequency_hz=r.number(item, "qubit_frequency", f"{where}.qubit_frequency",
-                                        kind="frequency", positive=True),
+            qubit_frequency_hz=_frequency(r, item, "qubit_frequency", where),
             anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
                                       kind="frequency"),
             flux=r.flag(item, "flux", f"{where}.flux", False),
@@ -148,8 +156,7 @@ def _transmons(r: _Reader, t: dict) -> System:
                                         f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
                                         f"couplings are MHz to tens of MHz (check the unit)")
         couplings.append((pair[0], pair[1], g))
-    frame = r.number(t, "frame_frequency", "system.frame_frequency",
-                     specs[0].qubit_frequency_hz, kind="frequency", positive=True)
+    frame = _frequency(r, t, "frame_frequency", "system", specs[0].qubit_frequency_hz)
     drives = []
     for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
         for key in ("name", "transmon"):
@@ -177,6 +184,26 @@ def _transmons(r: _Reader, t: dict) -> System:
         return dressed(system)
     except InputError as exc:
         r.fail("system.basis", f"{exc} (frame {format_quantity(frame, 'Hz')})")
+
+
+def check_more_levels(r: _Reader, t: dict, system: System, extra: int) -> None:
+    """The verdict re-plays every transmon with ``extra`` more levels: that must stay a
+    transmon the reader accepts, refused here naming what the user wrote (not after the
+    optimiser ran, naming a sum nobody wrote)."""
+    if system.lab is None or not extra or max(system.dims) + extra <= MAX_TRANSMON_LEVELS:
+        return
+    table = r.raw.get("system", {})
+    items = [("system.levels", table)] if "levels" in table else [
+        (f"system.transmon[{i}].levels", tr) for i, tr in enumerate(table.get("transmon", []))]
+    where, item = next(((w, tr) for w, tr in items
+                        if tr.get("levels", 0) + extra > MAX_TRANSMON_LEVELS), items[0])
+    written = "extra_levels" in t
+    r.fail("verdict.extra_levels" if written else where,
+           f"levels = {item.get('levels')!r} with verdict.extra_levels = "
+           f"{t['extra_levels'] if written else f'{extra} (the default)'} is "
+           f"{item.get('levels', 0) + extra} levels for the verdict's re-check; a transmon "
+           f"keeps at most {MAX_TRANSMON_LEVELS}: keep at most "
+           f"{MAX_TRANSMON_LEVELS - extra} levels, or fewer verdict.extra_levels")
 
 
 def _matrices(r: _Reader, t: dict) -> System:

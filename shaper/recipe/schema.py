@@ -26,6 +26,8 @@ METHODS = {"lbfgs": "L-BFGS-B from scipy (default)",
            "adam": "Adam from optax, learning_rate per step",
            "lbfgs-jit": "L-BFGS from optax, ten steps per compiled call"}
 PADDING = ("after", "before", "centre")
+MAX_STARTS = 1000  # starts of one optimisation: each a checkpoint file and a row of a table
+MAX_SEED = 2 ** 32 - 1  # seeds of NumPy's generators as shaper uses them, start i at seed + i
 
 # [cost]: the weight of each registered cost term (shaper.costs.terms.TERMS)
 DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothness": 0.0,
@@ -281,7 +283,10 @@ class _Reader:
         return value
 
     def number(self, table, key, where, default=None, *, kind=None, positive=False,
-               integer=False, minimum=None, bare_check=True, hint=None):
+               integer=False, minimum=None, maximum=None, below=None, bare_check=True,
+               hint=None):
+        """A number (``kind``: a quantity with a unit) within its bounds: ``minimum`` and
+        ``maximum`` inclusive, ``below`` exclusive; errors quote the value as written."""
         if key not in table:
             if default is None:
                 self.fail(where, "missing required key")
@@ -300,6 +305,10 @@ class _Reader:
             self.fail(where, f"must be positive, got {table[key]!r}")
         if minimum is not None and value < minimum:
             self.fail(where, f"must be at least {minimum}, got {table[key]!r}")
+        if maximum is not None and value > maximum:
+            self.fail(where, f"must be at most {maximum:,}, got {table[key]!r}")
+        if below is not None and not value < below:
+            self.fail(where, f"must be below {below}, got {table[key]!r}")
         return value
 
     def flag(self, table, key, where, default: bool) -> bool:

@@ -9,13 +9,15 @@ from shaper.physics.systems import NAME, NAME_RULE, System
 from shaper.physics.targets import Target, gate, on_qubits, state_transfer
 from shaper.recipe.instrument import read_export
 from shaper.recipe.lines import read_line
-from shaper.recipe.memory import fits_in_memory
-from shaper.recipe.models import read_system
+from shaper.recipe.memory import fits_in_memory, fits_in_time
+from shaper.recipe.models import check_more_levels, read_system
 from shaper.recipe.schema import (
     DEFAULT_WEIGHTS,
     ENSEMBLE_RULES,
     GUESSES,
     LAB_FRAME,
+    MAX_SEED,
+    MAX_STARTS,
     METHODS,
     OptimizerSettings,
     Recipe,
@@ -57,6 +59,8 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     fits_in_memory(r, system, pulse, len(scales), export,
                     line.oversample if line.active and not export.predistort else 1,
                     lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame else 0)
+    fits_in_time(r, system, pulse, len(scales), export,
+                 line.oversample if line.active else 1, verdict)
     if optimizer.open_system and not system.collapse:
         r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
                                         "operators with rates) to optimise the channel")
@@ -278,8 +282,9 @@ def _bandwidths(r: _Reader, value, limits: dict[str, float],
     out = {}
     for c, (key, v) in items.items():
         cutoff = parse_quantity(v, "frequency", key=key, path=r.path)
-        if not cutoff >= 0:
-            r.fail(key, f"must be a positive frequency (or 0: no limit), got {v!r}")
+        if not cutoff > 0:  # 0 would drop the bandwidth target and say "targets met"
+            r.fail(key, f"must be a positive frequency, got {v!r}; to limit only some "
+                        f"channels give a table of them ({{q0 = \"80 MHz\"}})")
         if cutoff >= rate / 2:
             r.fail(key, f"the cutoff must lie below the Nyquist frequency "
                         f"{format_quantity(rate / 2, 'Hz')}")
@@ -324,16 +329,18 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         max_iterations=r.number(t, "max_iterations", "optimizer.max_iterations",
                                 d.max_iterations, integer=True, minimum=1),
         target_infidelity=r.number(t, "target_infidelity", "optimizer.target_infidelity",
-                                   d.target_infidelity, positive=True),
+                                   d.target_infidelity, positive=True, below=1),
         target_leakage=r.number(t, "target_leakage", "optimizer.target_leakage",
-                                d.target_leakage, positive=True),
+                                d.target_leakage, positive=True, below=1),
         margin=r.number(t, "margin", "optimizer.margin", d.margin, minimum=1.0),
         max_time_s=r.number(t, "max_time", "optimizer.max_time", d.max_time_s, kind="time",
                             positive=True, bare_check=False),
         stall_iterations=r.number(t, "stall_iterations", "optimizer.stall_iterations",
                                   d.stall_iterations, integer=True, minimum=1),
-        seed=r.number(t, "seed", "optimizer.seed", d.seed, integer=True, minimum=0),
-        starts=r.number(t, "starts", "optimizer.starts", d.starts, integer=True, minimum=1),
+        seed=r.number(t, "seed", "optimizer.seed", d.seed, integer=True, minimum=0,
+                      maximum=MAX_SEED),
+        starts=r.number(t, "starts", "optimizer.starts", d.starts, integer=True, minimum=1,
+                        maximum=MAX_STARTS),
         initial=initial,
         drag_scale=r.number(t, "drag_scale", "optimizer.drag_scale", d.drag_scale),
         learning_rate=r.number(t, "learning_rate", "optimizer.learning_rate", d.learning_rate,
@@ -368,5 +375,7 @@ def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
                      minimum=0)
     if extra > 8:
         r.fail("verdict.extra_levels", f"at most 8 levels more per transmon, got {extra}")
+    check_more_levels(r, t, system, extra)
     return VerdictSettings(lab_frame=lab, carrier_phase_deg=phase, carrier_phases=phases,
                            extra_levels=extra)
+
