@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import logging
 import multiprocessing
+import os
 import signal
 from collections.abc import Callable
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -33,11 +34,16 @@ def _ready() -> None:
     """Nothing: submitted once so that the helper starts (and imports) right away."""
 
 
-def _prepare() -> None:
-    """Ignore Ctrl-C; import matplotlib and draw one throw-away figure (fonts, text
-    layout and the Agg canvas are set up on first use), all before any real work."""
+def _prepare(parent: int | None = None) -> None:
+    """Die with the command ``parent`` however it ends (kill -9 included: its queue's
+    pipe never closes for the helper, which holds both ends); ignore Ctrl-C; import
+    matplotlib and draw one throw-away figure (fonts, text layout and the Agg canvas are
+    set up on first use), all before any real work."""
     import io
 
+    from shaper.optimizer.parallel import die_with_parent
+
+    die_with_parent(parent)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     from shaper.jobs.plots import _figure, _finish
 
@@ -56,7 +62,7 @@ class Painter:
         try:
             self._pool: ProcessPoolExecutor | None = ProcessPoolExecutor(
                 max_workers=1, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_prepare)
+                initializer=_prepare, initargs=(os.getpid(),))
         except (OSError, RuntimeError) as exc:  # no processes here: draw in this one
             log.warning("plots drawn in this process (no helper: %s)", exc)
             self._pool = None
