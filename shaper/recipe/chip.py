@@ -20,6 +20,7 @@ from shaper.errors import RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
 from shaper.physics.targets import plan, slug
 from shaper.recipe.chip_gates import NO_GATE, read_gates
+from shaper.recipe.chip_keys import chip_key, qubit_key
 from shaper.recipe.files import check_line_files
 from shaper.recipe.lines import resolve_files, stage_files
 from shaper.recipe.neighbours import near_recipe, near_system, read_crosstalk
@@ -189,6 +190,7 @@ def _qubits(r: _Reader, raw: dict) -> dict[str, dict]:
             r.fail(f"{where}.name", f"expected {NAME_RULE}, got {qname!r}")
         if qname in specs:
             r.fail(f"{where}.name", f"qubit {qname!r} is listed twice; names must differ")
+        where = qubit_key(qname)  # from here on the qubit is named by its name
         for key in ("frequency", "anharmonicity", "max_rabi"):
             if key not in q:
                 r.fail(f"{where}.{key}", f"missing required key (qubit {qname!r})")
@@ -269,7 +271,8 @@ def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task
                                      f"{a}_cr": gates.get("cross_resonance_rabi", "100 MHz")}},
               **_rest(base, recipe_channels)}
     recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
-    return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (), checked(recipe, f"coupling[{i}]"),
+    return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (),
+                checked(recipe, f"coupling[{i}]", "gates.fixed_pair_durations"),
                 gates["fixed_pair_durations"], "gates.fixed_pair_durations")
 
 
@@ -279,19 +282,24 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
     name = raw["name"]
     tasks = []
 
-    def checked(recipe: dict, where: str) -> dict:
+    def checked(recipe: dict, where: str, durations_key: str = "gates.single_durations"):
+        """The task's recipe, refused naming the chip's own key (chip_keys.chip_key)."""
         try:
             load_recipe(recipe)
         except RecipeError as exc:
-            r.fail(where, f"the gate recipe built from it is wrong: {exc.key}: {exc.detail}")
+            key = chip_key(recipe, exc.key, durations_key, couplings)
+            if key is None:
+                r.fail(where, f"the {recipe['gate'].get('target')} gate's recipe built from "
+                              f"it is wrong: {exc.key}: {exc.detail}")
+            r.fail(key, exc.detail)
         return recipe
 
     base = {k: copy.deepcopy(v) for k, v in template.items()}
-    for i, q in enumerate(specs.values()):  # flux keys, checked even without a pair
+    for q in specs.values():  # flux keys, checked even without a pair
         if q.get("flux"):
-            checked(_flux_probe(q), f"qubit[{i}]")
+            checked(_flux_probe(q), qubit_key(q["name"]))
     durations = gates["single_durations"]
-    for i, (qname, q) in enumerate(specs.items()):
+    for qname, q in specs.items():
         for parent, derived in plan(single, 1):
             transmon = _transmon(q)
             system = {"model": "transmon", "levels": transmon["levels"],
@@ -305,10 +313,10 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
                                 "max_rabi": q["max_rabi"]},
                       **_rest(base, recipe_channels)}
             recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
-            checked(recipe, f"qubit[{i}]")
+            checked(recipe, qubit_key(qname))
             system = near_system(qname, specs, couplings, gates["neighbour_levels"], _transmon)
             near = None if system is None else checked(near_recipe(recipe, system, qname),
-                                                       f"qubit[{i}]")
+                                                       qubit_key(qname))
             if near is not None and gates["neighbours"] == "optimise":
                 # alone, its frame updates as free as beside the neighbours (it is made so)
                 alone = {**recipe, "gate": {**recipe["gate"], "virtual_z": True}}
@@ -357,7 +365,8 @@ def _flux_pair(name, i, qa, qb, coupling, pair_gate, pair_durations, base, check
               "gate": {"target": pair_gate, "virtual_z": True}, "pulse": pulse,
               **_rest(base, recipe_channels)}
     return Task(f"{a}-{b}-{slug(pair_gate)}", f"{a}-{b}", pair_gate, (),
-                checked(recipe, f"coupling[{i}]"), pair_durations, "gates.pair_durations")
+                checked(recipe, f"coupling[{i}]", "gates.pair_durations"), pair_durations,
+                "gates.pair_durations")
 
 
 def _rest(base: dict, channels: list[str]) -> dict:

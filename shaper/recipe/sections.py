@@ -258,6 +258,9 @@ def _flux_ranges(r: _Reader, value, bb: list[str]) -> dict[str, tuple[float, flo
             r.fail(key, f"expected [lowest, highest], e.g. [\"-900 MHz\", 0], got {pair!r}")
         lo, hi = (parse_quantity(v, "frequency", key=f"{key}[{i}]", path=r.path)
                   for i, v in enumerate(pair))
+        if max(-lo, hi) > MAX_FLUX_HZ:
+            r.fail(key, f"{pair!r} reaches beyond {format_quantity(MAX_FLUX_HZ, 'Hz')}, "
+                        f"beyond any transmon's flux tuning; check the unit")
         if not lo <= 0 <= hi or not hi > lo:
             r.fail(key, f"expected lowest <= 0 <= highest with lowest < highest (the flux "
                         f"rests at 0 before and after the pulse), got [{lo:g}, {hi:g}] Hz")
