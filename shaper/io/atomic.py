@@ -40,6 +40,22 @@ def inside(folder: str | Path, path: str | Path) -> Path:
     return Path(path)
 
 
+def inside_for_reading(folder: str | Path, name, error, what: str) -> Path:
+    """``folder / name`` for a name a run's own file gives (a report's waveform): a relative
+    path that resolves inside ``folder``; a tampered one is refused with ``error`` (bad
+    input, exit 2) rather than followed out of the run folder."""
+    root = Path(folder).resolve()
+    try:
+        target = (root / name).resolve() if isinstance(name, str) and name else None
+    except (OSError, RuntimeError):  # a loop of symbolic links
+        target = None
+    if target is None or Path(name).is_absolute() or (target != root
+                                                      and root not in target.parents):
+        raise error(f"{what} names {str(name)[:80]!r}, which is not a file inside the run "
+                    f"folder {folder}; it is read only from there")
+    return target
+
+
 def write_bytes(path: str | Path, data: bytes) -> None:
     """Write ``data`` to ``path`` atomically."""
     path = Path(path)

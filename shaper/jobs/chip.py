@@ -160,9 +160,16 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
                               f"continue it or --force to start over (resume=True / "
                               f"force=True from Python)")
         state = atomic.read_json(state_path, ResultError, "unreadable")
+        if not isinstance(state, dict) or not isinstance(state.get("tasks"), dict):
+            raise ResultError(f"{state_path}: not a chip run's state (no table of tasks)")
         if state.get("chip") != chip.name:
             raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
                               f"{chip.name!r}")
+        for task_id, task in state["tasks"].items():  # files are read from the run only
+            for row in (task.get("rows") or []) if isinstance(task, dict) else []:
+                atomic.inside_for_reading(out, row.get("waveform") if isinstance(row, dict)
+                                          else None, ResultError,
+                                          f"{state_path}: task {task_id!r}")
     if force and (out / "gates").exists():
         shutil.rmtree(out / "gates")  # start over: no task resumes its earlier sweep
     return state

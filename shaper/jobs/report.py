@@ -141,7 +141,8 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
         if key not in report:
             raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")
     recipe = load_recipe(report["recipe"]["content"])
-    wave = waveio.read_waveform(report_path.parent / report["waveform"])
+    wave = waveio.read_waveform(atomic.inside_for_reading(
+        report_path.parent, report["waveform"], ResultError, f"{report_path}: 'waveform'"))
     samples = baseband(recipe, wave)
     n = int(report.get("pulse_samples", samples.shape[0]))
     samples = samples[wave.pulse_start:wave.pulse_start + n]
