@@ -36,6 +36,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from shaper.recipe import load_recipe
 
+    if args.plots:
+        from shaper.io.runfolder import check_out
+        check_out(args.plots, "--plots")
     recipe = _derived(args, load_recipe(args.recipe))
     wave = _read_waveform(args, recipe)
     # Every input is read and checked: only now the helper that draws (it imports matplotlib

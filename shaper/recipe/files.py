@@ -135,6 +135,8 @@ def _read_at_most(fd: int, size: int, first=None) -> bytes:
 
 
 def _size(n: int) -> str:
+    if n >= 2 ** 30:
+        return f"{n / 2 ** 30:.3g} GiB"
     return f"{n / MIB:.3g} MiB" if n >= MIB else f"{n} bytes"
 
 
