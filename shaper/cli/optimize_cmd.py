@@ -83,16 +83,15 @@ def run(args: argparse.Namespace) -> int:
         return _run(args, stop)
 
 
-def _run(args: argparse.Namespace, stop) -> int:
+def _options(args: argparse.Namespace) -> tuple[float, Path | None]:
+    """Every option checked and named before the recipe is read: the stall limit (s) and
+    the --out folder (None: the default)."""
     from shaper.cli import budget
     from shaper.errors import InputError
-    from shaper.recipe import load_recipe
 
     budget.read(args)  # checks --hours, --iterations, --starts, --seed, --workers
-    for name in ("checkpoint_every",):
-        value = getattr(args, name)
-        if value is not None and value < 1:
-            raise InputError(f"--{name.replace('_', '-')} must be at least 1, got {value}")
+    if args.checkpoint_every < 1:
+        raise InputError(f"--checkpoint-every must be at least 1, got {args.checkpoint_every}")
     if not 0 < args.checkpoint_seconds <= MAX_CHECKPOINT_S:  # NaN is neither
         raise InputError(f"--checkpoint-seconds must be positive and at most a day "
                          f"({MAX_CHECKPOINT_S:g}), got {args.checkpoint_seconds}")
@@ -103,7 +102,13 @@ def _run(args: argparse.Namespace, stop) -> int:
         raise InputError(f"--stall-limit must be a positive time up to a week, got "
                          f"{args.stall_limit!r}")
     from shaper.io.runfolder import check_out
-    folder = check_out(args.out) if args.out else None
+    return stall_limit, check_out(args.out) if args.out else None
+
+
+def _run(args: argparse.Namespace, stop) -> int:
+    from shaper.recipe import load_recipe
+
+    stall_limit, folder = _options(args)
     recipe = load_recipe(args.recipe)
     folder = folder or Path("results") / recipe.name
     if stop:  # stopped while starting: nothing to save yet

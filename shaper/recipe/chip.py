@@ -276,14 +276,13 @@ def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task
                 gates["fixed_pair_durations"], "gates.fixed_pair_durations")
 
 
-def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
+def _checker(r: _Reader, couplings: list):
+    """``checked(recipe, where, durations_key)``: a task's recipe read by the recipe reader,
+    its errors naming the chip's own key (:func:`shaper.recipe.chip_keys.chip_key`), or
+    ``where`` (the qubit or coupling the task is of) where the chip has no such key."""
     from shaper.recipe.load import load_recipe
 
-    name = raw["name"]
-    tasks = []
-
     def checked(recipe: dict, where: str, durations_key: str = "gates.single_durations"):
-        """The task's recipe, refused naming the chip's own key (chip_keys.chip_key)."""
         try:
             load_recipe(recipe)
         except RecipeError as exc:
@@ -293,7 +292,13 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
                               f"it is wrong: {exc.key}: {exc.detail}")
             r.fail(key, exc.detail)
         return recipe
+    return checked
 
+
+def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
+    name = raw["name"]
+    tasks = []
+    checked = _checker(r, couplings)
     base = {k: copy.deepcopy(v) for k, v in template.items()}
     for q in specs.values():  # flux keys, checked even without a pair
         if q.get("flux"):

@@ -31,7 +31,7 @@ def excerpt(value, limit: int = EXCERPT_CHARS) -> str:
         >>> excerpt("time_s,value")
         "'time_s,value'"
         >>> excerpt("\\x1b[31mred" * 9, 8)
-        "'\\\\x1b[31mre'..."
+        "'\\\\x1b[31mred'..."
     """
     text = value if isinstance(value, str) else str(value)
     return repr(text[:limit]) + ("..." if len(text) > limit else "")

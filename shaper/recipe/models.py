@@ -123,6 +123,23 @@ def _transmon(r: _Reader, t: dict) -> System:
     return coupled_transmons([spec], [], frame_frequency_hz=fd)
 
 
+def _couplings(r: _Reader, t: dict) -> list[tuple[str, str, float]]:
+    """``[[system.coupling]]``: two transmon names and a strength each."""
+    couplings = []
+    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
+        pair = item.get("between")
+        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
+                                                                 for p in pair)):
+            r.fail(f"{where}.between", f"expected two transmon names, got {str(pair)[:60]!r}")
+        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
+        if abs(g) > MAX_COUPLING_HZ:
+            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
+                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
+                                        f"couplings are MHz to tens of MHz (check the unit)")
+        couplings.append((pair[0], pair[1], g))
+    return couplings
+
+
 def _transmons(r: _Reader, t: dict) -> System:
     items = t.get("transmon")
     if not isinstance(items, list) or not items:
@@ -144,18 +161,7 @@ def _transmons(r: _Reader, t: dict) -> System:
             flux=r.flag(item, "flux", f"{where}.flux", False),
             driven=r.flag(item, "driven", f"{where}.driven", True), **_coherence(r, item, where),
             **_spectrum(r, item, where)))
-    couplings = []
-    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
-        pair = item.get("between")
-        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
-                                                                 for p in pair)):
-            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
-        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
-        if abs(g) > MAX_COUPLING_HZ:
-            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
-                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
-                                        f"couplings are MHz to tens of MHz (check the unit)")
-        couplings.append((pair[0], pair[1], g))
+    couplings = _couplings(r, t)
     frame = _frequency(r, t, "frame_frequency", "system", specs[0].qubit_frequency_hz)
     drives = []
     for where, item in r.tables(t, "drive", "system.drive", "system.drive"):

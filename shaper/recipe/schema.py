@@ -17,7 +17,7 @@ from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
 from shaper.recipe.lines import LineSettings
-from shaper.recipe.units import parse_quantity
+from shaper.recipe.units import _shown, parse_quantity
 
 GUESSES = ("gaussian", "drag", "cosine", "random")  # first guesses by name
 ENSEMBLE_RULES = ("every", "mean")  # how ensemble members meet the targets
@@ -279,7 +279,7 @@ class _Reader:
     def table(self, table: dict, key: str, where: str) -> dict:
         value = table.get(key, {})
         if not isinstance(value, dict):
-            self.fail(where, f"expected a table [{where}], got {value!r}")
+            self.fail(where, f"expected a table [{where}], got {_shown(value)}")
         return value
 
     def number(self, table, key, where, default=None, *, kind=None, positive=False,
@@ -296,7 +296,7 @@ class _Reader:
             value = parse_quantity(value, kind, key=where, path=self.path,
                                    bare_check=bare_check, hint=hint)
         elif isinstance(value, bool) or not isinstance(value, int | float):
-            self.fail(where, f"expected a number, got {value!r}")
+            self.fail(where, f"expected a number, got {_shown(value)}")
         if not math.isfinite(value):
             self.fail(where, f"expected a finite number, got {value!r}")
         if integer and (not isinstance(value, int) or isinstance(value, bool)):
@@ -314,7 +314,7 @@ class _Reader:
     def flag(self, table, key, where, default: bool) -> bool:
         value = table.get(key, default)
         if not isinstance(value, bool):
-            self.fail(where, f"expected true or false, got {value!r}")
+            self.fail(where, f"expected true or false, got {_shown(value)}")
         return value
 
     def choice(self, table, key, where, options, default=None) -> str:
@@ -322,7 +322,8 @@ class _Reader:
         if value is None:
             self.fail(where, "missing required key")
         if value not in options:
-            self.fail(where, f"unknown value {value!r}; choose one of: {', '.join(options)}")
+            self.fail(where, f"unknown value {_shown(value)}; choose one of: "
+                             f"{', '.join(options)}")
         return value
 
     def matrix(self, table, key, where, size=None, *, imag_key=None) -> np.ndarray:
