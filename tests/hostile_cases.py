@@ -131,6 +131,19 @@ RECIPE_MUTATIONS = [
     ("max-rabi-terahertz", "pulse.max_rabi", "1 THz", "transmon", "pulse.max_rabi",
      "beyond any transmon"),
     ("duration-a-millisecond", "pulse.duration", "1 ms", "transmon", "pulse.duration", ""),
+    # found by the fresh trial after the first fixes
+    ("anharmonicity-1e30", "system.anharmonicity", 1e30, "transmon", "system.anharmonicity",
+     "smaller in size"),
+    ("transmon-anharmonicity-6-ghz", "system.transmon[{i}].anharmonicity", "-6 GHz",
+     "transmons", "system.transmon[{i}].anharmonicity", "smaller in size"),
+    ("out-of-band-5", "pulse.max_out_of_band", 5, "", "pulse.max_out_of_band", "below 1"),
+    ("ensemble-of-1000", "cost.ensemble_scales", [1.0] * 1000, "", "cost.ensemble_scales",
+     "at most 100"),
+    ("ensemble-detuning-1e30", "cost.ensemble_detunings", ["1e30 Hz"], "",
+     "cost.ensemble_detunings[0]", "1 GHz"),
+    ("learning-rate-1e300", "optimizer.learning_rate", 1e300, "", "optimizer.learning_rate",
+     "at most 10"),
+    ("t1-attosecond", "system.t1", "1e-30 s", "transmon", "system.t1", "nanosecond"),
 ]
 EXTRA = {"levels-64-extra-8": ("verdict.extra_levels", 8)}  # a second change of a case
 
@@ -207,6 +220,11 @@ CHIP_MUTATIONS = [
     ("coupling-strength", "coupling[0].strength", "2 GHz", "coupling[0].strength", "above"),
     ("cross-resonance-rabi", "gates.cross_resonance_rabi", "0 MHz",
      "gates.cross_resonance_rabi", "positive"),
+    # found by the fresh trial after the first fixes
+    ("template-initial-missing", "template.optimizer.initial", "missing.csv",
+     "template.optimizer.initial", "no such file"),
+    ("second-qubit-anharmonicity", "qubit[1].anharmonicity", "90 GHz",
+     'qubit "qb".anharmonicity', "smaller in size"),
 ]
 CHIP_EXTRA = {"second-qubit-t2": ("qubit[1].t1", "40 us"),
               "template-extra-levels": ("qubit[0].levels", 60)}
@@ -260,4 +278,12 @@ OPTIONS = [
     ("export-granularity-million", ["export", "RUN", "--out", "OUT", "--granularity",
                                     "1000000"], "--granularity", "10 min"),
     ("export-long-out", ["export", "RUN", "--out", LONG_OUT], "--out", "255"),
+    # found by the fresh trial after the first fixes
+    ("chip-scheduler-empty", ["chip", "CHIP", "--scheduler", ""], "--scheduler", "address"),
+    ("optimize-stall-tiny", ["optimize", "RECIPE", "--stall-limit", "1e-300 s"],
+     "--stall-limit", "from 1 s"),
+    ("check-sample-rate-1e300", ["check", "RECIPE", "WAVE", "--sample-rate", "1e300"],
+     "--sample-rate", "at most"),
+    ("check-rate-against-sidecar", ["check", "RECIPE", "WAVE", "--sample-rate", "2GS/s"],
+     "--sample-rate 2GS/s", "sidecar"),
 ]

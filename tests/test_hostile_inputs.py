@@ -219,6 +219,14 @@ def test_a_tampered_report_is_not_followed_out_of_the_run_folder(tmp_path):
         code, _, err = cli("export", run, "--out", tmp_path / "out")
         refused(code, err, "report.json", "'waveform'", "inside the run folder")
         assert not (tmp_path / "out").exists()
+    # the rest of a damaged report is bad input too, never an internal error
+    for damage, words in (({"recipe": {"content": [1, 2]}}, "'recipe'"), ({"recipe": 5},
+                          "'recipe'"), ({"pulse_samples": -5}, "'pulse_samples'"),
+                          ({"pulse_samples": 10 ** 12}, "'pulse_samples'"),
+                          ({"recipe": {"content": {"name": "x"}}}, "the recipe it holds")):
+        (run / "report.json").write_text(json.dumps({**report, **damage}))
+        code, _, err = cli("export", run, "--out", tmp_path / "out")
+        refused(code, err, "report.json", words)
 
 
 def test_numbers_are_quoted_as_written_without_float_noise(tmp_path):

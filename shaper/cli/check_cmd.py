@@ -62,6 +62,7 @@ def run(args: argparse.Namespace) -> int:
     return 0 if verdict["pass"] else 1
 
 
+MAX_RATE_HZ = 1e12  # a sample rate or full scale above a terahertz is a unit slip
 MAX_DETUNING_SPAN_HZ = 1e9  # a scan of +-1 GHz is already far beyond any calibration drift
 
 
@@ -122,11 +123,20 @@ def _read_waveform(args: argparse.Namespace, recipe):
         if args.sample_rate else None
     scale = parse_quantity(args.full_scale, "frequency", key="--full-scale") \
         if args.full_scale else None
-    for flag, value, text in (("--sample-rate", rate, args.sample_rate),
-                              ("--full-scale", scale, args.full_scale)):
-        if value is not None and not value > 0:
-            raise InputError(f"{flag} must be positive, got {text!r}")
-    guess = rate or _sidecar_rate(args.waveform) or recipe.sample_rate_hz
+    for flag, value, text, most in (("--sample-rate", rate, args.sample_rate, MAX_RATE_HZ),
+                                    ("--full-scale", scale, args.full_scale, MAX_RATE_HZ)):
+        if value is not None and not 0 < value <= most:
+            raise InputError(f"{flag} must be positive and at most "
+                             f"{format_quantity(most, 'Hz')}, got {text!r}")
+    own, scales = _sidecar(args.waveform)
+    for flag, value, given in (("--sample-rate", rate, {own}), ("--full-scale", scale, scales)):
+        # the sidecar's values are the file's; an option saying otherwise would be ignored
+        if value is not None and given and None not in given and any(
+                abs(value - g) > 1e-9 * g for g in given):
+            raise InputError(f"{flag} {getattr(args, flag[2:].replace('-', '_'))}: "
+                             f"{args.waveform} has a sidecar that says otherwise; the option "
+                             f"is for files without one")
+    guess = rate or own or recipe.sample_rate_hz
     most = rows_within(recipe, guess, scans=SENSITIVITY_SCANS)
     wave = read_any(args.waveform, recipe.system, sample_rate_hz=rate, full_scale_hz=scale,
                     max_rows=most, why=f" (checking more at {format_quantity(guess, 'S/s')} "
@@ -144,19 +154,28 @@ def _read_waveform(args: argparse.Namespace, recipe):
     return wave
 
 
-def _sidecar_rate(waveform: str) -> float | None:
-    """The sample rate our sidecar gives, if the file has one (for the rows' bound)."""
+def _sidecar(waveform: str) -> tuple[float | None, set]:
+    """The sample rate and full scales our sidecar gives, if the file has one and they are
+    valid numbers (None and an empty set otherwise: the reader says what is wrong)."""
     from shaper.errors import ShaperError
     from shaper.io import atomic
 
     sidecar = Path(waveform).with_suffix(".json")
     if Path(waveform).suffix != ".csv" or not sidecar.is_file():
-        return None
+        return None, set()
     try:
-        rate = atomic.read_json(sidecar, ShaperError, "").get("sample_rate_hz")
-    except (ShaperError, AttributeError):
-        return None  # the reader of the waveform says what is wrong with it
-    return float(rate) if isinstance(rate, int | float) and rate > 0 else None
+        meta = atomic.read_json(sidecar, ShaperError, "")
+    except ShaperError:
+        return None, set()
+
+    def positive(value):
+        ok = isinstance(value, int | float) and not isinstance(value, bool) and value > 0
+        return float(value) if ok else None
+    meta = meta if isinstance(meta, dict) else {}
+    channels = meta.get("channels") if isinstance(meta.get("channels"), dict) else {}
+    return positive(meta.get("sample_rate_hz")), {
+        positive(c.get("full_scale_rabi_hz") if isinstance(c, dict) else None)
+        for c in channels.values()}
 
 
 def _print_summary(v: dict) -> None:

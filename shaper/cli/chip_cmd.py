@@ -60,13 +60,13 @@ def _options(args: argparse.Namespace) -> tuple[dict, float | None]:
     from shaper.errors import InputError
 
     limits = budget.read(args)  # and --workers
-    if args.scheduler and args.workers:
+    if args.scheduler is not None and args.workers:
         raise InputError("--workers is for local runs; a Dask cluster has its own workers")
-    if args.wait_workers is not None and not args.scheduler:
+    if args.wait_workers is not None and args.scheduler is None:
         raise InputError("--wait-workers applies to a Dask cluster (--scheduler); local "
                          "workers start with the chip")
     wait = None
-    if args.scheduler:
+    if args.scheduler is not None:  # "" too: an address, refused as one
         from shaper.jobs.executors import WAIT_WORKERS_S, check_address
         from shaper.recipe.units import parse_quantity
 
@@ -95,8 +95,8 @@ def _run(args: argparse.Namespace, stop) -> int:
     atomic.lock_folder(folder)
     echo = lambda text: print(text, file=sys.stderr, flush=True)  # noqa: E731
     executor = DaskExecutor(args.scheduler, wait_workers_s=wait, echo=echo, stop=stop,
-                            debug=getattr(args, "debug", False)) if args.scheduler else \
-        LocalExecutor(args.workers or os.cpu_count() or 1, stop=stop)
+                            debug=getattr(args, "debug", False)) if args.scheduler is not None \
+        else LocalExecutor(args.workers or os.cpu_count() or 1, stop=stop)
     try:
         rows = run_chip(chip, folder, executor=executor, resume=args.resume, force=args.force,
                         echo=echo, progress=not args.quiet,

@@ -98,9 +98,8 @@ def _options(args: argparse.Namespace) -> tuple[float, Path | None]:
     from shaper.recipe.units import parse_quantity
     stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit",
                                  bare_check=False)
-    if not 0 < stall_limit <= MAX_CHECKPOINT_S * 7:
-        raise InputError(f"--stall-limit must be a positive time up to a week, got "
-                         f"{args.stall_limit!r}")
+    if not 1 <= stall_limit <= MAX_CHECKPOINT_S * 7:  # shorter: a slow step is a "stall"
+        raise InputError(f"--stall-limit must be from 1 s to a week, got {args.stall_limit!r}")
     from shaper.io.runfolder import check_out
     return stall_limit, check_out(args.out) if args.out else None
 

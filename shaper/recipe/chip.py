@@ -169,6 +169,11 @@ def _template(r: _Reader, template: dict, raw: dict) -> dict:
     # found beside the chip file, wherever the task runs (README, "Chips")
     check_line_files(template.get("line"), base, "template.line", r.fail)
     resolve_files(template.get("line", {}), base)
+    from shaper.recipe.load import check_first_guess
+    found = check_first_guess(r, template.get("optimizer", {}).get("initial"), base,
+                              "template.optimizer.initial")
+    if found is not None:  # the workers find it wherever they run
+        template["optimizer"]["initial"] = str(found.resolve())
     for key in TEMPLATE_PULSE_OWN:
         if key in template.get("pulse", {}):
             r.fail(f"template.pulse.{key}", "set by the chip for each gate (the qubits' "

@@ -77,7 +77,7 @@ def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe
     except InputError as exc:  # a model builder refused the values
         raise RecipeError(str(exc), path=path, key="system") from None
     if path is not None:  # a recipe read again from a report has no folder to look in
-        _check_first_guess(reader, recipe.optimizer.initial, base)
+        check_first_guess(reader, recipe.optimizer.initial, base)
     files = {st.source: st.sha256 for stages in recipe.line.stages.values() for st in stages
              if st.sha256}
     problem = budget_free(raw)
@@ -109,18 +109,21 @@ def read_toml(source: str | Path, what: str) -> tuple[dict, bytes]:
         fail(f"nested too deeply to be a {what}")
 
 
-def _check_first_guess(r: _Reader, initial: str, base: Path) -> None:
+def check_first_guess(r: _Reader, initial, base: Path,
+                      key: str = "optimizer.initial") -> Path | None:
     """``optimizer.initial`` naming a waveform file: it must be there now (beside the
     recipe, or in the working folder, as :func:`shaper.io.waveio.read_first_guess` looks),
-    not found missing after JAX has loaded."""
-    if initial in GUESSES:
-        return
+    not found missing after JAX has loaded. Returns the file found (None: a guess by name,
+    or not a file name, which the recipe reader refuses)."""
+    if not isinstance(initial, str) or initial in GUESSES:
+        return None
     beside = base / initial
     found = beside if beside.exists() or Path(initial).is_absolute() else Path(initial)
 
     def fail(message: str):
-        r.fail("optimizer.initial", f"{message} (a first guess: a waveform file from an "
-                                    f"earlier run, beside the recipe or in the working folder)")
+        r.fail(key, f"{message} (a first guess: a waveform file from an earlier run, beside "
+                    f"the {'chip file' if key.startswith('template') else 'recipe'} or in the "
+                    f"working folder)")
     try:
         info = found.stat()
     except OSError as exc:
@@ -128,6 +131,7 @@ def _check_first_guess(r: _Reader, initial: str, base: Path) -> None:
     other = kind_of(info.st_mode)
     if other:
         fail(f"{found} is {other}, not a waveform file")
+    return found
 
 
 BUDGETS = ("max_iterations", "max_time", "starts")  # [optimizer] keys that only bound a run

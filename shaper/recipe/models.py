@@ -23,6 +23,7 @@ from shaper.recipe.units import format_quantity, parse_quantity
 MAX_TRANSMON_LEVELS = 64  # a transmon has a handful of bound levels; more is a typo
 MAX_COUPLING_HZ = 1e9  # above this a coupling is a unit slip
 MAX_CARRIER_OFFSET_HZ = 20e9  # a drive this far from the frame is one too
+MIN_COHERENCE_S = 1e-9  # a T1 or T2 below this is a unit slip
 MAX_QUBIT_HZ = 100e9  # a transmon's (or a frame's) frequency above this is a unit slip
 # the basis a transmons system's computational states are named in (README, "Coupled
 # transmons: the dressed basis"): the bare product states, or what they become at rest
@@ -71,6 +72,17 @@ def _frequency(r: _Reader, t: dict, key: str, where: str, default=None) -> float
     return value
 
 
+def _anharmonicity(r: _Reader, t: dict, where: str, qubit_hz: float) -> float:
+    """A transmon's anharmonicity: smaller in size than its qubit frequency (a transmon's is
+    -100 to -400 MHz; f12 = f01 + alpha stays positive), else a unit slip."""
+    alpha = r.number(t, "anharmonicity", f"{where}.anharmonicity", kind="frequency")
+    if not abs(alpha) < qubit_hz:
+        r.fail(f"{where}.anharmonicity", f"{t['anharmonicity']!r} is not smaller in size than "
+                                         f"the qubit frequency {format_quantity(qubit_hz, 'Hz')}"
+                                         f"; a transmon's is a few hundred MHz (check the unit)")
+    return alpha
+
+
 def _spectrum(r: _Reader, t: dict, where: str) -> dict:
     """``spectrum`` and ``offset_charge`` as TransmonSpec keywords (README, "The charge
     model")."""
@@ -94,6 +106,9 @@ def _coherence(r: _Reader, t: dict, where: str) -> dict:
         if key in t:
             out[f"{key}_s"] = r.number(t, key, f"{where}.{key}", kind="time", positive=True,
                                        hint="us")
+            if out[f"{key}_s"] < MIN_COHERENCE_S:
+                r.fail(f"{where}.{key}", f"{t[key]!r} is shorter than a nanosecond, shorter "
+                                         f"than any sample; check the unit (e.g. \"40 us\")")
     if "t1_s" in out and "t2_s" in out and out["t2_s"] > 2 * out["t1_s"] * (1 + 1e-12):
         r.fail(f"{where}.t2", f"t2 = {t['t2']!r} is longer than 2 t1 = 2 x {t['t1']!r}, which "
                               f"no qubit reaches (T2 <= 2 T1)")
@@ -111,7 +126,7 @@ def _transmon(r: _Reader, t: dict) -> System:
                                 f"{MAX_TRANSMON_LEVELS} (a transmon keeps a few bound levels), "
                                 f"got {levels}")
     fq = _frequency(r, t, "qubit_frequency", "system")
-    alpha = r.number(t, "anharmonicity", "system.anharmonicity", kind="frequency")
+    alpha = _anharmonicity(r, t, "system", fq)
     fd = _frequency(r, t, "drive_frequency", "system", fq)
     name = t.get("qubit", "q0")
     if not isinstance(name, str) or not NAME.fullmatch(name):
@@ -155,9 +170,8 @@ def _transmons(r: _Reader, t: dict) -> System:
             r.fail(f"{where}.levels", f"must be from 2 to {MAX_TRANSMON_LEVELS}, got {levels}")
         specs.append(TransmonSpec(
             name=name, levels=levels,
-            qubit_frequency_hz=_frequency(r, item, "qubit_frequency", where),
-            anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
-                                      kind="frequency"),
+            qubit_frequency_hz=(fq := _frequency(r, item, "qubit_frequency", where)),
+            anharmonicity_hz=_anharmonicity(r, item, where, fq),
             flux=r.flag(item, "flux", f"{where}.flux", False),
             driven=r.flag(item, "driven", f"{where}.driven", True), **_coherence(r, item, where),
             **_spectrum(r, item, where)))

@@ -177,6 +177,8 @@ def _check_cutoffs(r: _Reader, line, duration_s: float) -> None:
 
 
 MAX_RABI_HZ = 10e9  # a Rabi frequency above this is a unit slip, not a drive
+MAX_ENSEMBLE = 100  # values per ensemble list (their product is every member)
+MAX_DETUNING_HZ = 1e9  # an ensemble's detuning above this is a unit slip
 MAX_FLUX_HZ = 50e9  # a frequency excursion above this is too
 
 
@@ -232,7 +234,7 @@ def _pulse(r: _Reader, t: dict, system: System) -> dict:
                 limits_hz=limits, flux_ranges_hz=ranges,
                 bandwidth_hz=_bandwidths(r, t.get("bandwidth"), limits, rate),
                 max_out_of_band=r.number(t, "max_out_of_band", "pulse.max_out_of_band", 1e-3,
-                                         minimum=0.0),
+                                         positive=True, below=1),
                 zero_ends=r.flag(t, "zero_ends", "pulse.zero_ends", True), ramp_samples=ramp)
 
 
@@ -304,10 +306,14 @@ def _cost(r: _Reader, t: dict, system: System):
     det = t.get("ensemble_detunings", [])
     scales = t.get("ensemble_scales", [])
     for key, val in (("ensemble_detunings", det), ("ensemble_scales", scales)):
-        if not isinstance(val, list):
-            r.fail(f"cost.{key}", f"expected a list, got {val!r}")
+        if not isinstance(val, list) or len(val) > MAX_ENSEMBLE:
+            r.fail(f"cost.{key}", f"expected a list of at most {MAX_ENSEMBLE} values, got "
+                                  f"{str(val)[:60]!r}{'...' if len(str(val)) > 60 else ''}")
     det_hz = [parse_quantity(v, "frequency", key=f"cost.ensemble_detunings[{i}]", path=r.path)
               for i, v in enumerate(det)] or [0.0]
+    for i, d in enumerate(det_hz):  # a calibration's uncertainty: MHz, not GHz
+        if abs(d) > MAX_DETUNING_HZ:
+            r.fail(f"cost.ensemble_detunings[{i}]", f"{det[i]!r} is beyond +-1 GHz; check the unit")
     for i, s in enumerate(scales):
         if isinstance(s, bool) or not isinstance(s, int | float) or not 0 < s < 10:
             r.fail(f"cost.ensemble_scales[{i}]", f"expected a factor between 0 and 10 "
@@ -347,7 +353,7 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         initial=initial,
         drag_scale=r.number(t, "drag_scale", "optimizer.drag_scale", d.drag_scale),
         learning_rate=r.number(t, "learning_rate", "optimizer.learning_rate", d.learning_rate,
-                               positive=True),
+                               positive=True, maximum=10),  # the parameters are of order 1
         propagator=r.choice(t, "propagator", "optimizer.propagator", ("eigh", "pade"),
                             d.propagator),
         ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",

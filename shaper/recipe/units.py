@@ -173,7 +173,7 @@ def parse_durations(text, *, key: str, path: str | None = None) -> list[float]:
             fail("needs start <= stop and a positive step")
         count = math.floor((stop - start) / step + 0.5) + 1
         if count > MAX_DURATIONS:
-            fail(f"{count} points; at most {MAX_DURATIONS} (a larger step?)")
+            fail(f"{count:.3g} points; at most {MAX_DURATIONS} (a larger step?)")
         values = [start + k * step for k in range(count)]
     else:
         parts = [p for p in text.split(",") if p.strip()]
