@@ -286,4 +286,7 @@ OPTIONS = [
      "--sample-rate", "at most"),
     ("check-rate-against-sidecar", ["check", "RECIPE", "WAVE", "--sample-rate", "2GS/s"],
      "--sample-rate 2GS/s", "sidecar"),
+    # found by the second trial: the longest duration of a sweep is checked before the first
+    ("sweep-durations-too-long", ["sweep", "RECIPE", "--durations", "100us:3ms:100us"],
+     "--durations 100us:3ms:100us", ""),
 ]

@@ -118,6 +118,11 @@ def _run(args: argparse.Namespace, stop) -> int:
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
+    from shaper.recipe.memory import SAY_VERDICT_S, judging_seconds, minutes
+    seconds = sum(judging_seconds(recipe, recipe.samples, recipe.sample_rate_hz))
+    if seconds > SAY_VERDICT_S and not args.quiet:  # said before the run starts
+        print(f"shaper optimize: judging the exported file will take at least "
+              f"{minutes(seconds)} after the optimiser", file=sys.stderr, flush=True)
     # refuses at once, before JAX is loaded; with --force an earlier waveform and report
     # are kept as *.replaced-N.*
     prepare_folder(folder, args.force, args.resume, budget=budget_of(recipe),

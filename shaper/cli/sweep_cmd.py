@@ -56,6 +56,9 @@ def _run(args: argparse.Namespace, stop) -> int:
     if recipe.gate_set:
         return _gate_set(args, recipe, stop)
     durations = parse_durations(args.durations)
+    from shaper.recipe.derive import as_options, at_samples
+    with as_options({"duration": ("--durations", args.durations)}):  # the longest, up front:
+        at_samples(recipe, max(1, round(max(durations) * recipe.sample_rate_hz)))  # it fits
 
     from shaper.jobs.painter import Painter
 
