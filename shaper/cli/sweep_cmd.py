@@ -140,7 +140,8 @@ def _gate_set(args: argparse.Namespace, recipe, stop) -> int:
                         budget={k: args.budget[k] for k in ("iterations", "starts",
                                                             "deadline")})
     except Interrupted as exc:
-        print(f"{exc}; continue with --resume (finished gates are kept in {folder})")
+        print(f"shaper sweep: {exc}; the workers are stopped and the finished gates kept in "
+              f"{folder}: run again with --resume", file=sys.stderr)
         return exc.exit_code
     finally:
         executor.close()
