@@ -362,7 +362,7 @@ def test_chip_page_renders_its_plots(chip_runs, tmp_path):
 BAD_CHIPS = [
     ('between = ["qa", "qz"]', "coupling[0].between", "no qubit named 'qz'"),
     ('name = "qc"', "qubit[2].name", "listed twice"),
-    ('max_rabi = "60 MHz"\n\n[[qubit]]\nname = "qc"', "qubit[2].max_rabi", "missing required"),
+    ('max_rabi = "60 MHz"\n\n[[qubit]]\nname = "qc"', 'qubit "qc".max_rabi', "missing required"),
 ]
 
 

@@ -20,9 +20,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.io.runfolder import check_out
     from shaper.jobs.bench import DEMO, bench
     from shaper.recipe import load_recipe
 
+    check_out(args.out)
     if args.recipe:
         load_recipe(args.recipe)  # a missing or malformed recipe: refused before minutes of work
     bench(quick=args.quick, out=Path(args.out), methods=args.method,

@@ -34,47 +34,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from shaper.errors import InputError
-    from shaper.io.waveform_import import read_any
     from shaper.recipe import load_recipe
-    from shaper.recipe.units import parse_quantity
 
-    recipe = load_recipe(args.recipe)
-    if args.gate:
-        from shaper.jobs.gateset import for_gate
-        wanted = args.gate.strip().upper()
-        if wanted not in [g.upper() for g in recipe.gate_set]:
-            raise InputError(f"--gate {args.gate!r}: the recipe's gate set is "
-                             f"{', '.join(recipe.gate_set) or 'empty (it has one target)'}")
-        recipe = for_gate(recipe, wanted)
-    recipe = recipe.one_gate("shaper check", "pass --gate")
-    if args.t1 or args.t2:
-        from shaper.recipe.derive import with_coherence
-
-        def times(text, flag):
-            if not text:
-                return None
-            return [parse_quantity(part.strip(), "time", key=flag, hint="us")
-                    for part in text.split(",")]
-        recipe = with_coherence(recipe, times(args.t1, "--t1"), times(args.t2, "--t2"))
-    rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
-        if args.sample_rate else None
-    scale = parse_quantity(args.full_scale, "frequency", key="--full-scale") \
-        if args.full_scale else None
-    span = parse_quantity(args.detuning_span, "frequency", key="--detuning-span")
-    system = recipe.system
-    for flag, value in (("--sample-rate", rate), ("--full-scale", scale)):
-        if value is not None and not value > 0:
-            raise InputError(f"{flag} must be positive, got {value:g}")
-    wave = read_any(args.waveform, system, sample_rate_hz=rate, full_scale_hz=scale)
+    if args.plots:
+        from shaper.io.runfolder import check_out
+        check_out(args.plots, "--plots")
+    recipe = _derived(args, load_recipe(args.recipe))
+    wave = _read_waveform(args, recipe)
     # Every input is read and checked: only now the helper that draws (it imports matplotlib
     # on the other core while this process loads JAX and simulates) and JAX itself.
     from shaper.jobs.painter import Painter
 
     with (Painter() if args.plots else contextlib.nullcontext()) as painter:
         from shaper.jobs.check import check_waveform, write_check_plots
-        verdict, curves = check_waveform(recipe, wave, levels=args.levels,
-                                         detuning_span_hz=span, scale_span=args.scale_span)
+        verdict, curves = check_waveform(recipe, wave, detuning_span_hz=args.span_hz,
+                                         scale_span=args.scale_span)
         verdict["waveform"] = str(args.waveform)
         if painter is not None:
             write_check_plots(Path(args.plots), verdict, curves, draw=painter.draw)
@@ -86,6 +60,122 @@ def run(args: argparse.Namespace) -> int:
     else:
         _print_summary(verdict)
     return 0 if verdict["pass"] else 1
+
+
+MAX_RATE_HZ = 1e12  # a sample rate or full scale above a terahertz is a unit slip
+MAX_DETUNING_SPAN_HZ = 1e9  # a scan of +-1 GHz is already far beyond any calibration drift
+
+
+def _derived(args: argparse.Namespace, recipe):
+    """The recipe as the options change it (``--gate``, ``--levels``, ``--t1``/``--t2``),
+    each option checked and named in its errors with the value as typed; the spans."""
+    from shaper.errors import InputError
+    from shaper.recipe.derive import as_options, with_coherence, with_levels
+    from shaper.recipe.units import parse_quantity
+
+    if args.gate:
+        from shaper.jobs.gateset import for_gate
+        wanted = args.gate.strip().upper()
+        if wanted not in [g.upper() for g in recipe.gate_set]:
+            raise InputError(f"--gate {args.gate!r}: the recipe's gate set is "
+                             f"{', '.join(recipe.gate_set) or 'empty (it has one target)'}")
+        recipe = for_gate(recipe, wanted)
+    recipe = recipe.one_gate("shaper check", "pass --gate")
+    if args.levels is not None:
+        with as_options({"levels": ("--levels", str(args.levels))}):
+            recipe = with_levels(recipe, args.levels)
+    if args.t1 or args.t2:
+        def times(text, flag):
+            if not text:
+                return None
+            parts = [part.strip() for part in text.split(",")]
+            for part in parts:  # each a time, named by its option
+                parse_quantity(part, "time", key=flag, hint="us")
+            return parts  # as typed: errors of the recipe reader quote them so
+        with as_options({"t1": ("--t1", args.t1 or ""), "t2": ("--t2", args.t2 or "")}):
+            recipe = with_coherence(recipe, times(args.t1, "--t1"), times(args.t2, "--t2"))
+    args.span_hz = parse_quantity(args.detuning_span, "frequency", key="--detuning-span")
+    if not 0 < args.span_hz <= MAX_DETUNING_SPAN_HZ:
+        raise InputError(f"--detuning-span must be a positive frequency up to 1 GHz, got "
+                         f"{args.detuning_span!r}")
+    if not 0 < args.scale_span < 1:
+        raise InputError(f"--scale-span must be a fraction between 0 and 1 (0.05: +-5 %), "
+                         f"got {args.scale_span!r}")
+    return recipe
+
+
+def _read_waveform(args: argparse.Namespace, recipe):
+    """The waveform, its rows bounded by the time its check may take (counted before they
+    are parsed); said before the check starts when it will take a while."""
+    from shaper.errors import InputError
+    from shaper.io.waveform_import import read_any
+    from shaper.recipe.memory import (
+        MAX_VERDICT_S,
+        SAY_VERDICT_S,
+        SENSITIVITY_SCANS,
+        judging_seconds,
+        minutes,
+        rows_within,
+    )
+    from shaper.recipe.units import format_quantity, parse_quantity
+
+    rate = parse_quantity(args.sample_rate, "sample rate", key="--sample-rate") \
+        if args.sample_rate else None
+    scale = parse_quantity(args.full_scale, "frequency", key="--full-scale") \
+        if args.full_scale else None
+    for flag, value, text, most in (("--sample-rate", rate, args.sample_rate, MAX_RATE_HZ),
+                                    ("--full-scale", scale, args.full_scale, MAX_RATE_HZ)):
+        if value is not None and not 0 < value <= most:
+            raise InputError(f"{flag} must be positive and at most "
+                             f"{format_quantity(most, 'Hz')}, got {text!r}")
+    own, scales = _sidecar(args.waveform)
+    for flag, value, given in (("--sample-rate", rate, {own}), ("--full-scale", scale, scales)):
+        # the sidecar's values are the file's; an option saying otherwise would be ignored
+        if value is not None and given and None not in given and any(
+                abs(value - g) > 1e-9 * g for g in given):
+            raise InputError(f"{flag} {getattr(args, flag[2:].replace('-', '_'))}: "
+                             f"{args.waveform} has a sidecar that says otherwise; the option "
+                             f"is for files without one")
+    guess = rate or own or recipe.sample_rate_hz
+    most = rows_within(recipe, guess, scans=SENSITIVITY_SCANS)
+    wave = read_any(args.waveform, recipe.system, sample_rate_hz=rate, full_scale_hz=scale,
+                    max_rows=most, why=f" (checking more at {format_quantity(guess, 'S/s')} "
+                                       f"would take longer than {minutes(MAX_VERDICT_S)})")
+    seconds = sum(judging_seconds(recipe, wave.fractions.shape[0], wave.sample_rate_hz,
+                                  scans=SENSITIVITY_SCANS))
+    if seconds > MAX_VERDICT_S:
+        raise InputError(f"{args.waveform}: checking its {wave.fractions.shape[0]} samples "
+                         f"would take at least {minutes(seconds)}; at most "
+                         f"{minutes(MAX_VERDICT_S)} (a shorter file, fewer --levels, or "
+                         f"verdict.lab_frame = \"off\")")
+    if seconds > SAY_VERDICT_S:
+        print(f"shaper check: this check will take at least {minutes(seconds)}",
+              file=sys.stderr, flush=True)
+    return wave
+
+
+def _sidecar(waveform: str) -> tuple[float | None, set]:
+    """The sample rate and full scales our sidecar gives, if the file has one and they are
+    valid numbers (None and an empty set otherwise: the reader says what is wrong)."""
+    from shaper.errors import ShaperError
+    from shaper.io import atomic
+
+    sidecar = Path(waveform).with_suffix(".json")
+    if Path(waveform).suffix != ".csv" or not sidecar.is_file():
+        return None, set()
+    try:
+        meta = atomic.read_json(sidecar, ShaperError, "")
+    except ShaperError:
+        return None, set()
+
+    def positive(value):
+        ok = isinstance(value, int | float) and not isinstance(value, bool) and value > 0
+        return float(value) if ok else None
+    meta = meta if isinstance(meta, dict) else {}
+    channels = meta.get("channels") if isinstance(meta.get("channels"), dict) else {}
+    return positive(meta.get("sample_rate_hz")), {
+        positive(c.get("full_scale_rabi_hz") if isinstance(c, dict) else None)
+        for c in channels.values()}
 
 
 def _print_summary(v: dict) -> None:

@@ -16,9 +16,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run the tasks on a Dask distributed scheduler, e.g. "
                              "tcp://10.0.0.5:8786 (pip install \".[cluster]\")")
-    parser.add_argument("--wait-workers", default="3 min", metavar="TIME",
-                        help="with --scheduler: how long to wait for a first worker before "
-                             "giving up with exit 3 (default '3 min')")
+    parser.add_argument("--wait-workers", metavar="TIME",
+                        help="with --scheduler: how long to wait for a worker (at the start, "
+                             "or after the cluster lost its last one) before giving up with "
+                             "exit 3 (default '3 min')")
     parser.add_argument("--resume", action="store_true",
                         help="continue a run in --out: finished gates are kept")
     parser.add_argument("--force", action="store_true", help="start over in --out")
@@ -29,42 +30,73 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
+GRACE_S = 5.0  # a stop signal ends the chip within this even while it computes (summary)
+
+
 def run(args: argparse.Namespace) -> int:
     import time
 
+    from shaper.optimizer.interrupt import Interrupted, stop_on_signals
+
     started = time.monotonic()
-    code = _run(args)  # an error is one line (exit 2/3): no time after it
+    with stop_on_signals(grace_s=GRACE_S) as stop:  # first: no signal is lost
+        stop.log = lambda text: print(f"shaper chip: interrupted ({text}); the finished "
+                                      f"gates are kept in chip.json: run again with --resume",
+                                      file=sys.stderr, flush=True)
+        try:
+            code = _run(args, stop)  # an error is one line (exit 2/3): no time after it
+        except Interrupted as exc:
+            print(f"shaper chip: {exc}; the workers are stopped and the finished gates kept "
+                  f"in {args.folder / 'chip.json'}: run again with --resume", file=sys.stderr)
+            return exc.exit_code
     print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
-    return code
+    return stop.exit_code if stop else code
 
 
-def _run(args: argparse.Namespace) -> int:
+def _options(args: argparse.Namespace) -> tuple[dict, float | None]:
+    """The options, each checked and named: the budget, --workers, --scheduler and
+    --wait-workers (only with --scheduler), --out."""
+    from shaper.cli import budget
     from shaper.errors import InputError
+
+    limits = budget.read(args)  # and --workers
+    if args.scheduler is not None and args.workers:
+        raise InputError("--workers is for local runs; a Dask cluster has its own workers")
+    if args.wait_workers is not None and args.scheduler is None:
+        raise InputError("--wait-workers applies to a Dask cluster (--scheduler); local "
+                         "workers start with the chip")
+    wait = None
+    if args.scheduler is not None:  # "" too: an address, refused as one
+        from shaper.jobs.executors import WAIT_WORKERS_S, check_address
+        from shaper.recipe.units import parse_quantity
+
+        args.scheduler = check_address(args.scheduler)
+        wait = WAIT_WORKERS_S if args.wait_workers is None else parse_quantity(
+            args.wait_workers, "time", key="--wait-workers", bare_check=False)
+        if not 0 < wait <= 7 * 86400:
+            raise InputError(f"--wait-workers must be a positive time up to a week, got "
+                             f"{args.wait_workers!r}")
+    if args.out:
+        from shaper.io.runfolder import check_out
+        check_out(args.out)
+    return limits, wait
+
+
+def _run(args: argparse.Namespace, stop) -> int:
     from shaper.recipe.chip import load_chip
 
-    if args.workers is not None and args.workers < 1:
-        raise InputError(f"--workers must be at least 1, got {args.workers}")
-    if args.scheduler and args.workers:
-        raise InputError("--workers is for local runs; a Dask cluster has its own workers")
-    from shaper.recipe.units import parse_quantity
-
-    wait = parse_quantity(args.wait_workers, "time", key="--wait-workers", bare_check=False)
-    if not 0 < wait <= 7 * 86400:
-        raise InputError(f"--wait-workers must be a positive time up to a week, got "
-                         f"{args.wait_workers!r}")
-    from shaper.cli import budget
-
-    limits = budget.read(args)
+    limits, wait = _options(args)
     chip = load_chip(args.chip)
-    folder = Path(args.out) if args.out else Path("results") / chip.name
+    folder = args.folder = Path(args.out) if args.out else Path("results") / chip.name
     from shaper.io import atomic
-    from shaper.jobs.chip import DaskExecutor, LocalExecutor, run_chip
+    from shaper.jobs.chip import run_chip
+    from shaper.jobs.executors import DaskExecutor, LocalExecutor
 
     atomic.lock_folder(folder)
     echo = lambda text: print(text, file=sys.stderr, flush=True)  # noqa: E731
-    executor = DaskExecutor(args.scheduler, wait_workers_s=wait, echo=echo,
-                            debug=getattr(args, "debug", False)) if args.scheduler else \
-        LocalExecutor(args.workers or os.cpu_count() or 1)
+    executor = DaskExecutor(args.scheduler, wait_workers_s=wait, echo=echo, stop=stop,
+                            debug=getattr(args, "debug", False)) if args.scheduler is not None \
+        else LocalExecutor(args.workers or os.cpu_count() or 1, stop=stop)
     try:
         rows = run_chip(chip, folder, executor=executor, resume=args.resume, force=args.force,
                         echo=echo, progress=not args.quiet,

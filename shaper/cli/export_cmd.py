@@ -38,6 +38,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.io.runfolder import check_out
+
+    check_out(args.out)
     from shaper.jobs.reexport import reexport
     from shaper.recipe.units import parse_quantity
 

@@ -15,6 +15,7 @@ for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_name, "1")
 
 import argparse  # noqa: E402
+import errno  # noqa: E402
 import sys  # noqa: E402
 from importlib import import_module, metadata  # noqa: E402
 
@@ -37,8 +38,16 @@ def _version() -> str:
         return "unknown"
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors (exit 2): the option and what is wrong, no usage
+    block (``--help`` has it)."""
+
+    def error(self, message: str):
+        self.exit(2, f"{self.prog}: error: {one_line(message)} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="shaper",
         description="Optimal-control pulse shaping for qubit gates: a recipe in, AWG "
                     "waveforms and a report out.")
@@ -91,7 +100,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.debug:
             raise
         code, text = explain(exc)
-        print(f"shaper {args.command}: {text}", file=sys.stderr)
+        print(f"shaper {args.command}: {one_line(text)}", file=sys.stderr)
         return code
 
 
@@ -108,9 +117,23 @@ def explain(exc: Exception) -> tuple[int, str]:
                    + (f" ({first})" if first else ""))
     if isinstance(exc, OSError):  # a full disk, no permission: the machine's part
         where = f" ({exc.filename})" if getattr(exc, "filename", None) else ""
+        if exc.errno == errno.ENAMETOOLONG:  # a name the user gave, too long to exist
+            return 2, f"error: {exc.strerror}{where}"
         return 3, f"error: {exc.strerror or exc}{where}"
     return 4, (f"internal error: {type(exc).__name__}: {first}. This is a bug in shaper; run "
                f"again as 'shaper --debug ...' and report the traceback")
+
+
+MAX_LINE = 2000  # characters of an error line: a path and a sentence fit with room
+
+
+def one_line(text: str) -> str:
+    """An error as one line of printable text: line breaks become spaces, other control
+    characters are escaped (a message may quote a name or value from a file), cut at
+    :data:`MAX_LINE` characters."""
+    text = " ".join(text.split("\n"))
+    text = "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
+    return text if len(text) <= MAX_LINE else text[:MAX_LINE] + "..."
 
 
 if __name__ == "__main__":

@@ -22,7 +22,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="overwrite an earlier run in the output folder")
     parser.add_argument("--resume", action="store_true",
                         help="continue from the checkpoints in the output folder")
-    parser.add_argument("--workers", type=int, default=0,
+    parser.add_argument("--workers", type=int,
                         help="worker processes for the starts (default: one per core, at most "
                              "one per start; 1: one after another in this process)")
     from shaper.cli import budget
@@ -38,6 +38,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "time if that is longer (default '10 min')")
     parser.add_argument("--quiet", action="store_true", help="print only the final summary")
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
+
+
+MAX_CHECKPOINT_S = 86400.0  # a checkpoint at least once a day; more is a slip
 
 
 class Progress:
@@ -80,23 +83,33 @@ def run(args: argparse.Namespace) -> int:
         return _run(args, stop)
 
 
-def _run(args: argparse.Namespace, stop) -> int:
+def _options(args: argparse.Namespace) -> tuple[float, Path | None]:
+    """Every option checked and named before the recipe is read: the stall limit (s) and
+    the --out folder (None: the default)."""
     from shaper.cli import budget
     from shaper.errors import InputError
-    from shaper.recipe import load_recipe
 
-    budget.read(args)  # checks --hours, --iterations, --starts
-    for name in ("checkpoint_every",):
-        value = getattr(args, name)
-        if value is not None and value < 1:
-            raise InputError(f"--{name.replace('_', '-')} must be at least 1, got {value}")
+    budget.read(args)  # checks --hours, --iterations, --starts, --seed, --workers
+    if args.checkpoint_every < 1:
+        raise InputError(f"--checkpoint-every must be at least 1, got {args.checkpoint_every}")
+    if not 0 < args.checkpoint_seconds <= MAX_CHECKPOINT_S:  # NaN is neither
+        raise InputError(f"--checkpoint-seconds must be positive and at most a day "
+                         f"({MAX_CHECKPOINT_S:g}), got {args.checkpoint_seconds}")
     from shaper.recipe.units import parse_quantity
     stall_limit = parse_quantity(args.stall_limit, "time", key="--stall-limit",
                                  bare_check=False)
-    if not stall_limit > 0:
-        raise InputError(f"--stall-limit must be positive, got {args.stall_limit!r}")
+    if not 1 <= stall_limit <= MAX_CHECKPOINT_S * 7:  # shorter: a slow step is a "stall"
+        raise InputError(f"--stall-limit must be from 1 s to a week, got {args.stall_limit!r}")
+    from shaper.io.runfolder import check_out
+    return stall_limit, check_out(args.out) if args.out else None
+
+
+def _run(args: argparse.Namespace, stop) -> int:
+    from shaper.recipe import load_recipe
+
+    stall_limit, folder = _options(args)
     recipe = load_recipe(args.recipe)
-    folder = Path(args.out) if args.out else Path("results") / recipe.name
+    folder = folder or Path("results") / recipe.name
     if stop:  # stopped while starting: nothing to save yet
         print("shaper optimize: interrupted before the run began", file=sys.stderr)
         return stop.exit_code
@@ -105,6 +118,11 @@ def _run(args: argparse.Namespace, stop) -> int:
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
+    from shaper.recipe.memory import SAY_VERDICT_S, judging_seconds, minutes
+    seconds = sum(judging_seconds(recipe, recipe.samples, recipe.sample_rate_hz))
+    if seconds > SAY_VERDICT_S and not args.quiet:  # said before the run starts
+        print(f"shaper optimize: judging the exported file will take at least "
+              f"{minutes(seconds)} after the optimiser", file=sys.stderr, flush=True)
     # refuses at once, before JAX is loaded; with --force an earlier waveform and report
     # are kept as *.replaced-N.*
     prepare_folder(folder, args.force, args.resume, budget=budget_of(recipe),

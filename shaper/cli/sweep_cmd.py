@@ -22,7 +22,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
     budget.add_arguments(parser, what="the whole sweep (durations not reached are left for "
                                       "--resume)")
-    parser.add_argument("--workers", type=int, default=0,
+    parser.add_argument("--workers", type=int,
                         help="worker processes for the starts of each duration (default: one "
                              "per core, at most one per start)")
     parser.add_argument("--seed", type=int, help="seed of the first start")
@@ -45,17 +45,20 @@ def run(args: argparse.Namespace) -> int:
 
 def _run(args: argparse.Namespace, stop) -> int:
     from shaper.cli import budget
-    from shaper.errors import InputError
     from shaper.jobs.sweep import parse_durations
     from shaper.recipe import load_recipe
 
-    if args.workers is not None and args.workers < 0:
-        raise InputError(f"--workers must be at least 1, got {args.workers}")
-    args.budget = budget.read(args)
+    args.budget = budget.read(args)  # and --seed, --workers
+    from shaper.io.runfolder import check_out
+    if args.out:
+        check_out(args.out)
     recipe = load_recipe(args.recipe)
     if recipe.gate_set:
-        return _gate_set(args, recipe)
+        return _gate_set(args, recipe, stop)
     durations = parse_durations(args.durations)
+    from shaper.recipe.derive import as_options, at_samples
+    with as_options({"duration": ("--durations", args.durations)}):  # the longest, up front:
+        at_samples(recipe, max(1, round(max(durations) * recipe.sample_rate_hz)))  # it fits
 
     from shaper.jobs.painter import Painter
 
@@ -115,24 +118,31 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
     return 0
 
 
-def _gate_set(args: argparse.Namespace, recipe) -> int:
+def _gate_set(args: argparse.Namespace, recipe, stop) -> int:
     """``[gate] targets``: the shortest duration of every gate that must be played (each
     its own sweep, on local workers), the others derived; a one-subject chip run
     (README, "Gate sets")."""
     from shaper.io import atomic
     from shaper.io.waveio import CAUTION
-    from shaper.jobs.chip import LocalExecutor, gate_set_chip, run_chip
+    from shaper.jobs.chip import gate_set_chip, run_chip
+    from shaper.jobs.executors import LocalExecutor
+    from shaper.optimizer.interrupt import Interrupted
 
     chip = gate_set_chip(recipe, args.durations)
     folder = Path(args.out) if args.out else Path("results") / f"{recipe.name}-sweep"
     atomic.lock_folder(folder)
-    executor = LocalExecutor(max(1, min(args.workers or os.cpu_count() or 1, len(chip.tasks))))
+    executor = LocalExecutor(max(1, min(args.workers or os.cpu_count() or 1, len(chip.tasks))),
+                             stop=stop)
     try:
         rows = run_chip(chip, folder, executor=executor, resume=args.resume,
                         echo=lambda text: print(text, file=sys.stderr, flush=True),
                         progress=not args.quiet,
                         budget={k: args.budget[k] for k in ("iterations", "starts",
                                                             "deadline")})
+    except Interrupted as exc:
+        print(f"shaper sweep: {exc}; the workers are stopped and the finished gates kept in "
+              f"{folder}: run again with --resume", file=sys.stderr)
+        return exc.exit_code
     finally:
         executor.close()
     print((folder / "chip.md").read_text(), end="")

@@ -40,6 +40,22 @@ def inside(folder: str | Path, path: str | Path) -> Path:
     return Path(path)
 
 
+def inside_for_reading(folder: str | Path, name, error, what: str) -> Path:
+    """``folder / name`` for a name a run's own file gives (a report's waveform): a relative
+    path that resolves inside ``folder``; a tampered one is refused with ``error`` (bad
+    input, exit 2) rather than followed out of the run folder."""
+    root = Path(folder).resolve()
+    try:
+        target = (root / name).resolve() if isinstance(name, str) and name else None
+    except (OSError, RuntimeError):  # a loop of symbolic links
+        target = None
+    if target is None or Path(name).is_absolute() or (target != root
+                                                      and root not in target.parents):
+        raise error(f"{what} names {str(name)[:80]!r}, which is not a file inside the run "
+                    f"folder {folder}; it is read only from there")
+    return target
+
+
 def write_bytes(path: str | Path, data: bytes) -> None:
     """Write ``data`` to ``path`` atomically."""
     path = Path(path)
@@ -81,19 +97,27 @@ def write_json(path: str | Path, obj) -> None:
     write_text(path, json.dumps(plain(obj), indent=2, sort_keys=False, allow_nan=False) + "\n")
 
 
+MAX_JSON_BYTES = 64 * 2 ** 20  # a report, sidecar or chip state; far above what we write
+
+
 def read_json(path: str | Path, error, missing: str):
-    """Parse a JSON file; raise ``error(message)`` naming the file if absent or malformed."""
+    """Parse a JSON file; raise ``error(message)`` naming the file if absent, not a regular
+    file, larger than :data:`MAX_JSON_BYTES` or malformed."""
+    from shaper.recipe.files import read_text
+
     path = Path(path)
+
+    def fail(message: str):
+        raise error(f"{path}: {message}")
+    if not os.path.lexists(path):
+        fail(missing)
+    text = read_text(path, MAX_JSON_BYTES, fail, what="JSON")
     try:
-        return json.loads(path.read_text())
-    except OSError:
-        raise error(f"{path}: {missing}") from None
+        return json.loads(text)
     except json.JSONDecodeError as exc:
-        raise error(f"{path}: not valid JSON: {exc}") from None
-    except UnicodeDecodeError as exc:
-        raise error(f"{path}: not a text file (byte {exc.start} is not UTF-8)") from None
+        fail(f"not valid JSON: {exc}")
     except RecursionError:
-        raise error(f"{path}: nested too deeply") from None
+        fail("nested too deeply")
 
 
 _HELD: dict[Path, int] = {}  # folders this process has locked: fd of each lock file

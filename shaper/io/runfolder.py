@@ -118,3 +118,36 @@ def _follow(report: Path, renamed: dict[str, str]) -> None:
     if isinstance(data.get("files"), list):
         data["files"] = [renamed.get(f, f) if isinstance(f, str) else f for f in data["files"]]
     atomic.write_json(report, data)
+
+
+NAME_MAX = 255  # bytes of one name in a path on the file systems shaper writes to
+PATH_MAX = 4096  # bytes of a whole path (Linux)
+
+
+def check_out(folder: str | Path, flag: str = "--out") -> Path:
+    """An output folder the user named, checked before anything runs: every name in it
+    short enough for the file system, the whole path too, and no part of it a file.
+
+    Raises:
+        InputError: naming ``flag`` (exit 2: a name too long is the user's, not the
+            machine's).
+    """
+    from shaper.errors import InputError
+    from shaper.recipe.files import excerpt
+
+    folder = Path(folder)
+    limit = NAME_MAX
+    for part in folder.parts:
+        size = len(os.fsencode(part))
+        if size > limit:
+            raise InputError(f"{flag}: the name {excerpt(part)} is {size} bytes long; a file "
+                             f"system allows at most {limit}")
+    if len(os.fsencode(os.path.abspath(folder))) > PATH_MAX - 256:  # room for our files
+        raise InputError(f"{flag}: the path is longer than {PATH_MAX - 256} bytes")
+    for above in [folder, *folder.parents]:
+        if above.exists() or above.is_symlink():
+            if not above.is_dir():
+                raise InputError(f"cannot make the folder {folder}: part of its path is a "
+                                 f"file ({above}); choose another {flag}")
+            break
+    return folder

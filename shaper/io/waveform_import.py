@@ -8,14 +8,16 @@ fractions of full scale in [-1, 1]; columns follow the recipe's control order
 
 from __future__ import annotations
 
+import os
 from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
 from shaper.errors import WaveformError
-from shaper.io.waveio import Waveform, read_lines, read_waveform
+from shaper.io.waveio import MAX_ROWS, Waveform, read_lines, read_waveform
 from shaper.physics.systems import System
+from shaper.recipe.files import excerpt, kind_of, why_unreadable
 
 
 def _check_values(path: Path, data: np.ndarray) -> None:
@@ -47,29 +49,37 @@ def _order(path: Path, names: list[str], data: np.ndarray, system: System) -> np
 
 
 def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None = None,
-             full_scale_hz: float | dict[str, float] | None = None) -> Waveform:
+             full_scale_hz: float | dict[str, float] | None = None,
+             max_rows: int = MAX_ROWS, why: str = "") -> Waveform:
     """Read a waveform file for ``system``; columns come back in its control order.
 
     Args:
         path: ``.csv`` (with a ``.json`` sidecar, or plain), ``.npy`` or ``.npz``.
         system: the system the waveform will drive (its control names order the columns).
         sample_rate_hz, full_scale_hz: required where the file does not carry them.
+        max_rows: the most samples the caller takes (``why``: what sets it, for the
+            message); counted before the samples are parsed.
 
     Raises:
-        WaveformError: unreadable, empty, NaN, beyond full scale, missing columns,
-            uneven time steps, a missing sample rate or full scale.
+        WaveformError: not a regular file (a folder, FIFO or device is named as such),
+            unreadable, empty, NaN, beyond full scale, missing columns, uneven time steps,
+            a missing sample rate or full scale, more than ``max_rows`` samples.
     """
     path = Path(path)
-    if not path.is_file():
-        raise WaveformError(f"{path}: no such file")
+    try:
+        other = kind_of(os.stat(path).st_mode)
+    except OSError as exc:
+        raise WaveformError(f"{path}: {why_unreadable(exc)}") from None
+    if other:
+        raise WaveformError(f"{path}: {other}, not a waveform file")
     if path.suffix == ".csv" and path.with_suffix(".json").is_file():
-        wave = read_waveform(path)
+        wave = read_waveform(path, max_rows=max_rows, why=why)
         if set(wave.full_scale_hz) != {c.name for c in system.channels}:
             raise WaveformError(f"{path}: channels {sorted(wave.full_scale_hz)} do not match "
                                 f"the recipe's {sorted(c.name for c in system.channels)}")
         fractions = _order(path, list(wave.column_names), wave.fractions, system)
         return replace(wave, fractions=fractions, column_names=system.control_names)
-    names, data, times, meta_rate, meta_scale = _read_plain(path, system)
+    names, data, times, meta_rate, meta_scale = _read_plain(path, system, max_rows, why)
     if data.ndim == 1 and len(system.control_names) == 1:
         data = data[:, None]
     if data.ndim != 2 or data.shape[1] != len(names):
@@ -93,19 +103,20 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
                     full_scale_hz=full, column_names=system.control_names)
 
 
-def _read_plain(path: Path, system: System):
+def _read_plain(path: Path, system: System, max_rows: int, why: str):
     """A file without our sidecar: its column names, samples, times (CSV only) and the
     sample rate and full scale it carries (npz only)."""
     meta_rate, meta_scale, times = None, None, None
     if path.suffix == ".csv":
-        names, data, times = _read_plain_csv(path, system)
+        names, data, times = _read_plain_csv(path, system, max_rows, why)
     elif path.suffix == ".npy":
-        data = _load_numpy(path)
+        data = _load_numpy(path, max_rows, why)
         names = list(system.control_names)
     elif path.suffix == ".npz":
         with _open_npz(path) as archive:
             if "samples" not in archive:
                 raise WaveformError(f"{path}: expected an array named 'samples' (n, controls)")
+            _bounded(path, archive.zip.open("samples.npy"), max_rows, why)
             data = _real(path, archive["samples"])
             names = [str(c) for c in archive["columns"]] if "columns" in archive \
                 else list(system.control_names)
@@ -127,11 +138,33 @@ def _real(path: Path, data) -> np.ndarray:
     return data.astype(float)
 
 
-def _load_numpy(path: Path) -> np.ndarray:
+def _load_numpy(path: Path, max_rows: int, why: str) -> np.ndarray:
     try:
+        with open(path, "rb") as handle:
+            _bounded(path, handle, max_rows, why)
         return _real(path, np.load(path, allow_pickle=False))
     except (ValueError, OSError, EOFError) as exc:
-        raise WaveformError(f"{path}: not a numpy array file: {exc}") from None
+        raise WaveformError(f"{path}: not a numpy array file: {excerpt(exc, 80)}") from None
+
+
+MAX_NUMPY_COLUMNS = 64  # control columns of a waveform: a few per qubit
+
+
+def _bounded(path: Path, handle, max_rows: int, why: str) -> None:
+    """Read a ``.npy`` header (shape and type) before the array: at most ``max_rows`` rows
+    of at most :data:`MAX_NUMPY_COLUMNS` columns (an archive's compressed array could
+    otherwise unpack to any size)."""
+    try:
+        version = np.lib.format.read_magic(handle)
+        header = np.lib.format.read_array_header_1_0 if version == (1, 0) else \
+            np.lib.format.read_array_header_2_0
+        shape, _, _ = header(handle)
+    except (ValueError, OSError, EOFError, KeyError) as exc:
+        raise WaveformError(f"{path}: not a numpy array file: {excerpt(exc, 80)}") from None
+    rows = shape[0] if shape else 1
+    if rows > max_rows or int(np.prod(shape[1:], dtype=float)) > MAX_NUMPY_COLUMNS:
+        raise WaveformError(f"{path}: an array of shape {tuple(shape)}; at most {max_rows} "
+                            f"rows{why} of at most {MAX_NUMPY_COLUMNS} columns")
 
 
 def _scalar(path: Path, archive, key: str) -> float | None:
@@ -148,11 +181,11 @@ def _open_npz(path: Path):
     try:
         return np.load(path, allow_pickle=False)
     except (ValueError, OSError) as exc:
-        raise WaveformError(f"{path}: not a numpy .npz archive: {exc}") from None
+        raise WaveformError(f"{path}: not a numpy .npz archive: {excerpt(exc, 80)}") from None
 
 
-def _read_plain_csv(path: Path, system: System):
-    lines = [ln for ln in read_lines(path) if ln.strip()]
+def _read_plain_csv(path: Path, system: System, max_rows: int, why: str):
+    lines = [ln for ln in read_lines(path, max_rows=max_rows, why=why) if ln.strip()]
     if not lines:
         raise WaveformError(f"{path}: empty: expected rows of comma-separated numbers")
     first = [c.strip() for c in lines[0].split(",")]

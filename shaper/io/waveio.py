@@ -19,8 +19,11 @@ from shaper.errors import WaveformError
 from shaper.io import atomic
 from shaper.physics.grid import padding
 from shaper.physics.systems import System
+from shaper.recipe.files import excerpt
 
 FORMAT = "shaper-waveform/1"
+MAX_ROWS = 10_000_000  # samples of a waveform file: more than any AWG memory holds
+MAX_ROW_BYTES = 256  # a row of a waveform CSV as text (a number takes 12-20 characters)
 CAUTION = ("This waveform drives real instruments. Before loading it, check it against the "
            "instrument's output limits and your lab's rules for its lines.")
 
@@ -124,19 +127,21 @@ def to_fractions(samples_hz: np.ndarray, system: System, full_scale_hz: dict[str
     return np.clip(fractions, -1.0, 1.0), int(np.count_nonzero(over))
 
 
-def read_waveform(csv_path: str | Path) -> Waveform:
+def read_waveform(csv_path: str | Path, *, max_rows: int = MAX_ROWS,
+                  why: str = "") -> Waveform:
     """Read a waveform written by :func:`shaper.io.writers.write_waveform` (CSV + JSON
-    sidecar).
+    sidecar) of at most ``max_rows`` samples (``why``: what sets that bound, for the
+    message).
 
     Raises:
         WaveformError: missing or malformed file or sidecar, NaN, values beyond full scale,
-            uneven time steps, or a sidecar that contradicts the CSV.
+            uneven time steps, a sidecar that contradicts the CSV, too many rows.
     """
     csv_path = Path(csv_path)
     json_path = csv_path.with_suffix(".json")
     meta = atomic.read_json(json_path, WaveformError, "the waveform's sidecar is missing; it "
                             "holds the sample rate and full scale")
-    header, data = _read_table(csv_path)
+    header, data = _read_table(csv_path, max_rows, why)
     side = Sidecar(json_path, meta)
     rate = side.number(meta, "sample_rate_hz", positive=True)
     samples = side.whole(meta, "samples", minimum=1)
@@ -175,14 +180,15 @@ def read_waveform(csv_path: str | Path) -> Waveform:
                     codes=values == "dac_codes")
 
 
-def _read_table(csv_path: Path) -> tuple[list[str], np.ndarray]:
+def _read_table(csv_path: Path, max_rows: int, why: str) -> tuple[list[str], np.ndarray]:
     """The CSV's header and its numbers (time first), all finite."""
-    lines = read_lines(csv_path)
+    lines = read_lines(csv_path, max_rows=max_rows, why=why)
     if len(lines) < 2:
         raise WaveformError(f"{csv_path}: empty: expected a header row and at least one sample")
     header = [h.strip() for h in lines[0].split(",")]
     if header[0] != "time_s":
-        raise WaveformError(f"{csv_path}: the first column must be time_s, got {header[0]!r}")
+        raise WaveformError(f"{csv_path}: the first column must be time_s, got "
+                            f"{excerpt(header[0])}")
     try:
         data = np.array([[float(v) for v in line.split(",")] for line in lines[1:] if line],
                         float)
@@ -220,14 +226,21 @@ def _read_channels(side: Sidecar, meta: dict):
     return full, bits, ifs, sidebands, columns
 
 
-def read_lines(path: Path) -> list[str]:
-    """The lines of a text file, with the file named in every error."""
-    try:
-        return path.read_bytes().decode("utf-8").splitlines()
-    except OSError as exc:
-        raise WaveformError(f"{path}: cannot read: {exc.strerror}") from None
-    except UnicodeDecodeError as exc:
-        raise WaveformError(f"{path}: not a text file (byte {exc.start} is not UTF-8)") from None
+def read_lines(path: Path, *, max_rows: int = MAX_ROWS, why: str = "") -> list[str]:
+    """The lines of a waveform CSV of at most ``max_rows`` rows after its header: a
+    regular text file (no NUL byte; a UTF-8 byte-order mark is dropped), its size bounded
+    before it is read and its rows counted before any is parsed; the file named in every
+    error. ``why``: what sets ``max_rows``, for the message."""
+    from shaper.recipe.files import read_text
+
+    def fail(message: str):
+        raise WaveformError(f"{path}: {message}")
+    limit = 4096 + (max_rows + 1) * MAX_ROW_BYTES
+    text = read_text(path, limit, fail, what="CSV")
+    rows = text.count("\n") - 1
+    if rows > max_rows:
+        fail(f"{rows} rows; at most {max_rows}{why or ' (more than any AWG memory holds)'}")
+    return text.splitlines()
 
 
 class Sidecar:

@@ -24,6 +24,7 @@ from shaper.signal.pulses import Layout, gaussian_shape, rotation_area
 
 MAX_LEVELS = 12
 MAX_EVALUATIONS = 300
+MAX_SECONDS = 60.0  # the comparison is skipped (and says why) where it would take longer
 
 
 def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
@@ -44,8 +45,9 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     freqs = recipe.system.transition_frequencies
     if not freqs or len(recipe.system.channels) != 1:
         return {}
-    if recipe.system.dimension > MAX_LEVELS:
-        return {"skipped": f"more than {MAX_LEVELS} levels: not worth the time"}
+    too_big = _too_big(recipe)
+    if too_big:
+        return {"skipped": too_big}
     from shaper.costs.problem import chain_problem
     from shaper.signal.chain import for_recipe
 
@@ -86,6 +88,24 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
                      "detuning_hz": float(theta[2]) * 1e6, "peak_rabi_hz": peak,
                      "within_limit": bool(peak <= recipe.limits_hz[channel.name])}
     return out
+
+
+def _too_big(recipe) -> str | None:
+    """Why the comparison is not worth its time here (None: it is): too many levels, or
+    so many propagator slices that its evaluations would take longer than
+    :data:`MAX_SECONDS` (a floor, :func:`shaper.recipe.memory.slice_seconds`)."""
+    if recipe.system.dimension > MAX_LEVELS:
+        return f"more than {MAX_LEVELS} levels: not worth the time"
+    from shaper.recipe.memory import minutes, need_bytes, slice_seconds
+    line = recipe.line
+    slices = need_bytes(recipe.system, recipe.samples, recipe.sample_rate_hz, 0, recipe.export,
+                        line.oversample if line.active and not recipe.export.predistort
+                        else 1)[1]
+    seconds = (2 * MAX_EVALUATIONS) * slices * slice_seconds(recipe.system.dimension)
+    if seconds > MAX_SECONDS:  # a comparison must not cost more than the report around it
+        return (f"{slices} propagator slices: calibrating them would take at least "
+                f"{minutes(seconds)}")
+    return None
 
 
 def _samples(theta, main, quad, t, form, xp=jnp):

@@ -13,7 +13,6 @@ run give the same table.
 
 from __future__ import annotations
 
-import logging
 import os
 import shutil
 import sys
@@ -23,8 +22,9 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper.errors import EnvironmentFailure, ResultError
+from shaper.errors import ResultError
 from shaper.io import atomic
+from shaper.jobs.executors import DaskExecutor, LocalExecutor  # noqa: F401 (their old home)
 from shaper.jobs.gateset import GateRow, describe, write_table
 from shaper.recipe.chip import Chip, Task
 
@@ -84,120 +84,6 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
         row.subject = task.subject
     return {"rows": [asdict(r) for r in rows], "compiles": sweep.compiles,
             "wall_time_s": time.monotonic() - started}
-
-
-class LocalExecutor:
-    """Worker processes on this machine (spawned, one thread each)."""
-
-    def __init__(self, workers: int):
-        from concurrent.futures import ProcessPoolExecutor
-        from multiprocessing import get_context
-
-        from shaper.optimizer.parallel import pin_threads
-        self.pool = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
-                                        initializer=pin_threads, initargs=(os.getpid(),))
-        self.description = f"{workers} local worker process(es)"
-
-    def submit(self, fn, *args):
-        return self.pool.submit(fn, *args)
-
-    def completed(self, futures):
-        from concurrent.futures import as_completed
-        return as_completed(futures)
-
-    def result(self, future):
-        from concurrent.futures.process import BrokenProcessPool
-        try:
-            return future.result()
-        except BrokenProcessPool as exc:
-            raise EnvironmentFailure(f"a worker process died ({exc}); the finished gates are "
-                                     f"saved: run again with --resume") from None
-
-    def close(self):
-        self.pool.shutdown(cancel_futures=True)
-
-
-DASK_LOGGERS = ("distributed", "tornado", "asyncio", "bokeh")
-WAIT_WORKERS_S = 180.0
-
-
-class DaskExecutor:
-    """The same tasks on a Dask distributed cluster (``pip install ".[cluster]"``). The
-    workers must see ``root`` (a shared filesystem, as on a batch system).
-
-    A scheduler without workers is waited for at most ``wait_workers_s`` (saying so at
-    once); a lost scheduler or cancelled tasks end the run as a machine failure (exit 3,
-    ``--resume`` continues). Dask's own log stays off stderr unless ``debug``.
-    """
-
-    def __init__(self, address: str, timeout_s: float = 10.0, *,
-                 wait_workers_s: float = WAIT_WORKERS_S, echo=print, debug: bool = False):
-        try:
-            from distributed import Client
-        except ImportError:
-            raise EnvironmentFailure("--scheduler needs Dask: pip install \".[cluster]\" "
-                                     "(dask.distributed)") from None
-        self.debug = debug
-        self._silence()
-        try:
-            self.client = Client(address, timeout=timeout_s)
-        except (OSError, TimeoutError) as exc:
-            raise EnvironmentFailure(f"cannot reach the Dask scheduler at {address!r} within "
-                                     f"{timeout_s:g} s: {exc}") from None
-        workers = len(self.client.scheduler_info().get("workers", {}))
-        if not workers:
-            echo(f"the Dask scheduler at {address} has no workers yet; waiting up to "
-                 f"{wait_workers_s:g} s for one (--wait-workers)")
-            try:
-                self.client.wait_for_workers(1, timeout=wait_workers_s)
-            except (TimeoutError, OSError):
-                self.client.close()
-                raise EnvironmentFailure(f"no worker joined the Dask scheduler at {address} "
-                                         f"within {wait_workers_s:g} s (--wait-workers); start "
-                                         f"workers and run again with --resume") from None
-            workers = len(self.client.scheduler_info().get("workers", {}))
-        self.address = address
-        self.description = f"the Dask scheduler at {address} ({workers} worker(s))"
-        self._silence()  # loggers Dask made while connecting
-
-    def _silence(self) -> None:
-        """Dask's log (reconnection tracebacks and the like) off stderr unless debugging:
-        every logger under its names, since Dask's config gives some their own level."""
-        if self.debug:
-            return
-        names = [n for n in list(logging.root.manager.loggerDict)
-                 if n.split(".")[0] in DASK_LOGGERS] + list(DASK_LOGGERS)
-        for name in names:
-            logging.getLogger(name).setLevel(logging.CRITICAL + 1)
-
-    def submit(self, fn, *args):
-        return self.client.submit(fn, *args, pure=False)
-
-    def completed(self, futures):
-        from distributed import as_completed
-        return as_completed(futures)
-
-    def result(self, future):
-        return future.result()
-
-    def lost(self, exc: BaseException) -> EnvironmentFailure | None:
-        """The machine failure an exception of the loop means, or None (a task's own)."""
-        from asyncio import CancelledError
-        from concurrent.futures import CancelledError as FutureCancelled
-
-        from distributed.comm.core import CommClosedError
-        if isinstance(exc, CancelledError | FutureCancelled | CommClosedError | OSError
-                      | TimeoutError):
-            return EnvironmentFailure(f"lost the Dask scheduler at {self.address} or its tasks "
-                                      f"({type(exc).__name__}); the finished gates are saved: "
-                                      f"run again with --resume")
-        return None
-
-    def close(self):
-        try:
-            self.client.close(timeout=5)
-        except Exception:  # noqa: BLE001 - a scheduler already gone cannot be closed politely
-            pass
 
 
 def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bool = False,
@@ -274,9 +160,16 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
                               f"continue it or --force to start over (resume=True / "
                               f"force=True from Python)")
         state = atomic.read_json(state_path, ResultError, "unreadable")
+        if not isinstance(state, dict) or not isinstance(state.get("tasks"), dict):
+            raise ResultError(f"{state_path}: not a chip run's state (no table of tasks)")
         if state.get("chip") != chip.name:
             raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
                               f"{chip.name!r}")
+        for task_id, task in state["tasks"].items():  # files are read from the run only
+            for row in (task.get("rows") or []) if isinstance(task, dict) else []:
+                atomic.inside_for_reading(out, row.get("waveform") if isinstance(row, dict)
+                                          else None, ResultError,
+                                          f"{state_path}: task {task_id!r}")
     if force and (out / "gates").exists():
         shutil.rmtree(out / "gates")  # start over: no task resumes its earlier sweep
     return state

@@ -17,11 +17,13 @@ from __future__ import annotations
 
 import logging
 import multiprocessing
+import os
 import signal
 from collections.abc import Callable
 from concurrent.futures import Future, ProcessPoolExecutor
 
 log = logging.getLogger("shaper")
+FIGURE_S = 120.0  # a figure takes under a second; a helper silent this long is stuck
 
 
 def draw_here(plot: Callable, path, *args, **kwargs) -> None:
@@ -33,11 +35,16 @@ def _ready() -> None:
     """Nothing: submitted once so that the helper starts (and imports) right away."""
 
 
-def _prepare() -> None:
-    """Ignore Ctrl-C; import matplotlib and draw one throw-away figure (fonts, text
-    layout and the Agg canvas are set up on first use), all before any real work."""
+def _prepare(parent: int | None = None) -> None:
+    """Die with the command ``parent`` however it ends (kill -9 included: its queue's
+    pipe never closes for the helper, which holds both ends); ignore Ctrl-C; import
+    matplotlib and draw one throw-away figure (fonts, text layout and the Agg canvas are
+    set up on first use), all before any real work."""
     import io
 
+    from shaper.optimizer.parallel import die_with_parent
+
+    die_with_parent(parent)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     from shaper.jobs.plots import _figure, _finish
 
@@ -53,10 +60,11 @@ class Painter:
 
     def __init__(self) -> None:
         self._pending: list[tuple[str, Future]] = []
+        self._stuck = False
         try:
             self._pool: ProcessPoolExecutor | None = ProcessPoolExecutor(
                 max_workers=1, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_prepare)
+                initializer=_prepare, initargs=(os.getpid(),))
         except (OSError, RuntimeError) as exc:  # no processes here: draw in this one
             log.warning("plots drawn in this process (no helper: %s)", exc)
             self._pool = None
@@ -76,19 +84,31 @@ class Painter:
         draw_here(plot, path, *args, **kwargs)
 
     def finish(self) -> dict[str, str]:
-        """Wait for every queued figure; return ``{path: error}`` for those that failed."""
+        """Wait for every queued figure, each at most :data:`FIGURE_S` (a helper that stopped
+        answering does not hold the command); return ``{path: error}`` for those that
+        failed."""
+        from concurrent.futures import TimeoutError as FutureTimeout
         failed = {}
         for path, future in self._pending:
             try:
-                future.result()
+                future.result(timeout=FIGURE_S)
+            except FutureTimeout:
+                failed[path] = f"the plot helper did not draw it within {FIGURE_S:g} s"
+                self._stuck = True
             except Exception as exc:  # noqa: BLE001 - a figure must not cost the result
                 failed[path] = f"{type(exc).__name__}: {exc}"
         self._pending = []
         return failed
 
     def close(self) -> None:
+        """End the helper: at once if it stopped answering (or figures are still queued),
+        else once its queue is empty."""
         if self._pool is not None:
-            self._pool.shutdown(wait=True, cancel_futures=True)
+            stuck = self._stuck or any(not f.done() for _, f in self._pending)
+            if stuck:
+                for process in list((getattr(self._pool, "_processes", None) or {}).values()):
+                    process.kill()
+            self._pool.shutdown(wait=not stuck, cancel_futures=True)
             self._pool = None
 
     def __enter__(self) -> Painter:

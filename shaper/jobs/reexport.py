@@ -6,6 +6,7 @@ asked, written in a registered format and judged as the chip plays it (``export.
 from __future__ import annotations
 
 import math
+import sys
 from dataclasses import replace
 from pathlib import Path
 
@@ -46,7 +47,7 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     rate = _checked_rate(recipe, sample_rate_hz)
     settings = _settings(recipe, bits=bits, if_hz=if_hz, sideband=sideband,
                          granularity=granularity, padding=padding, clip=clip, codes=codes)
-    _check_size(recipe, rate, settings.granularity)
+    _check_size(recipe, rate, settings)
     if abs(settings.if_frequency_hz) >= rate / 2:
         raise WaveformError(f"the IF {format_quantity(settings.if_frequency_hz, 'Hz')} is not "
                             f"below the Nyquist frequency {format_quantity(rate / 2, 'Hz')}")
@@ -117,16 +118,28 @@ def _settings(recipe, *, bits, if_hz, sideband, granularity, padding, clip, code
                    codes=recipe.export.codes if codes is None else codes)
 
 
-def _check_size(recipe, rate: float, granularity: int) -> None:
-    """The new file's length, before it is made: no more than any AWG holds."""
+def _check_size(recipe, rate: float, settings) -> None:
+    """The new file's length and the time its verdict takes, before it is made: no more
+    samples than any AWG holds, no verdict longer than
+    :data:`~shaper.recipe.memory.MAX_VERDICT_S` (said before it starts past a minute)."""
+    from shaper.recipe.memory import MAX_VERDICT_S, SAY_VERDICT_S, judging_seconds, minutes
+
+    granularity = settings.granularity
     n = math.ceil(recipe.duration_s * rate - 1e-9)
     padded = -(-n // granularity) * granularity
+    option, value = ("--sample-rate", format_quantity(rate, "S/s")) \
+        if padded < 2 * n else ("--granularity", str(granularity))
     if padded > MAX_EXPORT_SAMPLES:
-        option, value = ("--sample-rate", format_quantity(rate, "S/s")) \
-            if n > MAX_EXPORT_SAMPLES else ("--granularity", str(granularity))
         raise InputError(f"{option} {value}: the {format_quantity(recipe.duration_s, 's')} "
                          f"pulse would take {padded} samples, more than any AWG memory "
                          f"({MAX_EXPORT_SAMPLES})")
+    seconds = sum(judging_seconds(recipe, n, rate, export=settings))
+    if seconds > MAX_VERDICT_S:
+        raise InputError(f"{option} {value}: judging the new file ({padded} samples) would "
+                         f"take at least {minutes(seconds)}; at most {minutes(MAX_VERDICT_S)}")
+    if seconds > SAY_VERDICT_S:
+        print(f"shaper export: judging the new file will take at least {minutes(seconds)}",
+              file=sys.stderr, flush=True)
 
 
 def _room(out: Path, names: list[str], force: bool):

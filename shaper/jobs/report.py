@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from shaper.errors import ResultError
+from shaper.errors import RecipeError, ResultError
 from shaper.io import atomic, waveio
 from shaper.jobs.explain import explain, speed_limit
 from shaper.jobs.export import make_waveform
@@ -137,13 +137,28 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
     report_path = path / "report.json" if path.is_dir() else path
     report = atomic.read_json(report_path, ResultError,
                               "no report.json here; give a run folder or its report.json")
+    if not isinstance(report, dict):
+        raise ResultError(f"{report_path}: not a shaper report (expected a JSON object)")
     for key in ("recipe", "waveform"):
         if key not in report:
             raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")
-    recipe = load_recipe(report["recipe"]["content"])
-    wave = waveio.read_waveform(report_path.parent / report["waveform"])
+    content = report["recipe"].get("content") if isinstance(report["recipe"], dict) else None
+    if not isinstance(content, dict):
+        raise ResultError(f"{report_path}: 'recipe' must hold the run's recipe as 'content' "
+                          f"(a table); not a shaper report, or a damaged one")
+    try:
+        recipe = load_recipe(content)
+    except RecipeError as exc:
+        raise ResultError(f"{report_path}: the recipe it holds: {exc.key}: {exc.detail}") \
+            from None
+    wave = waveio.read_waveform(atomic.inside_for_reading(
+        report_path.parent, report["waveform"], ResultError, f"{report_path}: 'waveform'"))
     samples = baseband(recipe, wave)
-    n = int(report.get("pulse_samples", samples.shape[0]))
+    most = samples.shape[0] - wave.pulse_start
+    n = report.get("pulse_samples", most)
+    if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= most:
+        raise ResultError(f"{report_path}: 'pulse_samples' must be a whole number from 1 to "
+                          f"the waveform's {most} pulse samples, got {str(n)[:40]!r}")
     samples = samples[wave.pulse_start:wave.pulse_start + n]
     recipe = at_samples(recipe, n, rate_hz=wave.sample_rate_hz)
     return recipe, samples, report, report_path.parent

@@ -26,6 +26,20 @@ EXIT_CODES = {signal.SIGINT: 130, signal.SIGTERM: 143}
 GRACE_S = 10.0
 
 
+class Interrupted(Exception):
+    """A command's wait ended by a stop signal (SIGINT/SIGTERM): what finished is saved,
+    the command exits with :attr:`exit_code` (130/143)."""
+
+    def __init__(self, signum: int | None):
+        self.signum = signum
+        name = signal.Signals(signum).name if signum in EXIT_CODES else "a signal"
+        super().__init__(f"interrupted by {name}")
+
+    @property
+    def exit_code(self) -> int:
+        return EXIT_CODES.get(self.signum, 130)
+
+
 class StopFlag:
     """Truthy once a signal asked the run to stop. ``signal`` is its number."""
 
@@ -133,6 +147,7 @@ class _Watcher:
 
     def grace(self, signum: int) -> None:
         if not self.flag.acknowledged.wait(self.grace_s) and not self.done.is_set():
+            saved = ("; wrote the best pulse of the last completed evaluation"
+                     if self.flag.rescue is not None else "")
             self.forced(signum, f"the computation did not return within {self.grace_s:.0f} s "
-                                f"of the signal; wrote the best pulse of the last completed "
-                                f"evaluation")
+                                f"of the signal{saved}")

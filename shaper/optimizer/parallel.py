@@ -23,26 +23,54 @@ _PINNED = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS
 
 def pin_threads(parent: int | None = None) -> None:
     """Worker initialiser: one thread per worker (before anything imports JAX); die with
-    the parent (a worker whose parent was killed would otherwise hold its memory forever)."""
+    the parent (:func:`die_with_parent`); SIGINT and SIGTERM are the parent's to answer
+    (it passes them on through the stop file, or ends its workers itself)."""
     os.environ.update(_PINNED)
     import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    die_with_parent(parent)
+
+
+PR_SET_PDEATHSIG = 1  # prctl(2): the signal this process gets when its parent thread ends
+
+
+def die_with_parent(parent: int | None) -> None:
+    """End this child process within a second of its parent ``parent`` (a pid), however the
+    parent ends, kill -9 included: a process whose parent was killed would otherwise hold
+    its memory (and its share of the resource tracker's pipe) forever, re-parented to init.
+
+    On Linux the kernel sends SIGKILL when the parent dies (``prctl(PR_SET_PDEATHSIG)``,
+    asked for here, in the process the parent's main thread spawned); everywhere a thread
+    also watches ``os.getppid()`` and exits when it changes (re-parented to init or a
+    subreaper).
+    """
+    if parent is None:
+        return
+    import signal
+    import sys
     import threading
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides, through the stop file
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0)
+        except (OSError, AttributeError):
+            pass  # the watching thread below still ends it
+    if os.getppid() != parent:  # the parent ended before the signal was asked for
+        os._exit(1)
 
     def watch_parent():
         while os.getppid() == parent:
             time.sleep(0.5)
-        os._exit(1)  # the parent is gone: re-parented to init (or a subreaper)
-    if parent is not None:
-        threading.Thread(target=watch_parent, name="shaper-parent-watch", daemon=True).start()
+        os._exit(1)
+    threading.Thread(target=watch_parent, name="shaper-parent-watch", daemon=True).start()
 
 
 def _worker(raw_recipe, path, index, seed, options, job):
     """One start in a worker process. ``options`` are the run's settings (no hooks);
     ``job`` what this process needs besides: the optimiser settings with the remaining
     time, the stop file, the watchdog's limit and the first guess."""
-    import signal
-    signal.signal(signal.SIGTERM, signal.SIG_IGN)  # likewise
     from shaper.optimizer.objective import make_objective
     from shaper.optimizer.one_start import compile_now, run_one
     from shaper.optimizer.watchdog import Watchdog

@@ -13,7 +13,6 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -21,6 +20,8 @@ from shaper.errors import RecipeError
 from shaper.physics.systems import NAME, NAME_RULE
 from shaper.physics.targets import plan, slug
 from shaper.recipe.chip_gates import NO_GATE, read_gates
+from shaper.recipe.chip_keys import chip_key, qubit_key
+from shaper.recipe.files import check_line_files
 from shaper.recipe.lines import resolve_files, stage_files
 from shaper.recipe.neighbours import near_recipe, near_system, read_crosstalk
 from shaper.recipe.schema import _Reader
@@ -75,11 +76,18 @@ class Task:
 
 def _response_files(recipe: dict) -> dict[str, str]:
     """The sha256 of every measured-response file the recipe's line names (absolute)."""
+    from shaper.errors import InputError
+    from shaper.recipe.files import read_bytes
+    from shaper.recipe.lines import MAX_RESPONSE_BYTES
+
+    def unreadable(message: str):
+        raise InputError(message)
     out = {}
     for stage in stage_files(recipe.get("line", {})):
-        try:
-            out[stage["file"]] = hashlib.sha256(Path(stage["file"]).read_bytes()).hexdigest()
-        except OSError:
+        try:  # read and checked by the recipe reader already; bounded here all the same
+            data = read_bytes(stage["file"], MAX_RESPONSE_BYTES, unreadable, text=False)
+            out[stage["file"]] = hashlib.sha256(data).hexdigest()
+        except InputError:
             out[stage["file"]] = "unreadable"
     return out
 
@@ -110,15 +118,10 @@ def load_chip(path: str | Path) -> Chip:
     Raises:
         RecipeError: naming the chip file and the key.
     """
+    from shaper.recipe.load import read_toml
+
     path = Path(path)
-    try:
-        text = path.read_bytes()
-        raw = tomllib.loads(text.decode("utf-8"))
-    except OSError as exc:
-        raise RecipeError(f"cannot read the chip file: {exc.strerror}", path=str(path)) \
-            from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise RecipeError(f"not valid TOML: {exc}", path=str(path)) from None
+    raw, text = read_toml(path, "chip")
     r = _Reader(raw, str(path))
     _check(r, raw, "", "")
     name = raw.get("name")
@@ -164,7 +167,13 @@ def _template(r: _Reader, template: dict, raw: dict) -> dict:
             r.fail(f"template.line.{channel}", f"no channel of that name on this chip; "
                                                f"channels: {', '.join(channels)}")
     # found beside the chip file, wherever the task runs (README, "Chips")
+    check_line_files(template.get("line"), base, "template.line", r.fail)
     resolve_files(template.get("line", {}), base)
+    from shaper.recipe.load import check_first_guess
+    found = check_first_guess(r, template.get("optimizer", {}).get("initial"), base,
+                              "template.optimizer.initial")
+    if found is not None:  # the workers find it wherever they run
+        template["optimizer"]["initial"] = str(found.resolve())
     for key in TEMPLATE_PULSE_OWN:
         if key in template.get("pulse", {}):
             r.fail(f"template.pulse.{key}", "set by the chip for each gate (the qubits' "
@@ -186,6 +195,7 @@ def _qubits(r: _Reader, raw: dict) -> dict[str, dict]:
             r.fail(f"{where}.name", f"expected {NAME_RULE}, got {qname!r}")
         if qname in specs:
             r.fail(f"{where}.name", f"qubit {qname!r} is listed twice; names must differ")
+        where = qubit_key(qname)  # from here on the qubit is named by its name
         for key in ("frequency", "anharmonicity", "max_rabi"):
             if key not in q:
                 r.fail(f"{where}.{key}", f"missing required key (qubit {qname!r})")
@@ -266,29 +276,40 @@ def _cross_resonance(r, name, i, qa, qb, coupling, gates, base, checked) -> Task
                                      f"{a}_cr": gates.get("cross_resonance_rabi", "100 MHz")}},
               **_rest(base, recipe_channels)}
     recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
-    return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (), checked(recipe, f"coupling[{i}]"),
+    return Task(f"{a}-{b}-{slug(gate)}", f"{a}-{b}", gate, (),
+                checked(recipe, f"coupling[{i}]", "gates.fixed_pair_durations"),
                 gates["fixed_pair_durations"], "gates.fixed_pair_durations")
 
 
-def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
+def _checker(r: _Reader, couplings: list):
+    """``checked(recipe, where, durations_key)``: a task's recipe read by the recipe reader,
+    its errors naming the chip's own key (:func:`shaper.recipe.chip_keys.chip_key`), or
+    ``where`` (the qubit or coupling the task is of) where the chip has no such key."""
     from shaper.recipe.load import load_recipe
 
-    name = raw["name"]
-    tasks = []
-
-    def checked(recipe: dict, where: str) -> dict:
+    def checked(recipe: dict, where: str, durations_key: str = "gates.single_durations"):
         try:
             load_recipe(recipe)
         except RecipeError as exc:
-            r.fail(where, f"the gate recipe built from it is wrong: {exc.key}: {exc.detail}")
+            key = chip_key(recipe, exc.key, durations_key, couplings)
+            if key is None:
+                r.fail(where, f"the {recipe['gate'].get('target')} gate's recipe built from "
+                              f"it is wrong: {exc.key}: {exc.detail}")
+            r.fail(key, exc.detail)
         return recipe
+    return checked
 
+
+def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Task]:
+    name = raw["name"]
+    tasks = []
+    checked = _checker(r, couplings)
     base = {k: copy.deepcopy(v) for k, v in template.items()}
-    for i, q in enumerate(specs.values()):  # flux keys, checked even without a pair
+    for q in specs.values():  # flux keys, checked even without a pair
         if q.get("flux"):
-            checked(_flux_probe(q), f"qubit[{i}]")
+            checked(_flux_probe(q), qubit_key(q["name"]))
     durations = gates["single_durations"]
-    for i, (qname, q) in enumerate(specs.items()):
+    for qname, q in specs.items():
         for parent, derived in plan(single, 1):
             transmon = _transmon(q)
             system = {"model": "transmon", "levels": transmon["levels"],
@@ -302,10 +323,10 @@ def _tasks(r, raw, specs, pairs, single, gates, template, couplings) -> list[Tas
                                 "max_rabi": q["max_rabi"]},
                       **_rest(base, recipe_channels)}
             recipe["pulse"].setdefault("sample_rate", "2.4 GS/s")
-            checked(recipe, f"qubit[{i}]")
+            checked(recipe, qubit_key(qname))
             system = near_system(qname, specs, couplings, gates["neighbour_levels"], _transmon)
             near = None if system is None else checked(near_recipe(recipe, system, qname),
-                                                       f"qubit[{i}]")
+                                                       qubit_key(qname))
             if near is not None and gates["neighbours"] == "optimise":
                 # alone, its frame updates as free as beside the neighbours (it is made so)
                 alone = {**recipe, "gate": {**recipe["gate"], "virtual_z": True}}
@@ -354,7 +375,8 @@ def _flux_pair(name, i, qa, qb, coupling, pair_gate, pair_durations, base, check
               "gate": {"target": pair_gate, "virtual_z": True}, "pulse": pulse,
               **_rest(base, recipe_channels)}
     return Task(f"{a}-{b}-{slug(pair_gate)}", f"{a}-{b}", pair_gate, (),
-                checked(recipe, f"coupling[{i}]"), pair_durations, "gates.pair_durations")
+                checked(recipe, f"coupling[{i}]", "gates.pair_durations"), pair_durations,
+                "gates.pair_durations")
 
 
 def _rest(base: dict, channels: list[str]) -> dict:

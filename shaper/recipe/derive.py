@@ -9,9 +9,10 @@ Every derivation edits the recipe's raw TOML content and reads it again through
 from __future__ import annotations
 
 import copy
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 
-from shaper.errors import InputError
+from shaper.errors import InputError, RecipeError
 from shaper.physics.targets import slug
 from shaper.recipe.load import load_recipe
 from shaper.recipe.schema import Recipe
@@ -124,3 +125,19 @@ def budget_of(recipe: Recipe) -> dict:
     (:func:`shaper.io.runfolder.prepare_folder`)."""
     return {"max_iterations": recipe.optimizer.max_iterations,
             "max_time": (recipe.raw.get("optimizer") or {}).get("max_time")}
+
+
+@contextmanager
+def as_options(written: dict[str, tuple[str, str]]) -> Iterator[None]:
+    """A derivation a command-line option asked for (``--levels``, ``--t1``): a recipe error
+    it causes names the option and its value as the user typed it, not the recipe file.
+
+    ``written``: the last part of a recipe key (``"levels"``, ``"t2"``) -> (the option, its
+    text); an error on another key names the first option.
+    """
+    try:
+        yield
+    except RecipeError as exc:
+        last = (exc.key or "").rsplit(".", 1)[-1].lstrip("-")  # "system.t2" or "--t2"
+        flag, text = written.get(last, next(iter(written.values())))
+        raise InputError(f"{flag} {text}: {exc.detail}") from None

@@ -13,7 +13,14 @@ from dataclasses import replace
 from pathlib import Path
 
 from shaper.errors import InputError, RecipeError
-from shaper.recipe.schema import Recipe, _Reader
+from shaper.recipe.files import (
+    MAX_TEXT_BYTES,
+    check_line_files,
+    kind_of,
+    read_bytes,
+    why_unreadable,
+)
+from shaper.recipe.schema import GUESSES, Recipe, _Reader
 from shaper.recipe.sections import build
 
 MAX_DEPTH = 6  # the deepest a recipe nests: [system] -> transmon list -> table -> value
@@ -60,24 +67,17 @@ def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe
         raw = source
     else:
         path = str(source)
-        try:
-            text = Path(source).read_bytes()
-        except OSError as exc:
-            raise RecipeError(f"cannot read the file: {exc.strerror}", path=path) from None
-        try:
-            raw = tomllib.loads(text.decode("utf-8"))
-        except UnicodeDecodeError:
-            raise RecipeError("not a text file (TOML must be UTF-8)", path=path) from None
-        except tomllib.TOMLDecodeError as exc:
-            raise RecipeError(f"not valid TOML: {exc}", path=path) from None
-        except RecursionError:
-            raise RecipeError("nested too deeply to be a recipe", path=path) from None
+        raw, _ = read_toml(source, "recipe")
     _plain_values(raw, path)
-
+    reader = _Reader(raw, path)
+    base = Path(path).parent if path else Path.cwd()
+    check_line_files(raw.get("line"), base, "line", reader.fail)
     try:
-        recipe = build(_Reader(raw, path), raw, path, digest(raw))
+        recipe = build(reader, raw, path, digest(raw))
     except InputError as exc:  # a model builder refused the values
         raise RecipeError(str(exc), path=path, key="system") from None
+    if path is not None:  # a recipe read again from a report has no folder to look in
+        check_first_guess(reader, recipe.optimizer.initial, base)
     files = {st.source: st.sha256 for stages in [recipe.line.awg.stages,
                                                  *recipe.line.stages.values()]
              for st in stages if st.sha256}
@@ -86,6 +86,53 @@ def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe
         return replace(recipe, sha256=digest({"recipe": raw, "files": files}),
                        problem_sha256=digest({"recipe": problem, "files": files}))
     return replace(recipe, problem_sha256=digest(problem))
+
+
+def read_toml(source: str | Path, what: str) -> tuple[dict, bytes]:
+    """A TOML file a user named (a recipe, a chip) and its bytes: a regular file of at
+    most :data:`~shaper.recipe.files.MAX_TEXT_BYTES`, UTF-8 (a byte-order mark is dropped).
+
+    Raises:
+        RecipeError: naming the file: not a regular file, too large, not text, not TOML.
+    """
+    path = str(source)
+
+    def fail(message: str):
+        raise RecipeError(message, path=path)
+    data = read_bytes(source, MAX_TEXT_BYTES, fail, what=what)
+    try:
+        return tomllib.loads(data.decode("utf-8")), data
+    except UnicodeDecodeError as exc:
+        fail(f"not a text file (byte {exc.start} is not UTF-8; TOML is UTF-8)")
+    except tomllib.TOMLDecodeError as exc:
+        fail(f"not valid TOML: {' '.join(str(exc).split())}")
+    except RecursionError:
+        fail(f"nested too deeply to be a {what}")
+
+
+def check_first_guess(r: _Reader, initial, base: Path,
+                      key: str = "optimizer.initial") -> Path | None:
+    """``optimizer.initial`` naming a waveform file: it must be there now (beside the
+    recipe, or in the working folder, as :func:`shaper.io.waveio.read_first_guess` looks),
+    not found missing after JAX has loaded. Returns the file found (None: a guess by name,
+    or not a file name, which the recipe reader refuses)."""
+    if not isinstance(initial, str) or initial in GUESSES:
+        return None
+    beside = base / initial
+    found = beside if beside.exists() or Path(initial).is_absolute() else Path(initial)
+
+    def fail(message: str):
+        r.fail(key, f"{message} (a first guess: a waveform file from an earlier run, beside "
+                    f"the {'chip file' if key.startswith('template') else 'recipe'} or in the "
+                    f"working folder)")
+    try:
+        info = found.stat()
+    except OSError as exc:
+        fail(f"{found}: {why_unreadable(exc)}")
+    other = kind_of(info.st_mode)
+    if other:
+        fail(f"{found} is {other}, not a waveform file")
+    return found
 
 
 BUDGETS = ("max_iterations", "max_time", "starts")  # [optimizer] keys that only bound a run

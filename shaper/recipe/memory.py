@@ -104,3 +104,113 @@ def fits_in_memory(r: _Reader, system: System, pulse: dict, members: int,
                     f"slices x {members + 1} system(s) x {d}^2 levels) and this machine has "
                     f"{have / 2**30:.1f} GiB available; this key makes it big: try "
                     f"{typical[key][1]}")
+
+
+# ----- the time twin: how long judging one file takes, refused before it starts
+
+MAX_VERDICT_S = 600.0  # a check, an export or one file's verdict: longer is a mistake
+SAY_VERDICT_S = 60.0  # an estimate past this is said before the work starts
+# One propagator slice of a d = 6 system (an eigendecomposition or a Taylor polynomial and
+# its share of the products), measured on the 2-core CI machine at 4-5 us (the demo's
+# lab-frame check, cr-cnot's d = 49 at 80 us); taken lower, and growing as d^1.5 as
+# measured, so the estimate is a floor: only what surely takes too long is refused.
+SECONDS_PER_SLICE = 2.5e-6
+SENSITIVITY_SCANS = 42  # shaper check: 21 detunings and 21 amplitude scales
+LAB_REFINED = 2  # the lab frame's worst phases, run again on twice the sub-steps
+
+
+def slice_seconds(d: int) -> float:
+    """The floor of one propagator slice's time for a ``d x d`` system (seconds)."""
+    return SECONDS_PER_SLICE * max(1.0, d / 6) ** 1.5
+
+
+def verdict_seconds(system: System, verdict, samples: int, sample_rate_hz: float,
+                    export: ExportSettings, *, oversample: int = 1, members: int = 1,
+                    scans: int = 0) -> tuple[float, float]:
+    """A floor of the time one file's verdict takes: ``(rotating-frame seconds, lab-frame
+    seconds)``.
+
+    The rotating frame: the exported samples (padding included) times the chain's
+    sub-steps, played on the recipe's levels and on ``verdict.extra_levels`` more (each on
+    ``s`` and ``2 s`` sub-steps), plus every ensemble member and ``scans`` sensitivity
+    points. The lab frame (where the verdict runs it): every carrier phase and the worst
+    ones refined, each cell cut to resolve the fastest term (``POINTS_PER_CYCLE`` sub-steps
+    per cycle, two slices each), on the more-levels system. ``verdict``: a
+    :class:`~shaper.recipe.schema.VerdictSettings`.
+    """
+    from shaper.physics.grid import carrier_substeps, substeps
+
+    period = 1 / sample_rate_hz
+    exported = -(-samples // export.granularity) * export.granularity
+    steps = max([oversample, substeps(export.if_frequency_hz, period)]
+                + [carrier_substeps(c.offset_hz, period) for c in system.channels])
+    more = system.dimension
+    if system.lab is not None and verdict.extra_levels:
+        more = int(math.prod(n + verdict.extra_levels for n in system.dims))
+    plays = 3 * (1 + (more != system.dimension)) + members + scans
+    rotating = exported * steps * (plays * slice_seconds(system.dimension)
+                                   + 3 * slice_seconds(more))
+    if system.lab is None or verdict.lab_frame == "off":
+        return rotating, 0.0
+    from shaper.physics.labframe import POINTS_PER_CYCLE, lab_terms
+    fastest = lab_terms(system).fastest_hz(abs(export.if_frequency_hz))
+    per_sample = 2 * max(1, math.ceil(fastest * period * POINTS_PER_CYCLE))
+    # the worst phase searched where the second-order model points (four runs, or the
+    # fixed phase), the worst refined, and the staircase's figure at the worst phase
+    runs = (1 if len(verdict.phases_rad()) == 1 else 4) + LAB_REFINED + 1
+    return rotating, exported * per_sample * runs * slice_seconds(more)
+
+
+def minutes(seconds: float) -> str:
+    """A duration as a person reads it: ``"40 s"``, ``"12 min"``, ``"3.1 h"``."""
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    return f"{seconds / 60:.0f} min" if seconds < 7200 else f"{seconds / 3600:.3g} h"
+
+
+def fits_in_time(r: _Reader, system: System, pulse: dict, members: int,
+                 export: ExportSettings, oversample: int, verdict) -> None:
+    """Refuse, before anything runs, a recipe whose every file would take longer than
+    :data:`MAX_VERDICT_S` to judge (:func:`verdict_seconds`), naming the key that makes it
+    long."""
+    rotating, lab = verdict_seconds(system, verdict, pulse["samples"],
+                                    pulse["sample_rate_hz"], export, oversample=oversample,
+                                    members=members)
+    if rotating + lab <= MAX_VERDICT_S:
+        return
+    n = pulse["samples"]
+    exported = -(-n // export.granularity) * export.granularity
+    # the factor furthest above a typical recipe's names the key (as fits_in_memory does)
+    typical = {"pulse.duration": (n / 2000, "a shorter pulse or a lower sample rate"),
+               "export.granularity": (exported / max(n, 1), "a smaller granularity"),
+               "system.levels": (system.dimension / 16, "fewer levels"),
+               "cost.ensemble_scales": (members / 9, "a smaller ensemble")}
+    if lab > rotating:
+        typical["verdict.lab_frame"] = (lab / max(rotating, 1e-9) / 50,
+                                        "verdict.lab_frame = \"off\" (the rotating frame)")
+    key = max(typical, key=lambda k: typical[k][0])
+    r.fail(key, f"judging one file of this recipe would take at least {minutes(rotating + lab)}"
+                f" ({exported} samples, {system.dimension} levels"
+                + (f", the lab frame {minutes(lab)}" if lab else "")
+                + f"); at most {minutes(MAX_VERDICT_S)}: try {typical[key][1]}")
+
+
+def judging_seconds(recipe, samples: int, sample_rate_hz: float, *, export=None,
+                    scans: int = 0) -> tuple[float, float]:
+    """:func:`verdict_seconds` of a loaded recipe playing a file of ``samples`` samples at
+    ``sample_rate_hz`` (``export``: other export settings, e.g. a re-export's)."""
+    line = recipe.line
+    return verdict_seconds(recipe.system, recipe.verdict, samples, sample_rate_hz,
+                           export or recipe.export, members=len(recipe.ensemble_scales),
+                           oversample=line.oversample if line.active or line.awg.stages
+                           else 1, scans=scans)
+
+
+def rows_within(recipe, sample_rate_hz: float, *, scans: int = 0) -> int:
+    """The most samples a file played on ``recipe`` at ``sample_rate_hz`` may have for its
+    verdict to fit in :data:`MAX_VERDICT_S` (the bound on the rows of a checked file)."""
+    from dataclasses import replace
+
+    one = sum(judging_seconds(recipe, 1000, sample_rate_hz, scans=scans,
+                              export=replace(recipe.export, granularity=1))) / 1000
+    return max(1, min(MAX_EXPORT_SAMPLES, int(MAX_VERDICT_S / one)))

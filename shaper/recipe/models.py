@@ -23,6 +23,8 @@ from shaper.recipe.units import format_quantity, parse_quantity
 MAX_TRANSMON_LEVELS = 64  # a transmon has a handful of bound levels; more is a typo
 MAX_COUPLING_HZ = 1e9  # above this a coupling is a unit slip
 MAX_CARRIER_OFFSET_HZ = 20e9  # a drive this far from the frame is one too
+MIN_COHERENCE_S = 1e-9  # a T1 or T2 below this is a unit slip
+MAX_QUBIT_HZ = 100e9  # a transmon's (or a frame's) frequency above this is a unit slip
 # the basis a transmons system's computational states are named in (README, "Coupled
 # transmons: the dressed basis"): the bare product states, or what they become at rest
 BASES = ("bare", "dressed")
@@ -60,6 +62,27 @@ def read_system(r: _Reader, t: dict) -> System:
         r.fail("system", str(exc))
 
 
+def _frequency(r: _Reader, t: dict, key: str, where: str, default=None) -> float:
+    """A transmon's (or a frame's) frequency: positive and at most :data:`MAX_QUBIT_HZ`,
+    refused here (not after the optimiser ran, when the lab frame would resolve it)."""
+    value = r.number(t, key, f"{where}.{key}", default, kind="frequency", positive=True)
+    if value > MAX_QUBIT_HZ:
+        r.fail(f"{where}.{key}", f"{t[key]!r} is above {format_quantity(MAX_QUBIT_HZ, 'Hz')}, "
+                                 f"beyond any transmon; check the unit (e.g. \"5.1 GHz\")")
+    return value
+
+
+def _anharmonicity(r: _Reader, t: dict, where: str, qubit_hz: float) -> float:
+    """A transmon's anharmonicity: smaller in size than its qubit frequency (a transmon's is
+    -100 to -400 MHz; f12 = f01 + alpha stays positive), else a unit slip."""
+    alpha = r.number(t, "anharmonicity", f"{where}.anharmonicity", kind="frequency")
+    if not abs(alpha) < qubit_hz:
+        r.fail(f"{where}.anharmonicity", f"{t['anharmonicity']!r} is not smaller in size than "
+                                         f"the qubit frequency {format_quantity(qubit_hz, 'Hz')}"
+                                         f"; a transmon's is a few hundred MHz (check the unit)")
+    return alpha
+
+
 # A chip's transmons are Cooper-pair boxes: the Duffing ladder loses 1e-6 to 1e-3 on pulses
 # played on the charge model at the same cost (README, "The charge model"); it stays a choice.
 DEFAULT_SPECTRUM = "charge"
@@ -88,6 +111,9 @@ def _coherence(r: _Reader, t: dict, where: str) -> dict:
         if key in t:
             out[f"{key}_s"] = r.number(t, key, f"{where}.{key}", kind="time", positive=True,
                                        hint="us")
+            if out[f"{key}_s"] < MIN_COHERENCE_S:
+                r.fail(f"{where}.{key}", f"{t[key]!r} is shorter than a nanosecond, shorter "
+                                         f"than any sample; check the unit (e.g. \"40 us\")")
     if "t1_s" in out and "t2_s" in out and out["t2_s"] > 2 * out["t1_s"] * (1 + 1e-12):
         r.fail(f"{where}.t2", f"t2 = {t['t2']!r} is longer than 2 t1 = 2 x {t['t1']!r}, which "
                               f"no qubit reaches (T2 <= 2 T1)")
@@ -104,11 +130,9 @@ def _transmon(r: _Reader, t: dict) -> System:
         r.fail("system.levels", f"must be from 2 (levels 0 and 1 are the qubit) to "
                                 f"{MAX_TRANSMON_LEVELS} (a transmon keeps a few bound levels), "
                                 f"got {levels}")
-    fq = r.number(t, "qubit_frequency", "system.qubit_frequency", kind="frequency",
-                  positive=True)
-    alpha = r.number(t, "anharmonicity", "system.anharmonicity", kind="frequency")
-    fd = r.number(t, "drive_frequency", "system.drive_frequency", fq, kind="frequency",
-                  positive=True)
+    fq = _frequency(r, t, "qubit_frequency", "system")
+    alpha = _anharmonicity(r, t, "system", fq)
+    fd = _frequency(r, t, "drive_frequency", "system", fq)
     name = t.get("qubit", "q0")
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
@@ -117,6 +141,23 @@ def _transmon(r: _Reader, t: dict) -> System:
                         anharmonicity_hz=alpha, **_coherence(r, t, "system"),
                         **_spectrum(r, t, "system"))
     return coupled_transmons([spec], [], frame_frequency_hz=fd)
+
+
+def _couplings(r: _Reader, t: dict) -> list[tuple[str, str, float]]:
+    """``[[system.coupling]]``: two transmon names and a strength each."""
+    couplings = []
+    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
+        pair = item.get("between")
+        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
+                                                                 for p in pair)):
+            r.fail(f"{where}.between", f"expected two transmon names, got {str(pair)[:60]!r}")
+        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
+        if abs(g) > MAX_COUPLING_HZ:
+            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
+                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
+                                        f"couplings are MHz to tens of MHz (check the unit)")
+        couplings.append((pair[0], pair[1], g))
+    return couplings
 
 
 def _transmons(r: _Reader, t: dict) -> System:
@@ -134,27 +175,13 @@ def _transmons(r: _Reader, t: dict) -> System:
             r.fail(f"{where}.levels", f"must be from 2 to {MAX_TRANSMON_LEVELS}, got {levels}")
         specs.append(TransmonSpec(
             name=name, levels=levels,
-            qubit_frequency_hz=r.number(item, "qubit_frequency", f"{where}.qubit_frequency",
-                                        kind="frequency", positive=True),
-            anharmonicity_hz=r.number(item, "anharmonicity", f"{where}.anharmonicity",
-                                      kind="frequency"),
+            qubit_frequency_hz=(fq := _frequency(r, item, "qubit_frequency", where)),
+            anharmonicity_hz=_anharmonicity(r, item, where, fq),
             flux=r.flag(item, "flux", f"{where}.flux", False),
             driven=r.flag(item, "driven", f"{where}.driven", True), **_coherence(r, item, where),
             **_spectrum(r, item, where)))
-    couplings = []
-    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
-        pair = item.get("between")
-        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
-                                                                 for p in pair)):
-            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
-        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
-        if abs(g) > MAX_COUPLING_HZ:
-            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
-                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
-                                        f"couplings are MHz to tens of MHz (check the unit)")
-        couplings.append((pair[0], pair[1], g))
-    frame = r.number(t, "frame_frequency", "system.frame_frequency",
-                     specs[0].qubit_frequency_hz, kind="frequency", positive=True)
+    couplings = _couplings(r, t)
+    frame = _frequency(r, t, "frame_frequency", "system", specs[0].qubit_frequency_hz)
     drives = []
     for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
         for key in ("name", "transmon"):
@@ -182,6 +209,26 @@ def _transmons(r: _Reader, t: dict) -> System:
         return dressed(system)
     except InputError as exc:
         r.fail("system.basis", f"{exc} (frame {format_quantity(frame, 'Hz')})")
+
+
+def check_more_levels(r: _Reader, t: dict, system: System, extra: int) -> None:
+    """The verdict re-plays every transmon with ``extra`` more levels: that must stay a
+    transmon the reader accepts, refused here naming what the user wrote (not after the
+    optimiser ran, naming a sum nobody wrote)."""
+    if system.lab is None or not extra or max(system.dims) + extra <= MAX_TRANSMON_LEVELS:
+        return
+    table = r.raw.get("system", {})
+    items = [("system.levels", table)] if "levels" in table else [
+        (f"system.transmon[{i}].levels", tr) for i, tr in enumerate(table.get("transmon", []))]
+    where, item = next(((w, tr) for w, tr in items
+                        if tr.get("levels", 0) + extra > MAX_TRANSMON_LEVELS), items[0])
+    written = "extra_levels" in t
+    r.fail("verdict.extra_levels" if written else where,
+           f"levels = {item.get('levels')!r} with verdict.extra_levels = "
+           f"{t['extra_levels'] if written else f'{extra} (the default)'} is "
+           f"{item.get('levels', 0) + extra} levels for the verdict's re-check; a transmon "
+           f"keeps at most {MAX_TRANSMON_LEVELS}: keep at most "
+           f"{MAX_TRANSMON_LEVELS - extra} levels, or fewer verdict.extra_levels")
 
 
 def _matrices(r: _Reader, t: dict) -> System:

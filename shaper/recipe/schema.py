@@ -17,7 +17,7 @@ from shaper.errors import InputError, RecipeError
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
 from shaper.recipe.lines import LineSettings
-from shaper.recipe.units import parse_quantity
+from shaper.recipe.units import _shown, parse_quantity
 
 GUESSES = ("gaussian", "drag", "cosine", "random")  # first guesses by name
 ENSEMBLE_RULES = ("every", "mean")  # how ensemble members meet the targets
@@ -26,6 +26,8 @@ METHODS = {"lbfgs": "L-BFGS-B from scipy (default)",
            "adam": "Adam from optax, learning_rate per step",
            "lbfgs-jit": "L-BFGS from optax, ten steps per compiled call"}
 PADDING = ("after", "before", "centre")
+MAX_STARTS = 1000  # starts of one optimisation: each a checkpoint file and a row of a table
+MAX_SEED = 2 ** 32 - 1  # seeds of NumPy's generators as shaper uses them, start i at seed + i
 
 # [cost]: the weight of each registered cost term (shaper.costs.terms.TERMS)
 DEFAULT_WEIGHTS = {"infidelity": 1.0, "leakage": 0.0, "bandwidth": 1.0, "smoothness": 0.0,
@@ -282,11 +284,14 @@ class _Reader:
     def table(self, table: dict, key: str, where: str) -> dict:
         value = table.get(key, {})
         if not isinstance(value, dict):
-            self.fail(where, f"expected a table [{where}], got {value!r}")
+            self.fail(where, f"expected a table [{where}], got {_shown(value)}")
         return value
 
     def number(self, table, key, where, default=None, *, kind=None, positive=False,
-               integer=False, minimum=None, bare_check=True, hint=None):
+               integer=False, minimum=None, maximum=None, below=None, bare_check=True,
+               hint=None):
+        """A number (``kind``: a quantity with a unit) within its bounds: ``minimum`` and
+        ``maximum`` inclusive, ``below`` exclusive; errors quote the value as written."""
         if key not in table:
             if default is None:
                 self.fail(where, "missing required key")
@@ -296,7 +301,7 @@ class _Reader:
             value = parse_quantity(value, kind, key=where, path=self.path,
                                    bare_check=bare_check, hint=hint)
         elif isinstance(value, bool) or not isinstance(value, int | float):
-            self.fail(where, f"expected a number, got {value!r}")
+            self.fail(where, f"expected a number, got {_shown(value)}")
         if not math.isfinite(value):
             self.fail(where, f"expected a finite number, got {value!r}")
         if integer and (not isinstance(value, int) or isinstance(value, bool)):
@@ -305,12 +310,16 @@ class _Reader:
             self.fail(where, f"must be positive, got {table[key]!r}")
         if minimum is not None and value < minimum:
             self.fail(where, f"must be at least {minimum}, got {table[key]!r}")
+        if maximum is not None and value > maximum:
+            self.fail(where, f"must be at most {maximum:,}, got {table[key]!r}")
+        if below is not None and not value < below:
+            self.fail(where, f"must be below {below}, got {table[key]!r}")
         return value
 
     def flag(self, table, key, where, default: bool) -> bool:
         value = table.get(key, default)
         if not isinstance(value, bool):
-            self.fail(where, f"expected true or false, got {value!r}")
+            self.fail(where, f"expected true or false, got {_shown(value)}")
         return value
 
     def choice(self, table, key, where, options, default=None) -> str:
@@ -318,7 +327,8 @@ class _Reader:
         if value is None:
             self.fail(where, "missing required key")
         if value not in options:
-            self.fail(where, f"unknown value {value!r}; choose one of: {', '.join(options)}")
+            self.fail(where, f"unknown value {_shown(value)}; choose one of: "
+                             f"{', '.join(options)}")
         return value
 
     def matrix(self, table, key, where, size=None, *, imag_key=None) -> np.ndarray:

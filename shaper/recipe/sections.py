@@ -9,14 +9,16 @@ from shaper.physics.systems import NAME, NAME_RULE, System
 from shaper.physics.targets import Target, gate, on_qubits, state_transfer
 from shaper.recipe.instrument import read_export
 from shaper.recipe.lines import read_line
-from shaper.recipe.memory import fits_in_memory
-from shaper.recipe.models import read_system
+from shaper.recipe.memory import fits_in_memory, fits_in_time
+from shaper.recipe.models import check_more_levels, read_system
 from shaper.recipe.schema import (
     DEFAULT_WEIGHTS,
     ENSEMBLE_RULES,
     GUESSES,
     LAB_FRAME,
     LAB_MODES,
+    MAX_SEED,
+    MAX_STARTS,
     METHODS,
     OptimizerSettings,
     Recipe,
@@ -55,6 +57,8 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                     line.oversample if filtered else 1,
                     lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame == "exact"
                     else 0)
+    fits_in_time(r, system, pulse, len(scales), export,
+                 line.oversample if filtered else 1, verdict)
     if optimizer.open_system and not system.collapse:
         r.fail("optimizer.open_system", "needs coherence times (system t1/t2, or collapse "
                                         "operators with rates) to optimise the channel")
@@ -171,6 +175,8 @@ def _check_cutoffs(r: _Reader, line, duration_s: float) -> None:
 
 
 MAX_RABI_HZ = 10e9  # a Rabi frequency above this is a unit slip, not a drive
+MAX_ENSEMBLE = 100  # values per ensemble list (their product is every member)
+MAX_DETUNING_HZ = 1e9  # an ensemble's detuning above this is a unit slip
 MAX_FLUX_HZ = 50e9  # a frequency excursion above this is too
 
 
@@ -226,7 +232,7 @@ def _pulse(r: _Reader, t: dict, system: System) -> dict:
                 limits_hz=limits, flux_ranges_hz=ranges,
                 bandwidth_hz=_bandwidths(r, t.get("bandwidth"), limits, rate),
                 max_out_of_band=r.number(t, "max_out_of_band", "pulse.max_out_of_band", 1e-3,
-                                         minimum=0.0),
+                                         positive=True, below=1),
                 zero_ends=r.flag(t, "zero_ends", "pulse.zero_ends", True), ramp_samples=ramp)
 
 
@@ -252,6 +258,9 @@ def _flux_ranges(r: _Reader, value, bb: list[str]) -> dict[str, tuple[float, flo
             r.fail(key, f"expected [lowest, highest], e.g. [\"-900 MHz\", 0], got {pair!r}")
         lo, hi = (parse_quantity(v, "frequency", key=f"{key}[{i}]", path=r.path)
                   for i, v in enumerate(pair))
+        if max(-lo, hi) > MAX_FLUX_HZ:
+            r.fail(key, f"{pair!r} reaches beyond {format_quantity(MAX_FLUX_HZ, 'Hz')}, "
+                        f"beyond any transmon's flux tuning; check the unit")
         if not lo <= 0 <= hi or not hi > lo:
             r.fail(key, f"expected lowest <= 0 <= highest with lowest < highest (the flux "
                         f"rests at 0 before and after the pulse), got [{lo:g}, {hi:g}] Hz")
@@ -276,8 +285,9 @@ def _bandwidths(r: _Reader, value, limits: dict[str, float],
     out = {}
     for c, (key, v) in items.items():
         cutoff = parse_quantity(v, "frequency", key=key, path=r.path)
-        if not cutoff >= 0:
-            r.fail(key, f"must be a positive frequency (or 0: no limit), got {v!r}")
+        if not cutoff > 0:  # 0 would drop the bandwidth target and say "targets met"
+            r.fail(key, f"must be a positive frequency, got {v!r}; to limit only some "
+                        f"channels give a table of them ({{q0 = \"80 MHz\"}})")
         if cutoff >= rate / 2:
             r.fail(key, f"the cutoff must lie below the Nyquist frequency "
                         f"{format_quantity(rate / 2, 'Hz')}")
@@ -294,10 +304,14 @@ def _cost(r: _Reader, t: dict, system: System):
     det = t.get("ensemble_detunings", [])
     scales = t.get("ensemble_scales", [])
     for key, val in (("ensemble_detunings", det), ("ensemble_scales", scales)):
-        if not isinstance(val, list):
-            r.fail(f"cost.{key}", f"expected a list, got {val!r}")
+        if not isinstance(val, list) or len(val) > MAX_ENSEMBLE:
+            r.fail(f"cost.{key}", f"expected a list of at most {MAX_ENSEMBLE} values, got "
+                                  f"{str(val)[:60]!r}{'...' if len(str(val)) > 60 else ''}")
     det_hz = [parse_quantity(v, "frequency", key=f"cost.ensemble_detunings[{i}]", path=r.path)
               for i, v in enumerate(det)] or [0.0]
+    for i, d in enumerate(det_hz):  # a calibration's uncertainty: MHz, not GHz
+        if abs(d) > MAX_DETUNING_HZ:
+            r.fail(f"cost.ensemble_detunings[{i}]", f"{det[i]!r} is beyond +-1 GHz; check the unit")
     for i, s in enumerate(scales):
         if isinstance(s, bool) or not isinstance(s, int | float) or not 0 < s < 10:
             r.fail(f"cost.ensemble_scales[{i}]", f"expected a factor between 0 and 10 "
@@ -322,20 +336,22 @@ def _optimizer(r: _Reader, t: dict) -> OptimizerSettings:
         max_iterations=r.number(t, "max_iterations", "optimizer.max_iterations",
                                 d.max_iterations, integer=True, minimum=1),
         target_infidelity=r.number(t, "target_infidelity", "optimizer.target_infidelity",
-                                   d.target_infidelity, positive=True),
+                                   d.target_infidelity, positive=True, below=1),
         target_leakage=r.number(t, "target_leakage", "optimizer.target_leakage",
-                                d.target_leakage, positive=True),
+                                d.target_leakage, positive=True, below=1),
         margin=r.number(t, "margin", "optimizer.margin", d.margin, minimum=1.0),
         max_time_s=r.number(t, "max_time", "optimizer.max_time", d.max_time_s, kind="time",
                             positive=True, bare_check=False),
         stall_iterations=r.number(t, "stall_iterations", "optimizer.stall_iterations",
                                   d.stall_iterations, integer=True, minimum=1),
-        seed=r.number(t, "seed", "optimizer.seed", d.seed, integer=True, minimum=0),
-        starts=r.number(t, "starts", "optimizer.starts", d.starts, integer=True, minimum=1),
+        seed=r.number(t, "seed", "optimizer.seed", d.seed, integer=True, minimum=0,
+                      maximum=MAX_SEED),
+        starts=r.number(t, "starts", "optimizer.starts", d.starts, integer=True, minimum=1,
+                        maximum=MAX_STARTS),
         initial=initial,
         drag_scale=r.number(t, "drag_scale", "optimizer.drag_scale", d.drag_scale),
         learning_rate=r.number(t, "learning_rate", "optimizer.learning_rate", d.learning_rate,
-                               positive=True),
+                               positive=True, maximum=10),  # the parameters are of order 1
         propagator=r.choice(t, "propagator", "optimizer.propagator", ("eigh", "pade"),
                             d.propagator),
         ensemble_targets=r.choice(t, "ensemble_targets", "optimizer.ensemble_targets",
@@ -409,5 +425,7 @@ def _verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
                      minimum=0)
     if extra > 8:
         r.fail("verdict.extra_levels", f"at most 8 levels more per transmon, got {extra}")
+    check_more_levels(r, t, system, extra)
     return VerdictSettings(lab_frame=lab, carrier_phase_deg=phase, carrier_phases=phases,
                            extra_levels=extra)
+

@@ -46,6 +46,12 @@ _PLAUSIBLE_BARE = {
 }
 
 
+def _shown(value) -> str:
+    """A value as an error quotes it: at most 60 characters, unprintable ones escaped."""
+    text = repr(value)
+    return text if len(text) <= 60 else text[:60] + "..."
+
+
 def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
                    bare_check: bool = True, hint: str | None = None) -> float:
     """Read a number with a unit and return it in SI units.
@@ -76,28 +82,28 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
         -220000000.0
     """
     if isinstance(value, bool):
-        raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
+        raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {_shown(value)}",
                           path=path, key=key)
     if isinstance(value, int | float):
         return _checked(float(value), kind, key, path, bare=bare_check, hint=hint)
     if not isinstance(value, str):
-        raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {value!r}",
+        raise RecipeError(f"expected a {kind} such as {_EXAMPLE[kind]}, got {_shown(value)}",
                           path=path, key=key)
     match = _NUMBER.match(value)
     if not match:
-        raise RecipeError(f"cannot read {value!r} as a {kind}; write it like {_EXAMPLE[kind]}",
-                          path=path, key=key)
+        raise RecipeError(f"cannot read {_shown(value)} as a {kind}; write it like "
+                          f"{_EXAMPLE[kind]}", path=path, key=key)
     number, unit = float(match.group(1)), (match.group(2) or "")
     if not unit:
         return _checked(number, kind, key, path, bare=bare_check, hint=hint)
     if unit not in UNITS:
         known = ", ".join(u for u, (k, _) in UNITS.items()
                           if k in _ACCEPTS[kind] and "μ" not in u and "µ" not in u)
-        raise RecipeError(f"unknown unit {unit!r} in {value!r}; a {kind} takes one of: {known}",
-                          path=path, key=key)
+        raise RecipeError(f"unknown unit {_shown(unit)} in {_shown(value)}; a {kind} takes "
+                          f"one of: {known}", path=path, key=key)
     unit_kind, scale = UNITS[unit]
     if unit_kind not in _ACCEPTS[kind]:
-        raise RecipeError(f"{value!r} is a {unit_kind}, but this key wants a {kind} "
+        raise RecipeError(f"{_shown(value)} is a {unit_kind}, but this key wants a {kind} "
                           f"such as {_EXAMPLE[kind]}", path=path, key=key)
     return _checked(number * scale, kind, key, path, bare=False)
 
@@ -105,7 +111,7 @@ def parse_quantity(value, kind: str, *, key: str, path: str | None = None,
 def _checked(value: float, kind: str, key: str, path: str | None, *, bare: bool,
              hint: str | None = None) -> float:
     if not math.isfinite(value):
-        raise RecipeError(f"expected a finite {kind}, got {value!r}", path=path, key=key)
+        raise RecipeError(f"expected a finite {kind}, got {_shown(value)}", path=path, key=key)
     plausible, unit = _PLAUSIBLE_BARE[kind]
     unit = hint or unit
     if bare and not plausible(value):
@@ -151,7 +157,7 @@ def parse_durations(text, *, key: str, path: str | None = None) -> list[float]:
             :data:`MAX_DURATIONS` points.
     """
     def fail(why: str):
-        raise RecipeError(f"{str(text)[:60]!r}: {why}", path=path, key=key)
+        raise RecipeError(f"{_shown(text)}: {why}", path=path, key=key)
 
     if not isinstance(text, str):
         fail("expected durations as text, e.g. \"12ns:24ns:4ns\" or \"10ns,20ns\"")
@@ -167,7 +173,7 @@ def parse_durations(text, *, key: str, path: str | None = None) -> list[float]:
             fail("needs start <= stop and a positive step")
         count = math.floor((stop - start) / step + 0.5) + 1
         if count > MAX_DURATIONS:
-            fail(f"{count} points; at most {MAX_DURATIONS} (a larger step?)")
+            fail(f"{count:.3g} points; at most {MAX_DURATIONS} (a larger step?)")
         values = [start + k * step for k in range(count)]
     else:
         parts = [p for p in text.split(",") if p.strip()]
