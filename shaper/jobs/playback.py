@@ -33,7 +33,8 @@ import numpy as np
 from shaper.costs.problem import has_ensemble, qubit_count, recipe_layout, waveform_problem
 from shaper.costs.verdict import Verdict, judge
 from shaper.io import waveio
-from shaper.physics.simulation import LabSimulation, Simulation, simulate
+from shaper.physics.lab_simulation import LabSimulation
+from shaper.physics.simulation import Simulation, simulate
 from shaper.recipe import Recipe
 from shaper.signal.analog import FINE
 from shaper.signal.chain import for_waveform, line_columns, ring_angle
@@ -157,7 +158,7 @@ class Playback:
         v = self.recipe.verdict
         if v.lab_frame == "off" or self.recipe.system.lab is None:
             return None
-        from shaper.physics.simulation import simulate_corrected
+        from shaper.physics.corrected import simulate_corrected
 
         play = self.faithful
         recipe, chain = play.recipe, play.chain
@@ -178,10 +179,10 @@ class Playback:
         faithful levels, the instrument's output and the line on the rotating frame's grid
         (extrapolated like :meth:`played` is not: the chain's own ``2 s`` slices), the lab
         frame to second order at the judged worst carrier phase (or the fixed one), the
-        recipe's T1/T2 over the footprint (:func:`shaper.physics.simulation.gate_map`), the
+        recipe's T1/T2 over the footprint (:func:`shaper.physics.corrected.gate_map`), the
         best frame updates applied. Keys: ``unitary`` or ``superoperator``, ``levels``,
         ``computational``, ``footprint_s``, ``phase_rad``, the frame angles."""
-        from shaper.physics.simulation import gate_map
+        from shaper.physics.corrected import gate_map
 
         play = self.faithful
         recipe, chain = play.recipe, play.chain.finer(2)
@@ -200,7 +201,7 @@ class Playback:
         v = self.recipe.verdict
         if v.lab_frame == "off" or self.recipe.system.lab is None:
             return None
-        from shaper.physics.simulation import simulate_lab
+        from shaper.physics.lab_simulation import simulate_lab
 
         play = self.faithful
         recipe = play.recipe

@@ -20,6 +20,7 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import NamedTuple
 
+from shaper.recipe.files import excerpt
 from shaper.recipe.units import format_quantity, parse_quantity
 
 MAX_ORDER = 8
@@ -240,8 +241,8 @@ def _measured(r, s: dict, where: str, rate: float) -> Stage:
     lines = data.decode("utf-8").splitlines()
     header = [h.strip() for h in lines[0].split(",")] if lines else []
     if header != ["time_s", "value"]:
-        r.fail(f"{where}.file", f"{path}: the first row must be the header time_s,value, got "
-                                f"{lines[0][:60] if lines else 'an empty file'!r}")
+        r.fail(f"{where}.file", f"{path}: the first row must be the header time_s,value"
+                                + ("" if lines else ", the file is empty"))
     if len(lines) > MAX_MEASURED_ROWS + 1:
         r.fail(f"{where}.file", f"{path}: more than {MAX_MEASURED_ROWS} rows")
     rows = []
@@ -255,7 +256,7 @@ def _measured(r, s: dict, where: str, rate: float) -> Stage:
             rows.append(None)
         if rows[-1] is None or not all(math.isfinite(v) for v in rows[-1]):
             r.fail(f"{where}.file", f"{path}, line {i}: expected two finite numbers "
-                                    f"(time_s,value), got {line[:60]!r}")
+                                    f"(time_s,value), got {excerpt(line)}")
     if len(rows) < 3:
         r.fail(f"{where}.file", f"{path}: needs at least 3 samples, has {len(rows)}")
     times = [t for t, _ in rows]
