@@ -140,13 +140,14 @@ class Playback:
     @cached_property
     def staircase(self) -> LabSimulation | None:
         """The same file in the lab frame from an instrument with no output filter (an
-        ideal staircase), at the judged worst carrier phase: the other end of what an
-        instrument can play (README, "The AWG's analog output"). None where there is no
-        lab frame or the recipe's output is already a staircase."""
+        ideal staircase), at the judged worst carrier phase, on the recipe's own levels:
+        the other end of what an instrument can play (README, "The AWG's analog
+        output"). None where there is no lab frame or the recipe's output is already a
+        staircase."""
         if not self.recipe.line.awg.stages or self.lab is None:
             return None
         worst = self.lab.phases_rad[int(np.argmax(self.lab.infidelities))]
-        return self._lab(awg=False, phases=(worst,))
+        return self._lab(awg=False, phases=(worst,), own_levels=True)
 
     @cached_property
     def corrected(self) -> dict | None:
@@ -197,13 +198,13 @@ class Playback:
                 "footprint_s": chain.played_samples(play.samples.shape[0]) * chain.period_s,
                 "phase_rad": phase}
 
-    def _lab(self, *, awg: bool, phases=None) -> LabSimulation | None:
+    def _lab(self, *, awg: bool, phases=None, own_levels: bool = False) -> LabSimulation | None:
         v = self.recipe.verdict
         if v.lab_frame == "off" or self.recipe.system.lab is None:
             return None
         from shaper.physics.lab_simulation import simulate_lab
 
-        play = self.faithful
+        play = self if own_levels else self.faithful
         recipe = play.recipe
         chain = play.chain if awg else for_waveform(recipe, play.wave, awg=False)
         n = play.samples.shape[0]
@@ -256,7 +257,7 @@ class Playback:
                                 "leakage": self.staircase.leakage,
                                 "what": "the same file in the lab frame from an instrument "
                                         "with no output filter (an ideal staircase), at the "
-                                        "judged worst carrier phase"}
+                                        "judged worst carrier phase, on the recipe's levels"}
         if self.corrected is not None:
             worst = np.max(self.corrected["figures"], axis=0)
             out["second_order"] = {"infidelity": float(worst[0]), "leakage": float(worst[1]),

@@ -75,16 +75,16 @@ GUIDE_SHARE = 0.02  # the second-order model may differ this much from the exact
 
 def guided_phases(run, guide: tuple[np.ndarray, np.ndarray]) -> tuple[dict, float, bool]:
     """The exact figures where the second-order model (``guide``: phases and their
-    ``[infidelity, leakage]``, :func:`simulate_corrected`) puts each figure's worst and
-    best phase and a quarter turn from the worst, and how far the model is from them.
+    ``[infidelity, leakage]``, :func:`shaper.physics.corrected.simulate_corrected`) puts
+    each figure's worst phase and the infidelity's best, and how far the model is from
+    them (its phase dependence is checked at its two ends).
 
     Returns ``(figures by phase, largest difference, whether the model holds)``: it holds
     when every difference is within :data:`GUIDE_SHARE` of the worst exact figure, so the
     true worst over all phases is within twice that of the worst found."""
     phases, values = guide
-    worst = int(np.argmax(values[:, 0]))
-    picks = {worst, int(np.argmax(values[:, 1])), int(np.argmin(values[:, 0])),
-             (worst + len(phases) // 2) % len(phases)}
+    picks = {int(np.argmax(values[:, 0])), int(np.argmax(values[:, 1])),
+             int(np.argmin(values[:, 0]))}
     figures = {float(phases[i]): run(float(phases[i])) for i in sorted(picks)}
     error = np.max([np.abs(figures[float(phases[i])] - values[i]) for i in picks], axis=0)
     top = np.max(np.array(list(figures.values())), axis=0)
