@@ -85,12 +85,24 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
                             scalings=open_scalings)
     dt = (problem.dt * problem.active)[:, None, None]
     if corrected is not None:
+        from shaper.physics.figures import apply_frame, average_gate_fidelity, leakage
         from shaper.signal.labdrive import smooth_worst
         u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                             method=method, extra=corrected.extra(samples)))
+        # the frame angles found once, without the kicks (which move them by about the
+        # kick's size): each phase then costs two small exponentials and a trace
+        base = figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
         phases = corrected.kicked(u, samples, jnp.sum(problem.dt * problem.active))
-        return smooth_worst(jax.vmap(lambda v: figures_of(
-            v, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z))(phases))
+        if not is_gate:
+            return smooth_worst(jax.vmap(lambda v: figures_of(
+                v, problem, qubits=qubits, is_gate=False, virtual_z=False))(phases))
+
+        def one(v):
+            p = project(v, problem.computational)
+            framed = apply_frame(p, base.frame_before, base.frame_after, qubits)
+            return base._replace(fidelity=average_gate_fidelity(framed, problem.target),
+                                 leakage=leakage(p))
+        return smooth_worst(jax.vmap(one)(phases))
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                         method=method))
     return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
