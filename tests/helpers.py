@@ -194,16 +194,21 @@ def verdict_code(report) -> int:
 
 
 def chip_text(name: str, qubits, *, single: str = '["X"]', durations: str = "10ns,12ns",
-              optimizer: str = "", couplings=()) -> str:
+              optimizer: str = "", couplings=(), pinned: bool = False) -> str:
     """An invented chip file for the tests: ``qubits`` as ``(name, frequency, anharmonicity,
-    levels or None)``, ``couplings`` as ``(a, b, strength)``, every drive limited to 60 MHz."""
+    levels or None)``, ``couplings`` as ``(a, b, strength)``, every drive limited to 60 MHz.
+    ``pinned``: Duffing transmons played as held samples, as the references here build
+    them (:func:`pinned`)."""
     text = f'name = "{name}"\n[gates]\nsingle = {single}\nsingle_durations = "{durations}"\n'
     if optimizer:
         text += f"[template.optimizer]\n{optimizer}\n"
+    if pinned:
+        text += '[template.awg]\nfilter = "none"\n'
     for q, frequency, anharmonicity, levels in qubits:
         text += (f'\n[[qubit]]\nname = "{q}"\nfrequency = "{frequency}"\n'
                  f'anharmonicity = "{anharmonicity}"\nmax_rabi = "60 MHz"\n'
-                 + (f"levels = {levels}\n" if levels else ""))
+                 + (f"levels = {levels}\n" if levels else "")
+                 + ('spectrum = "duffing"\n' if pinned else ""))
     for a, b, strength in couplings:
         text += f'\n[[coupling]]\nbetween = ["{a}", "{b}"]\nstrength = "{strength}"\n'
     return text

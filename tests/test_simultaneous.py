@@ -19,7 +19,7 @@ LEAK_AB, LEAK_BA = 0.06 + 0.02j, -0.03 + 0.04j
 def chip(extra: str = "") -> str:
     text = chip_text("duo", [("qa", "5.1 GHz", "-220 MHz", 3), ("qb", "5.35 GHz", "-210 MHz",
                                                                3)],
-                     couplings=[("qa", "qb", "5 MHz")])
+                     couplings=[("qa", "qb", "5 MHz")], pinned=True)
     text = text.replace("[gates]\n", "[gates]\nsimultaneous = true\n")
     return text + extra
 
@@ -113,16 +113,21 @@ def _independent(leak_ab: complex, leak_ba: complex) -> float:
 
 @pytest.mark.parametrize("extra,leaks", [(CROSSTALK, (LEAK_AB, LEAK_BA)), ("", (0, 0))])
 def test_gates_played_together_match_an_independent_integration(tmp_path, extra, leaks):
-    from shaper.jobs.chip_simultaneous import together
+    from dataclasses import asdict
+
+    from shaper.jobs.chip_simultaneous import mark_rows, play_pair, together_pairs
     from shaper.recipe.chip import load_chip
 
     (tmp_path / "chip.toml").write_text(chip(extra))
     _files(tmp_path)
     rows = _rows()
-    (found,) = together(load_chip(tmp_path / "chip.toml"), rows, tmp_path)
+    loaded = load_chip(tmp_path / "chip.toml")
+    assert together_pairs(loaded) == [("qa", "qb")]
+    (found,) = play_pair(loaded, "qa", "qb", [asdict(r) for r in rows], str(tmp_path))
     assert (found["pair"], found["gate"]) == ("qa-qb", "X")
     assert found["infidelity"] == pytest.approx(_independent(*leaks), rel=1e-5)
-    assert found["crosstalk"] == [leaks[0], leaks[1]]
+    assert [complex(*z) for z in found["crosstalk"]] == [leaks[0], leaks[1]]
+    mark_rows(rows, [found])
     assert rows[0].simultaneous_infidelity == found["infidelity"]
 
 

@@ -65,7 +65,7 @@ def test_a_chip_reports_each_pairs_zz_from_its_own_hamiltonian(tmp_path):
     path = tmp_path / "chip.toml"
     path.write_text(chip_text("zz", [("qa", "5.0 GHz", "-220 MHz", None),
                                       ("qb", "5.3 GHz", "-210 MHz", None)],
-                              couplings=[("qa", "qb", "6 MHz")]))
+                              couplings=[("qa", "qb", "6 MHz")], pinned=True))
     (pair,) = pair_zz(load_chip(path))
     full = static_zz(duffing_pair(4, 5.0e9, 5.3e9, -220e6, -210e6, 6e6, rwa=False), (4, 4))
     assert pair["pair"] == "qa-qb" and pair["levels"] == "4x4"
@@ -78,7 +78,7 @@ def test_a_chip_reports_each_pairs_zz_from_its_own_hamiltonian(tmp_path):
 
 NEIGHBOURS = chip_text("pairchip", [("q0", "5.1 GHz", "-220 MHz", None),
                                      ("q1", "5.4 GHz", "-210 MHz", None)],
-                       couplings=[("q0", "q1", "5 MHz")]).replace(
+                       couplings=[("q0", "q1", "5 MHz")], pinned=True).replace(
     "[gates]\n", "[gates]\nneighbour_levels = 4\n")
 
 
@@ -91,7 +91,7 @@ def test_a_gate_with_its_neighbour_present_matches_an_independent_simulation(tmp
     from helpers import pedersen_fidelity, subspace_leakage
 
     from shaper.io.waveio import read_waveform
-    from shaper.jobs.chip_pairs import played_elsewhere
+    from shaper.jobs.chip_pairs import played_elsewhere, task_of
     from shaper.jobs.gateset import GateRow
     from shaper.recipe.chip import load_chip
 
@@ -101,7 +101,7 @@ def test_a_gate_with_its_neighbour_present_matches_an_independent_simulation(tmp
     row = GateRow(gate="X", derived_from="", phase_deg=0.0, duration_s=0.0, samples=0,
                   infidelity=0.0, leakage=0.0, met=True, waveform="demo-x180.csv",
                   subject="q0")
-    where, playback = played_elsewhere(chip, row, demo)
+    where, playback = played_elsewhere(task_of(chip, row), row, demo)
     assert where == "near" and playback.recipe.system.qubit_names == ("q0", "q1")
     ours = playback.nominal  # the chip's 4 levels each, the virtual Z it chose
 
@@ -151,7 +151,7 @@ def test_a_gate_beside_its_neighbours_in_the_lab_frame_matches_an_independent_in
 
     import scipy.integrate
     import scipy.optimize
-    from helpers import pedersen_fidelity
+    from helpers import pedersen_fidelity, pinned
     from scipy.optimize import linear_sum_assignment
 
     from shaper.io.waveio import read_waveform
@@ -163,7 +163,7 @@ def test_a_gate_beside_its_neighbours_in_the_lab_frame_matches_an_independent_in
     task = next(t for t in chip.tasks if t.id == "q1-x")
     wave = read_waveform(ROOT / "results" / "wren-5" / "gates" / "q1-x" / "shortest" /
                          "wren-5-q1-x.csv")
-    raw = copy.deepcopy(task.recipe)
+    raw = pinned(copy.deepcopy(task.recipe))  # Duffing, held samples, as built below
     raw["verdict"] = {"lab_frame": "on", "extra_levels": 0, "carrier_phase_deg": 0}
     ours = Playback(load_recipe(raw), wave).lab
 

@@ -82,6 +82,10 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
         rows.append(row)
     for row in rows:
         row.subject = task.subject
+    if task.near is not None or task.alone is not None:  # the chip's heaviest physics, here
+        from shaper.jobs.chip_pairs import with_neighbours
+        for row in rows:
+            with_neighbours(task, row, root_path)
     return {"rows": [asdict(r) for r in rows], "compiles": sweep.compiles,
             "wall_time_s": time.monotonic() - started}
 
@@ -121,7 +125,7 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
             bar.set_postfix_str(f"{len(finished)}/{len(todo)} tasks", refresh=False)
             bar.update(weights[task.id])
     try:
-        _run_tasks(executor, todo, out, state, done, budget,
+        _run_tasks(executor, chip, todo, out, state, done, budget,
                    say=bar.write if bar is not None else echo, tick=tick)
     finally:
         if bar is not None:
@@ -133,7 +137,8 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
              f"{', '.join(missing)}; run again with --resume (and a budget) to finish them")
     state["wall_time_s"] = time.monotonic() - started
     atomic.write_json(out / "chip.json", state)
-    write_summary(chip, out, rows)
+    echo("writing the chip's tables, plots and page")
+    write_summary(chip, out, rows, together=_together_found(chip, state))
     return rows
 
 
@@ -175,26 +180,38 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
     return state
 
 
-def _run_tasks(executor, todo, out: Path, state: dict, done: dict, budget, *, say,
-               tick) -> None:
-    """Submit every task; record each as it finishes (chip.json written at once)."""
+def _run_tasks(executor, chip: Chip, todo, out: Path, state: dict, done: dict, budget, *,
+               say, tick) -> None:
+    """Submit every task; record each as it finishes (chip.json written at once). A pair's
+    gates played together (``[gates] simultaneous``) are units of their own, submitted as
+    soon as both qubits' gates are done and recorded beside the tasks."""
     futures = {executor.submit(run_task, t, str(out), budget): t for t in todo}
+    together = state.setdefault("together", {})
+    pending = list(futures)
+
+    def submit_pairs() -> None:
+        for pair, digest in _ready_pairs(chip, done, together):
+            a, b = pair.split("-")
+            rows = [r for t in chip.tasks if t.subject in (a, b) and t.id in done
+                    for r in done[t.id]]
+            future = executor.submit(_play_pair, chip, a, b, rows, str(out))
+            futures[future] = ("together", pair, digest)
+            pending.append(future)
+            together[pair] = {"digest": digest, "entries": None}
+    submit_pairs()
     try:
-        for future in executor.completed(list(futures)):
-            task = futures[future]
+        while pending:
+            future = next(iter(executor.completed(pending)))
+            pending.remove(future)
+            unit = futures[future]
             outcome = executor.result(future)
-            if outcome["rows"] is None:  # the budget ran out first: not finished
-                tick(task)
+            if isinstance(unit, tuple):  # a pair played together
+                together[unit[1]] = {"digest": unit[2], "entries": outcome}
+                atomic.write_json(out / "chip.json", state)
+                say(f"{unit[1]}: gates played together ({len(outcome)} gate(s))")
                 continue
-            state["tasks"][task.id] = {"digest": task.digest, "rows": outcome["rows"],
-                                       "compiles": outcome["compiles"],
-                                       "wall_time_s": outcome["wall_time_s"],
-                                       "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
-            atomic.write_json(out / "chip.json", state)
-            done[task.id] = outcome["rows"]
-            for row in outcome["rows"]:
-                say(describe(GateRow(**row)))
-            tick(task)
+            _record(unit, outcome, out, state, done, say, tick)
+            submit_pairs()
     except Exception as exc:
         lost = getattr(executor, "lost", lambda e: None)(exc)
         if lost is None:
@@ -202,9 +219,71 @@ def _run_tasks(executor, todo, out: Path, state: dict, done: dict, budget, *, sa
         raise lost from None
 
 
-def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
+def _record(task, outcome: dict, out: Path, state: dict, done: dict, say, tick) -> None:
+    """A finished task into chip.json (at once) and the progress."""
+    if outcome["rows"] is None:  # the budget ran out first: not finished
+        tick(task)
+        return
+    state["tasks"][task.id] = {"digest": task.digest, "rows": outcome["rows"],
+                               "compiles": outcome["compiles"],
+                               "wall_time_s": outcome["wall_time_s"],
+                               "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+    atomic.write_json(out / "chip.json", state)
+    done[task.id] = outcome["rows"]
+    for row in outcome["rows"]:
+        say(describe(GateRow(**row)))
+    tick(task)
+
+
+def _play_pair(chip, a: str, b: str, rows: list[dict], root: str) -> list[dict]:
+    """A worker's entry for one pair played together (chip_simultaneous.play_pair)."""
+    if "jax" not in sys.modules:  # a fresh worker: one thread, as the tasks' workers
+        from shaper.optimizer.parallel import _PINNED
+        os.environ.update(_PINNED)
+    from shaper.jobs.chip_simultaneous import play_pair
+    return play_pair(chip, a, b, rows, root)
+
+
+def _ready_pairs(chip: Chip, done: dict, together: dict) -> list[tuple[str, str]]:
+    """``(pair, digest)`` of every pair whose gates can be played together now and are
+    not recorded (or were recorded for other files): both qubits' tasks are done."""
+    if not chip.simultaneous:
+        return []
+    from shaper.jobs.chip_simultaneous import together_pairs
+    ready = []
+    for a, b in together_pairs(chip):
+        tasks = [t for t in chip.tasks if t.subject in (a, b)]
+        if not tasks or any(t.id not in done for t in tasks):
+            continue
+        digest = _digest([[t.digest for t in tasks], [a, b]])
+        known = together.get(f"{a}-{b}")
+        if known is None or known.get("digest") != digest:
+            ready.append((f"{a}-{b}", digest))
+    return ready
+
+
+def _digest(value) -> str:
+    import hashlib
+    import json
+    return hashlib.sha256(json.dumps(value, sort_keys=True).encode()).hexdigest()
+
+
+def _together_found(chip: Chip, state: dict) -> list[dict]:
+    """Every recorded pair's entries, in the chip's order of pairs (finished ones only)."""
+    if not chip.simultaneous:
+        return []
+    from shaper.jobs.chip_simultaneous import together_pairs
+    found = state.get("together", {})
+    return [e for a, b in together_pairs(chip)
+            for e in (found.get(f"{a}-{b}", {}).get("entries") or [])]
+
+
+def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
+                  together: list[dict] | None = None) -> list[Path]:
     """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png`` and the
-    self-contained ``chip.html`` (images embedded: open it in any browser, no server)."""
+    self-contained ``chip.html`` (images embedded: open it in any browser, no server),
+    from the finished rows and the pairs played together: it reads and writes, the
+    physics ran in the tasks."""
     from shaper.jobs.chip_page import (
         QUBIT_HEAD,
         neighbours_summary,
@@ -212,11 +291,11 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
         write_page,
         write_plots,
     )
-    from shaper.jobs.chip_pairs import pair_zz, with_neighbours, write_pairs
-    from shaper.jobs.chip_simultaneous import together, write_together
+    from shaper.jobs.chip_pairs import pair_zz, write_pairs
+    from shaper.jobs.chip_simultaneous import mark_rows, write_together
 
-    with_neighbours(chip, rows, out)  # every single-qubit gate alone and with neighbours
-    played_together = together(chip, rows, out) if chip.simultaneous else []
+    played_together = together or []
+    mark_rows(rows, played_together)
     files = write_table(out, "chip", rows)
     words = neighbours_summary(chip, rows)
     if words:

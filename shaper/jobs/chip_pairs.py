@@ -81,12 +81,11 @@ def task_of(chip: Chip, row):
     return None
 
 
-def played_elsewhere(chip: Chip, row, root: Path):
+def played_elsewhere(task, row, root: Path):
     """A single-qubit gate's exported file played on the other recipe of its task
     (README, "Chips: neighbours"): in its neighbourhood if it was optimised alone, alone
     if it was optimised in its neighbourhood. ``(where, Playback)`` with ``where`` one of
     ``"near"``, ``"alone"``; None for a pair's gate or a qubit without neighbours."""
-    task = task_of(chip, row)
     if task is None or (task.near is None and task.alone is None):
         return None
     where, raw = ("near", task.near) if task.near is not None else ("alone", task.alone)
@@ -106,40 +105,39 @@ def _playback(raw: dict, row, root: Path, **verdict):
     return Playback(load_recipe(raw), read_waveform(root / row.waveform))
 
 
-def with_neighbours(chip: Chip, rows, root: Path) -> None:
-    """Give every single-qubit gate row both figures, alone and with its neighbours: its
-    own verdict is one of them, its file played on the other recipe the other (each the
-    verdict's most faithful figure there), and the lab frame beside its neighbours
-    (:func:`near_lab`). A gate made beside its neighbours that misses there in the lab
-    frame is not met, and says why."""
-    for row in rows:
-        found = played_elsewhere(chip, row, root)
-        if found is None:
-            continue
-        where, playback = found
-        infidelity, leakage, _ = playback.trusted()
-        if where == "near":
-            row.neighbours_infidelity, row.neighbours_leakage = infidelity, leakage
-        else:
-            row.neighbours_infidelity, row.neighbours_leakage = row.infidelity, row.leakage
-            row.alone_infidelity, row.alone_leakage = infidelity, leakage
-            budget = playback.open_system  # T1/T2 of the qubit alone (closed neighbourhood)
-            if budget is not None:
-                row.coherent_error = budget["coherent_error"]
-                row.incoherent_error = budget["incoherent_error"]
-        near = near_lab(chip, row, root)
-        lab = near.lab
-        row.neighbours_lab_infidelity, row.neighbours_lab_leakage = lab.infidelity, lab.leakage
-        if where == "alone":
-            _judge_lab(row, near)
+def with_neighbours(task, row, root: Path) -> None:
+    """Give a single-qubit gate row of ``task`` both figures, alone and with its
+    neighbours: its own verdict is one of them, its file played on the task's other
+    recipe the other (each the verdict's most faithful figure there), and the lab frame
+    beside its neighbours (:func:`near_lab`). A gate made beside its neighbours that
+    misses there in the lab frame is not met, and says why. Runs in the task's worker
+    (:func:`shaper.jobs.chip.run_task`): the chip's summary only reads the rows."""
+    found = played_elsewhere(task, row, root)
+    if found is None:
+        return
+    where, playback = found
+    infidelity, leakage, _ = playback.trusted()
+    if where == "near":
+        row.neighbours_infidelity, row.neighbours_leakage = infidelity, leakage
+    else:
+        row.neighbours_infidelity, row.neighbours_leakage = row.infidelity, row.leakage
+        row.alone_infidelity, row.alone_leakage = infidelity, leakage
+        budget = playback.open_system  # T1/T2 of the qubit alone (closed neighbourhood)
+        if budget is not None:
+            row.coherent_error = budget["coherent_error"]
+            row.incoherent_error = budget["incoherent_error"]
+    near = near_lab(task, row, root)
+    lab = near.lab
+    row.neighbours_lab_infidelity, row.neighbours_lab_leakage = lab.infidelity, lab.leakage
+    if where == "alone":
+        _judge_lab(row, near)
 
 
-def near_lab(chip: Chip, row, root: Path):
+def near_lab(task, row, root: Path):
     """The row's file beside its neighbours in the lab frame (worst carrier phase), at the
     neighbourhood's own levels: the chip's neighbourhood verdict stays in the rotating
     frame (one level more), since the lab frame of every sweep point would cost 15-45 s
     each (README, "Chips: neighbours"); this is that figure for the file kept."""
-    task = task_of(chip, row)
     raw = task.near if task.near is not None else task.recipe
     return _playback(raw, row, root, lab_frame="on", extra_levels=0)
 

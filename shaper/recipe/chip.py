@@ -31,7 +31,7 @@ CHIP_KEYS = {
     "gates": ("single", "single_durations", "pair", "pair_durations", "fixed_pair",
               "fixed_pair_durations", "cross_resonance_rabi", "neighbours", "neighbour_levels",
               "simultaneous"),
-    "template": ("pulse", "cost", "optimizer", "export", "line", "verdict"),
+    "template": ("pulse", "cost", "optimizer", "export", "line", "awg", "verdict"),
     "qubit": ("name", "frequency", "anharmonicity", "levels", "max_rabi", "t1", "t2", "flux",
               "max_flux", "flux_range", "spectrum", "offset_charge"),
     "coupling": ("between", "strength"),
@@ -169,6 +169,9 @@ def _template(r: _Reader, template: dict, raw: dict) -> dict:
     # found beside the chip file, wherever the task runs (README, "Chips")
     check_line_files(template.get("line"), base, "template.line", r.fail)
     resolve_files(template.get("line", {}), base)
+    if isinstance(template.get("awg"), dict):  # a measured output response, beside the chip
+        check_line_files({"awg": template["awg"]}, base, "template", r.fail)
+        resolve_files({"awg": template["awg"]}, base)
     from shaper.recipe.load import check_first_guess
     found = check_first_guess(r, template.get("optimizer", {}).get("initial"), base,
                               "template.optimizer.initial")

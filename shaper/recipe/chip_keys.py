@@ -17,7 +17,7 @@ import re
 QUBIT_KEYS = {"qubit_frequency": "frequency", "anharmonicity": "anharmonicity",
               "levels": "levels", "t1": "t1", "t2": "t2", "spectrum": "spectrum",
               "offset_charge": "offset_charge", "flux": "flux"}
-TEMPLATE_SECTIONS = ("cost", "optimizer", "export", "verdict", "line")
+TEMPLATE_SECTIONS = ("cost", "optimizer", "export", "verdict", "line", "awg")
 
 
 def qubit_key(name: str, field: str = "") -> str:
