@@ -40,7 +40,8 @@ def pair_recipe(chip, a: str, b: str, label: str) -> dict:
                 "coupling": couplings, "drive": drives},
             "gate": {"target": [label, label], "virtual_z": True},
             "pulse": {**pulse, "max_rabi": {**limits, f"{a}_to_{b}": 0, f"{b}_to_{a}": 0}},
-            "verdict": {"lab_frame": "off", "extra_levels": 0}}
+            "verdict": {"lab_frame": "off", "extra_levels": 0},
+            **({"awg": base["awg"]} if "awg" in base else {})}  # the chip's instrument
 
 
 def together_pairs(chip) -> list[tuple[str, str]]:
