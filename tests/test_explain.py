@@ -8,7 +8,7 @@ import json
 from pathlib import Path
 
 import pytest
-from helpers import demo_text, verdict_code
+from helpers import demo_text, pinned_text, verdict_code
 from helpers import run_cli as cli
 
 from shaper.jobs.explain import explain
@@ -154,7 +154,7 @@ def test_a_coarse_dac_in_the_recipe_is_named_as_quantisation(tmp_path):
     assert "export.dac_bits" in report["explanation"][0]["next"]
 
 
-SPECTATOR = """name = "beside"
+SPECTATOR = pinned_text("""name = "beside"
 [system]
 model = "transmons"
 basis = "dressed"
@@ -185,7 +185,7 @@ max_iterations = 300
 [verdict]
 lab_frame = "off"
 extra_levels = 1
-"""
+""")  # the Duffing ladder of the formula below
 
 
 def test_a_neighbours_zz_is_named_where_it_is_most_of_the_miss(tmp_path):
