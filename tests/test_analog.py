@@ -498,6 +498,35 @@ def test_second_order_model_reproduces_the_bloch_siegert_shift():
     assert vertex == pytest.approx(expected, rel=0.01), (vertex, expected, shift)
 
 
+def test_optimiser_in_the_second_order_model_removes_the_bloch_siegert_error():
+    # optimizer.lab_frame = "corrected": a 4 ns pi pulse on a two-level system (5 GHz, up to
+    # 300 MHz, 2 GS/s, the default output) optimised in the rotating frame ("off") misses
+    # in the lab frame by the Bloch-Siegert shift Omega^2 / (4 f_q) it does not know (Bloch
+    # and Siegert, Phys. Rev. 57, 522 (1940)); optimised in the second-order model it
+    # holds. Both judged by our own solve_ivp of the lab frame through our Bessel, to 3 ns
+    # after the file, at one carrier phase (measured: 6.8e-5 and 3.5e-9 at every phase).
+    from shaper import optimize
+
+    static, drive, n = duffing_lab(2, 5e9, -220e6)
+    output = lowpass_ss("bessel", 4, 0.8e9)
+    worst = {}
+    for mode in ("off", "corrected"):
+        result = optimize({
+            "name": "second-order", "system": {
+                "model": "transmon", "levels": 2, "qubit_frequency": "5 GHz",
+                "anharmonicity": "-220 MHz", "spectrum": "duffing"},
+            "gate": {"target": "X"},
+            "pulse": {"duration": "4 ns", "sample_rate": "2 GS/s", "max_rabi": "300 MHz"},
+            "optimizer": {"lab_frame": mode, "escalate": False},
+            "verdict": {"extra_levels": 0}})
+        worst[mode] = max(_figures(lab_frame_played(
+            static, [(drive, 5e9, 0, 1)], 5e9, n, result.samples, 2e9, [output, output],
+            len(result.samples) / 2e9 + 3e-9, phase_rad=phase), X)[0]
+            for phase in (0.0,))
+    assert worst["off"] > 1e-5
+    assert worst["corrected"] < 1e-7, worst
+
+
 def test_second_order_model_on_a_coupled_pair_against_the_exact_lab_frame():
     # two coupled Duffing transmons (charge coupling g D_a D_b, README "[system]"), an X on
     # the first through the default output: the second-order model's per-phase figures
@@ -536,7 +565,7 @@ def test_ordinary_transmon_sweep_keeps_a_file_that_meets_its_targets_on_the_chip
     # output filter its report states (trust.output.awg) on our own charge-model transmon
     # (Koch et al. 2007, tests/helpers.py; E_J, E_C as the report's system_model) with the
     # verdict's levels, in the lab frame to the end of the stated footprint: it meets the
-    # recipe's targets at the judged worst phase and two others, and agrees with the
+    # recipe's targets at the judged worst phase and a quarter turn on, and agrees with the
     # report's judged figure
     import json
 
@@ -554,7 +583,7 @@ def test_ordinary_transmon_sweep_keeps_a_file_that_meets_its_targets_on_the_chip
     assert ec == pytest.approx(report["system_model"]["q0"]["ec_hz"], rel=1e-9)
     output = lowpass_ss(awg["kind"], awg["order"], awg["cutoff_hz"])
     worst = trust["lab_frame"]["worst_phase_rad"]
-    for phase in (worst, worst + np.pi / 3, worst + 2 * np.pi / 3):
+    for phase in (worst, worst + np.pi / 2):
         u = lab_frame_played(np.diag(energies).astype(complex), [(drive, 4.37e9, 0, 1)],
                              4.37e9, np.arange(levels), wave.to_hz(recipe.system), 2e9,
                              [output, output], trust["output"]["footprint_s"],
