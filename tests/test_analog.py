@@ -367,6 +367,8 @@ def test_worst_phase_of_the_bundled_short_pulse_and_its_second_order_model():
     corrected = play.corrected
     assert np.allclose(corrected["phases_rad"], PHASES_64)
     assert np.max(np.abs(corrected["figures"][:, 0] - scan)) < 1e-3 * scan.max()
+    added = scan - play.more_levels.nominal.infidelity  # what the lab frame adds
+    assert np.max(np.abs(corrected["figures"][:, 0] - scan)) < 0.05 * np.min(np.abs(added))
     block = play.trust_block()["second_order"]
     assert block["infidelity"] == pytest.approx(corrected["figures"][:, 0].max(), rel=1e-12)
 
@@ -528,25 +530,27 @@ def test_optimiser_in_the_second_order_model_removes_the_bloch_siegert_error():
 
 
 def test_second_order_model_on_a_coupled_pair_against_the_exact_lab_frame():
-    # two coupled Duffing transmons (charge coupling g D_a D_b, README "[system]"), an X on
-    # the first through the default output: the second-order model's per-phase figures
-    # against the exact lab frame at the same phases (the exact one checked against solve_ivp
-    # above and in tests/test_labframe.py)
+    # two coupled Duffing transmons (charge coupling g D_a D_b, README "[system]"; dressed
+    # basis), a 12 ns pi pulse on the first through the default output: the second-order
+    # model's per-phase figures against the exact lab frame at the same phases (the exact
+    # one checked against solve_ivp above and in tests/test_labframe.py). Judged on what
+    # the counter-rotating terms add to the rotating frame (measured 3.7e-6 .. 4.9e-6,
+    # moving with the phase; the second-order model within 2e-8 of it)
     recipe = load_recipe({
         "name": "pair", "system": {
-            "model": "transmons",
-            "transmon": [{"name": "qa", "levels": 3, "qubit_frequency": "5.0 GHz",
+            "model": "transmons", "basis": "dressed",
+            "transmon": [{"name": "qa", "levels": 2, "qubit_frequency": "5.0 GHz",
                           "anharmonicity": "-220 MHz", "spectrum": "duffing"},
                          {"name": "qb", "levels": 3, "qubit_frequency": "5.4 GHz",
                           "anharmonicity": "-210 MHz", "spectrum": "duffing"}],
-            "coupling": [{"between": ["qa", "qb"], "strength": "15 MHz"}]},
+            "coupling": [{"between": ["qa", "qb"], "strength": "3 MHz"}]},
         "gate": {"target": "X", "on": ["qa"], "virtual_z": True},
-        "pulse": {"duration": "6 ns", "sample_rate": "2.5 GS/s", "max_rabi": "200 MHz"},
+        "pulse": {"duration": "12 ns", "sample_rate": "2.5 GS/s", "max_rabi": "200 MHz"},
         "verdict": {"extra_levels": 0}})
-    k = np.arange(15)
-    drive = np.sin(np.pi * (k + 0.5) / 15) ** 2
+    k = np.arange(30)
+    drive = np.sin(np.pi * (k + 0.5) / 30) ** 2
     drive *= 0.5 * 2.5e9 / drive.sum() / 200e6
-    fractions = np.zeros((15, 4))
+    fractions = np.zeros((30, 4))
     fractions[:, 0] = drive
     names = recipe.system.control_names
     wave = Waveform(fractions, 2.5e9, {"qa": 200e6, "qb": 200e6}, tuple(names))
@@ -554,7 +558,9 @@ def test_second_order_model_on_a_coupled_pair_against_the_exact_lab_frame():
     corrected = play.corrected
     picked = corrected["phases_rad"][::32]
     exact = np.asarray(play._lab(awg=True, phases=tuple(picked)).infidelities)
-    np.testing.assert_allclose(corrected["figures"][::32, 0], exact, rtol=0.05)
+    added = exact - play.nominal.infidelity
+    assert np.all(np.abs(added) > 1e-6)
+    assert np.all(np.abs(corrected["figures"][::32, 0] - exact) < 0.05 * np.abs(added))
 
 
 # -- 6. the ordinary transmon of issue 30: the kept file, checked independently ----------
