@@ -212,3 +212,224 @@ def chip_text(name: str, qubits, *, single: str = '["X"]', durations: str = "10n
     for a, b, strength in couplings:
         text += f'\n[[coupling]]\nbetween = ["{a}", "{b}"]\nstrength = "{strength}"\n'
     return text
+
+
+# --- the instrument's analog output and the line played to its end (issue 30), from scipy
+# alone: nothing below calls shaper
+
+
+def bessel_step(order: int, cutoff_hz: float):
+    """The step response ``s(t)`` (t in seconds, 0 before 0) of the analog Bessel low-pass of
+    ``order`` with its -3 dB point at ``cutoff_hz`` (scipy.signal.bessel, norm="mag"), in
+    closed form: the partial fractions of H(s)/s (scipy.signal.residue), designed at unit
+    cutoff (well conditioned) and scaled in time (s(t) = s_1(2 pi f_c t))."""
+    import scipy.signal
+
+    b, a = scipy.signal.bessel(order, 1.0, analog=True, norm="mag")
+    r, p, k = scipy.signal.residue(b, np.polymul(a, [1.0, 0.0]))
+    assert not len(k)  # strictly proper
+    w = 2 * np.pi * cutoff_hz
+
+    def step(t):
+        x = w * np.asarray(t, float)
+        val = np.real(np.exp(np.multiply.outer(np.clip(x, 0.0, None), p)) @ r)
+        return np.where(x >= 0, val, 0.0)
+    return step
+
+
+def gaussian_step(cutoff_hz: float):
+    """The step response of the zero-phase Gaussian low-pass with |H| = 1/sqrt(2) (-3 dB) at
+    ``cutoff_hz``: |H(f)| = exp(-f^2 / (2 s^2)) is the transform of a normal density of
+    standard deviation 1 / (2 pi s) in time, and -3 dB at f_c gives s = f_c / sqrt(ln 2), so
+    s(t) = Phi(t / sigma) with sigma = sqrt(ln 2) / (2 pi f_c) (common practice, no source)."""
+    from scipy.special import ndtr
+
+    sigma = np.sqrt(np.log(2.0)) / (2 * np.pi * cutoff_hz)
+    return lambda t: ndtr(np.asarray(t, float) / sigma)
+
+
+def interpolated_step(times_s, values):
+    """A measured step response: linear between the measured points, normalised to its
+    settled (last) value, 0 before the first point and settled after the last."""
+    times_s, values = np.asarray(times_s, float), np.asarray(values, float)
+    return lambda t: np.interp(np.asarray(t, float), times_s, values / values[-1], left=0.0,
+                               right=1.0)
+
+
+def held_output(step, samples, period_s: float, times_s) -> np.ndarray:
+    """The output at ``times_s`` of a linear stage with step response ``step`` driven by held
+    samples: each sample is a step up at its start and a step down one period later, so
+    y(t) = sum_m u_m [s(t - m T) - s(t - (m + 1) T)] (superposition, common practice, no
+    source). ``samples`` ``(n,)`` or ``(n, k)``."""
+    t = np.subtract.outer(np.asarray(times_s, float), np.arange(len(samples)) * period_s)
+    return (step(t) - step(t - period_s)) @ np.asarray(samples, float)
+
+
+def lowpass_ss(kind: str, order: int, cutoff_hz: float):
+    """``(A, B, C, D)`` of an analog low-pass (scipy.signal.bessel with norm="mag", or
+    scipy.signal.butter), -3 dB at ``cutoff_hz``, time in nanoseconds."""
+    import scipy.signal
+
+    w = 2 * np.pi * cutoff_hz * 1e-9  # rad/ns
+    if kind == "bessel":
+        b, a = scipy.signal.bessel(order, w, analog=True, norm="mag")
+    else:
+        b, a = scipy.signal.butter(order, w, analog=True)
+    return tuple(np.atleast_2d(np.asarray(m, float)) for m in scipy.signal.tf2ss(b, a))
+
+
+def settling_ss(amplitudes, time_constants_s):
+    """``(A, B, C, D)`` (time in ns) of settling terms whose step response is
+    ``1 + sum_k A_k exp(-t / tau_k)`` (the README's fit form), by hand: states
+    ``z_k' = -z_k / tau_k + u``, output ``(1 + sum A) u - sum (A_k / tau_k) z_k`` (its step
+    response: 1 + sum A - sum A_k (1 - exp(-t / tau_k)))."""
+    amplitudes = np.asarray(amplitudes, float)
+    taus = np.asarray(time_constants_s, float) * 1e9
+    return (np.diag(-1.0 / taus), np.ones((len(taus), 1)), (-amplitudes / taus)[None, :],
+            np.array([[1.0 + amplitudes.sum()]]))
+
+
+def cascade_ss(*stages):
+    """Stages in series (the first one nearest the DAC): one ``(A, B, C, D)``."""
+    a, b, c, d = stages[0]
+    for a2, b2, c2, d2 in stages[1:]:
+        n1, n2 = a.shape[0], a2.shape[0]
+        a = np.block([[a, np.zeros((n1, n2))], [b2 @ c, a2]])
+        b = np.vstack([b, b2 @ d])
+        c = np.hstack([d2 @ c, c2])
+        d = d2 @ d
+    return a, b, c, d
+
+
+def lab_frame_played(static, channels, frame_hz, excitations, samples, rate, filters,
+                     end_s, *, phase_rad=0.0, rwa=False, rtol=1e-12) -> np.ndarray:
+    """An independent lab-frame integration of a file as the chip receives it: the held
+    samples through each column's analog filter, integrated *together with* the
+    Schroedinger equation by scipy's solve_ivp (DOP853), one held sample per piece (the
+    input is smooth inside it), on to ``end_s`` after the last sample (the ring-down, input
+    zero).
+
+    ``H_lab/h = static + sum_c eps_c(t) D_c`` (README "Conventions"): an I/Q channel
+    ``(D, f_c, i, q)`` plays ``eps = I(t) cos(2 pi f_c t + phi) + Q(t) sin(2 pi f_c t + phi)``
+    (``phi`` the carrier's phase at the first sample's start), a baseband channel
+    ``(D, None, u, None)`` plays ``eps = u(t)``; ``I, Q, u`` are the filters' outputs
+    (``filters[column]``: ``(A, B, C, D)`` in ns, or None for the held staircase itself).
+    Integrated in the frame ``R(t) = exp(i N theta(t))``, ``theta = 2 pi f t + phi``, an
+    exact change of variables: ``H' = R H R^dag - f N``, ``(R X R^dag)_mn = X_mn exp(i
+    (N_m - N_n) theta)``. ``rwa``: keep only the terms that do not turn (the rotating-wave
+    model of "Conventions", every carrier at the frame). Returns the gate in that frame,
+    ``R(end) U R(0)^dag`` at ``end_s`` (a list of ends: one gate for each). Times in ns,
+    energies in GHz inside.
+    """
+    from scipy.integrate import solve_ivp
+
+    d = static.shape[0]
+    f = frame_hz * 1e-9
+    dn = np.subtract.outer(np.asarray(excitations), np.asarray(excitations)).astype(float)
+    drift = static * 1e-9 - f * np.diag(np.asarray(excitations, float))
+    if rwa:
+        drift = np.where(dn == 0, static * 1e-9, 0) - f * np.diag(np.asarray(excitations,
+                                                                             float))
+    samples = np.asarray(samples, float) * 1e-9  # GHz
+    period = 1e9 / rate
+    columns = samples.shape[1]
+    blocks, offset = [], d * d
+    for col in range(columns):
+        ss = filters[col]
+        size = 0 if ss is None else ss[0].shape[0]
+        blocks.append((ss, slice(offset, offset + size)))
+        offset += size
+    drives = []
+    for op, carrier, i, q in channels:
+        op = np.asarray(op, complex)
+        if carrier is None:
+            drives.append((None, op * (dn == 0) if rwa else op, i, q, op))
+        else:
+            if rwa:
+                assert abs(carrier - frame_hz) < 1e-6
+            drives.append((carrier * 1e-9, op, i, q, None))
+
+    def rhs(t, y, held):
+        values = np.empty(columns)
+        for col, (ss, where) in enumerate(blocks):
+            if ss is None:
+                values[col] = held[col]
+            else:
+                a, b, c, dd = ss
+                x = y[where].real
+                values[col] = (c @ x)[0] + dd[0, 0] * held[col]
+        theta = 2 * np.pi * f * t + phase_rad
+        turn = np.exp(1j * theta * dn)
+        h = drift if rwa else static * 1e-9 * turn - f * np.diag(np.asarray(excitations,
+                                                                           float))
+        h = h.astype(complex)
+        for carrier, op, i, q, _ in drives:
+            if carrier is None:
+                h = h + values[i] * (op if rwa else op * turn)
+                continue
+            if rwa:
+                up = 0.5 * (values[i] + 1j * values[q])
+                h = h + up * op * (dn == 1) + np.conj(up) * op * (dn == -1)
+                continue
+            phase = 2 * np.pi * carrier * t + phase_rad
+            eps = values[i] * np.cos(phase) + values[q] * np.sin(phase)
+            h = h + eps * op * turn
+        out = np.empty_like(y)
+        out[:d * d] = (-2j * np.pi * h @ y[:d * d].reshape(d, d)).ravel()
+        for col, (ss, where) in enumerate(blocks):
+            if ss is not None:
+                a, b, c, dd = ss
+                out[where] = a @ y[where].real + b[:, 0] * held[col]
+        return out
+
+    y = np.zeros(offset, complex)
+    y[:d * d] = np.eye(d).ravel()
+    ends = [round(e * 1e9, 9) for e in np.atleast_1d(end_s)]
+    # pieces: every held sample, then one stretch of zero input to each requested end
+    edges = sorted({*(round(k * period, 9) for k in range(len(samples) + 1)), *ends})
+    edges = [e for e in edges if e <= max(ends)]
+    found = {}
+    for start, stop in zip(edges[:-1], edges[1:], strict=True):
+        k = int(np.floor(start / period + 1e-9))
+        held = samples[k] if k < len(samples) else np.zeros(columns)
+        sol = solve_ivp(rhs, (start, stop), y, method="DOP853", rtol=rtol,
+                        atol=rtol * 1e-2, args=(held,))
+        y = sol.y[:, -1]
+        for e in ends:
+            if abs(e - stop) < 1e-9:
+                found[e] = y[:d * d].reshape(d, d)
+    units = [found[e] for e in ends]
+    return units if np.ndim(end_s) else units[0]
+
+
+def charge_transmon(levels, qubit_hz, alpha_hz, *, offset_charge=0.0, cutoff=25):
+    """The Cooper-pair box of Koch et al., Phys. Rev. A 76, 042319 (2007), by hand:
+    ``H = 4 E_C (n - n_g)^2 - E_J cos(phi)`` in the charge basis ``n = -cutoff..cutoff``
+    (``cos phi`` couples n and n + 1 with 1/2), E_J and E_C solved (scipy.optimize.fsolve,
+    from the asymptotic f01 ~ sqrt(8 E_J E_C) - E_C, alpha ~ -E_C) so that the exact f01 and
+    alpha are the given ones. Returns ``(E_J, E_C, energies (levels,), D)`` with ``D =
+    n / <0|n|1>`` in the eigenbasis, each eigenvector signed so that ``<k|n|k+1> > 0``."""
+    from scipy.optimize import fsolve
+
+    n = np.arange(-cutoff, cutoff + 1, dtype=float)
+
+    def solve(ej, ec):
+        h = np.diag(4 * ec * (n - offset_charge) ** 2) - 0.5 * ej * (
+            np.eye(len(n), k=1) + np.eye(len(n), k=-1))
+        return scipy.linalg.eigh(h)
+
+    def mismatch(x):
+        e = solve(*x)[0]
+        return [(e[1] - e[0]) - qubit_hz, (e[2] - e[1]) - (e[1] - e[0]) - alpha_hz]
+
+    ec0 = -alpha_hz
+    ej0 = (qubit_hz + ec0) ** 2 / (8 * ec0)
+    ej, ec = fsolve(mismatch, [ej0, ec0], xtol=1e-14)
+    energies, vectors = solve(ej, ec)
+    vectors = vectors[:, :levels].copy()
+    charge = vectors.T @ np.diag(n - offset_charge) @ vectors
+    for k in range(1, levels):  # sign each vector so that <k-1|n|k> > 0
+        if charge[k - 1, k] < 0:
+            vectors[:, k] *= -1
+            charge = vectors.T @ np.diag(n - offset_charge) @ vectors
+    return ej, ec, energies[:levels] - energies[0], (charge / charge[0, 1]).astype(complex)
