@@ -56,7 +56,7 @@ def next_model(recipe: Recipe, playback: Playback, tried: list[str]) -> tuple[st
         return None
     levels = extra if more is not None else 0
     if recipe.optimizer.lab_frame == "off" and "lab frame (second order)" not in tried \
-            and playback.corrected is not None:
+            and playback.corrected is not None and recipe.line.awg.stages:
         return "lab frame (second order)", _on_levels(recipe, levels, "corrected")
     if "lab frame (exact)" not in tried:
         return "lab frame (exact)", _on_levels(recipe, levels, "exact")

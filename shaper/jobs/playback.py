@@ -210,7 +210,7 @@ class Playback:
         n = play.samples.shape[0]
         before = chain.before((0.5,), n)
         fixed = v.phases_rad() if len(v.phases_rad()) == 1 else phases
-        guide = self.corrected if awg and fixed is None else None
+        guide = self.corrected if awg and fixed is None and not v.spread else None
         return simulate_lab(recipe.system, recipe.target,
                             lambda offsets, halved: chain.lab_envelope(
                                 play.samples, offsets, FINE // 2 if halved else FINE),

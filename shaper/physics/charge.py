@@ -15,6 +15,7 @@ the qubit frequency), so no truncation of the charge basis enters a figure.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -104,6 +105,7 @@ def levels(ej_hz: float, ec_hz: float, count: int, *, offset_charge: float = 0.0
                         energies_hz=w - w[0], charge_matrix=matrix)
 
 
+@functools.lru_cache(maxsize=256)
 def fit(qubit_frequency_hz: float, anharmonicity_hz: float, *,
         offset_charge: float = 0.0) -> tuple[float, float]:
     """``(E_J, E_C)`` in Hz whose exact levels give ``f01`` and ``alpha = f12 - f01``.

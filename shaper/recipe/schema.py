@@ -174,6 +174,7 @@ class VerdictSettings:
     carrier_phase_deg: float | None = None
     carrier_phases: int = 8
     extra_levels: int = 2
+    spread: bool = False  # carrier_phases given: a spread of them, not the guided search
 
     def __post_init__(self):
         _require(self.lab_frame in LAB_FRAME, "lab_frame", self.lab_frame)

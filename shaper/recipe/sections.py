@@ -43,7 +43,7 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     if export.predistort and not line.active:
         r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
     verdict = read_verdict(r, r.table(raw, "verdict", "verdict"), system)
-    optimizer = resolve_lab(r, optimizer, system, verdict)
+    optimizer = resolve_lab(r, optimizer, system, verdict, filtered=bool(line.awg.stages))
     filtered = bool(line.awg.stages) or (line.active and not export.predistort)
     fits_in_memory(r, system, pulse, len(scales), export,
                     line.oversample if filtered else 1,

@@ -99,7 +99,7 @@ class Chain:
     @property
     def identity(self) -> bool:
         return not self.if_hz and not self.line and self.mixer is None and not self.carriers \
-            and not self.lead and not self.tail and not self.ring
+            and not self.lead and not self.tail and not self.ring and self.steps == 1
 
     def played_samples(self, n: int) -> int:
         """AWG sample periods simulated for an input of ``n`` samples: the padding and the
