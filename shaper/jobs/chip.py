@@ -247,7 +247,7 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
              f"{', '.join(missing)}; run again with --resume (and a budget) to finish them")
     state["wall_time_s"] = time.monotonic() - started
     atomic.write_json(out / "chip.json", state)
-    write_summary(chip, out, rows)
+    write_summary(chip, out, rows, echo=echo)
     return rows
 
 
@@ -309,9 +309,11 @@ def _run_tasks(executor, todo, out: Path, state: dict, done: dict, budget, *, sa
         raise lost from None
 
 
-def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
-    """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png`` and the
-    self-contained ``chip.html`` (images embedded: open it in any browser, no server)."""
+def write_summary(chip: Chip, out: Path, rows: list[GateRow], *, echo=print) -> list[Path]:
+    """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png``, predicted RB
+    (``benchmarking.json`` and a decay plot per qubit and pair) and the self-contained
+    ``chip.html`` (images embedded: open it in any browser, no server)."""
+    from shaper.jobs.benchmarking_report import chip_block, page_section, write_block
     from shaper.jobs.chip_page import (
         QUBIT_HEAD,
         neighbours_summary,
@@ -324,6 +326,7 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
 
     with_neighbours(chip, rows, out)  # every single-qubit gate alone and with neighbours
     played_together = together(chip, rows, out) if chip.simultaneous else []
+    benchmarking = chip_block(chip, rows, out, echo=echo)  # before the table: its columns
     files = write_table(out, "chip", rows)
     words = neighbours_summary(chip, rows)
     if words:
@@ -341,8 +344,11 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow]) -> list[Path]:
         files.append(write_together(out, played_together))
     images = write_plots(out, chip, rows)
     files += images
+    extra = write_block(out, benchmarking, "chip.md")  # benchmarking.json, a plot each
+    files += extra
+    images += [p for p in extra if p.suffix == ".png"]
     files.append(write_page(out / "chip.html", chip, rows, images, pairs=pairs,
-                            together=played_together))
+                            together=played_together, benchmarking=page_section(benchmarking)))
     return files
 
 
