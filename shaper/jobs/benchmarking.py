@@ -53,10 +53,18 @@ LEAVES_OUT = ("state preparation and measurement errors (they move A and B, not 
               "the sequencer's own timing beyond the slot")
 
 
-def physical(playbacks: Mapping[str, object]) -> dict[str, object]:
-    """The set's physical gates (X, Y, +-X/2, +-Y/2, ...), their names upper-case."""
-    return {str(k).strip().upper(): pb for k, pb in playbacks.items()
-            if str(k).strip().upper() in ROTATIONS}
+def physical(playbacks: Mapping[str, object], *, check: bool = False) -> dict[str, object]:
+    """The set's physical gates (X, Y, +-X/2, +-Y/2, ...), their names upper-case.
+
+    Raises:
+        InputError: with ``check``, none of them physical.
+    """
+    out = {str(k).strip().upper(): pb for k, pb in playbacks.items()
+           if str(k).strip().upper() in ROTATIONS}
+    if check and not out:
+        raise InputError(f"no physical gate to benchmark among {', '.join(playbacks)}; "
+                         f"give some of {', '.join(ROTATIONS)}")
+    return out
 
 
 def idle_map(playback, seconds: float) -> np.ndarray:
@@ -98,10 +106,7 @@ def slot_maps(playbacks: Mapping[str, object], *, slot_s: float | None = None
         InputError: no physical gate, a slot shorter than a footprint, or maps on
             different levels.
     """
-    gates = physical(playbacks)
-    if not gates:
-        raise InputError(f"no physical gate to benchmark among {', '.join(playbacks)}; "
-                         f"give some of {', '.join(ROTATIONS)}")
+    gates = physical(playbacks, check=True)
     mapped = {name: pb.gate_map for name, pb in gates.items()}
     levels = {tuple(m["levels"]) for m in mapped.values()}
     if len(levels) != 1 or len(next(iter(levels))) != 1:
@@ -196,9 +201,10 @@ def predict_qubit(playbacks: Mapping[str, object], *, compilation: str = "shorte
         InputError: gates that cannot make every Clifford, or bad maps.
     """
     started = time.perf_counter()
+    # refused before any file is played: a set that cannot make every Clifford
+    comp = compile_cliffords(list(physical(playbacks, check=True)), method=compilation)
     maps, gates, slot = slot_maps(playbacks, slot_s=slot_s)
     mapped_s = time.perf_counter() - started
-    comp = compile_cliffords(list(maps.gates), method=compilation)
     rb = predict_rb(maps, compilation=comp, lengths=lengths)
     check = cross_check(maps, comp, rb, sequences=sequences, seed=seed)
     inter = {}

@@ -74,41 +74,41 @@ def chip_block(chip, rows, root: Path, *, echo: Callable = print) -> dict:
     pair with a pair gate (sampled, on the chip's own levels; the cost said first)."""
     from shaper.jobs.chip_pairs import _playback, task_of
 
+    def files(q: str, **verdict) -> dict:
+        return {r.gate: _playback(task_of(chip, r).alone_recipe, r, root, **verdict)
+                for r in _physical_rows([r for r in rows if r.subject == q])}
     out = {"qubits": {}, "pairs": {}}
     for q in chip.qubits:
-        mine = _physical_rows([r for r in rows if r.subject == q])
+        mine = files(q)
         if mine:
-            out["qubits"][q] = _qubit({r.gate: _playback(task_of(chip, r).alone_recipe, r,
-                                                         root) for r in mine}, q, echo)
+            out["qubits"][q] = _qubit(mine, q, echo)
+    at_chip_levels = {}  # a qubit's files on the chip's own levels, shared by its pairs
     for a, b in chip.pairs:
         pair = next((r for r in rows if r.subject == f"{a}-{b}"), None)
-        if pair is not None:
-            out["pairs"][f"{a}-{b}"] = _pair(chip, rows, root, pair, (a, b), echo,
-                                             _playback, task_of)
+        if pair is None:
+            continue
+        for q in (a, b):
+            at_chip_levels.setdefault(q, files(q, extra_levels=0))
+        out["pairs"][f"{a}-{b}"] = _pair(
+            pair, _playback(task_of(chip, pair).recipe, pair, root, extra_levels=0),
+            (at_chip_levels[a], at_chip_levels[b]), echo)
     annotate(rows, out)
     return out
 
 
-def _pair(chip, rows, root, pair, names, echo, playback, task_of) -> dict:
+def _pair(row, playback, sets: tuple[dict, dict], echo) -> dict:
     from shaper.jobs.benchmarking import predict_pair
 
-    subject = f"{names[0]}-{names[1]}"
-    sets = []
-    for q in names:
-        mine = _physical_rows([r for r in rows if r.subject == q])
-        sets.append({r.gate: playback(task_of(chip, r).alone_recipe, r, root, extra_levels=0)
-                     for r in mine})
     try:
         if not all(sets):
-            raise InputError(f"a qubit of {subject} has no single-qubit gate")
-        block = predict_pair(pair.gate, playback(task_of(chip, pair).recipe, pair, root,
-                                                 extra_levels=0), tuple(sets),
-                             sequences=PAIR_SEQUENCES, max_seconds=PAIR_MAX_SECONDS,
-                             echo=lambda text: echo(f"{subject}: {text}"))
+            raise InputError(f"a qubit of {row.subject} has no single-qubit gate")
+        block = predict_pair(row.gate, playback, sets, sequences=PAIR_SEQUENCES,
+                             max_seconds=PAIR_MAX_SECONDS,
+                             echo=lambda text: echo(f"{row.subject}: {text}"))
     except InputError as exc:
-        echo(f"{subject}: no predicted two-qubit RB: {exc}")
+        echo(f"{row.subject}: no predicted two-qubit RB: {exc}")
         return {"skipped": str(exc)}
-    echo(f"{subject}: predicted two-qubit error per Clifford "
+    echo(f"{row.subject}: predicted two-qubit error per Clifford "
          f"{block['error_per_clifford']:.3e} +- {block['error_per_clifford_error']:.1e} "
          f"({block['seconds']['total']:.1f} s)")
     return block
