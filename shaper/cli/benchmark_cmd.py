@@ -30,6 +30,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--sequences", type=int, default=200,
                         help="random sequences of the sampled cross-check (default 200)")
     parser.add_argument("--seed", type=int, default=0, help="of the random sequences")
+    parser.add_argument("--t1", help="energy relaxation time of the transmon (e.g. 40us): "
+                                     "T1/T2 over every gate's footprint and the idles")
+    parser.add_argument("--t2", help="its coherence time, as --t1 (T2 <= 2 T1)")
     parser.add_argument("--json", action="store_true", help="print the block as JSON only")
     parser.add_argument("--plot", metavar="PNG", help="write the decay plot there")
 
@@ -39,6 +42,13 @@ def run(args: argparse.Namespace) -> int:
     from shaper.recipe import load_recipe
 
     recipe = load_recipe(args.recipe)
+    if args.t1 or args.t2:
+        from shaper.recipe.derive import with_coherence
+        from shaper.recipe.units import parse_quantity
+
+        recipe = with_coherence(recipe, *(
+            None if not text else [parse_quantity(text, "time", key=flag, hint="us")]
+            for text, flag in ((args.t1, "--t1"), (args.t2, "--t2"))))
     options = {"compilation": args.compilation, "sequences": args.sequences,
                "seed": args.seed}
     if args.lengths:
