@@ -263,6 +263,7 @@ def test_the_command_prints_the_prediction(made, tmp_path):
     data = json.loads(out)
     met = [pb.verdict().met for pb in made.playbacks.values()]
     assert code == (0 if all(met) else 1), err
+    assert [data["targets"][g]["met"] for g in made.playbacks] == met
     assert data["benchmarking"]["error_per_clifford"] == pytest.approx(
         made.block["error_per_clifford"], rel=1e-9)
     assert (tmp_path / "rb.png").stat().st_size > 10_000

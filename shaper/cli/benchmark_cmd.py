@@ -66,13 +66,15 @@ def run(args: argparse.Namespace) -> int:
         from shaper.jobs.plots import plot_benchmark
         plot_benchmark(args.plot, block, title=f"{recipe.name}: predicted RB")
     if args.json:
-        print(json.dumps({"benchmarking": block, "met": met}))
+        print(json.dumps({"benchmarking": block, "targets": met}))
     else:
         _print_summary(recipe.name, block, met)
-    return 0 if all(met.values()) else 1
+    return 0 if all(v["met"] for v in met.values()) else 1
 
 
-def _print_summary(name: str, b: dict, met: dict) -> None:
+def _print_summary(name: str, b: dict, verdicts: dict) -> None:
+    from shaper.costs.verdict import summary
+
     comp, gi, check, fit = b["compilation"], b["gate_independent"], b["cross_check"], \
         b["rb"]["fit"]
     print(f"predicted RB of {name} from {len(b['gates'])} file(s) ({b['levels']} levels; "
@@ -96,6 +98,6 @@ def _print_summary(name: str, b: dict, met: dict) -> None:
     for gate, i in b["interleaved"].items():
         print(f"  {gate}: interleaved r_C {i['gate_error']:.3e} (true error within +- "
               f"{i['bound']:.1e}); its map's infidelity {i['gate_infidelity']:.3e}, judged "
-              f"{i['judged_infidelity']:.3e}, {'met' if met.get(gate) else 'NOT met'}")
+              f"{i['judged_infidelity']:.3e}: {summary(verdicts[gate])}")
     print(f"  not in it: {'; '.join(b['leaves_out'])}")
     print(f"  took {b['seconds']['total']:.1f} s", file=sys.stderr)

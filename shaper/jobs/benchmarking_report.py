@@ -271,7 +271,8 @@ def gate_of(spec: str) -> tuple[str, Path]:
 
 def files_block(recipe, specs, *, echo: Callable = print, **options) -> tuple[dict, dict]:
     """``shaper benchmark``: predicted RB of the files ``specs`` (:func:`gate_of`) on the
-    recipe's system (one transmon), and each file's verdict (``{gate: met}``)."""
+    recipe's system (one transmon), and each file's verdict (``{gate: {"met", "missed",
+    ...}}``, :meth:`shaper.costs.verdict.Verdict.as_dict`)."""
     from shaper.io.waveform_import import read_any
     from shaper.jobs.benchmarking import predict_qubit
     from shaper.jobs.playback import Playback
@@ -287,4 +288,4 @@ def files_block(recipe, specs, *, echo: Callable = print, **options) -> tuple[di
         one = for_gate(recipe, gate)
         playbacks[gate] = Playback(one, read_any(path, one.system))
     block = predict_qubit(playbacks, **options)
-    return block, {gate: pb.verdict().met for gate, pb in playbacks.items()}
+    return block, {gate: pb.verdict().as_dict() for gate, pb in playbacks.items()}
