@@ -35,7 +35,12 @@ import numpy as np
 
 from shaper.errors import InputError
 from shaper.physics.benchmarking import DEFAULT_LENGTHS, average, clifford_maps, predict_rb
-from shaper.physics.clifford import ROTATIONS, compile_cliffords, single_qubit_cliffords
+from shaper.physics.clifford import (
+    ROTATIONS,
+    compile_cliffords,
+    op_unitary,
+    single_qubit_cliffords,
+)
 from shaper.physics.gate_maps import QubitMaps, as_superoperator, channel_figures
 from shaper.physics.interleaved import predict_interleaved
 
@@ -124,7 +129,7 @@ def slot_maps(playbacks: Mapping[str, object], *, slot_s: float | None = None
         pad = max(slot - m["footprint_s"], 0.0)
         s = idle_map(first, pad) @ _map_of(m, name)
         out[name] = s
-        infidelity, leakage = channel_figures(s, _ideal(name), (d,))
+        infidelity, leakage = channel_figures(s, op_unitary(name), (d,))
         judged = gates[name].trusted()
         info[name] = {"footprint_s": m["footprint_s"], "padding_s": pad,
                       "map_infidelity": infidelity, "map_leakage": leakage,
@@ -139,11 +144,6 @@ def slot_maps(playbacks: Mapping[str, object], *, slot_s: float | None = None
     return QubitMaps(d, out, idle), info, slot_info
 
 
-def _ideal(name: str) -> np.ndarray:
-    from shaper.physics.clifford import op_unitary
-    return op_unitary(name)
-
-
 def gate_independent(maps: QubitMaps, compilation) -> dict:
     """What the EPC is for gate-independent noise: the mean average infidelity of the 24
     compiled Cliffords (Magesan, Gambetta and Emerson 2011), and the gates' own
@@ -152,7 +152,7 @@ def gate_independent(maps: QubitMaps, compilation) -> dict:
     cmaps = clifford_maps(maps, compilation)
     figures = [channel_figures(s, u, (maps.levels,)) for s, u in
                zip(cmaps, group.unitaries, strict=True)]
-    own = {g: channel_figures(s, _ideal(g), (maps.levels,))[0] for g, s in maps.gates.items()}
+    own = {g: channel_figures(s, op_unitary(g), (maps.levels,))[0] for g, s in maps.gates.items()}
     idle = channel_figures(maps.idle, np.eye(2), (maps.levels,))[0]
     summed = [sum(own[op] if op in own else idle if op == "I" else 0.0 for op in seq)
               for seq in compilation.sequences]
@@ -215,14 +215,9 @@ def predict_qubit(playbacks: Mapping[str, object], *, compilation: str = "shorte
                        if k not in ("reference", "interleaved")}
         inter[name]["p_interleaved"] = result.interleaved.fit.decay
         inter[name]["judged_infidelity"] = gates[name]["judged_infidelity"]
-    figures = rb.figures()
-    leak = figures["leakage"]
-    return {"qubits": 1, "levels": maps.levels, "error_per_clifford": rb.error_per_clifford,
-            "error_per_clifford_error": rb.error_per_clifford_error,
+    return {"levels": maps.levels, **_decay(rb),
             "error_per_pulse": rb.error_per_clifford / max(comp.mean_physical, 1e-300),
-            "leakage_per_clifford": None if leak is None else leak["leakage_per_clifford"],
-            "compilation": figures["compilation"], "slot": slot, "gates": gates,
-            "rb": {k: v for k, v in figures.items() if k != "compilation"},
+            "slot": slot, "gates": gates,
             "interleaved": inter, "gate_independent": gate_independent(maps, comp),
             "cross_check": check, "includes": list(INCLUDES), "leaves_out": list(LEAVES_OUT),
             "seconds": {"maps": mapped_s, "total": time.perf_counter() - started}}
@@ -286,20 +281,23 @@ def predict_pair(pair_gate: str, pair_playback, playbacks: tuple[Mapping, Mappin
     rb = predict_pair_rb(pair_gate, _map_of(mapped, pair_gate), tuple(qubit_maps),
                          lengths=lengths, sequences=sequences, seed=seed)
     judged = pair_playback.trusted()
-    figures = rb.figures()
-    leak = figures["leakage"]
-    return {"qubits": 2, "levels": list(levels), "pair_gate": pair_gate,
-            "error_per_clifford": rb.error_per_clifford,
-            "error_per_clifford_error": rb.error_per_clifford_error,
-            "leakage_per_clifford": None if leak is None else leak["leakage_per_clifford"],
-            "compilation": figures["compilation"], "cost_stated": cost,
+    return {"levels": list(levels), "pair_gate": pair_gate, **_decay(rb), "cost_stated": cost,
             "slot": {"slot_s": slot, "rule": SCHEDULE,
                      "pair_gate_footprint_s": mapped["footprint_s"]},
             "pair": {"judged_infidelity": judged[0], "judged_leakage": judged[1],
                      "judged_on": judged[2], "carrier_phase_rad": mapped["phase_rad"],
                      "frame_before_rad": mapped["frame_before_rad"],
                      "frame_after_rad": mapped["frame_after_rad"]},
-            "gates": qubit_gates, "rb": {k: v for k, v in figures.items()
-                                         if k != "compilation"},
-            "includes": list(INCLUDES), "leaves_out": list(LEAVES_OUT),
+            "gates": qubit_gates, "includes": list(INCLUDES), "leaves_out": list(LEAVES_OUT),
             "seconds": {"total": time.perf_counter() - started}}
+
+
+def _decay(rb) -> dict:
+    """A :class:`shaper.physics.benchmarking.Benchmark`'s figures as the block holds them."""
+    figures = rb.figures()
+    leak = figures["leakage"]
+    return {"qubits": rb.qubits, "error_per_clifford": rb.error_per_clifford,
+            "error_per_clifford_error": rb.error_per_clifford_error,
+            "leakage_per_clifford": None if leak is None else leak["leakage_per_clifford"],
+            "compilation": figures["compilation"],
+            "rb": {k: v for k, v in figures.items() if k != "compilation"}}
