@@ -274,9 +274,11 @@ def test_the_command_prints_the_prediction(made, tmp_path):
 class Stub:
     """A Playback's face for the two-qubit wiring: a given map; reading it is recorded."""
 
-    def __init__(self, mapped: dict, system, log: list):
+    def __init__(self, mapped: dict, system, log: list, slices: int = 100):
         self._mapped, self.log = mapped, log
-        self.faithful = SimpleNamespace(recipe=SimpleNamespace(system=system))
+        played = SimpleNamespace(shape=(slices,))  # what the chain's slices would be
+        self.faithful = SimpleNamespace(recipe=SimpleNamespace(system=system), samples=None,
+                                        chain=SimpleNamespace(finer=lambda k: lambda s: played))
 
     @property
     def gate_map(self) -> dict:
@@ -288,6 +290,7 @@ class Stub:
 
 
 def test_two_qubit_rb_of_a_depolarising_pair_gate(tmp_path):
+    from shaper.errors import InputError
     from shaper.jobs.benchmarking import predict_pair
     from shaper.recipe import load_recipe
 
@@ -303,12 +306,13 @@ def test_two_qubit_rb_of_a_depolarising_pair_gate(tmp_path):
     cz[4, 4] = -1
     projector = np.diag([1.0 if i in (0, 1, 3, 4) else 0.0 for i in range(9)])
 
-    def pair(strength):
+    def pair(strength, slices=100):
         s = (1 - strength) * np.kron(cz.conj(), cz) + strength * np.outer(
             (projector / 4).reshape(-1), np.eye(9).reshape(-1))
         return Stub({"superoperator": s, "levels": [3, 3], "computational": [0, 1, 3, 4],
                      "footprint_s": 40e-9, "phase_rad": None, "frame_before_rad": [0, 0],
-                     "frame_after_rad": [0, 0]}, SimpleNamespace(dims=(3, 3)), log)
+                     "frame_after_rad": [0, 0]},
+                    SimpleNamespace(dims=(3, 3), dimension=9, collapse=(1,)), log, slices)
     said = []
     ideal = predict_pair("CZ", pair(0.0), (qubit, qubit), sequences=10,
                          echo=lambda text: said.append((text, len(log))))
@@ -325,3 +329,6 @@ def test_two_qubit_rb_of_a_depolarising_pair_gate(tmp_path):
     fit = noisy["rb"]["fit"]
     assert fit["p"] == pytest.approx(p, abs=4 * fit["p_error"] + 1e-3)
     assert noisy["compilation"]["mean_pair_gates_per_clifford"] == pytest.approx(1.5)
+    # a map that would not fit in this machine is refused before it is built
+    with pytest.raises(InputError, match="needs about .* GB"):
+        predict_pair("CZ", pair(0.0, slices=10 ** 12), (qubit, qubit), echo=said.append)

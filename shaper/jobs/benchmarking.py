@@ -88,6 +88,29 @@ def idle_map(playback, seconds: float) -> np.ndarray:
     return as_superoperator(mapped.get("superoperator", mapped.get("unitary")), d, "idle")
 
 
+def check_memory(playback, name: str) -> None:
+    """Refuse a file whose map would not fit in this machine, before it is built: the map
+    of an open system holds about :data:`shaper.recipe.memory.BYTES_PER_ENTRY` bytes per
+    slice and superoperator entry (measured: a cross-resonance pair on 4 x 4 levels with
+    T1, 2344 slices, asked for 2344 x 16^4 x 256 bytes = 39 GB at once), a closed one the
+    same per unitary entry.
+
+    Raises:
+        InputError: more than this machine has free, with the figures.
+    """
+    from shaper.recipe.memory import BYTES_PER_ENTRY, available_memory
+
+    play = playback.faithful
+    system = play.recipe.system
+    slices = play.chain.finer(2)(play.samples).shape[0]
+    entries = system.dimension ** (4 if system.collapse else 2)
+    need, free = slices * entries * BYTES_PER_ENTRY, available_memory()
+    if need > free:
+        raise InputError(f"the map of {name} ({slices} slices on {system.dimension} levels"
+                         f"{' with T1/T2' if system.collapse else ''}) needs about "
+                         f"{need / 1e9:.3g} GB, {free / 1e9:.3g} GB free")
+
+
 def _map_of(mapped: dict, name: str) -> np.ndarray:
     d = int(np.prod(mapped["levels"]))
     return as_superoperator(mapped.get("superoperator", mapped.get("unitary")), d, name)
@@ -112,6 +135,8 @@ def slot_maps(playbacks: Mapping[str, object], *, slot_s: float | None = None
             different levels.
     """
     gates = physical(playbacks, check=True)
+    for name, pb in gates.items():
+        check_memory(pb, name)
     mapped = {name: pb.gate_map for name, pb in gates.items()}
     levels = {tuple(m["levels"]) for m in mapped.values()}
     if len(levels) != 1 or len(next(iter(levels))) != 1:
@@ -267,6 +292,7 @@ def predict_pair(pair_gate: str, pair_playback, playbacks: tuple[Mapping, Mappin
     if max_seconds is not None and cost["estimated_seconds"] > max_seconds:
         raise InputError(f"two-qubit RB would take about {cost['estimated_seconds']:.3g} s, "
                          f"more than {max_seconds:g} s; use fewer sequences or lengths")
+    check_memory(pair_playback, pair_gate)
     slot = max(pb.gate_map["footprint_s"] for p in playbacks for pb in physical(p).values())
     qubit_maps, qubit_gates = [], []
     for p in playbacks:
