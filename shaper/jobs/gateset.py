@@ -250,6 +250,7 @@ def _benchmark(recipe: Recipe, rows: list[GateRow], out: Path, *, echo, plots: b
     with ``plots``, a decay plot drawn by ``draw``)."""
     from shaper.jobs.benchmarking_report import gate_set_block, write_block
 
+    write_table(out, "gateset", rows)  # the gates first, whatever the prediction does
     block = gate_set_block(recipe, rows, out, echo=echo)
     write_table(out, "gateset", rows)
     write_block(out, block, "gateset.md", plots=plots, draw=draw)
