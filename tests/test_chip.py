@@ -340,6 +340,11 @@ def test_chip_page_opens_in_a_headless_browser(chip_runs, tmp_path):
     assert "with neighbours, lab frame" in dom and "alone: infidelity" in dom
     together = re.search(r'<table id="together">(.*?)</table>', dom, flags=re.S).group(1)
     assert together.count("<tr>") == 5  # the head and qa-qb, qb-qc played X and Y at once
+    # predicted RB: X and Y cannot make every Clifford, said for each qubit and pair
+    bench = re.search(r'<table id="benchmarking">(.*?)</table>', dom, flags=re.S).group(1)
+    assert bench.count("skipped") == 3 and "of the 24" in bench
+    assert "skipped" in re.search(r'<table id="benchmarking-pairs">(.*?)</table>', dom,
+                                  flags=re.S).group(1)
     assert "http" not in re.sub(r"https?://www\.w3\.org", "", page.read_text())  # no fetches
 
 

@@ -25,6 +25,8 @@ COMMANDS = {
     "chip": ("shaper.cli.chip_cmd", "every gate of a chip at its shortest duration, locally "
                                     "or on a Dask cluster"),
     "check": ("shaper.cli.check_cmd", "simulate any waveform on a recipe's system and judge it"),
+    "benchmark": ("shaper.cli.benchmark_cmd", "predict the randomized benchmarking of a set "
+                                              "of files (a qubit's gates)"),
     "export": ("shaper.cli.export_cmd", "re-export an earlier run for another instrument"),
     "bench": ("shaper.cli.bench_cmd", "time the propagator's value and gradient against a "
                                       "SciPy reference"),

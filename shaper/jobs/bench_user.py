@@ -11,6 +11,8 @@ Every row is a ratio of two things timed in this run, each the fastest of a few 
   ensemble (detunings x amplitude scales) against the nominal objective.
 - open system: the same recipe's objective with T1/T2 (the Lindblad channel) against
   the closed one.
+- predicted RB (full mode): an X and an X/2 file's predicted randomized benchmarking
+  against one verdict of one file.
 """
 
 from __future__ import annotations
@@ -223,7 +225,54 @@ def _dimension(raw: dict) -> int:
     return int(np.prod([t["levels"] for t in raw["system"]["transmon"]]))
 
 
-def markdown(startup: list[dict], objectives: list[dict], recipe: str) -> list[str]:
+def benchmarking_rows(recipe: Path, *, repeats: int) -> list[dict]:
+    """Predicted RB (:mod:`shaper.jobs.benchmarking`) of an X and an X/2 file on the
+    recipe's system (Gaussian DRAG pulses of its duration, Motzoi et al., Phys. Rev. Lett.
+    103, 110501 (2009)) against one verdict of one of those files, both from fresh
+    Playbacks (each file played as the chip plays it), warm, in this process."""
+    from shaper.jobs.benchmarking import predict_qubit, slot_maps
+    from shaper.jobs.export import make_waveform
+    from shaper.jobs.playback import Playback
+    from shaper.recipe import load_recipe
+    from shaper.recipe.derive import for_gate
+    from shaper.signal.pulses import gaussian_shape, rotation_area
+
+    base = load_recipe(recipe)
+    files = {}
+    for label in ("X", "X/2"):
+        one = for_gate(base, label)
+        s = np.zeros((one.samples, len(one.system.control_names)))
+        i, q = one.system.iq_columns()[0]
+        s[:, i] = rotation_area(label) * gaussian_shape(one.samples, one.dt)
+        alpha = one.system.transition_frequencies[one.system.channels[0].name]
+        s[:, q] = -np.gradient(s[:, i], one.dt) / (2 * np.pi * (alpha["f12_hz"]
+                                                                - alpha["f01_hz"]))
+        files[label] = (one, make_waveform(one, s, one.export, one.sample_rate_hz)[0])
+
+    def fresh():
+        return {g: Playback(r, w) for g, (r, w) in files.items()}
+    maps = slot_maps(fresh())[0]  # also primes every compiled program
+    predict_qubit(fresh())
+    from shaper.physics.benchmarking import predict_rb
+    from shaper.physics.interleaved import predict_interleaved
+
+    def from_maps():
+        reference = predict_rb(maps)
+        for g in maps.gates:
+            predict_interleaved(maps, g, reference=reference)
+    verdict = best_time(lambda: Playback(*files["X"]).verdict(), repeats)
+    whole = best_time(lambda: predict_qubit(fresh()), repeats)
+    alone = best_time(from_maps, repeats)
+    what = f"levels {maps.levels}, lengths up to 2048"
+    return [{"what": f"predicted RB of X and X/2, their files played ({what}) / one "
+                     f"verdict of one file", "ms": 1e3 * whole, "baseline_ms": 1e3 * verdict,
+             "ratio": whole / verdict},
+            {"what": f"of which RB and interleaved RB from the maps ({what}) / one verdict",
+             "ms": 1e3 * alone, "baseline_ms": 1e3 * verdict, "ratio": alone / verdict}]
+
+
+def markdown(startup: list[dict], objectives: list[dict], recipe: str,
+             benchmarking: list[dict] = ()) -> list[str]:
     lines = []
     if startup:
         lines += ["", f"Whole commands on `{recipe}` in a fresh process (fastest of the tries; "
@@ -238,4 +287,10 @@ def markdown(startup: list[dict], objectives: list[dict], recipe: str) -> list[s
                   "|---|---|---|---|"]
         lines += [f"| {r['what']} | {r['ms']:.3f} | {r['baseline_ms']:.3f} | "
                   f"{r['ratio']:.2f}x |" for r in objectives]
+    if benchmarking:
+        lines += ["", f"Predicted randomized benchmarking on `{recipe}`'s system against one "
+                      "verdict of one file (fastest of the tries, warm, fresh Playbacks).", "",
+                  "| prediction | ms | one verdict (ms) | ratio |", "|---|---|---|---|"]
+        lines += [f"| {r['what']} | {r['ms']:.1f} | {r['baseline_ms']:.1f} | "
+                  f"{r['ratio']:.2f}x |" for r in benchmarking]
     return lines

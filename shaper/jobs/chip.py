@@ -138,7 +138,8 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
     state["wall_time_s"] = time.monotonic() - started
     atomic.write_json(out / "chip.json", state)
     echo("writing the chip's tables, plots and page")
-    write_summary(chip, out, rows, together=_together_found(chip, state))
+    write_summary(chip, out, rows, together=_together_found(chip, state),
+                  echo=echo)
     return rows
 
 
@@ -279,11 +280,12 @@ def _together_found(chip: Chip, state: dict) -> list[dict]:
 
 
 def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
-                  together: list[dict] | None = None) -> list[Path]:
-    """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png`` and the
-    self-contained ``chip.html`` (images embedded: open it in any browser, no server),
-    from the finished rows and the pairs played together: it reads and writes, the
-    physics ran in the tasks."""
+                  together: list[dict] | None = None, echo=print) -> list[Path]:
+    """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png``, predicted RB
+    (``benchmarking.json`` and a decay plot per qubit and pair) and the self-contained
+    ``chip.html`` (images embedded: open it in any browser, no server), from the finished
+    rows and the pairs played together."""
+    from shaper.jobs.benchmarking_report import chip_block, page_section, write_block
     from shaper.jobs.chip_page import (
         QUBIT_HEAD,
         neighbours_summary,
@@ -296,6 +298,7 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
 
     played_together = together or []
     mark_rows(rows, played_together)
+    benchmarking = chip_block(chip, rows, out, echo=echo)  # before the table: its columns
     files = write_table(out, "chip", rows)
     words = neighbours_summary(chip, rows)
     if words:
@@ -313,8 +316,11 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
         files.append(write_together(out, played_together))
     images = write_plots(out, chip, rows)
     files += images
+    extra = write_block(out, benchmarking, "chip.md")  # benchmarking.json, a plot each
+    files += extra
+    images += [p for p in extra if p.suffix == ".png"]
     files.append(write_page(out / "chip.html", chip, rows, images, pairs=pairs,
-                            together=played_together))
+                            together=played_together, benchmarking=page_section(benchmarking)))
     return files
 
 

@@ -181,11 +181,14 @@ def _gate_table(rows) -> tuple[list[str], list[str]]:
     budget = any(r.incoherent_error is not None for r in rows)
     near = any(r.neighbours_infidelity is not None for r in rows)
     alone = any(r.alone_infidelity is not None for r in rows)
+    rb = any(r.predicted_epc is not None for r in rows)
     head = ["subject", "gate", "from", "duration (ns)", "infidelity", "leakage", "met",
             "virtual Z before / after (rad)"] + (
         ["T1/T2: coherent + incoherent error"] if budget else []) + (
         ["with neighbours: infidelity, leakage", "with neighbours, lab frame"]
-        if near else []) + (["alone: infidelity, leakage"] if alone else []) + ["waveform"]
+        if near else []) + (["alone: infidelity, leakage"] if alone else []) + (
+        ["predicted RB: error per Clifford; interleaved r_C (bound E)"] if rb else []) + [
+        "waveform"]
     lines = []
     for r in rows:
         frames = " ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / " + " ".join(
@@ -203,11 +206,23 @@ def _gate_table(rows) -> tuple[list[str], list[str]]:
         if alone:
             cells.append("" if r.alone_infidelity is None else
                          f"{r.alone_infidelity:.2e}, {r.alone_leakage:.2e}")
+        if rb:
+            cells.append(_rb_cell(r))
         css = "" if r.met else ' class="fail"'
         link = f'<td><a href="{html.escape(r.waveform)}">{html.escape(r.waveform)}</a></td>'
         lines.append(f"<tr{css}>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in cells)
                      + link + "</tr>")
     return head, lines
+
+
+def _rb_cell(r) -> str:
+    """A row's predicted RB: its subject's error per Clifford and its interleaved error."""
+    if r.predicted_epc is None:
+        return ""
+    text = f"{r.predicted_epc:.2e}"
+    if r.interleaved_error is not None:
+        text += f"; {r.interleaved_error:.2e} ({r.interleaved_bound:.1e})"
+    return text
 
 
 def _together_table(found) -> str:
@@ -226,8 +241,10 @@ def _together_table(found) -> str:
 
 
 def write_page(path: Path, chip, rows, images: list[Path], *, pairs=(),
-               together=()) -> Path:
-    """Write ``chip.html``: status, failing gates, the table, the plots, the caution."""
+               together=(), benchmarking: str = "") -> Path:
+    """Write ``chip.html``: status, failing gates, the table, the plots, the caution;
+    ``benchmarking``: the predicted RB section's HTML
+    (:func:`shaper.jobs.benchmarking_report.page_section`)."""
     failing = [r for r in rows if not r.met]
     status = ("every gate met its targets" if not failing else
               f"{len(failing)} of {len(rows)} gate(s) missed their targets")
@@ -250,6 +267,7 @@ from {html.escape(Path(chip.path or '').name)} (sha256 <code>{chip.sha256[:16]}<
 {_qubit_table(chip)}
 {_pair_table(pairs)}
 {_together_table(together)}
+{benchmarking}
 <h2>Gates</h2>
 <table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
 <tbody>{''.join(lines)}</tbody></table>

@@ -81,6 +81,11 @@ class GateRow:
     # [gates] simultaneous: the worst joint infidelity of this gate played at the same time
     # as a neighbour's (shaper.jobs.chip_simultaneous), else None
     simultaneous_infidelity: float | None = None
+    # predicted RB (shaper.jobs.benchmarking_report): the subject's error per Clifford, and
+    # a physical gate's interleaved error with the bound of Magesan et al. (2012), else None
+    predicted_epc: float | None = None
+    interleaved_error: float | None = None
+    interleaved_bound: float | None = None
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
@@ -143,7 +148,8 @@ COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "sample
            "infidelity", "leakage", "met", "frame_before_rad", "frame_after_rad", "waveform",
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
            "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity",
-           "neighbours_lab_frame_infidelity", "neighbours_lab_frame_leakage")
+           "neighbours_lab_frame_infidelity", "neighbours_lab_frame_leakage", "predicted_epc",
+           "interleaved_error", "interleaved_bound")
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -166,7 +172,8 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          _number(r.alone_infidelity), _number(r.alone_leakage),
                          _number(r.simultaneous_infidelity),
                          _number(r.neighbours_lab_infidelity),
-                         _number(r.neighbours_lab_leakage)])
+                         _number(r.neighbours_lab_leakage), _number(r.predicted_epc),
+                         _number(r.interleaved_error), _number(r.interleaved_bound)])
     subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
     budget = any(r.incoherent_error is not None for r in rows)
     near = any(r.neighbours_infidelity is not None for r in rows)
@@ -231,8 +238,22 @@ def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = Tru
             rows.append(derive(parent, output.result.samples, label, phase,
                                out / slug(label)))
             echo(describe(rows[-1]))
-    write_table(out, "gateset", rows)
+    _benchmark(recipe, rows, out, echo=echo, plots=plots,
+               draw=painter.draw if painter else None)
     return rows
+
+
+def _benchmark(recipe: Recipe, rows: list[GateRow], out: Path, *, echo, plots: bool,
+               draw) -> None:
+    """The gate table with predicted RB beside it (:mod:`shaper.jobs.benchmarking_report`:
+    the rows gain its columns, gateset.md its section, the folder benchmarking.json and,
+    with ``plots``, a decay plot drawn by ``draw``)."""
+    from shaper.jobs.benchmarking_report import gate_set_block, write_block
+
+    write_table(out, "gateset", rows)  # the gates first, whatever the prediction does
+    block = gate_set_block(recipe, rows, out, echo=echo)
+    write_table(out, "gateset", rows)
+    write_block(out, block, "gateset.md", plots=plots, draw=draw)
 
 
 def describe(row: GateRow) -> str:

@@ -253,3 +253,43 @@ def plot_textbook(path: Path, ours: dict, textbook: dict, targets: tuple[float, 
     ax.set_title("Against the calibrated textbook pulses of the same length", fontsize=9)
     ax.legend(fontsize=7)
     _finish(fig, path, title)
+
+
+def plot_benchmark(path: Path, block: dict, title: str | None = None) -> None:
+    """A predicted RB decay (:mod:`shaper.jobs.benchmarking`): the survival of ``|0>`` per
+    sequence length with the fitted ``A p^m + B`` and the sampled cross-check, and beside
+    it, where population leaves the qubit levels, the leaked population with its fit
+    ``L (1 - lambda^m)`` (Wood and Gambetta, Phys. Rev. A 97, 032306 (2018))."""
+    rb = block["rb"]
+    leak = rb.get("leakage")
+    fig, axes = _figure(9 if leak else 6, 3.8, 2 if leak else 1)
+    m = np.array(rb["lengths"], float)
+    dense = np.geomspace(m.min(), m.max(), 200)
+    fit = rb["fit"]
+    ax = axes[0]
+    ax.errorbar(m, rb["survival"], yerr=rb["survival_error"], fmt="o", markersize=4,
+                label="exact average" if rb["method"] == "exact" else "sampled mean")
+    ax.plot(dense, fit["A"] * fit["p"] ** dense + fit["B"], color="k", linewidth=1,
+            label=f"A p^m + B: p = {fit['p']:.6f}, B = {fit['B']:.3f}")
+    check = block.get("cross_check")
+    if check:
+        ax.errorbar([check["length"]], [check["sampled"]], yerr=[check["standard_error"]],
+                    fmt="s", color="C3", markersize=5,
+                    label=f"{check['sequences']} random sequences")
+    ax.set_xscale("log")
+    ax.set_xlabel("Cliffords per sequence m")
+    ax.set_ylabel("survival of |0" + ("0" if block.get("qubits") == 2 else "") + ">")
+    ax.legend(fontsize=7)
+    if leak:
+        ax = axes[1]
+        ax.plot(m, rb["leaked"], "o", markersize=4, label="outside the qubit levels")
+        lam = 1 - leak["leakage_per_clifford"] - leak["seepage_per_clifford"]
+        ax.plot(dense, leak["steady_state_leaked"] * (1 - lam ** dense), color="k",
+                linewidth=1, label=f"leakage {leak['leakage_per_clifford']:.2e} per Clifford")
+        ax.set_xscale("log")
+        ax.set_xlabel("Cliffords per sequence m")
+        ax.set_ylabel("leaked population")
+        ax.legend(fontsize=7)
+    epc = (f"error per Clifford {block['error_per_clifford']:.3e} "
+           f"+- {block['error_per_clifford_error']:.1e}")
+    _finish(fig, path, f"{title}: {epc}" if title else epc)
