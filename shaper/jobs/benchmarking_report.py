@@ -71,29 +71,47 @@ def gate_set_block(recipe, rows, out: Path, *, echo: Callable = print, **options
     return out_block
 
 
-def chip_block(chip, rows, root: Path, *, echo: Callable = print) -> dict:
-    """Predicted RB of every chip qubit (its gates alone, the verdict's model) and every
-    pair with a pair gate (sampled, on the chip's own levels; the cost said first)."""
+def qubit_unit(chip, q: str, rows, root: Path, *, echo: Callable = print) -> dict | None:
+    """Predicted RB of one chip qubit (its gates alone, the verdict's model): a unit of the
+    chip's executor (:func:`shaper.jobs.chip.run_chip` submits it once the qubit's gates
+    are made). None: the qubit has no physical single-qubit gate."""
+    files = _files(chip, q, rows, root)
+    return _qubit(files, q, echo) if files else None
+
+
+def pair_unit(chip, a: str, b: str, rows, root: Path, *,
+              echo: Callable = print) -> dict | None:
+    """Predicted two-qubit RB of a pair with a pair gate (sampled, on the chip's own levels;
+    the cost said first): a unit of the chip's executor. None: the pair has no gate."""
     from shaper.jobs.chip_pairs import _playback, task_of
 
-    def files(q: str, **verdict) -> dict:
-        return {r.gate: _playback(task_of(chip, r).alone_recipe, r, root, **verdict)
-                for r in _physical_rows([r for r in rows if r.subject == q])}
+    pair = next((r for r in rows if r.subject == f"{a}-{b}"), None)
+    if pair is None:
+        return None
+    sets = tuple(_files(chip, q, rows, root, extra_levels=0) for q in (a, b))
+    return _pair(pair, _playback(task_of(chip, pair).recipe, pair, root, extra_levels=0),
+                 sets, echo)
+
+
+def _files(chip, q: str, rows, root: Path, **verdict) -> dict:
+    """A chip qubit's physical gates' Playbacks (alone), by gate name."""
+    from shaper.jobs.chip_pairs import _playback, task_of
+    return {r.gate: _playback(task_of(chip, r).alone_recipe, r, Path(root), **verdict)
+            for r in _physical_rows([r for r in rows if r.subject == q])}
+
+
+def chip_block(chip, rows, root: Path, *, echo: Callable = print) -> dict:
+    """Predicted RB of every chip qubit and every pair with a pair gate, here (the chip's
+    executor runs the same units one by one: :func:`qubit_unit`, :func:`pair_unit`)."""
     out = {"qubits": {}, "pairs": {}}
     for q in chip.qubits:
-        mine = files(q)
-        if mine:
-            out["qubits"][q] = _qubit(mine, q, echo)
-    at_chip_levels = {}  # a qubit's files on the chip's own levels, shared by its pairs
+        block = qubit_unit(chip, q, rows, root, echo=echo)
+        if block is not None:
+            out["qubits"][q] = block
     for a, b in chip.pairs:
-        pair = next((r for r in rows if r.subject == f"{a}-{b}"), None)
-        if pair is None:
-            continue
-        for q in (a, b):
-            at_chip_levels.setdefault(q, files(q, extra_levels=0))
-        out["pairs"][f"{a}-{b}"] = _pair(
-            pair, _playback(task_of(chip, pair).recipe, pair, root, extra_levels=0),
-            (at_chip_levels[a], at_chip_levels[b]), echo)
+        block = pair_unit(chip, a, b, rows, root, echo=echo)
+        if block is not None:
+            out["pairs"][f"{a}-{b}"] = block
     annotate(rows, out)
     return out
 

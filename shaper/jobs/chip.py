@@ -138,8 +138,8 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
     state["wall_time_s"] = time.monotonic() - started
     atomic.write_json(out / "chip.json", state)
     echo("writing the chip's tables, plots and page")
-    write_summary(chip, out, rows, together=_together_found(chip, state),
-                  echo=echo)
+    together, benchmarking = _units_found(chip, state)
+    write_summary(chip, out, rows, together=together, benchmarking=benchmarking)
     return rows
 
 
@@ -183,41 +183,43 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
 
 def _run_tasks(executor, chip: Chip, todo, out: Path, state: dict, done: dict, budget, *,
                say, tick) -> None:
-    """Submit every task; record each as it finishes (chip.json written at once). A pair's
-    gates played together (``[gates] simultaneous``) are units of their own, submitted as
-    soon as both qubits' gates are done and recorded beside the tasks."""
+    """Submit every task; record each as it finishes (chip.json written at once). The
+    physics that needs several tasks' files (a pair's gates played together, a qubit's or
+    a pair's predicted RB) are units of their own (:func:`_ready_units`), submitted as soon
+    as the tasks they read are done and recorded beside the tasks."""
     futures = {executor.submit(run_task, t, str(out), budget): t for t in todo}
-    together = state.setdefault("together", {})
     pending = list(futures)
 
-    def submit_pairs() -> None:
-        for pair, digest in _ready_pairs(chip, done, together):
-            a, b = pair.split("-")
-            rows = [r for t in chip.tasks if t.subject in (a, b) and t.id in done
-                    for r in done[t.id]]
-            future = executor.submit(_play_pair, chip, a, b, rows, str(out))
-            futures[future] = ("together", pair, digest)
+    def submit_units() -> None:
+        for kind, key, digest, args in _ready_units(chip, done, state):
+            future = executor.submit(_unit, kind, chip, *args, str(out))
+            futures[future] = (kind, key, digest)
             pending.append(future)
-            together[pair] = {"digest": digest, "entries": None}
-    submit_pairs()
+            state.setdefault(kind, {})[key] = {"digest": digest, "result": None}
+    submit_units()
     try:
         while pending:
             future = next(iter(executor.completed(pending)))
             pending.remove(future)
             unit = futures[future]
             outcome = executor.result(future)
-            if isinstance(unit, tuple):  # a pair played together
-                together[unit[1]] = {"digest": unit[2], "entries": outcome}
+            if isinstance(unit, tuple):
+                kind, key, digest = unit
+                state[kind][key] = {"digest": digest, "result": outcome}
                 atomic.write_json(out / "chip.json", state)
-                say(f"{unit[1]}: gates played together ({len(outcome)} gate(s))")
+                say(f"{key}: {UNIT_WORDS[kind]}")
                 continue
             _record(unit, outcome, out, state, done, say, tick)
-            submit_pairs()
+            submit_units()
     except Exception as exc:
         lost = getattr(executor, "lost", lambda e: None)(exc)
         if lost is None:
             raise
         raise lost from None
+
+
+UNIT_WORDS = {"together": "gates played together", "benchmark_qubit": "predicted RB",
+              "benchmark_pair": "predicted two-qubit RB"}
 
 
 def _record(task, outcome: dict, out: Path, state: dict, done: dict, say, tick) -> None:
@@ -236,31 +238,49 @@ def _record(task, outcome: dict, out: Path, state: dict, done: dict, say, tick) 
     tick(task)
 
 
-def _play_pair(chip, a: str, b: str, rows: list[dict], root: str) -> list[dict]:
-    """A worker's entry for one pair played together (chip_simultaneous.play_pair)."""
+def _unit(kind: str, chip, subjects: tuple[str, ...], rows: list[dict], root: str):
+    """A worker's entry for one unit (:data:`UNIT_WORDS`): plain data in and out."""
     if "jax" not in sys.modules:  # a fresh worker: one thread, as the tasks' workers
         from shaper.optimizer.parallel import _PINNED
         os.environ.update(_PINNED)
-    from shaper.jobs.chip_simultaneous import play_pair
-    return play_pair(chip, a, b, rows, root)
+    if kind == "together":
+        from shaper.jobs.chip_simultaneous import play_pair
+        return play_pair(chip, *subjects, rows, root)
+    from shaper.jobs import benchmarking_report as rb
+    gates = [GateRow(**r) for r in rows]
+    quiet = lambda text: None  # noqa: E731 - the coordinator says one line per unit
+    if kind == "benchmark_qubit":
+        return rb.qubit_unit(chip, subjects[0], gates, Path(root), echo=quiet)
+    return rb.pair_unit(chip, *subjects, gates, Path(root), echo=quiet)
 
 
-def _ready_pairs(chip: Chip, done: dict, together: dict) -> list[tuple[str, str]]:
-    """``(pair, digest)`` of every pair whose gates can be played together now and are
-    not recorded (or were recorded for other files): both qubits' tasks are done."""
-    if not chip.simultaneous:
-        return []
-    from shaper.jobs.chip_simultaneous import together_pairs
+def _ready_units(chip: Chip, done: dict, state: dict) -> list[tuple]:
+    """``(kind, key, digest, (subjects, rows))`` of every unit whose tasks are done and
+    that is not recorded for these very tasks: pairs played together (``[gates]
+    simultaneous``), each qubit's predicted RB and each pair's (``verdict.benchmark``)."""
+    wanted = []
+    if chip.simultaneous:
+        from shaper.jobs.chip_simultaneous import together_pairs
+        wanted += [("together", (a, b)) for a, b in together_pairs(chip)]
+    if benchmarks(chip):
+        wanted += [("benchmark_qubit", (q,)) for q in chip.qubits]
+        wanted += [("benchmark_pair", (a, b)) for a, b in chip.pairs]
     ready = []
-    for a, b in together_pairs(chip):
-        tasks = [t for t in chip.tasks if t.subject in (a, b)]
+    for kind, subjects in wanted:
+        names = set(subjects) | ({"-".join(subjects)} if kind == "benchmark_pair" else set())
+        tasks = [t for t in chip.tasks if t.subject in names]
         if not tasks or any(t.id not in done for t in tasks):
             continue
-        digest = _digest([[t.digest for t in tasks], [a, b]])
-        known = together.get(f"{a}-{b}")
-        if known is None or known.get("digest") != digest:
-            ready.append((f"{a}-{b}", digest))
+        key, digest = "-".join(subjects), _digest([[t.digest for t in tasks], kind])
+        if state.get(kind, {}).get(key, {}).get("digest") != digest:
+            rows = [r for t in tasks for r in done[t.id]]
+            ready.append((kind, key, digest, (subjects, rows)))
     return ready
+
+
+def benchmarks(chip: Chip) -> bool:
+    """Whether the chip predicts RB (``[template.verdict] benchmark``, default true)."""
+    return all(t.recipe.get("verdict", {}).get("benchmark", True) for t in chip.tasks)
 
 
 def _digest(value) -> str:
@@ -269,23 +289,30 @@ def _digest(value) -> str:
     return hashlib.sha256(json.dumps(value, sort_keys=True).encode()).hexdigest()
 
 
-def _together_found(chip: Chip, state: dict) -> list[dict]:
-    """Every recorded pair's entries, in the chip's order of pairs (finished ones only)."""
-    if not chip.simultaneous:
-        return []
-    from shaper.jobs.chip_simultaneous import together_pairs
+def _units_found(chip: Chip, state: dict) -> tuple[list[dict], dict]:
+    """What the units recorded: the pairs played together (in the chip's order) and the
+    predicted-RB block ``{"qubits": ..., "pairs": ...}``."""
     found = state.get("together", {})
-    return [e for a, b in together_pairs(chip)
-            for e in (found.get(f"{a}-{b}", {}).get("entries") or [])]
+    together = []
+    if chip.simultaneous:
+        from shaper.jobs.chip_simultaneous import together_pairs
+        together = [e for a, b in together_pairs(chip)
+                    for e in (found.get(f"{a}-{b}", {}).get("result") or [])]
+    block = {"qubits": {k: v["result"] for k, v in state.get("benchmark_qubit", {}).items()
+                        if v.get("result") is not None},
+             "pairs": {k: v["result"] for k, v in state.get("benchmark_pair", {}).items()
+                       if v.get("result") is not None}}
+    return together, block
 
 
 def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
-                  together: list[dict] | None = None, echo=print) -> list[Path]:
+                  together: list[dict] | None = None,
+                  benchmarking: dict | None = None) -> list[Path]:
     """``chip.csv``, ``chip.md``, ``chip-durations.png``, ``chip-errors.png``, predicted RB
     (``benchmarking.json`` and a decay plot per qubit and pair) and the self-contained
     ``chip.html`` (images embedded: open it in any browser, no server), from the finished
     rows and the pairs played together."""
-    from shaper.jobs.benchmarking_report import chip_block, page_section, write_block
+    from shaper.jobs.benchmarking_report import annotate, page_section, write_block
     from shaper.jobs.chip_page import (
         QUBIT_HEAD,
         neighbours_summary,
@@ -298,7 +325,8 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
 
     played_together = together or []
     mark_rows(rows, played_together)
-    benchmarking = chip_block(chip, rows, out, echo=echo)  # before the table: its columns
+    benchmarking = benchmarking or {"qubits": {}, "pairs": {}}
+    annotate(rows, benchmarking)  # before the table: its columns
     files = write_table(out, "chip", rows)
     words = neighbours_summary(chip, rows)
     if words:
@@ -316,11 +344,13 @@ def write_summary(chip: Chip, out: Path, rows: list[GateRow], *,
         files.append(write_together(out, played_together))
     images = write_plots(out, chip, rows)
     files += images
-    extra = write_block(out, benchmarking, "chip.md")  # benchmarking.json, a plot each
+    extra = write_block(out, benchmarking, "chip.md") \
+        if benchmarking["qubits"] or benchmarking["pairs"] else []  # a plot each
     files += extra
     images += [p for p in extra if p.suffix == ".png"]
     files.append(write_page(out / "chip.html", chip, rows, images, pairs=pairs,
-                            together=played_together, benchmarking=page_section(benchmarking)))
+                            together=played_together,
+                            benchmarking=page_section(benchmarking) if extra else None))
     return files
 
 

@@ -251,6 +251,9 @@ def _benchmark(recipe: Recipe, rows: list[GateRow], out: Path, *, echo, plots: b
     from shaper.jobs.benchmarking_report import gate_set_block, write_block
 
     write_table(out, "gateset", rows)  # the gates first, whatever the prediction does
+    if not recipe.verdict.benchmark:
+        return
+    echo("predicting randomized benchmarking of the set (verdict.benchmark = false skips it)")
     block = gate_set_block(recipe, rows, out, echo=echo)
     write_table(out, "gateset", rows)
     write_block(out, block, "gateset.md", plots=plots, draw=draw)

@@ -127,5 +127,6 @@ def read_verdict(r: _Reader, t: dict, system: System) -> VerdictSettings:
     check_more_levels(r, t, system, extra)
     return VerdictSettings(lab_frame=lab, carrier_phase_deg=phase, carrier_phases=phases,
                            spread="carrier_phases" in t,
+                           benchmark=r.flag(t, "benchmark", "verdict.benchmark", True),
                            extra_levels=extra)
 

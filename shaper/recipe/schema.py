@@ -58,7 +58,8 @@ KEYS: dict[str, tuple[str, ...]] = {
     "export": ("full_scale", "dac_bits", "granularity", "padding", "clip", "if_frequency",
                "sideband", "predistort", "mixer", "codes"),
     "export.mixer": ("gain", "phase_deg", "offset_i", "offset_q"),
-    "verdict": ("lab_frame", "carrier_phase_deg", "carrier_phases", "extra_levels"),
+    "verdict": ("lab_frame", "carrier_phase_deg", "carrier_phases", "extra_levels",
+                "benchmark"),
 }
 LAB_FRAME = ("auto", "on", "off")
 # optimizer.lab_frame: "corrected" (second order, at the rotating frame's cost), "exact"
@@ -175,6 +176,7 @@ class VerdictSettings:
     carrier_phases: int = 8
     extra_levels: int = 2
     spread: bool = False  # carrier_phases given: a spread of them, not the guided search
+    benchmark: bool = True  # a gate set's or a chip's predicted RB (jobs.benchmarking)
 
     def __post_init__(self):
         _require(self.lab_frame in LAB_FRAME, "lab_frame", self.lab_frame)
