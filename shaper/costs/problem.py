@@ -85,12 +85,17 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
                             scalings=open_scalings)
     dt = (problem.dt * problem.active)[:, None, None]
     if corrected is not None:
-        from shaper.physics.figures import apply_frame, average_gate_fidelity, leakage
+        from shaper.physics.figures import (
+            apply_frame,
+            average_gate_fidelity,
+            best_frame_angles,
+            leakage,
+        )
         from shaper.signal.labdrive import smooth_worst
         u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                             method=method, extra=corrected.extra(samples)))
-        # the frame angles found once, without the kicks (which move them by about the
-        # kick's size): each phase then costs two small exponentials and a trace
+        # the frame angles found once without the kicks (which move them by about the
+        # kick's size), then refined per phase from there in a few sweeps
         base = figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
         phases = corrected.kicked(u, samples, jnp.sum(problem.dt * problem.active))
         if not is_gate:
@@ -99,9 +104,13 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
 
         def one(v):
             p = project(v, problem.computational)
-            framed = apply_frame(p, base.frame_before, base.frame_after, qubits)
+            before, after = base.frame_before, base.frame_after
+            if virtual_z:  # each phase's own optimum, from the kick-free one: exact
+                before, after = best_frame_angles(p, problem.target, qubits, sweeps=3,
+                                                  start=(before, after))  # gradient
+            framed = apply_frame(p, before, after, qubits)
             return base._replace(fidelity=average_gate_fidelity(framed, problem.target),
-                                 leakage=leakage(p))
+                                 leakage=leakage(p), frame_before=before, frame_after=after)
         return smooth_worst(jax.vmap(one)(phases))
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
                                         method=method))

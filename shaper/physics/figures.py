@@ -73,15 +73,16 @@ _STARTS = np.array([0.0, 0.5 * np.pi, np.pi, 1.5 * np.pi, 0.25 * np.pi, 1.25 * n
 
 
 def best_frame_angles(p: ArrayLike, target: ArrayLike, qubits: int, *,
-                      sweeps: int = 12) -> tuple[jax.Array, jax.Array]:
+                      sweeps: int = 12, start: tuple | None = None) -> tuple[jax.Array, jax.Array]:
     """Z angles before and after the gate that maximise the fidelity to ``target``.
 
     The gate then counts as ``Z(after) P Z(before)`` with ``Z(phi) = diag(1, e^{i phi})``
     on each qubit: the control system applies these as virtual Z gates (frame updates),
     D. C. McKay et al., Phys. Rev. A 96, 022330 (2017). Only ``|Tr M|`` depends on the
     angles; each is set in turn to its exact optimum (coordinate ascent, monotone), from
-    a few starts. The result carries no gradient: by the envelope theorem the gradient
-    of the maximised fidelity is that at fixed optimal angles.
+    a few starts, or from ``start`` (``(before, after)`` of a nearby gate: a few sweeps
+    then reach the optimum). The result carries no gradient: by the envelope theorem the
+    gradient of the maximised fidelity is that at fixed optimal angles.
 
     Returns:
         ``(before, after)``, each ``(qubits,)`` radians in (-pi, pi].
@@ -106,12 +107,14 @@ def best_frame_angles(p: ArrayLike, target: ArrayLike, qubits: int, *,
         best = jnp.angle(outside) - jnp.angle(inside)
         return theta.at[q].set(jnp.angle(jnp.exp(1j * best)))
 
-    def run(start):
-        theta = jnp.full(2 * qubits, start)
+    def run(theta):
         theta = jax.lax.fori_loop(0, sweeps * 2 * qubits, update, theta)
         return theta, jnp.abs(jnp.sum(terms(theta)))
 
-    thetas, values = jax.vmap(run)(jnp.asarray(_STARTS))
+    if start is not None:  # the optimum near a known one: one run, no canonical choice
+        theta, _ = run(jax.lax.stop_gradient(jnp.concatenate([start[1], start[0]])))
+        return theta[qubits:], theta[:qubits]
+    thetas, values = jax.vmap(lambda s: run(jnp.full(2 * qubits, s)))(jnp.asarray(_STARTS))
     theta = thetas[jnp.argmax(values)]
     return canonical_angles(theta[qubits:], theta[:qubits],
                             lambda b, a: jnp.abs(jnp.sum(c * _frame_phases(a, bits)[:, None]
