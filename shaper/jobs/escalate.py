@@ -32,10 +32,11 @@ from shaper.recipe import Recipe
 from shaper.recipe.derive import derived
 
 
-def judged(recipe: Recipe, result: Result) -> tuple[object, Playback]:
-    """The exported waveform of ``result`` and its Playback on the user's ``recipe``."""
+def judged(recipe: Recipe, result: Result, progress=None) -> tuple[object, Playback]:
+    """The exported waveform of ``result`` and its Playback on the user's ``recipe``
+    (``progress``: called with a line as its long figures run)."""
     waveform, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
-    return waveform, Playback(recipe, waveform)
+    return waveform, Playback(recipe, waveform, progress=progress)
 
 
 def next_model(recipe: Recipe, playback: Playback, tried: list[str]) -> tuple[str, Recipe] | None:
@@ -80,8 +81,14 @@ def escalate(recipe: Recipe, result: Result, options, *, say=None,
              deadline: float | None = None) -> tuple[Result, object, Playback, list[dict]]:
     """Go on in the verdict's model until the judged figures meet the targets (module
     docstring). Returns the last result (its recipe the user's), its waveform, its
-    Playback and one record per step."""
-    waveform, playback = judged(recipe, result)
+    Playback and one record per step. ``say``: each step, and each long figure of the
+    verdict as it runs (the run's watchdog is fed too)."""
+    def progress(text: str) -> None:
+        if options.watchdog is not None:
+            options.watchdog.beat(text)
+        if say is not None:
+            say(text)
+    waveform, playback = judged(recipe, result, progress)
     steps: list[dict] = []
     if not recipe.optimizer.escalate:
         return result, waveform, playback, steps
@@ -100,7 +107,7 @@ def escalate(recipe: Recipe, result: Result, options, *, say=None,
         again = optimize(model, options.with_(folder=folder, resume=False, starts=1),
                          first=result.samples)
         result = replace(again, recipe=recipe)
-        waveform, playback = judged(recipe, result)
+        waveform, playback = judged(recipe, result, progress)
         after = playback.verdict()
         steps.append({"model": name, "levels": list(model.system.dims),
                       "lab_frame": model.optimizer.lab_frame,

@@ -52,11 +52,12 @@ class Playback:
         chain: the file's signal chain (mixer and line of the recipe).
     """
 
-    def __init__(self, recipe: Recipe, wave: waveio.Waveform):
+    def __init__(self, recipe: Recipe, wave: waveio.Waveform, *, progress=None):
         self.recipe, self.wave = recipe, wave
         self.samples = wave.to_hz(recipe.system)
         self.chain = for_waveform(recipe, wave)
         self._played: dict[tuple, Simulation] = {}
+        self.progress = progress  # called with a line as long figures run (or None)
 
     def played(self, *, line: bool = True, mixer: bool = True,
                extrapolate: bool = True) -> Simulation:
@@ -124,7 +125,8 @@ class Playback:
         if not extra or self.recipe.system.lab is None:
             return None
         from shaper.recipe.derive import with_levels
-        return Playback(with_levels(self.recipe, extra=extra), self.wave)
+        return Playback(with_levels(self.recipe, extra=extra), self.wave,
+                        progress=self.progress)
 
     @property
     def faithful(self) -> Playback:
@@ -225,7 +227,8 @@ class Playback:
                             envelope_hz=chain.turning_hz, virtual_z=recipe.virtual_z,
                             exact_envelope=chain.resolution(n) == 0.0,
                             guide=None if guide is None else (guide["phases_rad"],
-                                                              guide["figures"]))
+                                                              guide["figures"]),
+                            progress=self.progress)
 
     def trusted(self) -> tuple[float, float, str]:
         """(infidelity, leakage, what they are): the most faithful figures computed."""

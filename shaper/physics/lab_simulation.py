@@ -125,7 +125,8 @@ def simulate_lab(system: System, target: Target, envelope_of, samples: int,
                  period_s: float, *, start_s: float = 0.0, phases_rad=None,
                  phase_count: int = 8, envelope_hz: float = 0.0, virtual_z: bool = False,
                  points: int | None = None, exact_envelope: bool = True,
-                 guide: tuple[np.ndarray, np.ndarray] | None = None) -> LabSimulation:
+                 guide: tuple[np.ndarray, np.ndarray] | None = None,
+                 progress=None) -> LabSimulation:
     """The figures of a played waveform with the drive's counter-rotating terms kept.
 
     Args:
@@ -148,6 +149,8 @@ def simulate_lab(system: System, target: Target, envelope_of, samples: int,
         guide: the second-order model's figures over a dense grid of phases
             (:func:`simulate_corrected`): the worst phase is run where it says, and the
             spread only where it does not hold (:func:`guided_phases`).
+        progress: called with a line after every run (a long verdict says what it does,
+            and keeps a watchdog fed).
     """
     from shaper.physics import labframe as lf
 
@@ -172,7 +175,12 @@ def simulate_lab(system: System, target: Target, envelope_of, samples: int,
                            qubits=qubits, virtual_z=virtual_z, is_gate=target.is_gate,
                            initial=None if target.is_gate else tuple(target.initial.tolist()),
                            final=None if target.is_gate else tuple(target.final.tolist()))
-        return np.array([1.0 - float(fig.fidelity), float(fig.leakage)])
+        out = np.array([1.0 - float(fig.fidelity), float(fig.leakage)])
+        if progress is not None:
+            progress(f"lab frame: carrier phase {np.degrees(phase):.3g} deg"
+                     f"{' (twice the sub-steps)' if p != points else ''}: infidelity "
+                     f"{out[0]:.3e}")
+        return out
 
     error, search = None, "fixed carrier phase"
     if phases_rad is not None:
