@@ -228,7 +228,11 @@ class Playback:
                             exact_envelope=chain.resolution(n) == 0.0,
                             guide=None if guide is None else (guide["phases_rad"],
                                                               guide["figures"]),
-                            progress=self.progress)
+                            progress=None if self.progress is None else (
+                                self.progress if awg else
+                                lambda text: self.progress(f"ideal staircase, {text}")),
+                            floor=0.01 * min(recipe.optimizer.target_infidelity,
+                                             recipe.optimizer.target_leakage))
 
     def trusted(self) -> tuple[float, float, str]:
         """(infidelity, leakage, what they are): the most faithful figures computed."""
