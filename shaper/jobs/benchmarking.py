@@ -75,7 +75,7 @@ def physical(playbacks: Mapping[str, object], *, check: bool = False) -> dict[st
 def idle_map(playback, seconds: float) -> np.ndarray:
     """``seconds`` of idling on the system ``playback``'s map lives on: its drift and T1/T2,
     no drive, no frame update; a ``(d^2, d^2)`` superoperator."""
-    from shaper.physics.simulation import gate_map
+    from shaper.physics.corrected import gate_map
     from shaper.physics.targets import gate
 
     system = playback.faithful.recipe.system
