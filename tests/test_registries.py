@@ -13,10 +13,14 @@ import pytest
 import scipy.linalg
 
 import shaper
+from shaper.cli.main import main
 from shaper.io import writers
+from shaper.jobs.export import make_waveform
+from shaper.jobs.playback import Playback
 from shaper.optimizer import methods
 from shaper.optimizer.objective import make_objective
 from shaper.optimizer.tracker import StopReason, Tracker
+from shaper.physics.transmons import TransmonSpec, coupled_transmons
 from shaper.recipe import load_recipe, models
 from shaper.recipe.lines import Stage
 from shaper.signal import line
@@ -37,6 +41,47 @@ def restore():
                           shaper.recipe.lines.KINDS), saved, strict=True):
         live.clear()
         live.update(old)
+
+
+def toml(raw: dict) -> str:
+    """A recipe's raw content as TOML text (every top-level key with an inline value)."""
+    def value(v):
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, str):
+            return json.dumps(v)
+        if isinstance(v, int | float):
+            return repr(v)
+        if isinstance(v, list):
+            return "[" + ", ".join(value(x) for x in v) + "]"
+        return "{" + ", ".join(f"{k} = {value(x)}" for k, x in v.items()) + "}"
+    text = "".join(f"{k} = {value(v)}\n" for k, v in raw.items())
+    assert tomllib.loads(text) == raw
+    return text
+
+
+def optimized(raw: dict, folder: Path, *, format: str = "csv"):
+    """``shaper.optimize`` on the recipe, its best pulse made into a file as the run would
+    export it and written in ``format`` beside the recipe's TOML file. Returns the recipe,
+    the result, the waveform and the paths (the waveform file first, then the recipe)."""
+    recipe = load_recipe(raw)
+    result = shaper.optimize(recipe)
+    wave, _ = make_waveform(recipe, result.samples, recipe.export, recipe.sample_rate_hz)
+    folder.mkdir(parents=True, exist_ok=True)
+    files = writers.write_waveform(folder, recipe.name, wave, recipe.system,
+                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256,
+                                   format=format)
+    (folder / "recipe.toml").write_text(toml(raw))
+    return recipe, result, wave, [files[0], folder / "recipe.toml"]
+
+
+def check(capsys, waveform: Path, recipe: Path, *flags) -> tuple[int, dict | str]:
+    """``shaper check RECIPE WAVEFORM --json FLAGS`` in this process (where the toys are
+    registered): the exit code and the printed verdict (or the error line)."""
+    capsys.readouterr()
+    code = main(["check", str(recipe), str(waveform), "--json", *flags])
+    out, err = capsys.readouterr()
+    return code, json.loads(out) if code in (0, 1) else err
 
 
 def spin(r, t):
@@ -66,6 +111,45 @@ def test_a_toy_system_model_is_one_register_call(restore):
     assert 1 - fidelity < 1e-6
     with pytest.raises(shaper.RecipeError, match="system.levels"):  # its keys, no other
         load_recipe({**raw, "system": {"model": "spin", "levels": 3}})
+
+
+def ladder(r, t):
+    """A toy model: one Duffing transmon in the frame of its drive, with keys of its own,
+    built by the package's transmon builder (so it knows its lab frame)."""
+    times = {f"{k}_s": r.number(t, k, f"system.{k}", kind="time", positive=True)
+             for k in ("t1", "t2") if k in t}
+    frequency = r.number(t, "frequency", "system.frequency", kind="frequency", positive=True)
+    spec = TransmonSpec(name="q0", levels=r.number(t, "levels", "system.levels", 3,
+                                                   integer=True),
+                        qubit_frequency_hz=frequency, spectrum="duffing",
+                        anharmonicity_hz=r.number(t, "anharmonicity", "system.anharmonicity",
+                                                  kind="frequency"), **times)
+    return coupled_transmons([spec], [], frame_frequency_hz=frequency)
+
+
+LADDER = {"name": "ladder-x", "system": {"model": "ladder", "levels": 3,
+                                         "frequency": "5.1 GHz", "anharmonicity": "-220 MHz"},
+          "gate": {"target": "X"},
+          "pulse": {"duration": "20 ns", "sample_rate": "2.4 GS/s", "max_rabi": "60 MHz"},
+          "awg": {"filter": "none"}, "optimizer": {"max_iterations": 100, "lab_frame": "off"}}
+
+
+def test_a_toy_model_with_a_lab_frame_owns_its_levels(restore, tmp_path, capsys):
+    models.register("ladder", models.Model(("levels", "frequency", "anharmonicity", "t1",
+                                            "t2"), ladder, level_tables=lambda t: [t]))
+    recipe, result, wave, (csv, toml_file) = optimized(LADDER, tmp_path)
+    assert recipe.system.lab is not None and recipe.verdict.extra_levels == 2
+    playback = Playback(recipe, wave)
+    verdict = playback.verdict()  # judged in the lab frame on 3 + 2 levels
+    assert playback.more_levels.recipe.system.dims == (5,)
+    assert verdict.met and verdict.basis.startswith("lab frame, 5 levels"), verdict
+    code, out = check(capsys, csv, toml_file, "--levels", "4", "--t1", "40us")
+    assert code == 0, out
+    assert out["levels"] == [4] and out["trust"]["more_levels"]["levels"] == [6]
+    assert out["open_system"]["coherence_times"]  # --t1 reached the model's table
+    assert models.levels_key(LADDER["system"]) == "system.levels"
+    assert models.levels_key({"model": "transmons", "transmon": [{"levels": 3}]}) == \
+        "levels on every [[system.transmon]]"
 
 
 def box(r, s, where, rate):
@@ -153,7 +237,8 @@ def test_slice_states_give_grape_gradient():
     # J. Magn. Reson. 212, 412 (2011), from memory). Slices of 42 ps on 3 levels keep
     # 2 pi dt ||H|| near 0.06, so the formula holds to about 2e-6 (measured).
     raw = {**DEMO, "system": {**DEMO["system"], "levels": 3},
-           "pulse": {**DEMO["pulse"], "duration": "4 ns", "sample_rate": "24 GS/s"}}
+           "pulse": {**DEMO["pulse"], "duration": "4 ns", "sample_rate": "24 GS/s"},
+           "awg": {"filter": "none"}}  # an ideal staircase: one slice per sample
     recipe = load_recipe(raw)
     obj = make_objective(recipe)
     rng = np.random.default_rng(3)

@@ -118,11 +118,13 @@ class Playback:
     @cached_property
     def more_levels(self) -> Playback | None:
         """The same file on every transmon with ``verdict.extra_levels`` more levels
-        (None: no extra levels asked, or a matrices model, whose levels are fixed)."""
+        (None: no extra levels asked, or a model whose matrices fix its levels: its
+        :attr:`~shaper.recipe.models.Model.level_tables` is None)."""
+        from shaper.recipe.derive import sets_levels, with_levels
+
         extra = self.recipe.verdict.extra_levels
-        if not extra or self.recipe.system.lab is None:
+        if not extra or not sets_levels(self.recipe):
             return None
-        from shaper.recipe.derive import with_levels
         return Playback(with_levels(self.recipe, extra=extra), self.wave)
 
     @property

@@ -29,12 +29,22 @@ BASES = ("bare", "dressed")
 
 
 class Model(NamedTuple):
-    """A ``[system]`` model: the keys it reads (besides ``model``), its reader, and the
-    keys of its nested tables (``{"transmon": (...)}`` for ``[[system.transmon]]``)."""
+    """A ``[system]`` model: the keys it reads (besides ``model``), its reader, the keys
+    of its nested tables (``{"transmon": (...)}`` for ``[[system.transmon]]``), and where
+    its levels are set.
+
+    ``level_tables(system_table) -> [table, ...]``: the raw tables (``[system]`` itself or
+    tables inside it, the very objects, so that an edit lands in the recipe) that carry
+    this model's ``levels`` and its optional ``t1``/``t2``, one per subsystem in recipe
+    order; ``--levels``, ``--t1``/``--t2`` and the verdict's extra levels edit them
+    (:mod:`shaper.recipe.derive`). None: the model's matrices fix the levels and the
+    noise.
+    """
 
     keys: tuple[str, ...]
     read: Callable[[_Reader, dict], System]
     tables: dict[str, tuple[str, ...]] = {}
+    level_tables: Callable[[dict], list[dict]] | None = None
 
 
 def register(name: str, model: Model) -> None:
@@ -43,6 +53,26 @@ def register(name: str, model: Model) -> None:
     KEYS["system"] = tuple(dict.fromkeys(KEYS["system"] + model.keys))
     for table, keys in model.tables.items():
         KEYS[f"system.{table}"] = keys
+
+
+def level_tables(system_table: dict) -> list[dict] | None:
+    """The raw tables of a ``[system]`` table that carry its levels (and ``t1``/``t2``),
+    as its model says (:attr:`Model.level_tables`); None where the model's matrices fix
+    them or the model is not registered in this process."""
+    model = MODELS.get(system_table.get("model"))
+    if model is None or model.level_tables is None:
+        return None
+    return list(model.level_tables(system_table))
+
+
+def levels_key(system_table: dict) -> str:
+    """Where a recipe sets its levels, in words for a hint: ``system.levels`` where the
+    ``[system]`` table itself carries them, ``levels on every [[system.<name>]]`` where
+    its nested tables do (found by identity among the tables :func:`level_tables` gives)."""
+    tables = level_tables(system_table) or [system_table]
+    nested = [key for key, value in system_table.items() if isinstance(value, list)
+              and any(any(v is t for t in tables) for v in value)]
+    return f"levels on every [[system.{nested[0]}]]" if nested else "system.levels"
 
 
 def read_system(r: _Reader, t: dict) -> System:
@@ -234,9 +264,10 @@ def _matrices(r: _Reader, t: dict) -> System:
 
 MODELS: dict[str, Model] = {
     "transmon": Model(("levels", "qubit_frequency", "anharmonicity", "drive_frequency",
-                       "qubit", "t1", "t2", "spectrum", "offset_charge"), _transmon),
+                       "qubit", "t1", "t2", "spectrum", "offset_charge"), _transmon,
+                      level_tables=lambda t: [t]),
     "transmons": Model(("transmon", "coupling", "frame_frequency", "drive", "basis"),
-                       _transmons),
+                       _transmons, level_tables=lambda t: list(t.get("transmon", []))),
     "matrices": Model(("unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
                        "computational", "collapse", "collapse_rate"), _matrices),
 }
