@@ -6,6 +6,7 @@ GRAPE's gradient formula."""
 
 import json
 import tomllib
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -152,26 +153,33 @@ def test_a_toy_model_with_a_lab_frame_owns_its_levels(restore, tmp_path, capsys)
         "levels on every [[system.transmon]]"
 
 
+@dataclass(frozen=True)
+class Box:
+    """The toy kind's own parameters: the width of its running mean."""
+
+    width_s: float
+
+
 def box(r, s, where, rate):
-    width = r.number(s, "width", f"{where}.width", kind="time", positive=True)
-    return Stage("box", cutoff_hz=1 / width)
+    return Stage("box", Box(width_s=r.number(s, "width", f"{where}.width", kind="time",
+                                             positive=True)))
 
 
 def box_cells(stage, h, cells):
-    """A toy response: each fine cell's output is the mean input over the last 1/cutoff_hz
+    """A toy response: each fine cell's output is the mean input over the last width_s
     seconds of cells (a whole number of them here)."""
-    width = round(1 / (stage.cutoff_hz * h))
+    width = round(stage.params.width_s / h)
     g = np.zeros(cells)
     g[:width] = 1 / width
     return g
 
 
 def test_a_toy_line_kind_is_one_register_call(restore):
-    line.register_kind("box", ("width",), box, line.Response("causal", box_cells))
+    line.register_kind("box", ("width",), box, line.Response("causal", box_cells), Box)
     raw = {**DEMO, "line": {"oversample": 4, "q0": [{"kind": "box", "width": "0.3125 ns"}]}}
     recipe = load_recipe(raw)
     stage = recipe.line.stages["q0"][0]
-    assert stage.summary() == {"kind": "box", "cutoff_hz": pytest.approx(3.2e9)}
+    assert stage.summary() == {"kind": "box", "width_s": pytest.approx(0.3125e-9)}
     # a held step through the line: the running mean over 0.3125 ns = 3 fine cells (0.1042 ns
     # each at 2.4 GS/s x 4), then the mean over each AWG sample, computed here by hand
     held = np.zeros(6)

@@ -158,13 +158,15 @@ MIN_CUTOFF_CYCLES = 0.1  # a line cutoff times the pulse's duration below this p
 
 
 def _check_cutoffs(r: _Reader, line, duration_s: float) -> None:
-    """A line stage whose cutoff is far below 1 / duration lets none of the pulse through:
-    the optimiser would stop at once with the gate undone ("converged" at infidelity ~0.7)."""
+    """A line stage whose cutoff (a ``cutoff_hz`` among its kind's parameters) is far below
+    1 / duration lets none of the pulse through: the optimiser would stop at once with the
+    gate undone ("converged" at infidelity ~0.7)."""
     where = [(f"line.{channel}[{i}].cutoff", st) for channel, stages in line.stages.items()
              for i, st in enumerate(stages)]
     for key, st in [("awg.cutoff", st) for st in line.awg.stages] + where:
-        if st.cutoff_hz and st.cutoff_hz * duration_s < MIN_CUTOFF_CYCLES:
-            r.fail(key, f"{format_quantity(st.cutoff_hz, 'Hz')} passes almost nothing of a "
+        cutoff = getattr(st.params, "cutoff_hz", None)
+        if cutoff and cutoff * duration_s < MIN_CUTOFF_CYCLES:
+            r.fail(key, f"{format_quantity(cutoff, 'Hz')} passes almost nothing of a "
                         f"{format_quantity(duration_s, 's')} pulse (cutoff x duration < "
                         f"{MIN_CUTOFF_CYCLES}); check the unit (lines between a DAC and a "
                         f"chip pass tens to hundreds of MHz)")
