@@ -34,10 +34,10 @@ DEMO = tomllib.loads((ROOT / "recipes" / "demo-x180.toml").read_text())
 def restore():
     """Registries are module state: put them back after each test."""
     saved = (dict(models.MODELS), dict(line.RESPONSES), dict(writers.WRITERS),
-             dict(methods.METHODS), dict(shaper.recipe.schema.METHODS),
-             dict(shaper.recipe.schema.KEYS), dict(shaper.recipe.lines.KINDS))
+             dict(shaper.recipe.schema.METHODS), dict(shaper.recipe.schema.KEYS),
+             dict(shaper.recipe.lines.KINDS))
     yield
-    for live, old in zip((models.MODELS, line.RESPONSES, writers.WRITERS, methods.METHODS,
+    for live, old in zip((models.MODELS, line.RESPONSES, writers.WRITERS,
                           shaper.recipe.schema.METHODS, shaper.recipe.schema.KEYS,
                           shaper.recipe.lines.KINDS), saved, strict=True):
         live.clear()
