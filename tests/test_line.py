@@ -21,9 +21,9 @@ from helpers import run_cli as cli
 
 from shaper.errors import InputError, RecipeError
 from shaper.io.waveio import read_waveform
-from shaper.jobs.export import make_waveform
-from shaper.jobs.playback import simulate_played
+from shaper.jobs.playback import Playback
 from shaper.jobs.run import run
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.objective import make_objective
 from shaper.recipe import load_recipe
 from shaper.recipe.lines import Gaussian, LowPass, Settling, Stage
@@ -358,9 +358,9 @@ offset_q = -0.002
     # the same samples would on an ideal mixer (to the DAC's resolution)
     from dataclasses import replace
     plain, _ = make_waveform(recipe, samples, replace(recipe.export, mixer={}), RATE)
-    uncorrected = simulate_played(recipe, plain).infidelity
-    ideal = simulate_played(recipe, plain, mixer=False).infidelity
-    corrected = simulate_played(recipe, wave).infidelity
+    uncorrected = Playback(recipe, plain).played().infidelity
+    ideal = Playback(recipe, plain).played(mixer=False).infidelity
+    corrected = Playback(recipe, wave).played().infidelity
     assert abs(corrected - ideal) < 1e-6 < abs(uncorrected - ideal)
 
 

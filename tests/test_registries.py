@@ -16,8 +16,8 @@ import scipy.linalg
 import shaper
 from shaper.cli.main import main
 from shaper.io import writers
-from shaper.jobs.export import make_waveform
 from shaper.jobs.playback import Playback
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer import methods
 from shaper.optimizer.objective import make_objective
 from shaper.optimizer.tracker import StopReason, Tracker

@@ -54,8 +54,13 @@ class Playback:
     def __init__(self, recipe: Recipe, wave: waveio.Waveform):
         self.recipe, self.wave = recipe, wave
         self.samples = wave.to_hz(recipe.system)
-        self.chain = for_waveform(recipe, wave)
         self._played: dict[tuple, Simulation] = {}
+
+    @cached_property
+    def chain(self):
+        """The file's signal chain (built when a figure first needs it: the samples alone,
+        :meth:`intended` and :meth:`baseband`, do not)."""
+        return for_waveform(self.recipe, self.wave)
 
     def played(self, *, line: bool = True, mixer: bool = True,
                extrapolate: bool = True) -> Simulation:
@@ -310,11 +315,28 @@ class Playback:
     def intended(self) -> np.ndarray:
         """The samples (Hz) the file means the chip to see, averaged per sample: its own,
         with any mixer correction and pre-distortion undone (still carrying the IF)."""
-        return intended(self.recipe, self.wave)
+        recipe, wave = self.recipe, self.wave
+        samples = self.samples.copy()
+        if wave.mixer_corrected:
+            samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
+        if wave.predistorted:
+            from shaper.signal.line import through_line
+            for column, stages in line_columns(recipe):
+                samples[:, column] = through_line(samples[:, column], stages,
+                                                  1 / wave.sample_rate_hz,
+                                                  max(recipe.line.oversample, 1))
+        return samples
 
     def baseband(self) -> np.ndarray:
-        """The envelope the optimiser shaped: :meth:`intended` without the IF."""
-        return baseband(self.recipe, self.wave)
+        """The envelope the optimiser shaped: :meth:`intended` without the IF (for a
+        pre-distorted or mixer-corrected file, what it means the chip to see)."""
+        samples, wave = self.intended(), self.wave
+        if wave.if_frequency_hz:
+            from shaper.signal.modulation import demodulate
+            samples = demodulate(samples, self.recipe.system.iq_columns(),
+                                 wave.if_frequency_hz, 1 / wave.sample_rate_hz, wave.sideband,
+                                 start=wave.pulse_start)
+        return samples
 
     @cached_property
     def band_fraction(self) -> float | None:
@@ -371,6 +393,16 @@ class Playback:
                 "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
 
 
+def system_model(system) -> dict:
+    """The reports' ``system_model`` block, always a dict: ``{"kind": "transmons",
+    "transmons": {name: its spectrum and parameters}}`` for a system of transmon ladders
+    (E_J and E_C for the charge model), ``{"kind": "matrices"}`` for one given by its
+    matrices."""
+    if not system.models:
+        return {"kind": "matrices"}
+    return {"kind": "transmons", "transmons": dict(system.models)}
+
+
 def model_words(system) -> str:
     """Which model the figures come from, in words: the transmon spectrum of every
     transmon, how many are simulated together, and that no other qubit is."""
@@ -403,36 +435,6 @@ def _members_program(flags: dict):
 
 
 _MEMBERS: dict = {}  # digest of the static flags (and chain) -> compiled program
-
-
-def simulate_played(recipe: Recipe, wave: waveio.Waveform, **variant) -> Simulation:
-    """The rotating-frame figures of a file as played (:meth:`Playback.played`)."""
-    return Playback(recipe, wave).played(**variant)
-
-
-def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """The samples (Hz) a file means the chip to see (:meth:`Playback.intended`)."""
-    samples = wave.to_hz(recipe.system)
-    if wave.mixer_corrected:
-        samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
-    if wave.predistorted:
-        from shaper.signal.line import through_line
-        for column, stages in line_columns(recipe):
-            samples[:, column] = through_line(samples[:, column], stages,
-                                              1 / wave.sample_rate_hz,
-                                              max(recipe.line.oversample, 1))
-    return samples
-
-
-def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """A file's samples in Hz without its IF (the envelope the optimiser shaped; for a
-    pre-distorted or mixer-corrected file, what it means the chip to see)."""
-    samples = intended(recipe, wave)
-    if wave.if_frequency_hz:
-        from shaper.signal.modulation import demodulate
-        samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
-                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
-    return samples
 
 
 _SENSITIVITY: dict[str, tuple] = {}

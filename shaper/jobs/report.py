@@ -16,8 +16,8 @@ import numpy as np
 from shaper.errors import ResultError
 from shaper.io import atomic, waveio
 from shaper.jobs.explain import explain, speed_limit
-from shaper.jobs.export import make_waveform
-from shaper.jobs.playback import Playback, baseband, simulate_played
+from shaper.jobs.playback import Playback, system_model
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.starts import Result
 from shaper.physics.simulation import Simulation
 from shaper.recipe import ExportSettings, Recipe, load_recipe
@@ -54,7 +54,7 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
             "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
             "infidelity": members[0], "leakage": members[1]},
         "trust": playback.trust_block(),
-        "system_model": recipe.system.models or "matrices",
+        "system_model": system_model(recipe.system),
         "open_system": playback.open_system,
         "line": playback.line_block(),
         "mixer": mixer_figures(recipe, result.samples, recipe.export, recipe.sample_rate_hz),
@@ -126,7 +126,7 @@ def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
     if not settings.mixer:
         return None
     plain, _ = make_waveform(recipe, samples_hz, replace(settings, mixer={}), rate)
-    played = simulate_played(recipe, plain)
+    played = Playback(recipe, plain).played()
     return {"channels": {c: vars(m) for c, m in settings.mixer.items()},
             "uncorrected": {"infidelity": played.infidelity, "leakage": played.leakage}}
 
@@ -142,7 +142,7 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
             raise ResultError(f"{report_path}: missing key {key!r}; not a shaper report")
     recipe = load_recipe(report["recipe"]["content"])
     wave = waveio.read_waveform(report_path.parent / report["waveform"])
-    samples = baseband(recipe, wave)
+    samples = Playback(recipe, wave).baseband()
     n = int(report.get("pulse_samples", samples.shape[0]))
     samples = samples[wave.pulse_start:wave.pulse_start + n]
     recipe = at_samples(recipe, n, rate_hz=wave.sample_rate_hz)
