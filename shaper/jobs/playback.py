@@ -23,14 +23,12 @@ recipe's levels (the report says so).
 
 from __future__ import annotations
 
-import hashlib
-import pickle
 from dataclasses import replace
 from functools import cached_property
 
 import numpy as np
 
-from shaper.costs.problem import has_ensemble, qubit_count, recipe_layout, waveform_problem
+from shaper.costs.problem import has_ensemble, recipe_layout
 from shaper.costs.verdict import Verdict, judge
 from shaper.io import waveio
 from shaper.physics.simulation import LabSimulation, Simulation, simulate
@@ -106,19 +104,10 @@ class Playback:
         """Infidelity and leakage of every ensemble member (rotating frame, the recipe's
         levels), or None without an ensemble. With sub-steps the members are simulated on
         the chain's own grid (accurate to about 1e-9)."""
-        recipe = self.recipe
-        if not has_ensemble(recipe):
+        if not has_ensemble(self.recipe):
             return None
-        from shaper.physics._jax import device
-        problem = waveform_problem(recipe, self.chain.played_samples(self.samples.shape[0]),
-                                   steps=self.chain.steps,
-                                   dt=self.chain.period_s)
-        flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
-                     virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator,
-                     drive=None if self.chain.identity else self.chain)
-        scores = _members_program(flags)(device(self.samples, float), problem)
-        fid, leak = np.asarray(scores.members.fidelity), np.asarray(scores.members.leakage)
-        return (1.0 - fid[1:]).tolist(), leak[1:].tolist()
+        from shaper.jobs.robustness import member_figures
+        return member_figures(self.recipe, self.chain, self.samples)
 
     @cached_property
     def more_levels(self) -> Playback | None:
@@ -371,26 +360,10 @@ class Playback:
 
     def sensitivity(self, detunings: np.ndarray, scales: np.ndarray) -> dict:
         """Infidelity of this file against a detuning offset and an amplitude scale (the
-        recipe's model, the chain's grid), with the first-order slopes."""
-        from shaper.physics._jax import device
-
-        recipe, chain = self.recipe, self.chain
-        problem = waveform_problem(recipe, chain.played_samples(self.samples.shape[0]),
-                                   steps=chain.steps,
-                                   dt=chain.period_s)
-        flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
-                     virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
-        vs_detuning, vs_scale, slopes = _sensitivity_programs(flags)
-        x = device(self.samples, float)
-        curve_d = vs_detuning(x, problem, device(detunings, float))
-        curve_s = vs_scale(x, problem, device(scales, float))
-        slope_d, slope_s = slopes(x, problem)
-        return {"detuning_hz": detunings.tolist(),
-                "infidelity_vs_detuning": np.asarray(curve_d).tolist(),
-                "amplitude_scale": scales.tolist(),
-                "infidelity_vs_scale": np.asarray(curve_s).tolist(),
-                "d_infidelity_d_detuning_per_mhz": float(slope_d) * 1e6,
-                "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
+        recipe's model, the chain's grid), with the first-order slopes
+        (:func:`shaper.jobs.robustness.sensitivity`)."""
+        from shaper.jobs.robustness import sensitivity
+        return sensitivity(self.recipe, self.chain, self.samples, detunings, scales)
 
 
 def system_model(system) -> dict:
@@ -415,48 +388,3 @@ def model_words(system) -> str:
     if count == 1:
         return f"one {names} transmon, no neighbours"
     return f"{count} {names} transmons simulated together, no other neighbours"
-
-
-def _members_program(flags: dict):
-    """One jitted ensemble evaluation per set of static flags and chain, kept for the
-    process (a second file with the same layout is not traced again)."""
-    # exact, not repr: NumPy's repr elides long arrays (a measured line response), and two
-    # chains that print alike must not share a program that closes over one of them
-    key = hashlib.sha256(pickle.dumps(sorted(flags.items(), key=lambda item: item[0]))
-                         ).hexdigest()
-    if key not in _MEMBERS:
-        import jax
-
-        from shaper.costs import evaluate_members
-        if len(_MEMBERS) >= 16:
-            _MEMBERS.pop(next(iter(_MEMBERS)))
-        _MEMBERS[key] = jax.jit(lambda x, p: evaluate_members(x, p, **flags))
-    return _MEMBERS[key]
-
-
-_MEMBERS: dict = {}  # digest of the static flags (and chain) -> compiled program
-
-
-_SENSITIVITY: dict[str, tuple] = {}
-
-
-def _sensitivity_programs(flags: dict) -> tuple:
-    """The three jitted programs of the sensitivity (one eigendecomposition each,
-    DEVELOPERS.md: never op by op), built once per process for these flags (keyed by an
-    exact digest of them, as :func:`_members_program`)."""
-    key = hashlib.sha256(pickle.dumps(flags)).hexdigest()
-    if key not in _SENSITIVITY:
-        import jax
-        import jax.numpy as jnp
-
-        from shaper.costs import evaluate
-
-        def infidelity(x, problem, delta, scale):
-            drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
-            return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
-
-        _SENSITIVITY[key] = (
-            jax.jit(lambda x, p, d: jax.vmap(lambda di: infidelity(x, p, di, 1.0))(d)),
-            jax.jit(lambda x, p, s: jax.vmap(lambda si: infidelity(x, p, 0.0, si))(s)),
-            jax.jit(lambda x, p: jax.grad(infidelity, argnums=(2, 3))(x, p, 0.0, 1.0)))
-    return _SENSITIVITY[key]

@@ -171,33 +171,10 @@ def _transmons(r: _Reader, t: dict) -> System:
             flux=r.flag(item, "flux", f"{where}.flux", False),
             driven=r.flag(item, "driven", f"{where}.driven", True), **_coherence(r, item, where),
             **_spectrum(r, item, where)))
-    couplings = []
-    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
-        pair = item.get("between")
-        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
-                                                                 for p in pair)):
-            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
-        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
-        if abs(g) > MAX_COUPLING_HZ:
-            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
-                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
-                                        f"couplings are MHz to tens of MHz (check the unit)")
-        couplings.append((pair[0], pair[1], g))
+    couplings = _couplings(r, t)
     frame = r.number(t, "frame_frequency", "system.frame_frequency",
                      specs[0].qubit_frequency_hz, kind="frequency", positive=True)
-    drives = []
-    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
-        for key in ("name", "transmon"):
-            if not isinstance(item.get(key), str):
-                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
-        carrier = r.number(item, "frequency", f"{where}.frequency", kind="frequency",
-                           positive=True)
-        if abs(carrier - frame) > MAX_CARRIER_OFFSET_HZ:
-            r.fail(f"{where}.frequency", f"{format_quantity(carrier, 'Hz')} is more than "
-                                         f"{format_quantity(MAX_CARRIER_OFFSET_HZ, 'Hz')} from "
-                                         f"the frame {format_quantity(frame, 'Hz')}; a drive "
-                                         f"sits near the transmons' frequencies (check the unit)")
-        drives.append((item["name"], item["transmon"], carrier))
+    drives = _drives(r, t, frame)
     basis = r.choice(t, "basis", "system.basis", BASES, "bare")
     try:
         system = coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
@@ -212,6 +189,42 @@ def _transmons(r: _Reader, t: dict) -> System:
         return dressed(system)
     except InputError as exc:
         r.fail("system.basis", f"{exc} (frame {format_quantity(frame, 'Hz')})")
+
+
+def _couplings(r: _Reader, t: dict) -> list[tuple[str, str, float]]:
+    """``[[system.coupling]]``: ``(name_a, name_b, strength_hz)`` per table."""
+    couplings = []
+    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
+        pair = item.get("between")
+        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
+                                                                 for p in pair)):
+            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
+        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
+        if abs(g) > MAX_COUPLING_HZ:
+            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
+                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
+                                        f"couplings are MHz to tens of MHz (check the unit)")
+        couplings.append((pair[0], pair[1], g))
+    return couplings
+
+
+def _drives(r: _Reader, t: dict, frame: float) -> list[tuple[str, str, float]]:
+    """``[[system.drive]]``: ``(name, transmon, carrier_hz)`` per table, each carrier
+    near the frame (``frame``, Hz)."""
+    drives = []
+    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
+        for key in ("name", "transmon"):
+            if not isinstance(item.get(key), str):
+                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
+        carrier = r.number(item, "frequency", f"{where}.frequency", kind="frequency",
+                           positive=True)
+        if abs(carrier - frame) > MAX_CARRIER_OFFSET_HZ:
+            r.fail(f"{where}.frequency", f"{format_quantity(carrier, 'Hz')} is more than "
+                                         f"{format_quantity(MAX_CARRIER_OFFSET_HZ, 'Hz')} from "
+                                         f"the frame {format_quantity(frame, 'Hz')}; a drive "
+                                         f"sits near the transmons' frequencies (check the unit)")
+        drives.append((item["name"], item["transmon"], carrier))
+    return drives
 
 
 def _matrices(r: _Reader, t: dict) -> System:
