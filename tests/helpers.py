@@ -79,6 +79,28 @@ def duffing(levels, detuning_hz, alpha_hz):
     return drift, np.array([0.5 * (a + a.conj().T), 0.5j * (a.conj().T - a)])
 
 
+def duffing_collapse(levels, t1_s, t2_s):
+    """Collapse operators of one Duffing transmon for its T1 and T2, built here by hand.
+
+    Relaxation ``L = a / sqrt(T1)``: level n decays to n - 1 at rate n / T1, the
+    harmonic-oscillator ladder of the weakly anharmonic transmon (Koch et al., Phys. Rev. A
+    76, 042319 (2007), from memory). Pure dephasing on the number operator, ``L = sqrt(2
+    Gamma_phi) n`` with ``Gamma_phi = 1/T2 - 1/(2 T1)`` (``Gamma_2 = Gamma_1 / 2 + Gamma_phi``:
+    Krantz et al., Appl. Phys. Rev. 6, 021318 (2019), from memory): on levels 0 and 1 it is
+    ``sqrt(Gamma_phi / 2) sigma_z`` up to the identity, which decays the 0-1 coherence at
+    Gamma_phi. T2 alone (no T1) is pure dephasing at 1/T2.
+    """
+    out = []
+    if t1_s is not None:
+        a = np.diag(np.sqrt(np.arange(1, levels)), 1).astype(complex)
+        out.append(a / np.sqrt(t1_s))
+    if t2_s is not None:
+        rate_phi = 1 / t2_s - (0.0 if t1_s is None else 1 / (2 * t1_s))
+        if rate_phi > 0:
+            out.append(np.sqrt(2 * rate_phi) * np.diag(np.arange(levels)).astype(complex))
+    return out
+
+
 def random_hermitian(rng, d, scale=1.0):
     a = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
     return scale * (a + a.conj().T) / 2

@@ -55,7 +55,7 @@ def drag(recipe, label: str, n: int) -> np.ndarray:
 
 def write_files(folder: Path, recipe) -> dict[str, Path]:
     from shaper.io import writers
-    from shaper.jobs.export import make_waveform
+    from shaper.jobs.waveform import make_waveform
     from shaper.recipe.derive import for_gate
 
     paths = {}

@@ -9,7 +9,14 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 import scipy.integrate
-from helpers import QUTRIT_MATRICES, duffing, expm_product, pedersen_fidelity, run_cli
+from helpers import (
+    QUTRIT_MATRICES,
+    duffing,
+    duffing_collapse,
+    expm_product,
+    pedersen_fidelity,
+    run_cli,
+)
 
 from shaper.physics.lindblad import (
     channel_block,
@@ -42,12 +49,26 @@ def test_idle_qubit_fidelity_formula(t, t1, t2):
     Nielsen's relation F_avg = (d F_e + 1)/(d + 1) (Nielsen, Phys. Lett. A 303, 249 (2002))
     gives the formula with d = 2.
     """
-    noise = dissipator(transmon_collapse(2, t1, t2), 2)
+    noise = dissipator(duffing_collapse(2, t1, t2), 2)
     s = propagate_open(np.zeros((2, 2)), np.zeros((1, 2, 2)), np.zeros((1, 1)), t, noise)
     fidelity, leak = channel_figures(channel_block(s, [0, 1], 2), np.eye(2))
     expected = (3 + np.exp(-t / t1) + 2 * np.exp(-t / t2)) / 6
     assert float(fidelity) == pytest.approx(expected, abs=1e-13)
     assert abs(float(leak)) < 1e-14
+
+
+@pytest.mark.parametrize("levels, t1, t2", [(2, 40e-6, 30e-6), (4, 20e-6, 15e-6),
+                                             (3, 40e-6, None), (3, None, 8e-6),
+                                             (3, 10e-6, 20e-6)])
+def test_the_transmon_collapse_operators_are_the_published_model(levels, t1, t2):
+    # shaper's operators for a Duffing transmon against those built by hand in helpers.py
+    # (relaxation a / sqrt(T1), dephasing sqrt(2 Gamma_phi) n; sources named there); at
+    # T2 = 2 T1 there is no pure dephasing
+    ours, reference = transmon_collapse(levels, t1, t2), duffing_collapse(levels, t1, t2)
+    assert len(ours) == len(reference) == (t1 is not None) + (t2 is not None and t2 < 2 * (
+        t1 or np.inf))
+    for op, ref in zip(ours, reference, strict=True):
+        assert np.allclose(op, ref, rtol=0, atol=1e-12 * np.max(np.abs(ref)))
 
 
 def lindblad_rhs(drift, controls, collapse):
@@ -71,7 +92,7 @@ def test_superoperator_agrees_with_an_ode_solver():
     # scipy's solve_ivp at tight tolerance, slice by slice
     rng = np.random.default_rng(3)
     drift, controls = duffing(3, 1e6, -220e6)
-    collapse = transmon_collapse(3, 5e-6, 4e-6)
+    collapse = duffing_collapse(3, 5e-6, 4e-6)
     samples = rng.normal(scale=40e6, size=(12, 2))
     dt = 1.5e-9
     s = np.asarray(propagate_open(drift, controls, samples, dt, dissipator(collapse, 3)))
@@ -97,7 +118,7 @@ def test_long_coherence_reproduces_the_closed_system_and_gradients_are_exact():
     drift, controls = duffing(4, 0.0, -220e6)
     samples = rng.normal(scale=30e6, size=(16, 2))
     dt = 1 / 2.4e9
-    s = propagate_open(drift, controls, samples, dt, dissipator(transmon_collapse(4, 1e9, 1e9),
+    s = propagate_open(drift, controls, samples, dt, dissipator(duffing_collapse(4, 1e9, 1e9),
                                                                 4))
     fidelity, leak = channel_figures(channel_block(s, [0, 1], 4), X)
     u = expm_product(drift, controls, samples, dt)
@@ -105,7 +126,7 @@ def test_long_coherence_reproduces_the_closed_system_and_gradients_are_exact():
     p = u[:2, :2]
     assert float(leak) == pytest.approx(1 - np.trace(p @ p.conj().T).real / 2, abs=1e-12)
 
-    noise = dissipator(transmon_collapse(4, 20e-6, 15e-6), 4)
+    noise = dissipator(duffing_collapse(4, 20e-6, 15e-6), 4)
     scalings = squarings(norm_bound(drift, controls, [60e6, 60e6], noise, dt))
 
     def infidelity(x):
@@ -216,7 +237,7 @@ def test_collapse_operators_of_a_matrices_model_match_the_transmon_ones():
     text = with_collapse("collapse.decay = [[0, 1, 0], [0, 0, 1.4142135623730951], [0, 0, 0]]"
                          "\ncollapse_rate.decay = \"25 kHz\"")
     system = load_recipe(tomllib.loads(text)).system
-    reference = transmon_collapse(3, 40e-6, None)
+    reference = duffing_collapse(3, 40e-6, None)
     assert np.allclose(system.collapse[0], reference[0], atol=1e-12)
 
 
@@ -239,7 +260,7 @@ def test_frame_updates_are_optimised_on_the_channel():
     w, v = np.linalg.eig(p)
     h = v @ np.diag(-np.angle(w) / (2 * np.pi)) @ np.linalg.inv(v)
     h = (h + h.conj().T) / 2
-    noise = dissipator(transmon_collapse(2, 1e-3, None), 2)
+    noise = dissipator(duffing_collapse(2, 1e-3, None), 2)
     plain = open_figures(h / 1e-9, np.zeros((1, 2, 2)), np.zeros((1, 1)), 1e-9, noise,
                          np.arange(2), X, qubits=1, virtual_z=False)
     framed = open_figures(h / 1e-9, np.zeros((1, 2, 2)), np.zeros((1, 1)), 1e-9, noise,

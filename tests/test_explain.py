@@ -1,6 +1,7 @@
 """The morning after: every miss says why, from the run's own numbers, and what to run next
-(README, "When a result misses its targets"). Each cause is produced by a real run (or a
-bundled result) and read back from the report and from the command's last lines."""
+(README, "When a result misses its targets"). Each cause is produced by a real run and read
+back from the report and from the command's last lines, or by a report built here with the
+figures that make it (the cause follows from the numbers, not from a committed result)."""
 
 from __future__ import annotations
 
@@ -13,32 +14,54 @@ from helpers import run_cli as cli
 
 from shaper.jobs.explain import explain
 
-ROOT = Path(__file__).resolve().parents[1]
 
-
-def bundled(name: str) -> dict:
-    return json.loads((ROOT / "results" / name / "report.json").read_text())
+def missed(trust: dict, *, stop: str = "targets met", iterations: int = 100,
+           system: dict | None = None, limits=(1e-4, 1e-4), duration_s: float = 1e-8) -> dict:
+    """A report whose judged figures miss ``limits``: the optimiser's own figures and the
+    file's in the recipe's rotating frame are ``trust["rotating_frame"]``; ``system``: the
+    recipe's ``[system]`` table as the report carries it."""
+    rotating = trust["rotating_frame"]
+    return {"targets": {"met": False, "infidelity": limits[0], "leakage": limits[1]},
+            "optimizer": {"stop_reason": stop, "iterations": iterations, "starts": [{}]},
+            "before_quantisation": {k: rotating[k] for k in ("infidelity", "leakage")},
+            "infidelity": rotating["infidelity"], "leakage": rotating["leakage"],
+            "trust": trust, "duration_s": duration_s,
+            "recipe": {"content": {"system": system or {"model": "transmon", "levels": 5}}}}
 
 
 def test_a_met_target_needs_no_explanation():
-    assert explain(bundled("demo-x180")) == []
+    assert explain({"targets": {"met": True}, "infidelity": 1e-9, "leakage": 1e-9}) == []
 
 
 def test_the_lab_frame_is_named_where_the_rotating_frame_passes():
-    # results/short-x180: 5.7e-8 in the rotating frame with 7 levels, 5.1e-5 in the lab frame
-    report = bundled("short-x180")
-    (reason,) = explain(report, recipe="recipes/short-x180.toml")
+    # passes in the rotating frame, with and without 2 more levels; misses in the lab frame
+    report = missed({"rotating_frame": {"levels": [5], "infidelity": 6e-8, "leakage": 1e-9},
+                     "more_levels": {"levels": [7], "infidelity": 5.7e-8, "leakage": 1e-9},
+                     "lab_frame": {"levels": [7], "infidelity": 3.21e-4, "leakage": 2e-7}})
+    (reason,) = explain(report, recipe="my/r.toml")
     assert reason.cause == "lab frame"
-    assert "5.12e-05" in reason.why and "optimizer.lab_frame = true" in reason.next
-    assert "shaper sweep recipes/short-x180.toml --durations" in reason.next
+    assert "3.21e-04" in reason.why and "5.70e-08" in reason.why  # the report's own numbers
+    assert "optimizer.lab_frame" in reason.next
+    assert "shaper sweep my/r.toml --durations 10ns:20ns:" in reason.next  # up to twice 10 ns
 
 
-def test_truncated_levels_are_named_with_the_key_to_change():
-    # results/cz-line: 2.8e-5 on 4x4 levels, 6.8e-3 on 6x6; its optimiser also ran out of
+@pytest.mark.parametrize("system, key", [
+    ({"model": "transmons", "transmon": [{"name": "qa", "levels": 4},
+                                         {"name": "qb", "levels": 4}]},
+     "levels on every [[system.transmon]] = 6"),
+    ({"model": "transmon", "levels": 4}, "system.levels = 6"),
+])
+def test_truncated_levels_are_named_with_the_key_to_change(system, key):
+    # fine on the recipe's levels, far over on 2 more; the optimiser also ran out of
     # iterations, named second (the smaller part of the miss)
-    reason, budget = explain(bundled("cz-line"))
+    report = missed({"rotating_frame": {"levels": [4, 4], "infidelity": 2.8e-5,
+                                        "leakage": 1e-6},
+                     "more_levels": {"levels": [6, 6], "infidelity": 6.8e-3, "leakage": 1e-4}},
+                    stop="iteration limit", iterations=3000, system=system)
+    reason, budget = explain(report)
     assert reason.cause == "levels" and budget.cause == "budget"
-    assert "6x6" in reason.why and "levels on every [[system.transmon]] = 6" in reason.next
+    assert "6x6" in reason.why and "6.80e-03" in reason.why and key in reason.next
+    assert "--iterations 6000" in budget.next
 
 
 def write_demo(tmp_path: Path, extra: str = "", duration: str = "20 ns") -> Path:

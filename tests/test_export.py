@@ -13,9 +13,9 @@ from shaper.errors import WaveformError
 from shaper.io.waveform_import import read_any
 from shaper.io.waveio import read_waveform
 from shaper.io.writers import write_waveform
-from shaper.jobs.export import make_waveform, resample
-from shaper.jobs.playback import simulate_played
+from shaper.jobs.playback import Playback
 from shaper.jobs.run import run
+from shaper.jobs.waveform import make_waveform, resample
 from shaper.recipe import load_recipe
 from shaper.signal.modulation import demodulate, modulate
 
@@ -80,7 +80,7 @@ def test_round_trip_within_half_a_dac_step(demo, tmp_path):
         # half a step of a signed DAC: 0.5 / (2^(bits-1) - 1) (common practice, no source)
         assert np.max(np.abs(back.fractions - exact)) <= 0.5 / (2 ** (bits - 1) - 1) + 1e-15
         if bits == 16:
-            change = abs(simulate_played(recipe, back).infidelity - demo.report[
+            change = abs(Playback(recipe, back).played().infidelity - demo.report[
                 "before_quantisation"]["infidelity"])
             assert change < 1e-8  # 16 bits cost next to nothing on this pulse
 

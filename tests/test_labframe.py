@@ -194,7 +194,7 @@ def test_optimising_in_the_lab_frame_sees_what_the_verdict_sees(tmp_path):
     # phases of the lab-frame infidelity; the verdict's own lab frame of the exported,
     # unquantised samples (its own code path: exact-time envelope, chunked propagation)
     # must give the same mean
-    from shaper.jobs.export import make_waveform
+    from shaper.jobs.waveform import make_waveform
     from shaper.optimizer.starts import optimize
 
     recipe = load_recipe(_lab_recipe())

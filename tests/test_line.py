@@ -4,6 +4,7 @@ pre-distortion, channel constraints, mixer correction and DAC codes, and bad inp
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 from pathlib import Path
@@ -20,12 +21,12 @@ from helpers import run_cli as cli
 
 from shaper.errors import InputError, RecipeError
 from shaper.io.waveio import read_waveform
-from shaper.jobs.export import make_waveform
-from shaper.jobs.playback import simulate_played
+from shaper.jobs.playback import Playback
 from shaper.jobs.run import run
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.objective import make_objective
 from shaper.recipe import load_recipe
-from shaper.recipe.lines import Stage
+from shaper.recipe.lines import Gaussian, LowPass, Settling, Stage
 from shaper.signal import line as lines
 from shaper.signal.chain import for_waveform
 from shaper.signal.mixer import Mixer
@@ -72,7 +73,7 @@ def test_filters_equal_scipy_designs_on_the_same_samples(kind, order):
     b, a = (scipy.signal.bessel(order, wc, analog=True, norm="mag") if kind == "bessel"
             else scipy.signal.butter(order, wc, analog=True))
     x = np.random.default_rng(3).normal(size=400)
-    g, lead = lines.cell_response((Stage(kind, order=order, cutoff_hz=cutoff),), 1 / RATE,
+    g, lead = lines.cell_response((Stage(kind, LowPass(order=order, cutoff_hz=cutoff)),), 1 / RATE,
                                   steps, 400)
     ours = lines.apply(x, g, lead)
     ref = cell_means_by_scipy(b, a, x)
@@ -89,7 +90,7 @@ def test_first_order_step_response_is_the_rc_charge_curve():
     # practice, no source); compared as the mean over each cell, which the propagator holds
     steps, cutoff = 8, 100e6
     h, tau = 1 / RATE / steps, 1 / (2 * math.pi * 100e6)
-    g, lead = lines.cell_response((Stage("butterworth", order=1, cutoff_hz=cutoff),),
+    g, lead = lines.cell_response((Stage("butterworth", LowPass(order=1, cutoff_hz=cutoff)),),
                                   1 / RATE, steps, 800)
     square = np.ones(800)
     out = lines.apply(square, g, lead)
@@ -107,7 +108,7 @@ def test_settling_terms_and_gaussian_and_measured_responses_against_closed_forms
     t = np.arange(600) * h
     # sum of exponentials, the lab's fit of a step response: 1 + sum A exp(-t/tau)
     amps, taus = (0.04, -0.015), (6e-9, 40e-9)
-    g, lead = lines.cell_response((Stage("exponential", amplitudes=amps, time_constants_s=taus),),
+    g, lead = lines.cell_response((Stage("exponential", Settling(amps, taus)),),
                                   period, steps, 600)
     step = lines.apply(np.ones(600), g, lead)
     exact = 1 + sum(a * tau / h * (np.exp(-t / tau) - np.exp(-(t + h) / tau))
@@ -117,7 +118,7 @@ def test_settling_terms_and_gaussian_and_measured_responses_against_closed_forms
     # response is the normal CDF, here integrated over the cells by scipy.integrate.quad
     fc = 200e6
     sigma = math.sqrt(math.log(2)) / (2 * math.pi * fc)
-    g, lead = lines.cell_response((Stage("gaussian", cutoff_hz=fc),), period, steps, 600)
+    g, lead = lines.cell_response((Stage("gaussian", Gaussian(cutoff_hz=fc)),), period, steps, 600)
     step = lines.apply(np.concatenate([np.zeros(100), np.ones(500)]), g, lead)
     start = 100 * h
     ref = [scipy.integrate.quad(lambda s: 0.5 * (1 + math.erf((s - start) / (sigma * 2 ** .5))),
@@ -281,7 +282,7 @@ predistort = true
 def test_predistortion_of_a_flux_step_through_two_settling_terms():
     # the lab's practice: invert the fitted settling terms so that the line's output is
     # the intended step (common practice, no source); output averaged over each sample
-    stages = (Stage("exponential", amplitudes=(0.04, -0.015), time_constants_s=(6e-9, 40e-9)),)
+    stages = (Stage("exponential", Settling((0.04, -0.015), (6e-9, 40e-9))),)
     n = 480
     intended = np.zeros(n)
     intended[20:400] = -0.3
@@ -357,16 +358,16 @@ offset_q = -0.002
     # the same samples would on an ideal mixer (to the DAC's resolution)
     from dataclasses import replace
     plain, _ = make_waveform(recipe, samples, replace(recipe.export, mixer={}), RATE)
-    uncorrected = simulate_played(recipe, plain).infidelity
-    ideal = simulate_played(recipe, plain, mixer=False).infidelity
-    corrected = simulate_played(recipe, wave).infidelity
+    uncorrected = Playback(recipe, plain).played().infidelity
+    ideal = Playback(recipe, plain).played(mixer=False).infidelity
+    corrected = Playback(recipe, wave).played().infidelity
     assert abs(corrected - ideal) < 1e-6 < abs(uncorrected - ideal)
 
 
 BAD = [
     ('[[line.q0]]\nkind = "chebyshev"\ncutoff = "100 MHz"\n', "line.q0[0].kind", "chebyshev"),
     ('[[line.q0]]\nkind = "bessel"\norder = 2\ncutoff = "1.5 GHz"\n', "line.q0[0].cutoff",
-     "Nyquist"),
+     "half the sample rate"),
     ('[[line.q0]]\nkind = "bessel"\ncutoff = "100 MHz"\n', "line.q0[0].order", "missing"),
     ('[[line.q7]]\nkind = "bessel"\norder = 2\ncutoff = "100 MHz"\n', "line.q7", "no channel"),
     ('[[line.q0]]\nkind = "exponential"\namplitudes = [0.1]\ntime_constants = []\n',
@@ -442,6 +443,32 @@ def test_bandwidth_per_channel_counts_only_its_channels(tmp_path):
 
 def test_an_unstable_inverse_is_refused():
     # a line that passes 1e-4 of a step after it settles: its inverse grows 1e4-fold
-    stage = Stage("exponential", amplitudes=(-0.9999,), time_constants_s=(1e-6,))
+    stage = Stage("exponential", Settling((-0.9999,), (1e-6,)))
     with pytest.raises(InputError, match="unstable"):
         lines.predistort(np.ones(2000), (stage,), 1 / RATE, 1, channel="x")
+
+
+def test_every_stage_reports_its_kind_and_its_own_parameters(tmp_path):
+    # each kind's parameters under their own names (SI units), a file's samples left out,
+    # as the reports have always shown them (shaper export reads them back)
+    path = tmp_path / "step.csv"
+    path.write_text("time_s,value\n0,0\n1e-10,0.5\n2e-10,1\n")
+    recipe = load_recipe(_with(tmp_path, "kinds", DEMO, f"""
+[awg]
+filter = "gaussian"
+cutoff = "900 MHz"
+[line]
+q0 = [{{kind = "butterworth", order = 3, cutoff = "300 MHz"}},
+      {{kind = "exponential", amplitudes = [0.1], time_constants = ["5 ns"]}},
+      {{kind = "measured", file = "{path.name}"}}]
+"""))
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    assert [s.summary() for s in recipe.line.stages["q0"]] == [
+        {"kind": "butterworth", "order": 3, "cutoff_hz": 300e6},
+        {"kind": "exponential", "amplitudes": [0.1], "time_constants_s": [5e-9]},
+        {"kind": "measured", "response": "step", "file": str(path.resolve()),
+         "sha256": digest}]
+    assert recipe.line.awg.summary() == {"filter": "gaussian", "kind": "gaussian",
+                                         "cutoff_hz": 900e6, "assumed": False,
+                                         "words": "Gaussian low-pass at 900 MHz"}
+    assert recipe.line.stages["q0"][2].files() == {str(path.resolve()): digest}

@@ -15,7 +15,7 @@ from helpers import duffing, expm_product, pedersen_fidelity, write_long
 
 from shaper.costs.problem import recipe_layout
 from shaper.errors import RecipeError
-from shaper.jobs.export import make_waveform
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.starts import optimize
 from shaper.recipe import load_recipe
 from shaper.signal.pulses import to_samples

@@ -113,8 +113,7 @@ def _run(args: argparse.Namespace, stop) -> int:
     if stop:  # stopped while starting: nothing to save yet
         print("shaper optimize: interrupted before the run began", file=sys.stderr)
         return stop.exit_code
-    from shaper.io.runfolder import prepare_folder
-    from shaper.recipe.derive import budget_of, with_budget
+    from shaper.recipe.derive import with_budget
 
     recipe = with_budget(recipe, iterations=args.iterations, hours=args.hours,
                          starts=args.starts)
@@ -123,14 +122,9 @@ def _run(args: argparse.Namespace, stop) -> int:
     if seconds > SAY_VERDICT_S and not args.quiet:  # said before the run starts
         print(f"shaper optimize: judging the exported file will take at least "
               f"{minutes(seconds)} after the optimiser", file=sys.stderr, flush=True)
-    # refuses at once, before JAX is loaded; with --force an earlier waveform and report
-    # are kept as *.replaced-N.*
-    prepare_folder(folder, args.force, args.resume, budget=budget_of(recipe),
-                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"])
     starts = recipe.optimizer.starts
     workers = args.workers or min(starts, os.cpu_count() or 1)
     workers = workers if starts > 1 else 1
-    from shaper.jobs.run import run as run_job
     from shaper.jobs.setup import run_setup
 
     def progress(log):
@@ -140,12 +134,15 @@ def _run(args: argparse.Namespace, stop) -> int:
         return Progress(recipe.optimizer.max_iterations, log=log,
                         stream=None if quiet else sys.stderr)
 
-    with run_setup(folder, stop=stop, stall_limit_s=stall_limit, plots=not args.no_plots,
+    # run_setup prepares the folder first: a refusal comes at once, before JAX is loaded
+    with run_setup(folder, recipe=recipe, force=args.force, stop=stop,
+                   stall_limit_s=stall_limit, plots=not args.no_plots,
                    echo=None if args.quiet else sys.stderr, progress=progress, seed=args.seed,
                    resume=args.resume, workers=workers, checkpoint_every=args.checkpoint_every,
                    checkpoint_seconds=args.checkpoint_seconds) as setup:
         if recipe.gate_set:
             return _gate_set(recipe, setup.options, folder, args, setup.painter)
+        from shaper.jobs.run import run as run_job
         output = run_job(recipe, setup.options, out=folder, force=args.force,
                          plots_too=not args.no_plots, painter=setup.painter)
     _print_summary(recipe, output, time.monotonic() - args.started)

@@ -5,7 +5,8 @@ is a real scalar (unweighted). :func:`combine` sums ``weight * value`` over term
 and returns the parts beside the total, ready for
 ``jax.value_and_grad(..., has_aux=True)``. Weights are an array argument, so changing
 them does not recompile. :data:`TERMS` drives the objective: a new term is one factory
-here, one line in ``TERMS`` and its default weight in the recipe schema.
+and one :func:`register` call (built-in: one line in ``TERMS`` and its default weight in
+the recipe schema).
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ import numpy as np
 from shaper.costs.problem import Evaluation, Problem, has_ensemble
 from shaper.errors import InputError
 from shaper.physics import _jax  # noqa: F401
-from shaper.recipe import Recipe
+from shaper.recipe import Recipe, schema
 from shaper.signal.pulses import Layout
 
 
@@ -152,8 +153,9 @@ def _weighted(name: str) -> Callable[[Recipe], bool]:
     return lambda recipe: recipe.weights[name] > 0
 
 
-# The registry that drives the objective: a new term is its factory above and one line here
-# (and its default weight in shaper.recipe.schema.DEFAULT_WEIGHTS).
+# The registry that drives the objective: a built-in term is its factory above, one line
+# here and its default weight in shaper.recipe.schema.DEFAULT_WEIGHTS; a term from outside
+# the package is one register() call.
 TERMS: dict[str, Registered] = {
     "infidelity": Registered(infidelity, lambda r, layout: infidelity(), lambda r: True),
     "leakage": Registered(leakage, lambda r, layout: leakage(), _weighted("leakage")),
@@ -169,6 +171,15 @@ TERMS: dict[str, Registered] = {
                             _weighted("amplitude")),
     "robustness": Registered(robustness, lambda r, layout: robustness(), has_ensemble),
 }
+
+
+def register(name: str, term: Registered, weight: float) -> None:
+    """A new cost term: built for a recipe by ``term.build`` where ``term.enabled`` says
+    so, weighed by ``cost.<name>`` (a recipe key from now on, default ``weight``)
+    (DEVELOPERS.md, "Where new things go")."""
+    TERMS[name] = term
+    schema.DEFAULT_WEIGHTS[name] = weight
+    schema.KEYS["cost"] = tuple(dict.fromkeys(schema.KEYS["cost"] + (name,)))
 
 
 def terms_for(recipe: Recipe, layout: Layout) -> list[CostTerm]:

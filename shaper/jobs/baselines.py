@@ -20,7 +20,7 @@ import numpy as np
 import scipy.optimize
 
 from shaper.costs import evaluate
-from shaper.signal.pulses import Layout, gaussian_shape, rotation_area
+from shaper.signal.pulses import Layout, drag_quadrature, gaussian_shape, rotation_area
 
 MAX_LEVELS = 12
 MAX_EVALUATIONS = 300
@@ -34,10 +34,10 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     ``{"skipped": reason}`` for systems too large to be worth the time.
 
     Each entry: infidelity, leakage, the calibrated ``amplitude_scale`` (of the pulse with
-    the rotation's area), ``drag_coefficient`` (multiple of the first-order correction
-    ``Q = -dI/dt / (2 pi alpha)``), ``detuning_hz`` (the drive moved to ``f_d + detuning``,
-    i.e. the samples turned by ``exp(-2 pi i detuning t)``), ``peak_rabi_hz`` and whether
-    it stays within the recipe's limit.
+    the rotation's area), ``drag_coefficient`` (multiple of the first-order correction,
+    :func:`~shaper.signal.pulses.drag_quadrature`), ``detuning_hz`` (the drive moved to
+    ``f_d + detuning``, i.e. the samples turned by ``exp(-2 pi i detuning t)``),
+    ``peak_rabi_hz`` and whether it stays within the recipe's limit.
     """
     label = recipe.target.label.upper()
     if qubits != 1 or label not in ("X", "Y", "X/2", "Y/2") or not recipe.target.is_gate:
@@ -58,7 +58,7 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
     alpha = tf["f12_hz"] - tf["f01_hz"]
     n, dt = recipe.samples, recipe.dt
     main = rotation_area(label) * gaussian_shape(n, dt) * layout.envelope[:n]
-    shapes = (main, -np.gradient(main, dt) / (2 * np.pi * alpha) if alpha else np.zeros(n),
+    shapes = (main, drag_quadrature(main, dt, alpha) if alpha else np.zeros(n),
               (np.arange(n) + 0.5) * dt)
     form = (layout.controls, tuple(channel.columns), label.startswith("Y"))
     program = _program(form, dict(virtual_z=recipe.virtual_z,
@@ -77,17 +77,21 @@ def textbook_pulses(recipe, layout: Layout, qubits: int) -> dict:
                                    method="Nelder-Mead",
                                    options={"maxfev": MAX_EVALUATIONS, "xatol": 1e-7,
                                             "fatol": 1e-14})
-    out = {}
-    for kind, theta in (("gaussian", [gauss.x, 0.0, 0.0]), ("drag", list(drag.x))):
-        fid, leak = figures(theta)
-        played = _samples(np.asarray(theta, float), *shapes, form, np)
-        i_col, q_col = channel.columns
-        peak = float(np.max(np.hypot(played[:, i_col], played[:, q_col])))
-        out[kind] = {"infidelity": float(1 - fid), "leakage": float(leak),
-                     "amplitude_scale": float(theta[0]), "drag_coefficient": float(theta[1]),
-                     "detuning_hz": float(theta[2]) * 1e6, "peak_rabi_hz": peak,
-                     "within_limit": bool(peak <= recipe.limits_hz[channel.name])}
-    return out
+    return {kind: _entry(figures(theta), theta, shapes, form, channel,
+                         recipe.limits_hz[channel.name])
+            for kind, theta in (("gaussian", [gauss.x, 0.0, 0.0]), ("drag", list(drag.x)))}
+
+
+def _entry(figures, theta, shapes, form, channel, limit_hz: float) -> dict:
+    """One calibrated pulse's report entry: its figures, parameters and peak."""
+    fid, leak = figures
+    played = _samples(np.asarray(theta, float), *shapes, form, np)
+    i_col, q_col = channel.columns
+    peak = float(np.max(np.hypot(played[:, i_col], played[:, q_col])))
+    return {"infidelity": float(1 - fid), "leakage": float(leak),
+            "amplitude_scale": float(theta[0]), "drag_coefficient": float(theta[1]),
+            "detuning_hz": float(theta[2]) * 1e6, "peak_rabi_hz": peak,
+            "within_limit": bool(peak <= limit_hz)}
 
 
 def _too_big(recipe) -> str | None:

@@ -160,6 +160,29 @@ def markdown(rows: list[dict], methods, meta: dict) -> str:
     return "\n".join(lines) + "\n"
 
 
+def _user_rows(recipe: Path | None, quick: bool, echo) -> tuple[list, list, list]:
+    """The rows a user feels on ``recipe`` (:mod:`shaper.jobs.bench_user`): objectives,
+    whole commands, and (full mode) predicted RB against one verdict."""
+    from shaper.jobs import bench_user
+
+    objectives, startup, benchmarking = [], [], []
+    if recipe is not None and Path(recipe).exists():
+        objectives = bench_user.objective_rows(Path(recipe), repeats=20 if quick else 50)
+        if not quick:  # predicted RB: its time against one verdict of one file
+            benchmarking = bench_user.benchmarking_rows(Path(recipe), repeats=2)
+        for r in objectives + benchmarking:
+            echo(f"{r['what']}: {r['ms']:.3f} ms vs {r['baseline_ms']:.3f} ms, "
+                 f"{r['ratio']:.2f}x")
+        startup = bench_user.startup_rows(Path(recipe), repeats=2 if quick else 3,
+                                          full=not quick)
+        for r in startup:
+            echo(f"{r['command']}: {r['seconds']:.2f} s, floor {r['floor_s']:.2f} s, "
+                 f"{r['ratio']:.2f}x")
+    elif recipe is not None:
+        echo(f"no {recipe} here: the start-up and objective rows are skipped")
+    return objectives, startup, benchmarking
+
+
 def bench(*, quick: bool = False, out: Path | None = Path("results"),
           methods=None, echo=print, only: list[Case] | None = None,
           recipe: Path | None = None) -> list[dict]:
@@ -187,21 +210,7 @@ def bench(*, quick: bool = False, out: Path | None = Path("results"),
                               f"{row[m]['gradient_difference']:.1e})" for m in methods)
             echo(f"{case.label:>20} n={case.samples:<5} "
                  f"ref {row['reference_ms']:8.1f} ms | {parts}")
-        objectives, startup, benchmarking = [], [], []
-        if recipe is not None and Path(recipe).exists():
-            objectives = bench_user.objective_rows(Path(recipe), repeats=20 if quick else 50)
-            if not quick:  # predicted RB: its time against one verdict of one file
-                benchmarking = bench_user.benchmarking_rows(Path(recipe), repeats=2)
-            for r in objectives + benchmarking:
-                echo(f"{r['what']}: {r['ms']:.3f} ms vs {r['baseline_ms']:.3f} ms, "
-                     f"{r['ratio']:.2f}x")
-            startup = bench_user.startup_rows(Path(recipe), repeats=2 if quick else 3,
-                                              full=not quick)
-            for r in startup:
-                echo(f"{r['command']}: {r['seconds']:.2f} s, floor {r['floor_s']:.2f} s, "
-                     f"{r['ratio']:.2f}x")
-        elif recipe is not None:
-            echo(f"no {recipe} here: the start-up and objective rows are skipped")
+        objectives, startup, benchmarking = _user_rows(recipe, quick, echo)
         meta = {"mode": "quick" if quick else "full", "machine": f"{platform.machine()}, "
                 f"{__import__('os').cpu_count()} cores", "jax": jax.__version__,
                 "numpy": np.__version__, "scipy": scipy.__version__,

@@ -136,36 +136,15 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
     """Value and gradient of the recipe's objective: nominal, with a 3 x 3 ensemble, and
     as an open system (T1/T2 added), timed in turns so that both sides of a ratio share
     the machine's moods."""
-    import copy
     import tomllib
 
     with open(recipe, "rb") as f:
         raw = tomllib.load(f)
     raw.setdefault("optimizer", {})["lab_frame"] = "off"  # the rotating frame: the baseline
-    ensemble = copy.deepcopy(raw)
-    ensemble.setdefault("cost", {}).update(ENSEMBLE)
-    closed = copy.deepcopy(raw)
-    closed["system"].update(COHERENCE)
-    opened = copy.deepcopy(closed)
-    opened.setdefault("optimizer", {})["open_system"] = True
-    # the lab frame in the loop against the rotating frame, on the recipe's levels (d = 4
-    # for the demo) and on 9: to second order (the default, 16 carrier phases) and exactly
-    # (the verdict's integrator, its spread of carrier phases)
-    def lab_mode(base: dict, mode: str) -> dict:
-        out = copy.deepcopy(base)
-        out["optimizer"]["lab_frame"] = mode
-        return out
-    nine = copy.deepcopy(raw)
-    nine["system"]["levels"] = 9
-    lab, lab_nine = lab_mode(raw, "exact"), lab_mode(nine, "exact")
-    second, second_nine = lab_mode(raw, "corrected"), lab_mode(nine, "corrected")
-    # a chip qubit beside its coupled neighbours (README, "Chips: neighbours"): the qubit
-    # at the recipe's levels with 2 neighbours of 3 levels, 3 of 3, and 2 of 4
-    near = {f"near {n}x{lv}": neighbourhood(raw, n, lv) for n, lv in NEIGHBOURHOODS}
-    calls = {name: _objective_call(r) for name, r in
-             (("nominal", raw), ("ensemble", ensemble), ("closed", closed), ("open", opened),
-              ("lab", lab), ("nine", nine), ("lab nine", lab_nine), ("second", second),
-             ("second nine", second_nine), *near.items())}
+    variants = _variants(raw)
+    lab = variants["lab"]
+    near = {k: v for k, v in variants.items() if k.startswith("near ")}
+    calls = {name: _objective_call(r) for name, r in variants.items()}
     best = {name: [] for name in calls}
     for _ in range(5):
         for name, call in calls.items():
@@ -196,6 +175,37 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
                  f"alone (d = {raw['system']['levels']})",
          "ms": ms[name], "baseline_ms": ms["nominal"], "ratio": ms[name] / ms["nominal"]}
         for (n, lv), name in zip(NEIGHBOURHOODS, near, strict=True)]
+
+
+def _variants(raw: dict) -> dict[str, dict]:
+    """The recipes of :func:`objective_rows`, by name: the rotating frame, a 3 x 3
+    ensemble, an open system and its closed twin, the lab frame exactly and to second
+    order on the recipe's levels and on 9, and neighbourhoods."""
+    import copy
+
+    ensemble = copy.deepcopy(raw)
+    ensemble.setdefault("cost", {}).update(ENSEMBLE)
+    closed = copy.deepcopy(raw)
+    closed["system"].update(COHERENCE)
+    opened = copy.deepcopy(closed)
+    opened.setdefault("optimizer", {})["open_system"] = True
+    # the lab frame in the loop against the rotating frame, on the recipe's levels (d = 4
+    # for the demo) and on 9: to second order (the default, 16 carrier phases) and exactly
+    # (the verdict's integrator, its spread of carrier phases)
+    def lab_mode(base: dict, mode: str) -> dict:
+        out = copy.deepcopy(base)
+        out["optimizer"]["lab_frame"] = mode
+        return out
+    nine = copy.deepcopy(raw)
+    nine["system"]["levels"] = 9
+    lab, lab_nine = lab_mode(raw, "exact"), lab_mode(nine, "exact")
+    second, second_nine = lab_mode(raw, "corrected"), lab_mode(nine, "corrected")
+    # a chip qubit beside its coupled neighbours (README, "Chips: neighbours"): the qubit
+    # at the recipe's levels with 2 neighbours of 3 levels, 3 of 3, and 2 of 4
+    near = {f"near {n}x{lv}": neighbourhood(raw, n, lv) for n, lv in NEIGHBOURHOODS}
+    return {"nominal": raw, "ensemble": ensemble, "closed": closed, "open": opened,
+            "lab": lab, "nine": nine, "lab nine": lab_nine, "second": second,
+            "second nine": second_nine, **near}
 
 
 NEIGHBOURHOODS = ((2, 3), (3, 3), (2, 4))  # (neighbours, levels each)
@@ -231,8 +241,8 @@ def benchmarking_rows(recipe: Path, *, repeats: int) -> list[dict]:
     103, 110501 (2009)) against one verdict of one of those files, both from fresh
     Playbacks (each file played as the chip plays it), warm, in this process."""
     from shaper.jobs.benchmarking import predict_qubit, slot_maps
-    from shaper.jobs.export import make_waveform
     from shaper.jobs.playback import Playback
+    from shaper.jobs.waveform import make_waveform
     from shaper.recipe import load_recipe
     from shaper.recipe.derive import for_gate
     from shaper.signal.pulses import gaussian_shape, rotation_area

@@ -14,7 +14,7 @@ import numpy as np
 
 from shaper.io.waveio import Waveform
 from shaper.jobs.explain import explain
-from shaper.jobs.playback import Playback
+from shaper.jobs.playback import Playback, system_model
 from shaper.recipe import Recipe
 from shaper.recipe.derive import with_levels
 
@@ -58,7 +58,7 @@ def check_waveform(recipe: Recipe, wave: Waveform, *, levels: int | None = None,
         "ensemble": None if members is None else {"infidelity": members[0],
                                                   "leakage": members[1]},
         "trust": playback.trust_block(),
-        "system_model": recipe.system.models or "matrices",
+        "system_model": system_model(recipe.system),
         "open_system": playback.open_system,
         "line": playback.line_block(),
         "levels": list(system.dims),

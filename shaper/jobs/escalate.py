@@ -25,8 +25,8 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
-from shaper.jobs.export import make_waveform
 from shaper.jobs.playback import Playback
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.starts import Result, optimize
 from shaper.recipe import Recipe
 from shaper.recipe.derive import derived

@@ -12,6 +12,8 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+from shaper.recipe.models import levels_key
+
 BUDGET_STOPS = ("iteration limit", "time limit")
 
 
@@ -246,9 +248,7 @@ def _levels(levels) -> str:
 def _levels_key(report: dict) -> str:
     source = report.get("recipe")  # a run's report: the recipe; check's verdict: its name
     content = source.get("content") if isinstance(source, dict) else None
-    system = (content or {}).get("system") or {}
-    return "levels on every [[system.transmon]]" if system.get("model") == "transmons" \
-        else "system.levels"
+    return levels_key((content or {}).get("system") or {})
 
 
 def _longer(report: dict) -> str:

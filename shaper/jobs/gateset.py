@@ -92,8 +92,8 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
            folder: Path) -> GateRow:
     """Export the parent's pulse turned by the phase as gate ``label`` into ``folder`` and
     judge it on what the instrument plays."""
-    from shaper.jobs.export import make_waveform
     from shaper.jobs.playback import Playback
+    from shaper.jobs.waveform import make_waveform
 
     family = parent.name.removesuffix(f"-{slug(parent.target.label)}")  # the set's name
     recipe = for_gate(parent, label, samples=samples_hz.shape[0],

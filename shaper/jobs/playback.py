@@ -23,24 +23,19 @@ recipe's levels (the report says so).
 
 from __future__ import annotations
 
-import hashlib
-import pickle
 from dataclasses import replace
 from functools import cached_property
 
 import numpy as np
 
-from shaper.costs.problem import has_ensemble, qubit_count, recipe_layout, waveform_problem
+from shaper.costs.problem import has_ensemble, recipe_layout
 from shaper.costs.verdict import Verdict, judge
 from shaper.io import waveio
 from shaper.physics.lab_simulation import LabSimulation
 from shaper.physics.simulation import Simulation, simulate
 from shaper.recipe import Recipe
-from shaper.signal.analog import FINE
-from shaper.signal.chain import for_waveform, line_columns, ring_angle
+from shaper.signal.chain import for_waveform, line_columns
 from shaper.signal.mixer import Mixer
-
-GUIDE_PHASES = 64  # carrier phases of the second-order model (each costs two kicks)
 
 
 class Playback:
@@ -55,9 +50,14 @@ class Playback:
     def __init__(self, recipe: Recipe, wave: waveio.Waveform, *, progress=None):
         self.recipe, self.wave = recipe, wave
         self.samples = wave.to_hz(recipe.system)
-        self.chain = for_waveform(recipe, wave)
         self._played: dict[tuple, Simulation] = {}
         self.progress = progress  # called with a line as long figures run (or None)
+
+    @cached_property
+    def chain(self):
+        """The file's signal chain (built when a figure first needs it: the samples alone,
+        :meth:`intended` and :meth:`baseband`, do not)."""
+        return for_waveform(self.recipe, self.wave)
 
     def played(self, *, line: bool = True, mixer: bool = True,
                extrapolate: bool = True) -> Simulation:
@@ -103,28 +103,21 @@ class Playback:
         """Infidelity and leakage of every ensemble member (rotating frame, the recipe's
         levels), or None without an ensemble. With sub-steps the members are simulated on
         the chain's own grid (accurate to about 1e-9)."""
-        recipe = self.recipe
-        if not has_ensemble(recipe):
+        if not has_ensemble(self.recipe):
             return None
-        from shaper.physics._jax import device
-        problem = waveform_problem(recipe, self.chain.played_samples(self.samples.shape[0]),
-                                   steps=self.chain.steps,
-                                   dt=self.chain.period_s)
-        flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
-                     virtual_z=recipe.virtual_z, method=recipe.optimizer.propagator,
-                     drive=None if self.chain.identity else self.chain)
-        scores = _members_program(flags)(device(self.samples, float), problem)
-        fid, leak = np.asarray(scores.members.fidelity), np.asarray(scores.members.leakage)
-        return (1.0 - fid[1:]).tolist(), leak[1:].tolist()
+        from shaper.jobs.robustness import member_figures
+        return member_figures(self.recipe, self.chain, self.samples)
 
     @cached_property
     def more_levels(self) -> Playback | None:
         """The same file on every transmon with ``verdict.extra_levels`` more levels
-        (None: no extra levels asked, or a matrices model, whose levels are fixed)."""
+        (None: no extra levels asked, or a model whose matrices fix its levels: its
+        :attr:`~shaper.recipe.models.Model.level_tables` is None)."""
+        from shaper.recipe.derive import sets_levels, with_levels
+
         extra = self.recipe.verdict.extra_levels
-        if not extra or self.recipe.system.lab is None:
+        if not extra or not sets_levels(self.recipe):
             return None
-        from shaper.recipe.derive import with_levels
         return Playback(with_levels(self.recipe, extra=extra), self.wave,
                         progress=self.progress)
 
@@ -154,32 +147,11 @@ class Playback:
     @cached_property
     def corrected(self) -> dict | None:
         """The lab frame to second order (:mod:`shaper.physics.effective`) on the most
-        faithful system, at :data:`GUIDE_PHASES` carrier phases: the phase dependence the
-        exact lab frame is searched by, at the rotating frame's cost (extrapolated from
-        ``s`` and ``2 s`` slices per sample like :meth:`played`). None where the model has
-        no lab frame or the correction does not hold: a resonant process, or a drive
-        played as an ideal staircase (its steps' counter-rotating error is not second
-        order in anything small: measured 0.44 against 1e-4 exactly)."""
-        v = self.recipe.verdict
-        if v.lab_frame == "off" or self.recipe.system.lab is None:
-            return None
-        from shaper.physics.corrected import simulate_corrected
-
-        play = self.faithful
-        recipe, chain = play.recipe, play.chain
-        filtered = {c for c, _ in chain.line}
-        if not all(int(c) in filtered for c in np.ravel(chain.iq_columns)):
-            return None  # a staircase's steps: the second-order model does not hold there
-        phases = np.pi * np.arange(GUIDE_PHASES) / GUIDE_PHASES
-        try:
-            runs = [simulate_corrected(recipe.system, recipe.target, c(play.samples), c.dt_s,
-                                       phases_rad=phases, start_s=-c.start * c.period_s,
-                                       virtual_z=recipe.virtual_z)
-                    for c in (chain, chain.finer(2))]
-        except ValueError:
-            return None
-        values = runs[1] + (runs[1] - runs[0]) / 3
-        return {"phases_rad": phases, "figures": values}
+        faithful system at many carrier phases, extrapolated like :meth:`played`: the
+        phase dependence the exact lab frame is searched by, at the rotating frame's cost
+        (:func:`shaper.jobs.played_lab.second_order`). None where it does not hold."""
+        from shaper.jobs.played_lab import second_order
+        return second_order(self)
 
     @cached_property
     def gate_map(self) -> dict:
@@ -190,49 +162,12 @@ class Playback:
         recipe's T1/T2 over the footprint (:func:`shaper.physics.corrected.gate_map`), the
         best frame updates applied. Keys: ``unitary`` or ``superoperator``, ``levels``,
         ``computational``, ``footprint_s``, ``phase_rad``, the frame angles."""
-        from shaper.physics.corrected import gate_map
-
-        play = self.faithful
-        recipe, chain = play.recipe, play.chain.finer(2)
-        phase = None
-        if self.lab is not None and self.corrected is not None:
-            phase = self.lab.phases_rad[int(np.argmax(self.lab.infidelities))]
-        mapped = gate_map(recipe.system, recipe.target, chain(play.samples), chain.dt_s,
-                          phase_rad=phase, start_s=-chain.start * chain.period_s,
-                          virtual_z=recipe.virtual_z)
-        return {**mapped, "levels": list(recipe.system.dims),
-                "computational": [int(i) for i in recipe.system.computational],
-                "footprint_s": chain.played_samples(play.samples.shape[0]) * chain.period_s,
-                "phase_rad": phase}
+        from shaper.jobs.played_lab import played_map
+        return played_map(self)
 
     def _lab(self, *, awg: bool, phases=None, own_levels: bool = False) -> LabSimulation | None:
-        v = self.recipe.verdict
-        if v.lab_frame == "off" or self.recipe.system.lab is None:
-            return None
-        from shaper.physics.lab_simulation import simulate_lab
-
-        play = self if own_levels else self.faithful
-        recipe = play.recipe
-        chain = play.chain if awg else for_waveform(recipe, play.wave, awg=False)
-        n = play.samples.shape[0]
-        before = chain.before((0.5,), n)
-        fixed = v.phases_rad() if len(v.phases_rad()) == 1 else phases
-        guide = self.corrected if awg and fixed is None and not v.spread else None
-        return simulate_lab(recipe.system, recipe.target,
-                            lambda offsets, halved: chain.lab_envelope(
-                                play.samples, offsets, FINE // 2 if halved else FINE),
-                            before + chain.played_samples(n), chain.period_s,
-                            start_s=-(before + chain.start) * chain.period_s,
-                            phases_rad=fixed, phase_count=v.carrier_phases,
-                            envelope_hz=chain.turning_hz, virtual_z=recipe.virtual_z,
-                            exact_envelope=chain.resolution(n) == 0.0,
-                            guide=None if guide is None else (guide["phases_rad"],
-                                                              guide["figures"]),
-                            progress=None if self.progress is None else (
-                                self.progress if awg else
-                                lambda text: self.progress(f"ideal staircase, {text}")),
-                            floor=0.01 * min(recipe.optimizer.target_infidelity,
-                                             recipe.optimizer.target_leakage))
+        from shaper.jobs.played_lab import lab_figures
+        return lab_figures(self, awg=awg, phases=phases, own_levels=own_levels)
 
     def trusted(self) -> tuple[float, float, str]:
         """(infidelity, leakage, what they are): the most faithful figures computed."""
@@ -276,7 +211,8 @@ class Playback:
                                    "what": "the lab frame to second order in the "
                                            "counter-rotating terms (the optimiser's model "
                                            "with optimizer.lab_frame = \"corrected\"), "
-                                           f"worst of {GUIDE_PHASES} carrier phases"}
+                                           f"worst of {len(self.corrected['phases_rad'])} "
+                                           f"carrier phases"}
         if self.members is not None:
             out["ensemble"] = "rotating frame, the recipe's levels"
         if self.idle is not None:
@@ -287,17 +223,8 @@ class Playback:
         """What the chip is assumed to receive and for how long: the instrument's output
         filter (and whether it was assumed), the file's length, the ring-down after it
         and the footprint (the time before the next gate may start)."""
-        chain, awg = self.chain, self.recipe.line.awg
-        n = self.samples.shape[0]
-        period = chain.period_s
-        return {"awg": awg.summary(),
-                "assumed": (f"assumed: the instrument plays {awg.words()} (no [awg] in the "
-                            f"recipe; give your instrument's from its datasheet)")
-                if awg.assumed else f"the instrument plays {awg.words()}",
-                "file_s": n * period, "ring_down_s": chain.ring * period,
-                "footprint_s": chain.played_samples(n) * period,
-                "ring_residual_rad": chain.ring_residual_rad,
-                "settled": chain.ring_residual_rad <= ring_angle(self.recipe) * (1 + 1e-9)}
+        from shaper.jobs.played_lab import output_block
+        return output_block(self)
 
     @cached_property
     def idle(self) -> dict | None:
@@ -346,11 +273,28 @@ class Playback:
     def intended(self) -> np.ndarray:
         """The samples (Hz) the file means the chip to see, averaged per sample: its own,
         with any mixer correction and pre-distortion undone (still carrying the IF)."""
-        return intended(self.recipe, self.wave)
+        recipe, wave = self.recipe, self.wave
+        samples = self.samples.copy()
+        if wave.mixer_corrected:
+            samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
+        if wave.predistorted:
+            from shaper.signal.line import through_line
+            for column, stages in line_columns(recipe):
+                samples[:, column] = through_line(samples[:, column], stages,
+                                                  1 / wave.sample_rate_hz,
+                                                  max(recipe.line.oversample, 1))
+        return samples
 
     def baseband(self) -> np.ndarray:
-        """The envelope the optimiser shaped: :meth:`intended` without the IF."""
-        return baseband(self.recipe, self.wave)
+        """The envelope the optimiser shaped: :meth:`intended` without the IF (for a
+        pre-distorted or mixer-corrected file, what it means the chip to see)."""
+        samples, wave = self.intended(), self.wave
+        if wave.if_frequency_hz:
+            from shaper.signal.modulation import demodulate
+            samples = demodulate(samples, self.recipe.system.iq_columns(),
+                                 wave.if_frequency_hz, 1 / wave.sample_rate_hz, wave.sideband,
+                                 start=wave.pulse_start)
+        return samples
 
     @cached_property
     def band_fraction(self) -> float | None:
@@ -385,26 +329,20 @@ class Playback:
 
     def sensitivity(self, detunings: np.ndarray, scales: np.ndarray) -> dict:
         """Infidelity of this file against a detuning offset and an amplitude scale (the
-        recipe's model, the chain's grid), with the first-order slopes."""
-        from shaper.physics._jax import device
+        recipe's model, the chain's grid), with the first-order slopes
+        (:func:`shaper.jobs.robustness.sensitivity`)."""
+        from shaper.jobs.robustness import sensitivity
+        return sensitivity(self.recipe, self.chain, self.samples, detunings, scales)
 
-        recipe, chain = self.recipe, self.chain
-        problem = waveform_problem(recipe, chain.played_samples(self.samples.shape[0]),
-                                   steps=chain.steps,
-                                   dt=chain.period_s)
-        flags = dict(qubits=qubit_count(recipe), is_gate=recipe.target.is_gate,
-                     virtual_z=recipe.virtual_z, drive=None if chain.identity else chain)
-        vs_detuning, vs_scale, slopes = _sensitivity_programs(flags)
-        x = device(self.samples, float)
-        curve_d = vs_detuning(x, problem, device(detunings, float))
-        curve_s = vs_scale(x, problem, device(scales, float))
-        slope_d, slope_s = slopes(x, problem)
-        return {"detuning_hz": detunings.tolist(),
-                "infidelity_vs_detuning": np.asarray(curve_d).tolist(),
-                "amplitude_scale": scales.tolist(),
-                "infidelity_vs_scale": np.asarray(curve_s).tolist(),
-                "d_infidelity_d_detuning_per_mhz": float(slope_d) * 1e6,
-                "d_infidelity_d_scale_per_percent": float(slope_s) * 1e-2}
+
+def system_model(system) -> dict:
+    """The reports' ``system_model`` block, always a dict: ``{"kind": "transmons",
+    "transmons": {name: its spectrum and parameters}}`` for a system of transmon ladders
+    (E_J and E_C for the charge model), ``{"kind": "matrices"}`` for one given by its
+    matrices."""
+    if not system.models:
+        return {"kind": "matrices"}
+    return {"kind": "transmons", "transmons": dict(system.models)}
 
 
 def model_words(system) -> str:
@@ -419,78 +357,3 @@ def model_words(system) -> str:
     if count == 1:
         return f"one {names} transmon, no neighbours"
     return f"{count} {names} transmons simulated together, no other neighbours"
-
-
-def _members_program(flags: dict):
-    """One jitted ensemble evaluation per set of static flags and chain, kept for the
-    process (a second file with the same layout is not traced again)."""
-    # exact, not repr: NumPy's repr elides long arrays (a measured line response), and two
-    # chains that print alike must not share a program that closes over one of them
-    key = hashlib.sha256(pickle.dumps(sorted(flags.items(), key=lambda item: item[0]))
-                         ).hexdigest()
-    if key not in _MEMBERS:
-        import jax
-
-        from shaper.costs import evaluate_members
-        if len(_MEMBERS) >= 16:
-            _MEMBERS.pop(next(iter(_MEMBERS)))
-        _MEMBERS[key] = jax.jit(lambda x, p: evaluate_members(x, p, **flags))
-    return _MEMBERS[key]
-
-
-_MEMBERS: dict = {}  # digest of the static flags (and chain) -> compiled program
-
-
-def simulate_played(recipe: Recipe, wave: waveio.Waveform, **variant) -> Simulation:
-    """The rotating-frame figures of a file as played (:meth:`Playback.played`)."""
-    return Playback(recipe, wave).played(**variant)
-
-
-def intended(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """The samples (Hz) a file means the chip to see (:meth:`Playback.intended`)."""
-    samples = wave.to_hz(recipe.system)
-    if wave.mixer_corrected:
-        samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
-    if wave.predistorted:
-        from shaper.signal.line import through_line
-        for column, stages in line_columns(recipe):
-            samples[:, column] = through_line(samples[:, column], stages,
-                                              1 / wave.sample_rate_hz,
-                                              max(recipe.line.oversample, 1))
-    return samples
-
-
-def baseband(recipe: Recipe, wave: waveio.Waveform) -> np.ndarray:
-    """A file's samples in Hz without its IF (the envelope the optimiser shaped; for a
-    pre-distorted or mixer-corrected file, what it means the chip to see)."""
-    samples = intended(recipe, wave)
-    if wave.if_frequency_hz:
-        from shaper.signal.modulation import demodulate
-        samples = demodulate(samples, recipe.system.iq_columns(), wave.if_frequency_hz,
-                             1 / wave.sample_rate_hz, wave.sideband, start=wave.pulse_start)
-    return samples
-
-
-_SENSITIVITY: dict[str, tuple] = {}
-
-
-def _sensitivity_programs(flags: dict) -> tuple:
-    """The three jitted programs of the sensitivity (one eigendecomposition each,
-    DEVELOPERS.md: never op by op), built once per process for these flags (keyed by an
-    exact digest of them, as :func:`_members_program`)."""
-    key = hashlib.sha256(pickle.dumps(flags)).hexdigest()
-    if key not in _SENSITIVITY:
-        import jax
-        import jax.numpy as jnp
-
-        from shaper.costs import evaluate
-
-        def infidelity(x, problem, delta, scale):
-            drift = problem.drift + delta * jnp.sum(problem.number_operators, axis=0)
-            return 1.0 - evaluate(x * scale, problem._replace(drift=drift), **flags).fidelity
-
-        _SENSITIVITY[key] = (
-            jax.jit(lambda x, p, d: jax.vmap(lambda di: infidelity(x, p, di, 1.0))(d)),
-            jax.jit(lambda x, p, s: jax.vmap(lambda si: infidelity(x, p, 0.0, si))(s)),
-            jax.jit(lambda x, p: jax.grad(infidelity, argnums=(2, 3))(x, p, 0.0, 1.0)))
-    return _SENSITIVITY[key]

@@ -14,9 +14,9 @@ from shaper.errors import InputError, ResultError, WaveformError
 from shaper.io import atomic, writers
 from shaper.io.runfolder import keep_replaced
 from shaper.io.writers import WRITERS
-from shaper.jobs.export import make_waveform, resample
-from shaper.jobs.playback import Playback, simulate_played
+from shaper.jobs.playback import Playback
 from shaper.jobs.report import export_report, load_run
+from shaper.jobs.waveform import make_waveform, resample
 from shaper.recipe.derive import at_samples
 from shaper.recipe.memory import MAX_EXPORT_SAMPLES, MAX_GRANULARITY
 from shaper.recipe.units import format_quantity
@@ -56,7 +56,7 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     own, _ = make_waveform(recipe, samples, replace(recipe.export, dac_bits=None,
                                                     granularity=1, clip=True),
                            recipe.sample_rate_hz)
-    original = simulate_played(recipe, own)  # the run's own figures, for comparison
+    original = Playback(recipe, own).played()  # the run's own figures, for comparison
     method = "none"
     if rate != recipe.sample_rate_hz:
         samples, method = resample(samples, recipe.sample_rate_hz, rate)

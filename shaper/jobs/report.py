@@ -16,8 +16,8 @@ import numpy as np
 from shaper.errors import RecipeError, ResultError
 from shaper.io import atomic, waveio
 from shaper.jobs.explain import explain, speed_limit
-from shaper.jobs.export import make_waveform
-from shaper.jobs.playback import Playback, baseband, simulate_played
+from shaper.jobs.playback import Playback, system_model
+from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.starts import Result
 from shaper.physics.simulation import Simulation
 from shaper.recipe import ExportSettings, Recipe, load_recipe
@@ -54,7 +54,7 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
             "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
             "infidelity": members[0], "leakage": members[1]},
         "trust": playback.trust_block(),
-        "system_model": recipe.system.models or "matrices",
+        "system_model": system_model(recipe.system),
         "open_system": playback.open_system,
         "line": playback.line_block(),
         "mixer": mixer_figures(recipe, result.samples, recipe.export, recipe.sample_rate_hz),
@@ -126,7 +126,7 @@ def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
     if not settings.mixer:
         return None
     plain, _ = make_waveform(recipe, samples_hz, replace(settings, mixer={}), rate)
-    played = simulate_played(recipe, plain)
+    played = Playback(recipe, plain).played()
     return {"channels": {c: vars(m) for c, m in settings.mixer.items()},
             "uncorrected": {"infidelity": played.infidelity, "leakage": played.leakage}}
 
@@ -153,7 +153,7 @@ def load_run(path: str | Path) -> tuple[Recipe, np.ndarray, dict, Path]:
             from None
     wave = waveio.read_waveform(atomic.inside_for_reading(
         report_path.parent, report["waveform"], ResultError, f"{report_path}: 'waveform'"))
-    samples = baseband(recipe, wave)
+    samples = Playback(recipe, wave).baseband()
     most = samples.shape[0] - wave.pulse_start
     n = report.get("pulse_samples", most)
     if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= most:

@@ -16,18 +16,17 @@ import numpy as np
 from shaper.costs.problem import has_ensemble, recipe_layout
 from shaper.costs.verdict import summary
 from shaper.io import atomic, waveio, writers
-from shaper.io.runfolder import prepare_folder
 from shaper.io.runlog import RunLog
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
-from shaper.jobs.export import check_predistortion, make_waveform
+from shaper.jobs.folder import prepare_run_folder
 from shaper.jobs.playback import Playback
 from shaper.jobs.report import build_report
+from shaper.jobs.waveform import check_predistortion, make_waveform
 from shaper.optimizer.options import RunOptions
 from shaper.optimizer.starts import Result, optimize, read_history
 from shaper.physics.simulation import Simulation
 from shaper.recipe import Recipe, load_recipe
-from shaper.recipe.derive import budget_of
 from shaper.signal.pulses import to_samples
 
 
@@ -57,9 +56,8 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     check_predistortion(recipe)  # an impossible inverse is refused before the night's work
     folder = Path(out) if out is not None else Path("results") / recipe.name
     options = (options or RunOptions()).with_(folder=folder, **option_fields)
-    prepare_folder(folder, force, options.resume,
-                   keep=[f"{recipe.name}.csv", f"{recipe.name}.json", "report.json"],
-                   budget=budget_of(recipe))
+    if options.prepared != folder:  # the CLI's run_setup prepared it already
+        prepare_run_folder(folder, recipe, force=force, resume=options.resume)
     if force and not options.resume:
         for old in list(folder.glob("checkpoint-*.npz")) + [folder / "history.jsonl"]:
             old.unlink(missing_ok=True)
@@ -234,7 +232,6 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     from types import SimpleNamespace
 
     from shaper.jobs.painter import draw_here
-    from shaper.jobs.playback import baseband
 
     draw = draw or draw_here
     system, dt = recipe.system, dt or recipe.dt
@@ -255,7 +252,7 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     for q, tf in system.transition_frequencies.items():
         markers[f"{q} f01"] = tf["f01_hz"]
         markers[f"{q} f12"] = tf["f12_hz"]
-    draw(plots.plot_spectrum, names[1], baseband(recipe, waveform), dt, channels,
+    draw(plots.plot_spectrum, names[1], Playback(recipe, waveform).baseband(), dt, channels,
          cutoff_hz=recipe.bandwidth_hz, markers=markers, title=title,
          if_hz=waveform.if_frequency_hz)
     labels = system.level_labels()

@@ -224,14 +224,14 @@ class Sweep:
 
     def pulse(self, n: int) -> np.ndarray | None:
         """The pulse of duration ``n`` in Hz (baseband, without padding), or None."""
-        from shaper.jobs.playback import baseband
+        from shaper.jobs.playback import Playback
 
         path = self.samples_path(n)
         if not path.exists():
             return None
         recipe = recipe_at(self.recipe, n)
         wave = waveio.read_waveform(path)
-        return baseband(recipe, wave)[wave.pulse_start:wave.pulse_start + n]
+        return Playback(recipe, wave).baseband()[wave.pulse_start:wave.pulse_start + n]
 
     def run(self, durations_s: list[float], *, plots: bool = True) -> int | None:
         """Sweep the grid, refine by bisection; return the shortest passing sample count.

@@ -10,6 +10,7 @@ method is one function plus one :func:`register` call (DEVELOPERS.md, "Where new
 
 from __future__ import annotations
 
+import importlib
 from collections.abc import Callable
 
 import jax
@@ -149,18 +150,26 @@ def run_optax(session: Session, x0: np.ndarray, resume=None) -> StartResult:
             return tracker.result()
 
 
-Method = Callable[[Session, np.ndarray, object], StartResult]
-METHODS: dict[str, Method] = {"lbfgs": run_scipy, "lbfgs-jit": run_optax, "adam": run_optax}
+Loop = Callable[[Session, np.ndarray, object], StartResult]
 
 
-def register(name: str, method: Method, what: str) -> None:
-    """Make ``optimizer.method = "<name>"`` a valid recipe value that runs ``method``
-    (``what``: one line for the README's key table and error messages)."""
-    METHODS[name] = method
-    schema.METHODS[name] = what
+def register(name: str, run: Loop, what: str) -> None:
+    """Make ``optimizer.method = "<name>"`` a valid recipe value that runs ``run``
+    (``what``: one line for the README's key table and error messages); the one registry
+    is :data:`shaper.recipe.schema.METHODS`."""
+    schema.METHODS[name] = schema.Method(what, run)
+
+
+def loop_of(name: str) -> Loop:
+    """The loop of one start of method ``name`` (a built-in's imported by its path)."""
+    run = schema.METHODS[name].run
+    if isinstance(run, str):
+        module, function = run.split(":")
+        run = getattr(importlib.import_module(module), function)
+    return run
 
 
 def run_start(session: Session, x0: np.ndarray, resume=None) -> StartResult:
     """One start by the recipe's method; ``resume``: ``(meta, best_x, arrays)`` of its
     checkpoint, or None."""
-    return METHODS[session.recipe.optimizer.method](session, x0, resume)
+    return loop_of(session.recipe.optimizer.method)(session, x0, resume)

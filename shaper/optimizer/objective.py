@@ -174,21 +174,25 @@ def build_objective(recipe: Recipe, *, pad_to: int | None = None) -> Objective:
         return value, (parts, scores)
 
     vg = jax.jit(jax.value_and_grad(loss, has_aux=True))
-
-    @jax.jit
-    def slices(params, problem):
-        samples = to_samples(params, layout, problem.envelope)
-        samples = samples if drive is None else drive(samples)
-        dt = (problem.dt * problem.active)[:, None, None]
-        return slice_unitaries(problem.drift, problem.controls, samples, dt,
-                               method=recipe.optimizer.propagator)
-
     weights = np.array([w[n] for n in names], float)
     return Objective(problem=problem, layout=layout, names=names, weights=weights,
                      value_and_grad=vg, loss=loss, qubits=qubits, traces=traces,
                      signature=duration_free_digest(recipe),
                      slices=None if lab is not None or recipe.optimizer.open_system
-                     else slices, chain=chain)
+                     else _slices_program(layout, drive, recipe.optimizer.propagator),
+                     chain=chain)
+
+
+def _slices_program(layout, drive, method: str):
+    """The jitted ``(params, problem) -> (n, d, d)`` unitaries of every slice (what a
+    sequential-update method needs, :meth:`Objective.slice_states`)."""
+    @jax.jit
+    def slices(params, problem):
+        samples = to_samples(params, layout, problem.envelope)
+        samples = samples if drive is None else drive(samples)
+        dt = (problem.dt * problem.active)[:, None, None]
+        return slice_unitaries(problem.drift, problem.controls, samples, dt, method=method)
+    return slices
 
 
 @jax.jit

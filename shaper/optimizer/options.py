@@ -37,6 +37,8 @@ class RunOptions:
             the recipe, its digest and its compiled objective stay the same).
         time_left_s: the wall clock left of a larger budget (a sweep's or a chip's
             ``--hours``): the run stops at the earlier of this and ``optimizer.max_time``.
+        prepared: the folder the caller's set-up already prepared for this run
+            (:func:`shaper.jobs.setup.run_setup`); the job prepares any other.
     """
 
     seed: int | None = None
@@ -51,6 +53,7 @@ class RunOptions:
     watchdog: object = None
     starts: int | None = None
     time_left_s: float | None = None
+    prepared: Path | None = None
 
     def __post_init__(self):
         if self.folder is not None and not isinstance(self.folder, Path):

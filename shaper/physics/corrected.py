@@ -105,7 +105,7 @@ def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
 
     from shaper.physics.effective import correction_for, effective_term, kick
     from shaper.physics.figures import gate_figures
-    from shaper.physics.lindblad import best_channel_angles, channel_block, dissipator
+    from shaper.physics.lindblad import best_channel_angles, channel_block
 
     samples = np.asarray(samples, float)
     corr = correction_for(system, float(np.max(np.abs(samples), initial=0.0))) \
@@ -121,15 +121,7 @@ def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
     numbers = np.array([np.real(np.diag(n)) for n in system.number_operators])  # (q, d)
     out = {}
     if system.collapse:
-        from shaper.physics.lindblad import scalings_for
-        noise = dissipator(system.collapse, system.dimension)
-        drift = system.drift + (0 if extra is None else np.max(np.abs(extra), axis=0))
-        s = np.asarray(_open_map(device(system.drift, complex),
-                                 device(system.controls, complex), device(samples, float),
-                                 device(dt, float), device(noise, complex),
-                                 None if extra is None else device(extra, complex),
-                                 scalings=scalings_for(drift, system.controls, samples, dt,
-                                                       noise) + 1))
+        s = _channel(system, samples, dt, extra)
         s = np.kron(ends[1].conj(), ends[1]) @ s @ np.kron(ends[0].conj(), ends[0])
         before, after = (np.zeros(qubits), np.zeros(qubits)) if not virtual_z else \
             tuple(np.asarray(a) for a in best_channel_angles(
@@ -150,6 +142,20 @@ def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
         out["unitary"] = z[1] @ u @ z[0]
     out.update(frame_before_rad=before.tolist(), frame_after_rad=after.tolist())
     return out
+
+
+def _channel(system: System, samples: np.ndarray, dt: float, extra) -> np.ndarray:
+    """The Lindblad channel of ``samples`` (and the effective term ``extra``, if any)."""
+    from shaper.physics.lindblad import dissipator, scalings_for
+
+    noise = dissipator(system.collapse, system.dimension)
+    drift = system.drift + (0 if extra is None else np.max(np.abs(extra), axis=0))
+    return np.asarray(_open_map(device(system.drift, complex), device(system.controls, complex),
+                                device(samples, float), device(dt, float),
+                                device(noise, complex),
+                                None if extra is None else device(extra, complex),
+                                scalings=scalings_for(drift, system.controls, samples, dt,
+                                                      noise) + 1))
 
 
 @jax.jit

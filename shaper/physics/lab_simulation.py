@@ -156,65 +156,92 @@ def simulate_lab(system: System, target: Target, envelope_of, samples: int,
     """
     from shaper.physics import labframe as lf
 
-    terms = lf.lab_terms(system)
-    points = points or lf.POINTS_PER_CYCLE
-    qubits = max(1, int(round(np.log2(len(system.computational)))))
-    grids = {}
-
-    def run(p: int, phase: float, halved: bool = False) -> np.ndarray:
-        if (p, halved) not in grids:
-            steps = lf.steps_per_cell(terms, period_s, envelope_hz, p)
-            offsets = tuple(((np.arange(steps)[:, None] + lf.NODES[None, :]) / steps)
-                            .reshape(-1).tolist())
-            times = lf.node_times(samples, period_s, steps) + start_s
-            grids[(p, halved)] = (times, envelope_of(offsets, halved), period_s / steps / 2)
-        times, values, dt = grids[(p, halved)]
-        coefficients = lf.slice_samples(lf.coefficients(terms, values, times, phase))
-        u = lab_unitary(system.drift, terms.operators, coefficients, dt)
-        fig = _lab_figures(device(u, complex), device(system.computational),
-                           device(target.unitary if target.is_gate else
-                                  np.zeros((len(system.computational),) * 2), complex),
-                           qubits=qubits, virtual_z=virtual_z, is_gate=target.is_gate,
-                           initial=None if target.is_gate else tuple(target.initial.tolist()),
-                           final=None if target.is_gate else tuple(target.final.tolist()))
-        out = np.array([1.0 - float(fig.fidelity), float(fig.leakage)])
-        if progress is not None:
-            progress(f"lab frame: carrier phase {np.degrees(phase):.3g} deg"
-                     f"{' (twice the sub-steps)' if p != points else ''}: infidelity "
-                     f"{out[0]:.3e}")
-        return out
-
-    error, search = None, "fixed carrier phase"
-    if phases_rad is not None:
-        found, spread = {float(p): run(points, float(p)) for p in phases_rad}, 0
-    else:
-        found, holds = {}, False
-        if guide is not None:
-            found, error, holds = guided_phases(lambda phase: run(points, phase), guide,
-                                                floor)
-            search = (f"the second-order model over {len(guide[0])} phases, exact at "
-                      f"{len(found)} (largest difference {error:.2g})")
-        if not holds:
-            found = worst_phases(lambda phase: run(points, phase), phase_count, found)
-            search = (f"a spread of phases refined to its peaks ({len(found)} run)"
-                      + ("; the second-order model did not hold" if guide is not None else ""))
-        spread = len(found)
+    runner = _Runner(system, target, envelope_of, samples, period_s, start_s, envelope_hz,
+                     virtual_z, points or lf.POINTS_PER_CYCLE, progress)
+    found, spread, search, error = _search(runner.run, phases_rad, phase_count, guide, floor)
     phases = sorted(found)
     figures = np.array([found[p] for p in phases])
     change = 0.0
     for j in sorted({int(np.argmax(figures[:, 0])), int(np.argmax(figures[:, 1]))}):
-        fine = run(2 * points, phases[j])
+        fine = runner.run(phases[j], finer=True)
         change = max(change, float(np.max(np.abs(fine - figures[j]))))
         if not exact_envelope:
-            coarse = run(points, phases[j], halved=True)
+            coarse = runner.run(phases[j], halved=True)
             change = max(change, float(np.max(np.abs(coarse - figures[j]))))
         figures[j] = fine + (fine - figures[j]) / 15.0
     return LabSimulation(phases_rad=[float(p) for p in phases],
                          infidelities=figures[:, 0].tolist(),
                          leakages=np.maximum(figures[:, 1], 0.0).tolist(),
-                         points_per_cycle=points, slices=int(grids[(points, False)][0].shape[0]),
+                         points_per_cycle=runner.points, slices=runner.slices,
                          convergence=change, spread_phases=spread, search=search,
                          guide_error=error)
+
+
+def _search(run, phases_rad, phase_count: int, guide, floor: float):
+    """``(figures by phase, phases run, how, the second-order model's error)``: the fixed
+    phases, or the guided search where the model holds, or the spread."""
+    if phases_rad is not None:
+        return {float(p): run(float(p)) for p in phases_rad}, 0, "fixed carrier phase", None
+    found, holds, error, search = {}, False, None, ""
+    if guide is not None:
+        found, error, holds = guided_phases(run, guide, floor)
+        search = (f"the second-order model over {len(guide[0])} phases, exact at "
+                  f"{len(found)} (largest difference {error:.2g})")
+    if not holds:
+        found = worst_phases(run, phase_count, found)
+        search = (f"a spread of phases refined to its peaks ({len(found)} run)"
+                  + ("; the second-order model did not hold" if guide is not None else ""))
+    return found, len(found), search, error
+
+
+class _Runner:
+    """One exact lab-frame run per call, ``[infidelity, leakage]``, its grid (nodes and
+    the envelope there) built once per resolution."""
+
+    def __init__(self, system, target, envelope_of, samples, period_s, start_s,
+                 envelope_hz, virtual_z, points, progress):
+        from shaper.physics import labframe as lf
+        self.lf, self.terms = lf, lf.lab_terms(system)
+        self.system, self.target, self.envelope_of = system, target, envelope_of
+        self.samples, self.period_s, self.start_s = samples, period_s, start_s
+        self.envelope_hz, self.virtual_z, self.points = envelope_hz, virtual_z, points
+        self.progress, self.grids = progress, {}
+        self.qubits = max(1, int(round(np.log2(len(system.computational)))))
+
+    def grid(self, p: int, halved: bool):
+        if (p, halved) not in self.grids:
+            lf = self.lf
+            steps = lf.steps_per_cell(self.terms, self.period_s, self.envelope_hz, p)
+            offsets = tuple(((np.arange(steps)[:, None] + lf.NODES[None, :]) / steps)
+                            .reshape(-1).tolist())
+            times = lf.node_times(self.samples, self.period_s, steps) + self.start_s
+            self.grids[(p, halved)] = (times, self.envelope_of(offsets, halved),
+                                       self.period_s / steps / 2)
+        return self.grids[(p, halved)]
+
+    @property
+    def slices(self) -> int:
+        return int(self.grid(self.points, False)[0].shape[0])
+
+    def run(self, phase: float, *, finer: bool = False, halved: bool = False) -> np.ndarray:
+        system, target, lf = self.system, self.target, self.lf
+        times, values, dt = self.grid(2 * self.points if finer else self.points, halved)
+        coefficients = lf.slice_samples(lf.coefficients(self.terms, values, times, phase))
+        u = lab_unitary(system.drift, self.terms.operators, coefficients, dt)
+        dc = len(system.computational)
+        fig = _lab_figures(device(u, complex), device(system.computational),
+                           device(target.unitary if target.is_gate else np.zeros((dc, dc)),
+                                  complex),
+                           qubits=self.qubits, virtual_z=self.virtual_z,
+                           is_gate=target.is_gate,
+                           initial=None if target.is_gate else tuple(target.initial.tolist()),
+                           final=None if target.is_gate else tuple(target.final.tolist()))
+        out = np.array([1.0 - float(fig.fidelity), float(fig.leakage)])
+        if self.progress is not None:
+            self.progress(f"lab frame: carrier phase {np.degrees(phase):.3g} deg"
+                          f"{' (twice the sub-steps)' if finer else ''}: infidelity "
+                          f"{out[0]:.3e}")
+        return out
 
 
 def lab_unitary(drift: np.ndarray, operators: np.ndarray, samples: np.ndarray,

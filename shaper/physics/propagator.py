@@ -28,7 +28,7 @@ from shaper.errors import InputError
 from shaper.physics import _jax  # noqa: F401  (float64 and the compilation cache)
 from shaper.physics.systems import assert_hermitian
 
-METHODS = ("eigh", "pade")
+PROPAGATORS = ("eigh", "pade")  # optimizer.propagator: how each slice is exponentiated
 # Up to this size a batched product is faster as a broadcast multiply-and-sum, which XLA
 # fuses, than as a batched matmul call: measured 1.5-2.5x on value-and-gradient at d = 2-4,
 # slower from d = 5 (shaper bench, 2-core CPU).
@@ -157,8 +157,8 @@ def check_arrays(drift, controls, samples, dt, *, method: str = "eigh"):
     Shapes and dtypes are always checked; values (Hermiticity, finiteness) only when
     the arrays are concrete, i.e. outside ``jit``.
     """
-    if method not in METHODS:
-        raise InputError(f"unknown propagator method {method!r}; choose one of {METHODS}")
+    if method not in PROPAGATORS:
+        raise InputError(f"unknown propagator method {method!r}; choose one of {PROPAGATORS}")
     for name, arr in (("drift", drift), ("controls", controls), ("samples", samples)):
         dtype = getattr(arr, "dtype", None)
         if dtype is not None and dtype in (np.float32, np.complex64, np.float16):

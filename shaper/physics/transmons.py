@@ -223,12 +223,8 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
     for q, (t, ld) in enumerate(zip(transmons, ladders, strict=True)):
         if t.flux:
             channels.append(controls.flux(f"{t.name}_flux", q, ld.flux, dims))
-    collapse = [op for q, t in enumerate(transmons)
-                for op in transmon_collapse(t.levels, t.t1_s, t.t2_s, index=q, dims=dims,
-                                            lowering=ladders[q].lowering)]
-    coherence = {t.name: {"t1_s": t.t1_s, "t2_s": t.t2_s} for t in transmons
-                 if t.t1_s is not None or t.t2_s is not None}
-    return System(collapse=tuple(collapse), coherence=coherence, drift=lab.rotating_drift(),
+    collapse, coherence = _noise(transmons, ladders, dims)
+    return System(collapse=collapse, coherence=coherence, drift=lab.rotating_drift(),
                   lab=lab, controls=np.array(controls.ops),
                   control_names=tuple(controls.names), channels=tuple(channels), dims=dims,
                   computational=computational_indices(dims), qubit_names=tuple(names),
@@ -236,6 +232,17 @@ def coupled_transmons(transmons: Sequence[TransmonSpec],
                   transition_frequencies=_transitions(transmons, ladders, frame),
                   models={t.name: ld.parameters for t, ld in zip(transmons, ladders,
                                                                  strict=True)})
+
+
+def _noise(transmons, ladders, dims) -> tuple[tuple[np.ndarray, ...], dict]:
+    """Every transmon's collapse operators in the whole space (:func:`transmon_collapse`,
+    its ladder's own lowering operator) and the coherence times the report lists."""
+    collapse = tuple(op for q, t in enumerate(transmons)
+                     for op in transmon_collapse(t.levels, t.t1_s, t.t2_s, index=q, dims=dims,
+                                                 lowering=ladders[q].lowering))
+    coherence = {t.name: {"t1_s": t.t1_s, "t2_s": t.t2_s} for t in transmons
+                 if t.t1_s is not None or t.t2_s is not None}
+    return collapse, coherence
 
 
 def _checked_names(transmons, couplings, drives) -> list[str]:

@@ -15,6 +15,7 @@ from contextlib import contextmanager
 from shaper.errors import InputError, RecipeError
 from shaper.physics.targets import slug
 from shaper.recipe.load import load_recipe
+from shaper.recipe.models import level_tables
 from shaper.recipe.schema import Recipe
 
 
@@ -26,47 +27,52 @@ def derived(recipe: Recipe, edit: Callable[[dict], None]) -> Recipe:
     return load_recipe(raw, path=recipe.path)
 
 
-def transmon_tables(raw: dict, what: str) -> list[dict]:
-    """The raw tables of every transmon (``[system]`` itself, or each
-    ``[[system.transmon]]``).
+def _level_tables(raw: dict, what: str) -> list[dict]:
+    """The raw tables that carry the levels and coherence times, as the recipe's model
+    says (:attr:`shaper.recipe.models.Model.level_tables`).
 
     Raises:
-        InputError: the model is not a transmon model (``what`` names the option).
+        InputError: the model's matrices fix them (``what`` names the option).
     """
-    model = raw["system"]["model"]
-    if model == "transmon":
-        return [raw["system"]]
-    if model == "transmons":
-        return list(raw["system"].get("transmon", []))
-    raise InputError(f"{what} applies to transmon models; this recipe's model is {model!r}, "
-                     f"whose matrices fix the levels and the noise")
+    tables = level_tables(raw["system"])
+    if tables is None:
+        raise InputError(f"{what} applies to models whose recipe sets the levels (transmons); "
+                         f"this recipe's model is {raw['system'].get('model')!r}, whose "
+                         f"matrices fix the levels and the noise")
+    return tables
+
+
+def sets_levels(recipe: Recipe) -> bool:
+    """Whether the recipe's model lets a recipe change its levels (:func:`with_levels`)."""
+    return level_tables(recipe.raw["system"]) is not None
 
 
 def with_levels(recipe: Recipe, levels: int | None = None, *, extra: int = 0) -> Recipe:
-    """Every transmon keeping ``levels`` levels, or ``extra`` more than it keeps.
+    """Every subsystem (transmon) keeping ``levels`` levels, or ``extra`` more than it
+    keeps, in the tables its model names (:func:`shaper.recipe.models.level_tables`).
 
     Raises:
-        InputError: the model is not a transmon model, or levels < 2.
+        InputError: the model's matrices fix the levels, or levels < 2.
     """
     if levels is not None and levels < 2:
         raise InputError(f"--levels must be at least 2, got {levels}")
 
     def edit(raw):
-        for table in transmon_tables(raw, "--levels"):
+        for table in _level_tables(raw, "--levels"):
             table["levels"] = levels if levels is not None else \
                 int(table.get("levels", 3)) + extra
     return derived(recipe, edit)
 
 
 def with_coherence(recipe: Recipe, t1: list[float] | None, t2: list[float] | None) -> Recipe:
-    """Coherence times (seconds) per transmon: one value for all or one per transmon in
-    recipe order.
+    """Coherence times (seconds) per subsystem (transmon): one value for all or one per
+    subsystem in recipe order, in the tables its model names.
 
     Raises:
-        InputError: not a transmon model, or a list of the wrong length.
+        InputError: the model's matrices fix the noise, or a list of the wrong length.
     """
     def edit(raw):
-        tables = transmon_tables(raw, "--t1/--t2")
+        tables = _level_tables(raw, "--t1/--t2")
         for flag, values in (("t1", t1), ("t2", t2)):
             if values is None:
                 continue

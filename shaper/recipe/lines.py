@@ -31,33 +31,75 @@ MAX_MEASURED_ROWS = 1_000_000
 
 @dataclass(frozen=True)
 class Stage:
-    """One linear, time-invariant stage of a line (all numbers SI).
+    """One linear, time-invariant stage of a line: its kind and the kind's own parameters.
 
-    ``measured`` stages hold the file's samples (``times_s``, ``values``) as tuples so that a
-    stage is hashable (the responses are cached per stage and grid).
+    ``params`` is an instance of the frozen dataclass registered with the kind
+    (:class:`Kind`; SI units, names with their unit: ``cutoff_hz``, ``width_s``), so a stage
+    is hashable (responses are cached per stage and grid) and each kind reads only its own
+    numbers.
     """
 
     kind: str
-    order: int = 0
-    cutoff_hz: float = 0.0
-    amplitudes: tuple[float, ...] = ()
-    time_constants_s: tuple[float, ...] = ()
-    response: str = ""  # measured: "step" or "impulse"
-    source: str = field(default="", metadata={"report": "file"})  # measured: its file
-    times_s: tuple[float, ...] = field(default=(), repr=False)
-    values: tuple[float, ...] = field(default=(), repr=False)
-    sha256: str = ""  # measured: the digest of the file's bytes (part of the recipe's)
+    params: object
 
     def summary(self) -> dict:
-        """The stage as a report shows it (SI units): its kind and every field it sets,
-        samples left out; a new kind reports itself with no change here."""
-        out = {}
-        for f in fields(self):
-            value = getattr(self, f.name)
-            if f.repr and value != f.default:
+        """The stage as a report shows it (SI units): its kind and every parameter of its
+        kind (a field's ``metadata["report"]`` renames it; fields with ``repr=False``, a
+        file's samples, are left out); a new kind reports itself with no change here."""
+        out = {"kind": self.kind}
+        for f in fields(self.params):
+            if f.repr:
+                value = getattr(self.params, f.name)
                 out[f.metadata.get("report", f.name)] = \
                     list(value) if isinstance(value, tuple) else value
         return out
+
+    def files(self) -> dict[str, str]:
+        """The files the stage was read from and the sha256 of their bytes (part of the
+        recipe's digest): what its parameters' ``files()`` says, if they have one."""
+        files = getattr(self.params, "files", None)
+        return files() if callable(files) else {}
+
+
+@dataclass(frozen=True)
+class LowPass:
+    """``bessel``, ``butterworth``: an analog low-pass of ``order`` with -3 dB at
+    ``cutoff_hz``."""
+
+    order: int
+    cutoff_hz: float
+
+
+@dataclass(frozen=True)
+class Gaussian:
+    """``gaussian``: a zero-phase Gaussian low-pass with -3 dB at ``cutoff_hz``."""
+
+    cutoff_hz: float
+
+
+@dataclass(frozen=True)
+class Settling:
+    """``exponential``: the step response ``1 + sum_k amplitudes[k] exp(-t /
+    time_constants_s[k])``."""
+
+    amplitudes: tuple[float, ...]
+    time_constants_s: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class Measured:
+    """``measured``: a file's ``step`` or ``impulse`` response (``response``), its samples
+    (``times_s``, ``values``, tuples so that the stage is hashable) and the digest of its
+    bytes."""
+
+    response: str
+    source: str = field(metadata={"report": "file"})
+    times_s: tuple[float, ...] = field(repr=False)
+    values: tuple[float, ...] = field(repr=False)
+    sha256: str
+
+    def files(self) -> dict[str, str]:
+        return {self.source: self.sha256}
 
 
 AWG_FILTERS = ("bessel", "butterworth", "gaussian", "measured", "none")
@@ -84,10 +126,11 @@ class AwgOutput:
         if not self.stages:
             return "an ideal staircase (no output filter)"
         st = self.stages[0]
-        if st.kind == "measured":
-            return f"the measured {st.response} response {Path(st.source).name}"
-        order = f"{st.order}{_ordinal(st.order)}-order " if st.order else ""
-        return f"{order}{st.kind.capitalize()} low-pass at {format_quantity(st.cutoff_hz, 'Hz')}"
+        p = st.params
+        if isinstance(p, Measured):
+            return f"the measured {p.response} response {Path(p.source).name}"
+        order = f"{p.order}{_ordinal(p.order)}-order " if isinstance(p, LowPass) else ""
+        return f"{order}{st.kind.capitalize()} low-pass at {format_quantity(p.cutoff_hz, 'Hz')}"
 
     def summary(self) -> dict:
         return {"filter": self.stages[0].kind if self.stages else "none",
@@ -121,38 +164,9 @@ class LineSettings:
             (self.stages.get(channel, ()) if line else ())
 
 
-def read_awg(r, t: dict, sample_rate_hz: float, oversample: int) -> AwgOutput:
-    """Read ``[awg]``: the instrument's output filter (default: :data:`AWG_DEFAULT_KIND` of
-    order 4 at 0.4 of the sample rate, marked as assumed)."""
-    for key in t:
-        if key not in AWG_KEYS:
-            r.fail(f"awg.{key}", f"unknown key; valid keys here: {', '.join(AWG_KEYS)}")
-    if not t:
-        return AwgOutput((Stage(AWG_DEFAULT_KIND, order=AWG_DEFAULT_ORDER,
-                                cutoff_hz=AWG_DEFAULT_FRACTION * sample_rate_hz),),
-                         assumed=True)
-    kind = r.choice(t, "filter", "awg.filter", AWG_FILTERS, AWG_DEFAULT_KIND)
-    if kind == "none":
-        extra = [k for k in t if k != "filter"]
-        if extra:
-            r.fail(f"awg.{extra[0]}", "an ideal staircase (filter = \"none\") takes no other "
-                                      "key")
-        return AwgOutput(())
-    table = {"kind": kind, **{k: v for k, v in t.items() if k != "filter"}}
-    if kind in ("bessel", "butterworth"):
-        table.setdefault("order", AWG_DEFAULT_ORDER)
-    if kind != "measured":
-        table.setdefault("cutoff", AWG_DEFAULT_FRACTION * sample_rate_hz)
-    # the instrument's filter may pass beyond the samples' Nyquist frequency (images of
-    # the staircase then reach the chip): the fine grid of oversample slices resolves it
-    stage = _stage(r, table, "awg", sample_rate_hz * oversample, names={"kind": "filter"})
-    return AwgOutput((stage,))
-
-
-def read_line(r, t: dict, channels: list[str], sample_rate_hz: float,
-              awg: dict | None = None) -> LineSettings:
-    """Read ``[line]``: ``oversample`` and one list of stage tables per channel name; and
-    ``[awg]`` (:func:`read_awg`), the output every channel passes first."""
+def read_line(r, t: dict, channels: list[str], sample_rate_hz: float) -> LineSettings:
+    """Read ``[line]``: ``oversample`` and one list of stage tables per channel name (the
+    instrument's own output, ``[awg]``, is :func:`shaper.recipe.awg.read_awg`)."""
     stages = {}
     for key, value in t.items():
         if key == "oversample":
@@ -176,8 +190,7 @@ def read_line(r, t: dict, channels: list[str], sample_rate_hz: float,
                           minimum=1)
     if oversample > MAX_OVERSAMPLE:
         r.fail("line.oversample", f"must be at most {MAX_OVERSAMPLE}, got {oversample}")
-    return LineSettings(stages=stages, oversample=oversample,
-                        awg=read_awg(r, awg or {}, sample_rate_hz, oversample))
+    return LineSettings(stages=stages, oversample=oversample)
 
 
 def _stage(r, s, where: str, rate: float, names: dict | None = None) -> Stage:
@@ -191,7 +204,12 @@ def _stage(r, s, where: str, rate: float, names: dict | None = None) -> Stage:
             names = (a if a != "kind" else kind_key for a in allowed)
             r.fail(f"{where}.{key}", f"not a key of a {kind} stage; its keys: "
                                      f"{', '.join(names)}")
-    return KINDS[kind].read(r, s, where, rate)
+    stage = KINDS[kind].read(r, s, where, rate)
+    if not (isinstance(stage, Stage) and stage.kind == kind
+            and isinstance(stage.params, KINDS[kind].params)):
+        raise TypeError(f"the reader of line stage kind {kind!r} returned {stage!r}; expected "
+                        f"Stage({kind!r}, {KINDS[kind].params.__name__}(...))")
+    return stage
 
 
 def _lowpass(r, s: dict, where: str, rate: float) -> Stage:
@@ -203,12 +221,12 @@ def _lowpass(r, s: dict, where: str, rate: float) -> Stage:
         r.fail(f"{where}.cutoff", f"{format_quantity(cutoff, 'Hz')} is at or above "
                                   f"{format_quantity(rate / 2, 'Hz')}, half {grid}; the "
                                   f"fine grid cannot resolve it")
-    order = 0
-    if kind != "gaussian":
-        order = r.number(s, "order", f"{where}.order", integer=True, minimum=1)
-        if order > MAX_ORDER:
-            r.fail(f"{where}.order", f"must be at most {MAX_ORDER}, got {order}")
-    return Stage(kind, order=order, cutoff_hz=cutoff)
+    if kind == "gaussian":
+        return Stage(kind, Gaussian(cutoff_hz=cutoff))
+    order = r.number(s, "order", f"{where}.order", integer=True, minimum=1)
+    if order > MAX_ORDER:
+        r.fail(f"{where}.order", f"must be at most {MAX_ORDER}, got {order}")
+    return Stage(kind, LowPass(order=order, cutoff_hz=cutoff))
 
 
 def _exponential(r, s: dict, where: str, rate: float) -> Stage:
@@ -234,7 +252,8 @@ def _exponential(r, s: dict, where: str, rate: float) -> Stage:
     for i, tau in enumerate(constants):
         if not tau > 0:
             r.fail(f"{where}.time_constants[{i}]", f"must be a positive time, got {tau}")
-    return Stage("exponential", amplitudes=tuple(amplitudes), time_constants_s=constants)
+    return Stage("exponential", Settling(amplitudes=tuple(amplitudes),
+                                         time_constants_s=constants))
 
 
 def _measured(r, s: dict, where: str, rate: float) -> Stage:
@@ -279,8 +298,9 @@ def _measured(r, s: dict, where: str, rate: float) -> Stage:
         r.fail(f"{where}.file", f"{path}: the response settles to zero; a {response} response "
                                 f"is normalised to unit gain at DC and needs a non-zero "
                                 f"{'final value' if response == 'step' else 'area'}")
-    return Stage("measured", response=response, source=str(path), times_s=tuple(times),
-                 values=tuple(values), sha256=hashlib.sha256(data).hexdigest())
+    return Stage("measured", Measured(response=response, source=str(path),
+                                      times_s=tuple(times), values=tuple(values),
+                                      sha256=hashlib.sha256(data).hexdigest()))
 
 
 MAX_RESPONSE_BYTES = 64 * 2 ** 20  # a million rows of two numbers fit with room
@@ -313,27 +333,29 @@ def read_response_file(path: Path, fail) -> bytes:
 
 
 class Kind(NamedTuple):
-    """A line stage kind as the recipe reads it: its keys besides ``kind`` and a reader
-    ``read(r, table, where, sample_rate_hz) -> Stage``. How it responds is
+    """A line stage kind as the recipe reads it: its keys besides ``kind``, a reader
+    ``read(r, table, where, sample_rate_hz) -> Stage(kind, params)`` and the frozen
+    dataclass of its parameters (``params``). How it responds is
     :data:`shaper.signal.line.RESPONSES`; :func:`shaper.signal.line.register_kind` adds both."""
 
     keys: tuple[str, ...]
     read: Callable
+    params: type
 
 
 AWG_KEYS = ("filter", "order", "cutoff", "file", "response")
 
 KINDS: dict[str, Kind] = {
-    "bessel": Kind(("order", "cutoff"), _lowpass),
-    "butterworth": Kind(("order", "cutoff"), _lowpass),
-    "gaussian": Kind(("cutoff",), _lowpass),
-    "exponential": Kind(("amplitudes", "time_constants"), _exponential),
-    "measured": Kind(("file", "response"), _measured),
+    "bessel": Kind(("order", "cutoff"), _lowpass, LowPass),
+    "butterworth": Kind(("order", "cutoff"), _lowpass, LowPass),
+    "gaussian": Kind(("cutoff",), _lowpass, Gaussian),
+    "exponential": Kind(("amplitudes", "time_constants"), _exponential, Settling),
+    "measured": Kind(("file", "response"), _measured, Measured),
 }
 
 
-def register_reader(name: str, keys: tuple[str, ...], read: Callable) -> None:
-    KINDS[name] = Kind(keys, read)
+def register_reader(name: str, keys: tuple[str, ...], read: Callable, params: type) -> None:
+    KINDS[name] = Kind(keys, read, params)
 
 
 def stage_files(line: dict):

@@ -78,9 +78,8 @@ def load_recipe(source: str | Path | dict, *, path: str | None = None) -> Recipe
         raise RecipeError(str(exc), path=path, key="system") from None
     if path is not None:  # a recipe read again from a report has no folder to look in
         check_first_guess(reader, recipe.optimizer.initial, base)
-    files = {st.source: st.sha256 for stages in [recipe.line.awg.stages,
-                                                 *recipe.line.stages.values()]
-             for st in stages if st.sha256}
+    files = {path: sha for stages in [recipe.line.awg.stages, *recipe.line.stages.values()]
+             for st in stages for path, sha in st.files().items()}
     problem = budget_free(raw)
     if files:  # a changed response file is another recipe (its checkpoints are refused)
         return replace(recipe, sha256=digest({"recipe": raw, "files": files}),

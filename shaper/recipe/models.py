@@ -31,12 +31,22 @@ BASES = ("bare", "dressed")
 
 
 class Model(NamedTuple):
-    """A ``[system]`` model: the keys it reads (besides ``model``), its reader, and the
-    keys of its nested tables (``{"transmon": (...)}`` for ``[[system.transmon]]``)."""
+    """A ``[system]`` model: the keys it reads (besides ``model``), its reader, the keys
+    of its nested tables (``{"transmon": (...)}`` for ``[[system.transmon]]``), and where
+    its levels are set.
+
+    ``level_tables(system_table) -> [table, ...]``: the raw tables (``[system]`` itself or
+    tables inside it, the very objects, so that an edit lands in the recipe) that carry
+    this model's ``levels`` and its optional ``t1``/``t2``, one per subsystem in recipe
+    order; ``--levels``, ``--t1``/``--t2`` and the verdict's extra levels edit them
+    (:mod:`shaper.recipe.derive`). None: the model's matrices fix the levels and the
+    noise.
+    """
 
     keys: tuple[str, ...]
     read: Callable[[_Reader, dict], System]
     tables: dict[str, tuple[str, ...]] = {}
+    level_tables: Callable[[dict], list[dict]] | None = None
 
 
 def register(name: str, model: Model) -> None:
@@ -45,6 +55,26 @@ def register(name: str, model: Model) -> None:
     KEYS["system"] = tuple(dict.fromkeys(KEYS["system"] + model.keys))
     for table, keys in model.tables.items():
         KEYS[f"system.{table}"] = keys
+
+
+def level_tables(system_table: dict) -> list[dict] | None:
+    """The raw tables of a ``[system]`` table that carry its levels (and ``t1``/``t2``),
+    as its model says (:attr:`Model.level_tables`); None where the model's matrices fix
+    them or the model is not registered in this process."""
+    model = MODELS.get(system_table.get("model"))
+    if model is None or model.level_tables is None:
+        return None
+    return list(model.level_tables(system_table))
+
+
+def levels_key(system_table: dict) -> str:
+    """Where a recipe sets its levels, in words for a hint: ``system.levels`` where the
+    ``[system]`` table itself carries them, ``levels on every [[system.<name>]]`` where
+    its nested tables do (found by identity among the tables :func:`level_tables` gives)."""
+    tables = level_tables(system_table) or [system_table]
+    nested = [key for key, value in system_table.items() if isinstance(value, list)
+              and any(any(v is t for t in tables) for v in value)]
+    return f"levels on every [[system.{nested[0]}]]" if nested else "system.levels"
 
 
 def read_system(r: _Reader, t: dict) -> System:
@@ -182,19 +212,7 @@ def _transmons(r: _Reader, t: dict) -> System:
             **_spectrum(r, item, where)))
     couplings = _couplings(r, t)
     frame = _frequency(r, t, "frame_frequency", "system", specs[0].qubit_frequency_hz)
-    drives = []
-    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
-        for key in ("name", "transmon"):
-            if not isinstance(item.get(key), str):
-                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
-        carrier = r.number(item, "frequency", f"{where}.frequency", kind="frequency",
-                           positive=True)
-        if abs(carrier - frame) > MAX_CARRIER_OFFSET_HZ:
-            r.fail(f"{where}.frequency", f"{format_quantity(carrier, 'Hz')} is more than "
-                                         f"{format_quantity(MAX_CARRIER_OFFSET_HZ, 'Hz')} from "
-                                         f"the frame {format_quantity(frame, 'Hz')}; a drive "
-                                         f"sits near the transmons' frequencies (check the unit)")
-        drives.append((item["name"], item["transmon"], carrier))
+    drives = _drives(r, t, frame)
     basis = r.choice(t, "basis", "system.basis", BASES, "bare")
     try:
         system = coupled_transmons(specs, couplings, frame_frequency_hz=frame, drives=drives)
@@ -229,6 +247,42 @@ def check_more_levels(r: _Reader, t: dict, system: System, extra: int) -> None:
            f"{item.get('levels', 0) + extra} levels for the verdict's re-check; a transmon "
            f"keeps at most {MAX_TRANSMON_LEVELS}: keep at most "
            f"{MAX_TRANSMON_LEVELS - extra} levels, or fewer verdict.extra_levels")
+
+
+def _couplings(r: _Reader, t: dict) -> list[tuple[str, str, float]]:
+    """``[[system.coupling]]``: ``(name_a, name_b, strength_hz)`` per table."""
+    couplings = []
+    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
+        pair = item.get("between")
+        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
+                                                                 for p in pair)):
+            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
+        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
+        if abs(g) > MAX_COUPLING_HZ:
+            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
+                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
+                                        f"couplings are MHz to tens of MHz (check the unit)")
+        couplings.append((pair[0], pair[1], g))
+    return couplings
+
+
+def _drives(r: _Reader, t: dict, frame: float) -> list[tuple[str, str, float]]:
+    """``[[system.drive]]``: ``(name, transmon, carrier_hz)`` per table, each carrier
+    near the frame (``frame``, Hz)."""
+    drives = []
+    for where, item in r.tables(t, "drive", "system.drive", "system.drive"):
+        for key in ("name", "transmon"):
+            if not isinstance(item.get(key), str):
+                r.fail(f"{where}.{key}", f"expected a name, got {item.get(key)!r}")
+        carrier = r.number(item, "frequency", f"{where}.frequency", kind="frequency",
+                           positive=True)
+        if abs(carrier - frame) > MAX_CARRIER_OFFSET_HZ:
+            r.fail(f"{where}.frequency", f"{format_quantity(carrier, 'Hz')} is more than "
+                                         f"{format_quantity(MAX_CARRIER_OFFSET_HZ, 'Hz')} from "
+                                         f"the frame {format_quantity(frame, 'Hz')}; a drive "
+                                         f"sits near the transmons' frequencies (check the unit)")
+        drives.append((item["name"], item["transmon"], carrier))
+    return drives
 
 
 def _matrices(r: _Reader, t: dict) -> System:
@@ -281,9 +335,10 @@ def _matrices(r: _Reader, t: dict) -> System:
 
 MODELS: dict[str, Model] = {
     "transmon": Model(("levels", "qubit_frequency", "anharmonicity", "drive_frequency",
-                       "qubit", "t1", "t2", "spectrum", "offset_charge"), _transmon),
+                       "qubit", "t1", "t2", "spectrum", "offset_charge"), _transmon,
+                      level_tables=lambda t: [t]),
     "transmons": Model(("transmon", "coupling", "frame_frequency", "drive", "basis"),
-                       _transmons),
+                       _transmons, level_tables=lambda t: list(t.get("transmon", []))),
     "matrices": Model(("unit", "drift", "drift_imag", "controls", "controls_imag", "dims",
                        "computational", "collapse", "collapse_rate"), _matrices),
 }

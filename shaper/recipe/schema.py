@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import difflib
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 
@@ -21,10 +23,27 @@ from shaper.recipe.units import _shown, parse_quantity
 
 GUESSES = ("gaussian", "drag", "cosine", "random")  # first guesses by name
 ENSEMBLE_RULES = ("every", "mean")  # how ensemble members meet the targets
-# optimizer.method: name -> what it is; shaper.optimizer.methods.register adds to it
-METHODS = {"lbfgs": "L-BFGS-B from scipy (default)",
-           "adam": "Adam from optax, learning_rate per step",
-           "lbfgs-jit": "L-BFGS from optax, ten steps per compiled call"}
+
+
+class Method(NamedTuple):
+    """An optimisation method (``optimizer.method``): one line saying what it is, and its
+    loop of one start, ``run(session, x0, resume) -> StartResult``
+    (:mod:`shaper.optimizer.methods`). A built-in loop is named ``"module:function"`` and
+    imported only when a start runs (reading a recipe imports no JAX); a registered method
+    gives the function itself (:func:`shaper.optimizer.methods.register`)."""
+
+    what: str
+    run: Callable | str
+
+
+# THE registry of optimisation methods: a recipe's optimizer.method is one of its names
+METHODS: dict[str, Method] = {
+    "lbfgs": Method("L-BFGS-B from scipy (default)", "shaper.optimizer.methods:run_scipy"),
+    "adam": Method("Adam from optax, learning_rate per step",
+                   "shaper.optimizer.methods:run_optax"),
+    "lbfgs-jit": Method("L-BFGS from optax, ten steps per compiled call",
+                        "shaper.optimizer.methods:run_optax"),
+}
 PADDING = ("after", "before", "centre")
 MAX_STARTS = 1000  # starts of one optimisation: each a checkpoint file and a row of a table
 MAX_SEED = 2 ** 32 - 1  # seeds of NumPy's generators as shaper uses them, start i at seed + i

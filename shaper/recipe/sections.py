@@ -1,12 +1,17 @@
-"""The section readers of a recipe: [system], [gate], [pulse], [cost], [optimizer], [export]."""
+"""The section readers of a recipe: [pulse], [cost], [optimizer], [verdict], and ``build``,
+which reads every section in order ([system]: :mod:`~shaper.recipe.models`; [gate]:
+:mod:`~shaper.recipe.gate`; [export]: :mod:`~shaper.recipe.instrument`; [line] and [awg]:
+:mod:`~shaper.recipe.lines`)."""
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
-from shaper.errors import InputError
 from shaper.physics.systems import NAME, NAME_RULE, System
-from shaper.physics.targets import Target, gate, on_qubits, state_transfer
+from shaper.recipe.awg import read_awg
+from shaper.recipe.gate import read_gate, read_gate_set
 from shaper.recipe.instrument import read_export
 from shaper.recipe.lines import read_line
 from shaper.recipe.memory import fits_in_memory, fits_in_time
@@ -30,15 +35,17 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                        f"got {str(name)[:80]!r}")
     system = read_system(r, r.table(raw, "system", "system"))
     gate_table = r.table(raw, "gate", "gate")
-    gate_set = _gate_set(r, gate_table, system)
-    target, virtual_z = _gate(r, gate_table, system)
+    gate_set = read_gate_set(r, gate_table, system)
+    target, virtual_z = read_gate(r, gate_table, system)
     pulse = _pulse(r, r.table(raw, "pulse", "pulse"), system)
     weights, detunings, scales = _cost(r, r.table(raw, "cost", "cost"), system)
     optimizer = read_optimizer(r, r.table(raw, "optimizer", "optimizer"))
     export = read_export(r, r.table(raw, "export", "export"), system, pulse["limits_hz"],
                      pulse["sample_rate_hz"])
     line = read_line(r, r.table(raw, "line", "line"), [c.name for c in system.channels],
-                     pulse["sample_rate_hz"], r.table(raw, "awg", "awg"))
+                     pulse["sample_rate_hz"])
+    line = replace(line, awg=read_awg(r, r.table(raw, "awg", "awg"), pulse["sample_rate_hz"],
+                                      line.oversample))
     _check_cutoffs(r, line, pulse["duration_s"])
     if export.predistort and not line.active:
         r.fail("export.predistort", "needs a [line] to invert; add the line's stages")
@@ -63,104 +70,19 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
                   raw=raw, **pulse)
 
 
-def _gate_set(r: _Reader, t: dict, system: System) -> tuple[str, ...]:
-    """``[gate] targets``: the gates of a set, each checked as a target of this system."""
-    if "targets" not in t:
-        return ()
-    if "target" in t:
-        r.fail("gate.targets", "give either target (one gate) or targets (a set), not both")
-    names = t["targets"]
-    if not isinstance(names, list) or not names or not all(isinstance(n, str) for n in names):
-        r.fail("gate.targets", f"expected a list of gate names, e.g. [\"X\", \"X/2\", "
-                               f"\"Y\"], got {str(names)[:60]!r}")
-    if len(set(names)) != len(names):
-        r.fail("gate.targets", f"names a gate twice: {names}")
-    positions = _acts_on(r, t, system)
-    qubits = len(positions) if positions else int(np.log2(len(system.computational)))
-    for i, name in enumerate(names):
-        try:
-            gate(name, qubits=qubits)
-        except InputError as exc:
-            r.fail(f"gate.targets[{i}]", str(exc))
-    return tuple(names)
-
-
-def _gate(r: _Reader, t: dict, system: System) -> tuple[Target, bool]:
-    r.check_keys(t, "gate")
-    spec = t.get("target")
-    if spec is None and isinstance(t.get("targets"), list) and t["targets"]:
-        spec = t["targets"][0]  # a gate set: the recipe's own target is its first gate
-    if spec is None:
-        r.fail("gate.target", "missing required key (or targets, for a set of gates)")
-    virtual_z = r.flag(t, "virtual_z", "gate.virtual_z", False)
-    positions = _acts_on(r, t, system)
-    if positions and spec == "state":
-        r.fail("gate.on", "names the qubits a gate acts on; a state target has none")
-    target, virtual_z = _gate_on(r, t, system, spec, virtual_z,
-                                 len(positions) if positions else None)
-    if positions:
-        target = on_qubits(target, positions, len(system.dims))
-    return target, virtual_z
-
-
-def _acts_on(r: _Reader, t: dict, system: System) -> list[int] | None:
-    """``[gate] on``: the qubits (names) a gate acts on, the identity on the others
-    (spectators, README, "Chips"); None without it."""
-    if "on" not in t:
-        return None
-    names = t["on"]
-    if not (isinstance(names, list) and names and all(isinstance(n, str) for n in names)
-            and len(set(names)) == len(names)):
-        r.fail("gate.on", f"expected a list of different qubit names, got {str(names)[:60]!r}")
-    if 2 ** len(system.dims) != len(system.computational):
-        r.fail("gate.on", "needs a system of qubits (2^n computational states)")
-    for i, name in enumerate(names):
-        if name not in system.qubit_names:
-            r.fail(f"gate.on[{i}]", f"no qubit named {name!r}; qubits: "
-                                    f"{', '.join(system.qubit_names)}")
-    return [system.qubit_names.index(n) for n in names]
-
-
-def _gate_on(r: _Reader, t: dict, system: System, spec, virtual_z: bool,
-             acting: int | None) -> tuple[Target, bool]:
-    """The target as written, on ``acting`` qubits (None: all of the system's)."""
-    qubits = acting or int(np.log2(len(system.computational)))
-    size = 2 ** acting if acting else len(system.computational)
-    try:
-        if spec == "state":
-            for key in ("initial_state", "final_state"):
-                if not isinstance(t.get(key), list):
-                    r.fail(f"gate.{key}", "expected a list of amplitudes on the "
-                                          "computational states (target = \"state\")")
-            if len(t["initial_state"]) != len(system.computational):
-                r.fail("gate.initial_state", f"expected {len(system.computational)} "
-                                             f"amplitudes, got {len(t['initial_state'])}")
-            if virtual_z:
-                r.fail("gate.virtual_z", "frame updates apply to gates, not to a state target")
-            return state_transfer(t["initial_state"], t["final_state"]), False
-        if spec == "matrix":
-            if "matrix" not in t:
-                r.fail("gate.matrix", "missing required key (target = \"matrix\")")
-            m = r.matrix(t, "matrix", "gate.matrix", size=size, imag_key="matrix_imag")
-            return gate(m), virtual_z
-        if 2 ** qubits != size and virtual_z:
-            r.fail("gate.virtual_z", "frame updates need 2^n computational states")
-        return gate(spec, qubits=qubits if 2 ** qubits == size else None), virtual_z
-    except InputError as exc:
-        r.fail("gate.target" if spec not in ("matrix", "state") else f"gate.{spec}", str(exc))
-
-
 MIN_CUTOFF_CYCLES = 0.1  # a line cutoff times the pulse's duration below this passes nothing
 
 
 def _check_cutoffs(r: _Reader, line, duration_s: float) -> None:
-    """A line stage whose cutoff is far below 1 / duration lets none of the pulse through:
-    the optimiser would stop at once with the gate undone ("converged" at infidelity ~0.7)."""
+    """A line stage whose cutoff (a ``cutoff_hz`` among its kind's parameters) is far below
+    1 / duration lets none of the pulse through: the optimiser would stop at once with the
+    gate undone ("converged" at infidelity ~0.7)."""
     where = [(f"line.{channel}[{i}].cutoff", st) for channel, stages in line.stages.items()
              for i, st in enumerate(stages)]
     for key, st in [("awg.cutoff", st) for st in line.awg.stages] + where:
-        if st.cutoff_hz and st.cutoff_hz * duration_s < MIN_CUTOFF_CYCLES:
-            r.fail(key, f"{format_quantity(st.cutoff_hz, 'Hz')} passes almost nothing of a "
+        cutoff = getattr(st.params, "cutoff_hz", None)
+        if cutoff and cutoff * duration_s < MIN_CUTOFF_CYCLES:
+            r.fail(key, f"{format_quantity(cutoff, 'Hz')} passes almost nothing of a "
                         f"{format_quantity(duration_s, 's')} pulse (cutoff x duration < "
                         f"{MIN_CUTOFF_CYCLES}); check the unit (lines between a DAC and a "
                         f"chip pass tens to hundreds of MHz)")

@@ -95,14 +95,15 @@ def _other_masses(other: tuple[Stage, ...], period_s: float, fine: int):
     masses, first = np.array([1.0]), 0
     for st in other:
         if st.kind == "gaussian":
-            sigma = math.sqrt(math.log(2)) / (2 * math.pi * st.cutoff_hz * period_s)  # samples
+            sigma = math.sqrt(math.log(2)) / (2 * math.pi * st.params.cutoff_hz
+                                              * period_s)  # samples
             reach = int(math.ceil(8 * sigma * fine)) + 1
             edges = (np.arange(-reach, reach + 2) - 0.5) / fine  # cells centred on j / fine
             w, lead = np.diff(ndtr(edges / sigma)), -reach
         elif st.kind == "measured":
-            t = np.asarray(st.times_s) / period_s
-            v = np.asarray(st.values, float)
-            if st.response == "impulse":
+            t = np.asarray(st.params.times_s) / period_s
+            v = np.asarray(st.params.values, float)
+            if st.params.response == "impulse":
                 v = np.concatenate([[0.0], np.cumsum(0.5 * (v[1:] + v[:-1]) * np.diff(t))])
             v = v / v[-1]
             edges = (np.arange(0, int(math.ceil(t[-1] * fine)) + 2) - 0.5) / fine
@@ -122,13 +123,13 @@ def _closed_step(st: Stage, period_s: float, offsets: np.ndarray,
     from scipy.special import ndtr
 
     if st.kind == "gaussian":
-        sigma = math.sqrt(math.log(2)) / (2 * math.pi * st.cutoff_hz * period_s)
+        sigma = math.sqrt(math.log(2)) / (2 * math.pi * st.params.cutoff_hz * period_s)
         before = int(math.ceil(8 * sigma)) + 1
         t = np.arange(-before, count)[None, :] + offsets[:, None]
         return ndtr(t / sigma), before
-    t = np.asarray(st.times_s) / period_s
-    v = np.asarray(st.values, float)
-    if st.response == "impulse":
+    t = np.asarray(st.params.times_s) / period_s
+    v = np.asarray(st.params.values, float)
+    if st.params.response == "impulse":
         v = np.concatenate([[0.0], np.cumsum(0.5 * (v[1:] + v[:-1]) * np.diff(t))])
     times = np.arange(count)[None, :] + offsets[:, None]
     return np.interp(times, t, v / v[-1], left=0.0, right=1.0), 0

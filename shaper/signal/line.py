@@ -51,16 +51,16 @@ class Response(NamedTuple):
 def _lowpass(st: Stage, h: float):
     from scipy import signal  # here: importing scipy.signal costs every command ~0.3 s
 
-    wc = 2 * math.pi * st.cutoff_hz * h
+    wc = 2 * math.pi * st.params.cutoff_hz * h
     if st.kind == "bessel":  # norm="mag": -3 dB at the cutoff, like Butterworth
-        return signal.bessel(st.order, wc, analog=True, norm="mag")
-    return signal.butter(st.order, wc, analog=True)
+        return signal.bessel(st.params.order, wc, analog=True, norm="mag")
+    return signal.butter(st.params.order, wc, analog=True)
 
 
 def _exponential(st: Stage, h: float):
     # step response 1 + sum_k A_k exp(-t/tau_k): H = 1 + sum_k A_k tau_k s/(1 + tau_k s)
     bs, as_ = np.array([1.0]), np.array([1.0])
-    for amp, tau in zip(st.amplitudes, st.time_constants_s, strict=True):
+    for amp, tau in zip(st.params.amplitudes, st.params.time_constants_s, strict=True):
         tau = tau / h
         term_b, term_a = np.array([amp * tau, 0.0]), np.array([tau, 1.0])
         bs = np.polyadd(np.polymul(bs, term_a), np.polymul(term_b, as_))
@@ -130,9 +130,9 @@ def gaussian_cells(cutoff_hz: float, h: float) -> tuple[np.ndarray, int]:
 
 def measured_cells(stage: Stage, h: float, cells: int) -> np.ndarray:
     """Cell response of a measured step or impulse response, normalised to unit DC gain."""
-    t = np.asarray(stage.times_s)
-    v = np.asarray(stage.values)
-    if stage.response == "impulse":  # the step response is its running integral
+    t = np.asarray(stage.params.times_s)
+    v = np.asarray(stage.params.values)
+    if stage.params.response == "impulse":  # the step response is its running integral
         v = np.concatenate([[0.0], np.cumsum(0.5 * (v[1:] + v[:-1]) * np.diff(t))])
         v = v / v[-1]
     else:
@@ -273,14 +273,17 @@ RESPONSES: dict[str, Response] = {
     "bessel": Response("rational", _lowpass),
     "butterworth": Response("rational", _lowpass),
     "exponential": Response("rational", _exponential),
-    "gaussian": Response("kernel", lambda st, h: gaussian_cells(st.cutoff_hz, h)),
+    "gaussian": Response("kernel", lambda st, h: gaussian_cells(st.params.cutoff_hz, h)),
     "measured": Response("causal", measured_cells),
 }
 
 
-def register_kind(name: str, keys: tuple[str, ...], read: Callable, response: Response) -> None:
+def register_kind(name: str, keys: tuple[str, ...], read: Callable, response: Response,
+                  params: type) -> None:
     """A new line stage kind: ``[[line.<channel>]] kind = "<name>"`` with ``keys`` (besides
-    ``kind``), read into a :class:`~shaper.recipe.lines.Stage` by ``read(r, table, where,
-    sample_rate_hz)``, responding as ``response`` (DEVELOPERS.md, "Where new things go")."""
-    register_reader(name, keys, read)
+    ``kind``), read into ``Stage(name, params(...))`` by ``read(r, table, where,
+    sample_rate_hz)`` (``params``: the frozen dataclass of the kind's own parameters, SI
+    units, which the stage's report lists), responding as ``response`` (DEVELOPERS.md,
+    "Where new things go")."""
+    register_reader(name, keys, read, params)
     RESPONSES[name] = response

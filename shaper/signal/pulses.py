@@ -202,6 +202,23 @@ def gaussian_shape(samples: int, dt: float) -> np.ndarray:
     return g / (g.sum() * dt)
 
 
+def drag_quadrature(main: np.ndarray, dt: float, anharmonicity_hz: float) -> np.ndarray:
+    """The first-order DRAG quadrature of an in-phase envelope: ``Q(t) = -dI/dt / (2 pi
+    alpha)`` in these units (Rabi frequencies and the anharmonicity alpha in Hz), which
+    cancels the leading 1-2 transition; the derivative by central differences.
+
+    Args:
+        main: ``(n,)`` the in-phase envelope I(t) in Hz.
+        dt: the sample period in seconds.
+        anharmonicity_hz: alpha = f12 - f01 (negative for a transmon), not zero.
+
+    References:
+        F. Motzoi, J. M. Gambetta, P. Rebentrost and F. K. Wilhelm, Phys. Rev. Lett. 103,
+        110501 (2009).
+    """
+    return -np.gradient(main, dt) / (2 * np.pi * anharmonicity_hz)
+
+
 def first_guess(kind: str, system: System, layout: Layout, dt: float, *, area: float,
                 rng: np.random.Generator, drag_scale: float = 1.0,
                 axis: str = "x") -> np.ndarray:
@@ -213,11 +230,7 @@ def first_guess(kind: str, system: System, layout: Layout, dt: float, *, area: f
         axis: ``"x"`` puts the pulse on I, ``"y"`` on Q.
         drag_scale: multiple of the first-order DRAG correction.
 
-    References:
-        DRAG: F. Motzoi, J. M. Gambetta, P. Rebentrost and F. K. Wilhelm, Phys. Rev.
-        Lett. 103, 110501 (2009). To first order the quadrature is
-        ``Q(t) = -dI/dt / (2 pi alpha)`` in these units (Rabi frequencies in Hz,
-        alpha the anharmonicity in Hz), which cancels the leading 1-2 transition.
+    The DRAG quadrature is :func:`drag_quadrature` times ``drag_scale``.
     """
     n = layout.samples
     samples = np.zeros((n, layout.controls))
@@ -244,7 +257,7 @@ def first_guess(kind: str, system: System, layout: Layout, dt: float, *, area: f
             if alpha == 0.0:
                 raise InputError(f"a DRAG first guess needs the anharmonicity of {ch.name!r}; "
                                  f"this model has none")
-            quad = -drag_scale * np.gradient(main, dt) / (2 * np.pi * alpha)
+            quad = drag_scale * drag_quadrature(main, dt, alpha)
         if axis == "y":
             samples[:, i], samples[:, q] = -quad, main
         else:

@@ -1,9 +1,10 @@
-"""From samples in Hz to what the AWG plays: export, re-export, resample.
+"""From samples in Hz to the waveform file's contents: what the AWG plays.
 
 ``make_waveform`` pads, IF-modulates, pre-distorts, corrects the mixer, scales to full
-scale and quantises, in that order; ``reexport`` turns an earlier run into a waveform for
-another instrument without optimising again. How a file plays on the chip is
-:mod:`shaper.jobs.playback`.
+scale and quantises, in that order; ``resample`` changes the rate for another instrument.
+The files themselves are written by :mod:`shaper.io.writers`; ``shaper export`` (an
+earlier run for another instrument) is :mod:`shaper.jobs.reexport`; how a file plays on
+the chip is :mod:`shaper.jobs.playback`.
 """
 
 from __future__ import annotations
