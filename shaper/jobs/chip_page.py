@@ -81,18 +81,22 @@ QUBIT_HEAD = ["qubit", "frequency", "anharmonicity", "levels", "max Rabi", "T1",
 
 def qubits_given(chip) -> list[list[str]]:
     """What was given for each qubit, as the chip file wrote it (its single-qubit tasks'
-    recipes carry it): one row per qubit, the columns of :data:`QUBIT_HEAD`."""
-    rows, seen = [], set()
-    for task in chip.tasks:
-        alone = task.alone_recipe  # a qubit's gate alone (not its neighbourhood)
-        system = alone.get("system", {})
-        if task.subject in seen or system.get("model") != "transmon":
+    recipes carry it): one row per qubit with a single-qubit gate, the columns of
+    :data:`QUBIT_HEAD`."""
+    from shaper.recipe.chip_recipes import alone_recipe
+    from shaper.recipe.models import level_tables
+
+    rows = []
+    for q in chip.qubits:
+        try:
+            alone = alone_recipe(chip, q)
+        except StopIteration:  # a qubit with no single-qubit gate of its own
             continue
-        seen.add(task.subject)
+        table = next(iter(level_tables(alone.get("system", {})) or [{}]))
         rows.append([str(c) for c in (
-            task.subject, system.get("qubit_frequency"), system.get("anharmonicity"),
-            system.get("levels"), alone.get("pulse", {}).get("max_rabi"),
-            system.get("t1", ""), system.get("t2", ""), system.get("spectrum", "charge"))])
+            q, table.get("qubit_frequency"), table.get("anharmonicity"), table.get("levels"),
+            alone.get("pulse", {}).get("max_rabi"), table.get("t1", ""), table.get("t2", ""),
+            table.get("spectrum", "charge"))])
     return rows
 
 

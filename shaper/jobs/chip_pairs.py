@@ -13,40 +13,25 @@ from shaper.recipe.chip import Chip
 def pair_zz(chip: Chip) -> list[dict]:
     """The static ZZ of every coupled pair at rest (flux at its idle point, drives off), by
     exact diagonalisation of the pair's static Hamiltonian with its charge coupling and
-    the chip's levels (:func:`shaper.physics.transmons.static_zz`; README, "Chips")."""
+    the chip's levels (:func:`shaper.physics.transmons.static_zz`; README, "Chips"): the
+    pair's system straight from the chip's tables, no pulse."""
     from shaper.errors import InputError
     from shaper.physics.transmons import static_zz
-    from shaper.recipe import load_recipe
+    from shaper.recipe.chip_recipes import static_pair
+    from shaper.recipe.models import read_system
+    from shaper.recipe.schema import _Reader
 
     out = []
-    for a, b, strength in chip.couplings:  # a recipe only to build the pair's Hamiltonian
-        recipe = load_recipe({
-            "name": "pair", "gate": {"target": ["I", "I"]},
-            "pulse": {"duration": "10 ns", "sample_rate": "2.4 GS/s",
-                      "max_rabi": {a: "1 MHz", b: "1 MHz"}},
-            "system": {"model": "transmons",
-                       "transmon": [qubit_table(chip, a), qubit_table(chip, b)],
-                       "coupling": [{"between": [a, b], "strength": strength}]}})
+    for a, b, strength in chip.couplings:
+        table = static_pair(chip, a, b, strength)
+        system = read_system(_Reader({"system": table}, chip.path), table)
         try:
-            zz = static_zz(recipe.system.lab.static, recipe.system.dims)
+            zz = static_zz(system.lab.static, system.dims)
         except InputError:
             zz = None  # hybridised at rest: no ZZ to speak of (said in the table)
         out.append({"pair": f"{a}-{b}", "strength": strength,
-                    "levels": "x".join(map(str, recipe.system.dims)), "static_zz_hz": zz})
+                    "levels": "x".join(map(str, system.dims)), "static_zz_hz": zz})
     return out
-
-
-def qubit_table(chip: Chip, name: str) -> dict:
-    """A qubit's ``[[system.transmon]]`` table as the chip's single-qubit gate recipe of
-    it holds it alone (its levels, spectrum; no coherence times)."""
-    system = next(t.alone_recipe for t in chip.tasks if t.subject == name)["system"]
-    if system["model"] == "transmons":
-        return {k: v for k, v in next(t for t in system["transmon"] if t["name"] == name).items()
-                if k not in ("t1", "t2")}
-    return {"name": name, "levels": system["levels"],
-            "qubit_frequency": system["qubit_frequency"],
-            "anharmonicity": system["anharmonicity"],
-            **{k: system[k] for k in ("spectrum", "offset_charge") if k in system}}
 
 
 def _khz(zz_hz: float | None) -> str:

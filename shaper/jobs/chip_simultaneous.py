@@ -18,30 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from shaper.io import atomic
-from shaper.jobs.chip_pairs import qubit_table
-
-
-def pair_recipe(chip, a: str, b: str, label: str) -> dict:
-    """The recipe of ``a`` and ``b`` playing ``label`` together, from the chip's qubit
-    tables as the single-qubit task of each holds them alone."""
-    transmons = [{**qubit_table(chip, name), "driven": False} for name in (a, b)]
-    fa, fb = (t["qubit_frequency"] for t in transmons)
-    couplings = [{"between": [x, y], "strength": c} for x, y, c in chip.couplings
-                 if {x, y} == {a, b}]
-    limits = {q: _task_recipe(chip, q)["pulse"]["max_rabi"] for q in (a, b)}
-    base = _task_recipe(chip, a)
-    drives = [{"name": a, "transmon": a, "frequency": fa},
-              {"name": b, "transmon": b, "frequency": fb},
-              {"name": f"{a}_to_{b}", "transmon": b, "frequency": fa},
-              {"name": f"{b}_to_{a}", "transmon": a, "frequency": fb}]
-    pulse = {k: v for k, v in base["pulse"].items() if k in ("duration", "sample_rate")}
-    return {"name": f"{chip.name}-{a}-{b}-together", "system": {
-                "model": "transmons", "basis": "dressed", "transmon": transmons,
-                "coupling": couplings, "drive": drives},
-            "gate": {"target": [label, label], "virtual_z": True},
-            "pulse": {**pulse, "max_rabi": {**limits, f"{a}_to_{b}": 0, f"{b}_to_{a}": 0}},
-            "verdict": {"lab_frame": "off", "extra_levels": 0},
-            **({"awg": base["awg"]} if "awg" in base else {})}  # the chip's instrument
+from shaper.recipe.chip_recipes import together_recipe
 
 
 def together_pairs(chip) -> list[tuple[str, str]]:
@@ -80,7 +57,7 @@ def play_pair(chip, a: str, b: str, rows: list[dict], root: str) -> list[dict]:
         wa, wb = (np.pad(e, (0, n - len(e))) for e in envelopes)
         columns = [wa, wb, leak.get((a, b), 0) * wa, leak.get((b, a), 0) * wb]
         samples = np.stack([part for w in columns for part in (w.real, w.imag)], axis=1)
-        raw = pair_recipe(chip, a, b, label)
+        raw = together_recipe(chip, a, b, label)
         raw["pulse"]["duration"] = f"{n / waves[0].sample_rate_hz!r} s"
         recipe = load_recipe(raw)
         names = [f"{c}_{p}" for c in (a, b, f"{a}_to_{b}", f"{b}_to_{a}") for p in "iq"]
@@ -102,11 +79,6 @@ def mark_rows(rows, found: list[dict]) -> None:
         joint = [e["infidelity"] for e in found if e["gate"] == row.gate
                  and row.subject in e["pair"].split("-")]
         row.simultaneous_infidelity = max(joint) if joint else None
-
-
-def _task_recipe(chip, subject: str) -> dict:
-    """A qubit's single-qubit gate recipe alone (the chip's own tables for it)."""
-    return next(t.alone_recipe for t in chip.tasks if t.subject == subject)
 
 
 def _envelope(wave, channel: str) -> np.ndarray:
