@@ -184,7 +184,7 @@ def test_the_sampled_cross_check_and_the_interleaved_bounds(made):
 
 
 def test_gate_set_and_chip_tables_carry_the_prediction(made, tmp_path):
-    from shaper.jobs.benchmarking_report import gate_set_block, write_block
+    from shaper.jobs.benchmarking_report import gate_set_block, qubit_unit, write_block
     from shaper.jobs.chip import write_summary
     from shaper.jobs.gateset import GateRow, write_table
     from shaper.recipe.chip import load_chip
@@ -219,7 +219,11 @@ def test_gate_set_and_chip_tables_carry_the_prediction(made, tmp_path):
         for suffix in (".csv", ".json"):
             (root / p.with_suffix(suffix).name).write_bytes(p.with_suffix(suffix).read_bytes())
     chip_rows = rows("q0")
-    write_summary(load_chip(chip_file), root, chip_rows, echo=said.append)
+    chip = load_chip(chip_file)
+    # what the chip's executor runs as a unit once q0's gates are made, then the summary
+    block = {"qubits": {"q0": qubit_unit(chip, "q0", chip_rows, root, echo=said.append)},
+             "pairs": {}}
+    write_summary(chip, root, chip_rows, benchmarking=block)
     # (a chip's single-qubit recipes leave virtual Z off unless made beside neighbours:
     # another prediction than the set's, the same in every place it is written)
     chip_epc = json.loads((root / "benchmarking.json").read_text())["qubits"]["q0"][

@@ -114,7 +114,7 @@ def test_demo_pulse_on_the_charge_model_against_an_independent_box():
     infidelity = 1 - pedersen_fidelity(u[:2, :2], np.array([[0, 1], [1, 0]], complex))
     assert play.nominal.infidelity == pytest.approx(infidelity, abs=1e-12)
     assert play.nominal.leakage == pytest.approx(subspace_leakage(u, [0, 1]), abs=1e-12)
-    assert 5e-6 < infidelity < 3e-5  # ~1.1e-5 where the Duffing model says 5e-9
+    assert infidelity < 1e-6  # the bundled demo is made on the charge model (the default)
 
 
 def test_coupled_charge_transmons_keep_the_rwa_of_the_charge_coupling():
