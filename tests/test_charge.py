@@ -91,8 +91,8 @@ def test_charge_dispersion_follows_the_asymptotic_formula(ratio):
 
 
 def test_demo_pulse_on_the_charge_model_against_an_independent_box():
-    # the Duffing-optimised demo pulse played on a Cooper-pair box fitted to the same f01 and
-    # alpha: about 1e-5 (the matrix elements differ), re-simulated here with scipy's expm
+    # the bundled demo pulse played on a Cooper-pair box fitted to the same f01 and alpha,
+    # built here (Koch et al. 2007) and re-simulated with scipy's expm
     raw = tomllib.loads((ROOT / "recipes" / "demo-x180.toml").read_text())
     raw["system"]["spectrum"] = "charge"
     raw["verdict"] = {"lab_frame": "off", "extra_levels": 0}
