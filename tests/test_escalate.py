@@ -55,7 +55,8 @@ def test_a_pulse_that_misses_only_with_more_levels_is_optimised_again_on_them(tm
     assert step["judged_before"]["infidelity"] > 1e-4 >= step["judged_after"]["infidelity"]
     assert "escalating" in (tmp_path / "run" / "run.log").read_text()
     wave = np.loadtxt(tmp_path / "run" / "fast.csv", delimiter=",", skiprows=1)
-    scale = json.loads((tmp_path / "run" / "fast.json").read_text())["full_scale_hz"]["q0"]
+    scale = json.loads((tmp_path / "run" / "fast.json").read_text())["channels"]["q0"][
+        "full_scale_rabi_hz"]
     u = expm_product(*duffing(4, 0.0, -250e6), wave[:, 1:] * scale, 1 / 2.4e9)
     infidelity = 1 - pedersen_fidelity(u[:2, :2], X)
     assert infidelity <= 1e-4 and leak_ok(u)
