@@ -123,7 +123,7 @@ def run_chip(chip: Chip, out: Path, *, executor, resume: bool = False, force: bo
         finished.append(task.id)
         if bar is not None:
             bar.set_postfix_str(f"{len(finished)}/{len(todo)} tasks", refresh=False)
-            bar.update(weights[task.id])
+            bar.update(min(weights[task.id], bar.total - bar.n))  # float sums: not past 1
     try:
         _run_tasks(executor, chip, todo, out, state, done, budget,
                    say=bar.write if bar is not None else echo, tick=tick)
