@@ -175,6 +175,8 @@ def _user_rows(recipe: Path | None, quick: bool, echo) -> tuple[list, list, list
                  f"{r['ratio']:.2f}x")
         startup = bench_user.startup_rows(Path(recipe), repeats=2 if quick else 3,
                                           full=not quick)
+        if not quick:  # a chip's and a night's scale, whole commands (minutes)
+            startup += bench_user.scale_rows(Path(recipe).resolve().parents[1])
         for r in startup:
             echo(f"{r['command']}: {r['seconds']:.2f} s, floor {r['floor_s']:.2f} s, "
                  f"{r['ratio']:.2f}x")

@@ -114,6 +114,40 @@ def startup_rows(recipe: Path, *, repeats: int, full: bool) -> list[dict]:
     return rows
 
 
+def scale_rows(root: Path) -> list[dict]:
+    """Whole commands at a chip's and a night's scale (full mode; minutes each): a chip of
+    three transmons in a line with every single-qubit gate made and judged beside its
+    neighbours (``recipes/chips/line-3.toml``) against one ``optimize`` of the demo, and a
+    cross-resonance CNOT (``recipes/cr-cnot-200.toml``) with escalation against without
+    (what going on in the verdict's model costs when it is needed)."""
+    rows = []
+    chip, cr, demo = (root / "recipes" / "chips" / "line-3.toml",
+                      root / "recipes" / "cr-cnot-200.toml", root / "recipes" / "demo-x180.toml")
+    if not (chip.exists() and cr.exists() and demo.exists()):
+        return rows
+    with tempfile.TemporaryDirectory(prefix="shaper-bench-") as tmp:
+        work = Path(tmp)
+        env = dict(os.environ, SHAPER_CACHE_DIR=str(work / "cache"), PYTHONWARNINGS="ignore")
+        cli = shaper_command()
+        one = _run(cli + ["optimize", str(demo), "--out", str(work / "demo"), "--quiet"],
+                   env, work)
+        whole = _run(cli + ["chip", str(chip), "--out", str(work / "chip"), "--quiet"],
+                     env, work)
+        rows.append({"command": "a 3-transmon line chip, every single-qubit gate made and "
+                                "judged beside its neighbours / one optimize of the demo",
+                     "seconds": whole, "floor_s": one, "ratio": whole / one})
+        off = work / "no-escalation.toml"
+        off.write_text(cr.read_text().replace("[optimizer]\n",
+                                              "[optimizer]\nescalate = false\n"))
+        plain = _run(cli + ["optimize", str(off), "--out", str(work / "cr-off"), "--quiet"],
+                     env, work)
+        escalated = _run(cli + ["optimize", str(cr), "--out", str(work / "cr"), "--quiet"],
+                         env, work)
+        rows.append({"command": "a 200 ns cross-resonance CNOT with escalation / without",
+                     "seconds": escalated, "floor_s": plain, "ratio": escalated / plain})
+    return rows
+
+
 def _objective_call(raw: dict):
     """A no-argument call of the recipe's jitted value and gradient, compiled."""
     import jax
