@@ -87,10 +87,12 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
                             f"({', '.join(names)}), got shape {data.shape}")
     _check_values(path, data)
     rate = sample_rate_hz or meta_rate
+    if rate is None and times is not None and len(times) > 1:
+        rate = rate_of_times(path, times)  # a time column says the rate itself
     scale = full_scale_hz if full_scale_hz is not None else meta_scale
     if rate is None:
-        raise WaveformError(f"{path}: the file does not give its sample rate; pass "
-                            f"--sample-rate (e.g. 2.4GS/s)")
+        raise WaveformError(f"{path}: the file does not give its sample rate (no sidecar, no "
+                            f"time_s column); pass --sample-rate (e.g. 2.4GS/s)")
     if scale is None:
         raise WaveformError(f"{path}: the file does not give its full scale; pass "
                             f"--full-scale (the Rabi frequency of 1.0, e.g. 60MHz)")
@@ -101,6 +103,24 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
     full = scale if isinstance(scale, dict) else {c.name: float(scale) for c in system.channels}
     return Waveform(fractions=_order(path, names, data, system), sample_rate_hz=float(rate),
                     full_scale_hz=full, column_names=system.control_names)
+
+
+def rate_of_times(path: Path, times: np.ndarray) -> float:
+    """The sample rate a ``time_s`` column gives: its samples over its span, rounded to 7
+    significant digits where that is within the times' own precision (a rate written as
+    times of a few digits comes back as the round number it was).
+
+    Raises:
+        WaveformError: times that do not increase in even steps.
+    """
+    steps = np.diff(np.asarray(times, float))
+    if not np.all(np.isfinite(steps)) or np.any(steps <= 0) or not np.allclose(
+            steps, steps.mean(), rtol=1e-6, atol=0):
+        raise WaveformError(f"{path}: time steps are uneven (the time_s column must increase "
+                            f"by one sample period per row)")
+    rate = (len(times) - 1) / (float(times[-1]) - float(times[0]))
+    rounded = float(f"{rate:.7g}")
+    return rounded if abs(rounded - rate) <= 1e-6 * rate else rate
 
 
 def _read_plain(path: Path, system: System, max_rows: int, why: str):
