@@ -172,7 +172,10 @@ def test_public_api_is_pinned():
         "TransmonSpec", "WaveformError", "average_gate_fidelity", "best_frame_angles",
         "coupled_transmons", "cycle_exponential", "from_matrices", "gate", "gate_figures",
         "leakage", "load_recipe", "optimize", "propagate", "read_waveform", "run", "simulate",
-        "state_transfer", "transmon", "__version__"}
+        "state_transfer", "transmon", "__version__",
+        # the commands from Python, each with its result object (a ``met`` on each)
+        "RunOutput", "check", "CheckResult", "export", "ExportResult", "sweep", "SweepResult",
+        "chip", "ChipResult"}
     for name in shaper.__all__:
         assert getattr(shaper, name) is not None
 

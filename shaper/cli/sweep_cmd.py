@@ -197,7 +197,8 @@ def _no_pass(sweep, folder: Path, where, echo) -> int:
         echo("judging the longest duration again for its explanation")
         output = finish(sweep.result_at(longest.samples), folder / "longest",
                         plots_too=False, say=echo,
-                        where=replace(where, run=str(folder / "longest")))
+                        where=replace(where, run=str(folder / "longest"), waveform=str(
+                            folder / "longest" / f"{sweep.recipe.name}.csv")))
         why = explanation_lines(output.report)
         sweep.add_to_summary("Why the longest duration missed, and what to try", why)
         for text in why:

@@ -85,7 +85,12 @@ def coherence_lines(open_system: dict | None) -> list[str]:
         f"{q}: " + " ".join(f"{k[:2].upper()} {v * 1e6:g} us" for k, v in t.items()
                             if v is not None)
         for q, t in (open_system.get("coherence_times") or {}).items())
+    over = open_system.get("over")
+    span = "" if not over else (
+        f" over the footprint, {over['footprint_s'] * 1e9:.4g} ns: the file's "
+        f"{over['file_s'] * 1e9:.4g} ns (its padding included) and the output's "
+        f"{over['ring_down_s'] * 1e9:.4g} ns ring-down")
     return [f"  with decoherence: infidelity {open_system['infidelity']:.3e} = coherent "
             f"{open_system['coherent_error']:.3e} (the pulse) + incoherent "
-            f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}); "
-            f"leakage {open_system['leakage']:.3e}"]
+            f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}"
+            f"{span}); leakage {open_system['leakage']:.3e}"]

@@ -64,18 +64,20 @@ class Heartbeat:
         self.every, self.status, self.quiet = every or every_s(), status, quiet
         self.lock = threading.RLock()
         self._last = self._started = time.monotonic()
-        self._line, self._said, self._open = "", "", ""
+        self._said, self._open, self._said_at = "", "", self._started
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._streams = None
 
     def wrote(self, text: str) -> None:
-        """Called under :attr:`lock` by the watched streams."""
+        """Called under :attr:`lock` by the watched streams: the time, the line that
+        ``text`` completes (a progress bar's ``\r`` ends one too) and what is left open."""
         self._last = time.monotonic()
-        self._open = (self._open + text).rsplit("\n", 1)[-1].rsplit("\r", 1)[-1]
-        lines = [part for part in text.replace("\r", "\n").split("\n") if part.strip()]
-        if "\n" in text and lines:
-            self._said = lines[-1].strip()
+        parts = (self._open + text).replace("\r", "\n").split("\n")
+        done = [part.strip() for part in parts[:-1] if part.strip()]
+        if done:
+            self._said, self._said_at = done[-1], self._last
+        self._open = parts[-1]
 
     def __enter__(self) -> Heartbeat:
         if self.quiet:
@@ -103,15 +105,14 @@ class Heartbeat:
             except Exception:  # noqa: BLE001 - a status read mid-change: say the rest
                 status = ""
             with self.lock:
-                quiet_s = time.monotonic() - self._last
-                if quiet_s < self.every:
+                now = time.monotonic()
+                if now - self._last < self.every:
                     continue
-                said = f" since \"{self._said[:100]}\"" if self._said else ""
-                line = (f"  ... still at work: {quiet_s:.0f} s{said}"
-                        + (f"; {status}" if status else "")
-                        + f" [{time.monotonic() - self._started:.0f} s in all]")
-                # a bar's line (ends in \r) is overwritten; a half-written line is ended
-                lead = "\r" if self._open and not self._open.endswith("\n") else ""
+                said = (f", {now - self._said_at:.0f} s after \"{self._said[:100]}\""
+                        if self._said else f", {now - self._started:.0f} s after the start")
+                line = (f"  ... still at work{said}" + (f"; {status}" if status else "")
+                        + f" [{now - self._started:.0f} s in all]")
+                lead = "\r" if self._open else ""  # over a bar's line (it ends in \r)
                 try:
                     self._streams[1].write(lead + line + "\n")
                     self._streams[1].flush()

@@ -63,7 +63,9 @@ def explain(report: dict, *, where: Where | dict | str | None = None,
             return [found]
     if own is not None and optimizer is not None and over(own, limits):
         return [_optimiser_reason(context, own, optimizer)]
-    found = scan_reasons(context) + _model_reasons(context, own)
+    scans = scan_reasons(context)  # a check's own scans name the cause where they can
+    found = scans + [r for r in _model_reasons(context, own)
+                     if not (scans and r.cause == "other")]
     if optimizer is not None and optimizer.get("stop_reason") in BUDGET_STOPS:
         # the optimiser's figures pass, but it ran out before reaching its margin: more
         # iterations buy some of the headroom the judged model takes away
@@ -140,12 +142,12 @@ def _beside_reason(c: Context) -> Reason | None:
     beside = c.report.get("beside_neighbours")
     if not beside:
         return None
-    over = [(name, fig) for name, fig in (("rotating frame", beside.get("rotating")),
-                                          ("lab frame, worst carrier phase",
-                                           beside.get("lab_frame"))) if over(fig, c.limits)]
-    if not over:
+    missed = [(name, fig) for name, fig in (("rotating frame", beside.get("rotating")),
+                                            ("lab frame, worst carrier phase",
+                                             beside.get("lab_frame"))) if over(fig, c.limits)]
+    if not missed:
         return None
-    said = "; ".join(f"{name}: {pair(fig)}" for name, fig in over)
+    said = "; ".join(f"{name}: {pair(fig)}" for name, fig in missed)
     if beside.get("mode") == "check":
         return reason("beside its neighbours",
                       f"optimised alone it meets the targets alone, but beside its coupled "
@@ -153,7 +155,7 @@ def _beside_reason(c: Context) -> Reason | None:
                       joined(steps.edit_then(c.where, "set gates.neighbours = \"optimise\" "
                                                       "(optimise each gate beside them)",
                                              "beside"), c.longer()))
-    lab_only = [name for name, _ in over] == ["lab frame, worst carrier phase"]
+    lab_only = [name for name, _ in missed] == ["lab frame, worst carrier phase"]
     if lab_only:
         return reason("lab frame beside its neighbours",
                       f"made beside its neighbours in the rotating frame, it reaches {said} "

@@ -20,7 +20,7 @@ def scan_reasons(c: Context) -> list[Reason]:
     report, limits = c.report, c.limits
     scans = report.get("sensitivity") or {}
     rotating = (report.get("trust") or {}).get("rotating_frame") or figures(report)
-    if not scans or not over(rotating, limits):
+    if not scans or not over(rotating, limits) or c.where.command != "check":
         return []
     out = []
     for axis, values, unit in (("detuning_hz", "infidelity_vs_detuning", "MHz"),
@@ -99,9 +99,10 @@ def export_reasons(c: Context) -> list[Reason]:
                                        "at-rate"))]
     bits = report.get("dac_bits") or 16
     more = steps.step("more DAC bits: {0}",
-                      steps.shaper("export", where.run or "RUN", "--out", where.out or "OUT",
-                                   "--bits", min(32, bits + 4), "--force")) \
-        if bits < 32 else Step("a finer DAC")
+                      steps.shaper("export", where.run, "--out", where.out, "--bits",
+                                   min(32, bits + 4), "--force")) \
+        if bits < 32 and where.run and where.out else Step(
+            f"more DAC bits (--bits {min(32, bits + 4)})" if bits < 32 else "a finer DAC")
     return [reason("the new instrument",
                    f"the run meets the targets ({pair(run)}); the new file reaches "
                    f"{pair(new)} ({report.get('dac_bits')}-bit, IF "

@@ -192,10 +192,12 @@ def edit_then(where: Where, edits: str, suffix: str) -> Step:
 
 def check_plots(where: Where) -> Step:
     """Where the figures go wrong, drawn: a check of the judged file with its plots."""
-    waveform = where.waveform or "FILE"
+    if where.command == "chip" or not where.waveform:  # a chip's recipes are not files
+        return Step(f"the run's own report and plots ({where.run or where.out or 'its folder'})"
+                    f" show where")
     gate = ["--gate", where.gate] if where.gate else []
-    return step("{0} shows where", shaper("check", where.file, waveform, *gate, "--plots",
-                                          fresh(where, "plots")))
+    return step("{0} shows where", shaper("check", where.file, where.waveform, *gate,
+                                          "--plots", fresh(where, "plots")))
 
 
 def task_where(task, root, run) -> Where:

@@ -69,7 +69,8 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     from shaper.jobs.next_steps import Where
 
     where = Where("export", file=str(run_report["recipe"].get("path") or "RECIPE"),
-                  out=str(out), run=str(run_path), lab_frame=recipe.optimizer.lab_frame)
+                  out=str(out), run=str(run_path), waveform=str(out / files[0].name),
+                  lab_frame=recipe.optimizer.lab_frame)
     report = export_report(playback, files, original, samples, settings, rate,
                            method=method, clipped=clipped, source=run_path, recipe=recipe,
                            where=where)

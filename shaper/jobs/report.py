@@ -149,6 +149,8 @@ def explained(report: dict, recipe: Recipe, where: Where | None = None) -> dict:
     where = where or Where(file=recipe.path or "RECIPE")
     reasons = explain(report, where=where, shortest_s=shortest_duration(recipe))
     bound = speed_limit(recipe, where) if reasons else None
+    if bound is not None:  # out of reach at this duration: more iterations cannot help
+        reasons = [r for r in reasons if r.cause != "budget"] or reasons
     report["explanation"] = [r._asdict() for r in ([bound] if bound else []) + reasons]
     return report
 
