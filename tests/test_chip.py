@@ -286,7 +286,10 @@ def test_a_gate_optimised_beside_its_neighbours_matches_an_independent_simulatio
                 for start in np.random.default_rng(1).uniform(-np.pi, np.pi, (12, 6))),
                key=lambda r: r.fun)
     assert float(row["neighbours_infidelity"]) == pytest.approx(best.fun, rel=1e-5)
-    assert float(row["infidelity"]) == float(row["neighbours_infidelity"])
+    # the row's judged infidelity is the worst of its judged figures beside its neighbours
+    # (made beside them: the rotating and the lab frame; alone is for comparison)
+    assert float(row["infidelity"]) == max(float(row["neighbours_infidelity"]),
+                                           float(row["neighbours_lab_frame_infidelity"]))
     leak = 1 - np.trace(p @ p.conj().T).real / 8  # Wood and Gambetta, PRA 97, 032306 (2018)
     assert float(row["neighbours_leakage"]) == pytest.approx(leak, rel=1e-6)
     # and the same file alone has its own figure beside it

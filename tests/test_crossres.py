@@ -73,6 +73,8 @@ def test_cross_resonance_cnot_meets_the_target_by_independent_resimulation(cnot)
     framed = after[:, None] * p * before[None, :]
     cnot_matrix = np.array([[1, 0, 0, 0], [0, 1, 0, 0], [0, 0, 0, 1], [0, 0, 1, 0]], complex)
     infidelity = 1 - pedersen_fidelity(framed, cnot_matrix)
+    # the judged figures are this model's here (verdict.lab_frame off, no extra levels)
+    assert report["judged_on"] == "rotating frame, 4x4 levels"
     assert infidelity < 1e-4 and abs(infidelity - report["infidelity"]) < 1e-8
     assert abs(subspace_leakage(u, comp) - report["leakage"]) < 1e-8
 

@@ -15,15 +15,19 @@ from helpers import run_cli as cli
 from shaper.jobs.explain import explain
 
 
-def missed(trust: dict, *, stop: str = "targets met", iterations: int = 100,
-           system: dict | None = None, limits=(1e-4, 1e-4), duration_s: float = 1e-8) -> dict:
-    """A report whose judged figures miss ``limits``: the optimiser's own figures and the
-    file's in the recipe's rotating frame are ``trust["rotating_frame"]``; ``system``: the
-    recipe's ``[system]`` table as the report carries it."""
+def missed(trust: dict, *, stop: str = "met in the optimiser's model", iterations: int = 100,
+           system: dict | None = None, limits=(1e-4, 1e-4), duration_s: float = 1e-8,
+           lab_frame: str = "off") -> dict:
+    """A report whose judged figures miss ``limits``: the optimiser's own figures (in its
+    model, ``lab_frame``) and the file's in the recipe's rotating frame are
+    ``trust["rotating_frame"]``; ``system``: the recipe's ``[system]`` table as the report
+    carries it."""
     rotating = trust["rotating_frame"]
     return {"targets": {"met": False, "infidelity": limits[0], "leakage": limits[1]},
-            "optimizer": {"stop_reason": stop, "iterations": iterations, "starts": [{}]},
-            "before_quantisation": {k: rotating[k] for k in ("infidelity", "leakage")},
+            "optimizer": {"stop_reason": stop, "iterations": iterations, "starts": [{}],
+                          "lab_frame": lab_frame},
+            "before_quantisation": {**{k: rotating[k] for k in ("infidelity", "leakage")},
+                                    "lab_frame": lab_frame},
             "infidelity": rotating["infidelity"], "leakage": rotating["leakage"],
             "trust": trust, "duration_s": duration_s,
             "recipe": {"content": {"system": system or {"model": "transmon", "levels": 5}}}}
@@ -41,8 +45,16 @@ def test_the_lab_frame_is_named_where_the_rotating_frame_passes():
     (reason,) = explain(report, recipe="my/r.toml")
     assert reason.cause == "lab frame"
     assert "3.21e-04" in reason.why and "5.70e-08" in reason.why  # the report's own numbers
-    assert "optimizer.lab_frame" in reason.next
+    assert "optimizer.lab_frame = \"exact\"" in reason.next  # no second-order model here
     assert "shaper sweep my/r.toml --durations 10ns:20ns:" in reason.next  # up to twice 10 ns
+    # where the optimiser already worked in the lab frame, what is left: exact, or longer
+    for used, wanted in (("corrected", "\"exact\""), ("exact", "system.levels = 8")):
+        (reason,) = explain({**report, "optimizer": {**report["optimizer"],
+                                                     "lab_frame": used},
+                             "before_quantisation": {**report["before_quantisation"],
+                                                     "lab_frame": used}}, recipe="my/r.toml")
+        assert wanted in reason.next and "lab_frame = true" not in reason.next
+        assert "= \"corrected\"" not in reason.next
 
 
 @pytest.mark.parametrize("system, key", [
@@ -83,8 +95,10 @@ def test_a_spent_budget_says_so_and_how_to_give_more(tmp_path):
     assert report["explanation"][0]["cause"] == "budget"
     tail = last_lines(out)
     assert "why: the optimiser stopped at its iteration limit after 3 iterations" in tail
-    assert f"next: a larger budget, going on from where it stopped: shaper optimize {recipe} " \
-        f"--resume --iterations 6" in tail
+    command = f"shaper optimize {recipe} --out {tmp_path / 'run'} --resume --iterations 13"
+    assert report["explanation"][0]["commands"] == [command]
+    assert f"next: a larger budget, going on from where it stopped (the same --out): " \
+        f"`{command}`" in tail
     # and that is what it does: the same run goes on to 40 iterations from its checkpoints
     code, out, err = cli("optimize", recipe, "--out", tmp_path / "run", "--quiet",
                          "--no-plots", "--resume", "--iterations", 40)
@@ -106,7 +120,10 @@ def test_a_target_out_of_reach_is_said_before_the_night_and_after_it(tmp_path):
     assert bound["cause"] == "speed limit" and "8.33 ns" in bound["next"]
     assert reason["cause"] == "converged above the target"
     assert "out of reach at 5 ns" in reason["why"]
-    assert f"shaper sweep {recipe} --durations 5ns:10ns:1ns" in reason["next"]
+    # the longer pulses begin at the speed limit, not below it
+    sweep = f"shaper sweep {recipe} --durations 8.4ns:16.8ns:2ns --out {tmp_path / 'run'}-sweep"
+    assert sweep in reason["commands"] and f"`{sweep}`" in reason["next"]
+    assert sweep in bound["commands"]
     assert "why: the X rotation" in "\n".join(out.strip().splitlines()[-4:])
 
 

@@ -76,7 +76,8 @@ def test_a_report_simulates_each_file_once(tmp_path, monkeypatch):
     repeated = {k: n for k, n in seen.items() if n > 1}
     assert seen and not repeated, repeated
     report = json.loads((out.folder / "report.json").read_text())
-    assert report["line"]["with_line"]["infidelity"] == report["infidelity"]
+    rotating = report["trust"]["rotating_frame"]  # the line's figures are this model's
+    assert report["line"]["with_line"]["infidelity"] == rotating["infidelity"]
     assert report["trust"]["lab_frame"] is not None
     # the pictures a gate engineer decides with, all drawn (README, "Output files"): the
     # robust run's sensitivity with its members, the textbook comparison

@@ -83,8 +83,13 @@ def test_sigterm_writes_an_interrupted_report_and_valid_waveform(tmp_path):
     # the waveform is the best so far: re-simulate it independently (Duffing, scipy expm)
     drift, controls = duffing(4, 0.0, -200e6)
     u = expm_product(drift, controls, wave.fractions * 5e6, 1 / 5e9)
-    assert abs((1 - pedersen_fidelity(u[:2, :2], X)) - report["infidelity"]) < 1e-9
-    assert "finished: interrupted" in (out / "run.log").read_text()
+    rotating = report["trust"]["rotating_frame"]  # the model re-simulated here
+    assert abs((1 - pedersen_fidelity(u[:2, :2], X)) - rotating["infidelity"]) < 1e-9
+    assert "finished: the optimiser stopped: interrupted" in (out / "run.log").read_text()
+    # an interrupted run's explanation goes on from where it stopped, in the same folder
+    (reason,) = report["explanation"]
+    assert reason["cause"] == "interrupted" and "--resume" in reason["next"]
+    assert reason["commands"] == [f"shaper optimize {recipe} --out {out} --resume"]
 
 
 def test_damaged_checkpoints_are_detected(tmp_path):

@@ -38,6 +38,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.io.heartbeat import Heartbeat
+
+    with Heartbeat():  # the prediction takes tens of seconds: never silent for long
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
     from shaper.errors import InputError
     from shaper.recipe import load_recipe
 
@@ -69,7 +76,31 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps({"benchmarking": block, "targets": met}))
     else:
         _print_summary(recipe.name, block, met)
+        for text in _next_steps(args, recipe, met):
+            print(text)
     return 0 if all(v["met"] for v in met.values()) else 1
+
+
+def _next_steps(args: argparse.Namespace, recipe, verdicts: dict) -> list[str]:
+    """For every file that misses its targets: the check that says why, as a command."""
+    from shaper.jobs.benchmarking_report import gate_of
+    from shaper.jobs.next_steps import shaper
+
+    out = []
+    for spec in args.files:
+        gate, path = gate_of(spec)
+        if verdicts.get(gate, {}).get("met", True):
+            continue
+        if gate.upper() in (g.upper() for g in recipe.gate_set):
+            command = shaper("check", args.recipe, path, "--gate", gate)
+        elif not recipe.gate_set and recipe.target.label.upper() == gate.upper():
+            command = shaper("check", args.recipe, path)
+        else:
+            out.append(f"next: {gate}: check it with a recipe whose target (or gate set) has "
+                       f"{gate}: shaper check RECIPE {path}")
+            continue
+        out.append(f"next: {gate}: why it misses, and what to run then: `{command}`")
+    return out
 
 
 def _print_summary(name: str, b: dict, verdicts: dict) -> None:

@@ -19,7 +19,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--gate", help="with a gate-set recipe: the gate the waveform plays, "
                                        "e.g. Y/2")
     parser.add_argument("--json", action="store_true", help="print one JSON object only")
-    parser.add_argument("--sample-rate", help="for files without a sidecar, e.g. 2.4GS/s")
+    parser.add_argument("--sample-rate", help="for files without a sidecar or a time_s "
+                                              "column, e.g. 2.4GS/s")
     parser.add_argument("--full-scale", help="for files without a sidecar: the Rabi frequency "
                                              "of full scale 1.0, e.g. 60MHz")
     parser.add_argument("--detuning-span", default="5 MHz",
@@ -34,6 +35,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.io.heartbeat import Heartbeat
+
+    with Heartbeat():  # a long check says what it does (on stderr: --json keeps stdout)
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
     from shaper.recipe import load_recipe
 
     if args.plots:
@@ -47,8 +55,13 @@ def run(args: argparse.Namespace) -> int:
 
     with (Painter() if args.plots else contextlib.nullcontext()) as painter:
         from shaper.jobs.check import check_waveform, write_check_plots
+        from shaper.jobs.next_steps import Where
+
+        where = Where("check", file=args.recipe, waveform=args.waveform,
+                      lab_frame=recipe.optimizer.lab_frame)
         verdict, curves = check_waveform(recipe, wave, detuning_span_hz=args.span_hz,
-                                         scale_span=args.scale_span)
+                                         scale_span=args.scale_span, where=where,
+                                         progress=_say)
         verdict["waveform"] = str(args.waveform)
         if painter is not None:
             write_check_plots(Path(args.plots), verdict, curves, draw=painter.draw)
@@ -60,6 +73,11 @@ def run(args: argparse.Namespace) -> int:
     else:
         _print_summary(verdict)
     return 0 if verdict["pass"] else 1
+
+
+def _say(text: str) -> None:
+    """A long check's progress (each lab-frame run), on stderr: stdout keeps the result."""
+    print(f"shaper check: {text}", file=sys.stderr, flush=True)
 
 
 MAX_RATE_HZ = 1e12  # a sample rate or full scale above a terahertz is a unit slip
@@ -182,9 +200,10 @@ def _print_summary(v: dict) -> None:
     s = v["sensitivity"]
     print(f"{v['waveform']} on {v['recipe']} ({'x'.join(map(str, v['levels']))} levels, "
           f"{v['samples']} samples)")
-    trust = v.get("trust") or v
-    print(f"  infidelity {trust['infidelity']:.3e}   leakage {trust['leakage']:.3e}   "
-          f"max population outside the qubit levels {v['max_population_outside_qubit_levels']:.3e}")
+    print(f"  judged: infidelity {v['infidelity']:.3e}   leakage {v['leakage']:.3e}   "
+          f"({v.get('judged_on', 'rotating frame')})")
+    print(f"  max population outside the qubit levels during the pulse "
+          f"{v['max_population_outside_qubit_levels']:.3e} (rotating frame)")
     from shaper.cli.text import line_summary, trust_summary
     for text in trust_summary(v.get("trust")):
         print(text)

@@ -30,24 +30,58 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
+def _status(args: argparse.Namespace) -> str:
+    """What the chip is at, from its chip.json (written as each task and unit finishes):
+    tasks recorded, units still running."""
+    import json
+
+    folder = getattr(args, "folder", None)
+    try:
+        state = json.loads((folder / "chip.json").read_text()) if folder else None
+    except (OSError, ValueError):
+        return ""
+    if not isinstance(state, dict):
+        return ""
+    from shaper.jobs.chip import UNIT_WORDS
+
+    running = [f"{UNIT_WORDS[kind]} {key}" for kind in UNIT_WORDS
+               for key, unit in (state.get(kind) or {}).items()
+               if isinstance(unit, dict) and unit.get("result") is None]
+    return (f"{len(state.get('tasks') or {})} task(s) recorded in chip.json"
+            + (f"; still running: {', '.join(running)}" if running else ""))
+
+
+def _again(args: argparse.Namespace, *options) -> str:
+    """This chip's command again, on its file and folder, with ``options``."""
+    from shaper.jobs.next_steps import shaper
+
+    folder = getattr(args, "folder", None) or args.out
+    return shaper("chip", args.chip, *(["--out", folder] if folder else []),
+                  *(["--scheduler", args.scheduler] if args.scheduler else []), *options)
+
+
 GRACE_S = 5.0  # a stop signal ends the chip within this even while it computes (summary)
 
 
 def run(args: argparse.Namespace) -> int:
     import time
 
+    from shaper.io.heartbeat import Heartbeat
     from shaper.optimizer.interrupt import Interrupted, stop_on_signals
 
     started = time.monotonic()
-    with stop_on_signals(grace_s=GRACE_S) as stop:  # first: no signal is lost
+    # first: no signal is lost; and no long silence (the chip's state says what runs)
+    with stop_on_signals(grace_s=GRACE_S) as stop, Heartbeat(status=lambda: _status(args)):
         stop.log = lambda text: print(f"shaper chip: interrupted ({text}); the finished "
-                                      f"gates are kept in chip.json: run again with --resume",
+                                      f"gates are kept in chip.json: go on with "
+                                      f"`{_again(args, '--resume')}`",
                                       file=sys.stderr, flush=True)
         try:
             code = _run(args, stop)  # an error is one line (exit 2/3): no time after it
         except Interrupted as exc:
             print(f"shaper chip: {exc}; the workers are stopped and the finished gates kept "
-                  f"in {args.folder / 'chip.json'}: run again with --resume", file=sys.stderr)
+                  f"in {args.folder / 'chip.json'}: go on with `{_again(args, '--resume')}`",
+                  file=sys.stderr)
             return exc.exit_code
     print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
     return stop.exit_code if stop else code
@@ -111,10 +145,17 @@ def _run(args: argparse.Namespace, stop) -> int:
     failing = [f"{r.subject} {r.gate}" for r in rows if not r.met]
     unfinished = len(chip.tasks) - len({(r.subject, r.derived_from or r.gate) for r in rows})
     if unfinished > 0:
-        print(f"{unfinished} task(s) not finished within --hours; run again with --resume")
+        print(f"{unfinished} task(s) not finished within --hours")
+        command = _again(args, "--resume", "--hours", "1")
+        print(f"next: finish them, the finished ones kept: `{command}`")
         return 1
     if failing:
-        print(f"targets NOT met by {len(failing)} gate(s): {', '.join(failing)}")
+        print(f"targets NOT met by {len(failing)} gate(s) (every judged figure: alone and "
+              f"beside the neighbours, rotating and lab frame): {', '.join(failing)}")
+        for r in rows:
+            if not r.met:
+                print(f"{r.subject} {r.gate}: missed {r.missed}"
+                      + (f"; {r.why}" if r.why else ""))
         return 1
-    print(f"targets met by all {len(rows)} gates")
+    print(f"targets met by all {len(rows)} gates (every judged figure)")
     return 0

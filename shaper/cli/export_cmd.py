@@ -17,7 +17,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="lower: (I+iQ) exp(+2 pi i f_IF t), LO at f_d + f_IF (default); "
                              "upper: the opposite")
     parser.add_argument("--granularity", type=int, help="pad to a multiple of this many samples")
-    parser.add_argument("--padding", choices=("after", "before", "centre"))
+    parser.add_argument("--padding", type=_padding, metavar="{after,before,centre}",
+                        help="where the zeros of --granularity go (\"center\" is taken too)")
     parser.add_argument("--clip", action="store_true",
                         help="clip samples over full scale (counted in export.json)")
     parser.add_argument("--predistort", action="store_true",
@@ -37,7 +38,25 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "replaces; the replaced files are kept as *.replaced-N.*")
 
 
+def _padding(text: str) -> str:
+    """``--padding``: ours is "centre"; "center" means the same."""
+    from shaper.recipe.instrument import PADDINGS, padding_word
+
+    word = padding_word(text)
+    if word not in PADDINGS:
+        raise argparse.ArgumentTypeError(f"expected one of {', '.join(PADDINGS)}, got "
+                                         f"{text!r}")
+    return word
+
+
 def run(args: argparse.Namespace) -> int:
+    from shaper.io.heartbeat import Heartbeat
+
+    with Heartbeat():  # judging the new file says what it does
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
     from shaper.io.runfolder import check_out
 
     check_out(args.out)
@@ -58,10 +77,9 @@ def run(args: argparse.Namespace) -> int:
     print(f"exported {report['samples']} samples at {report['sample_rate_hz'] / 1e9:g} GS/s "
           f"({report['resampling']}), {report['dac_bits']}-bit, IF "
           f"{report['if_frequency_hz'] / 1e6:g} MHz: {', '.join(report['files'])} in {args.out}")
-    trust = report.get("trust") or report
-    print(f"  as played: infidelity {trust['infidelity']:.3e}, leakage {trust['leakage']:.3e}"
-          f" (the run at its own rate, rotating frame: {run_fig['infidelity']:.3e}, "
-          f"{run_fig['leakage']:.3e})")
+    print(f"  as played, judged: infidelity {report['infidelity']:.3e}, leakage "
+          f"{report['leakage']:.3e} ({report['judged_on']}); the run at its own rate, "
+          f"rotating frame: {run_fig['infidelity']:.3e}, {run_fig['leakage']:.3e}")
     from shaper.cli.text import line_summary, trust_summary
     for text in trust_summary(report.get("trust")) + line_summary(report.get("line"),
                                                                   report.get("mixer")):
@@ -70,7 +88,7 @@ def run(args: argparse.Namespace) -> int:
         print(f"  {report['clipped_samples']} sample(s) clipped at full scale")
     print(f"CAUTION: {report['caution']}")
     from shaper.costs.verdict import summary
-    print(summary(report["targets"]))
+    print(summary(report["targets"]) + f" (judged on {report['judged_on']})")
     from shaper.cli.text import explanation_lines
     for text in explanation_lines(report):
         print(text)

@@ -33,6 +33,9 @@ COMMANDS = {
 }
 
 
+ALIASES = {"optimize": ["optimise"]}  # other spellings taken; ours is the one printed
+
+
 def _version() -> str:
     try:
         return metadata.version("shaper")
@@ -58,7 +61,8 @@ def build_parser() -> argparse.ArgumentParser:
                         help="show the Python traceback of an error instead of one line")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, (module, help_text) in COMMANDS.items():
-        cmd = sub.add_parser(name, help=help_text, description=help_text)
+        cmd = sub.add_parser(name, help=help_text, description=help_text,
+                             aliases=ALIASES.get(name, []))
         import_module(module).add_arguments(cmd)
     return parser
 
@@ -93,6 +97,8 @@ def main(argv: list[str] | None = None) -> int:
     if not args.command:
         parser.print_help()
         return 2
+    args.command = next((name for name, others in ALIASES.items() if args.command in others),
+                        args.command)  # "optimise" runs, and speaks, as "optimize"
     try:
         return int(import_module(COMMANDS[args.command][0]).run(args) or 0)
     except KeyboardInterrupt:

@@ -56,7 +56,7 @@ class Progress:
 
     def __call__(self, record: dict) -> None:
         terms = " ".join(f"{k[5:]}={v:.2e}" for k, v in record.items() if k.startswith("cost_"))
-        text = (f"best so far: infidelity={record['infidelity']:.3e} "
+        text = (f"best so far in the optimiser's model: infidelity={record['infidelity']:.3e} "
                 f"leakage={record['leakage']:.3e} | weighted cost terms: {terms}")
         self.count += 1
         sparse = self.count <= 10 or self.count % 10 == 0
@@ -76,9 +76,10 @@ class Progress:
 
 
 def run(args: argparse.Namespace) -> int:
+    from shaper.io.heartbeat import Heartbeat
     from shaper.optimizer.interrupt import stop_on_signals
 
-    with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
+    with stop_on_signals() as stop, Heartbeat(quiet=args.quiet):  # no signal lost, no silence
         args.started = time.monotonic()
         return _run(args, stop)
 
@@ -152,34 +153,36 @@ def _run(args: argparse.Namespace, stop) -> int:
 
 
 def _print_summary(recipe, output, command_s: float) -> None:
-    """The last lines of a run: each start, the judged figures, the time, the files."""
+    """The last lines of a run: each start (in the optimiser's model), the judged figures
+    and every model's, the time, the files, the verdict and a miss's explanation."""
     r = output.report
     reason = r["optimizer"]["stop_reason"]
     if len(r["optimizer"]["starts"]) > 1:
-        print("start  seed  infidelity  leakage     iterations  stop")
+        print("start  seed  infidelity  leakage     iterations  stop (the optimiser's own "
+              "figures, in its model)")
         for s in r["optimizer"]["starts"]:
             print(f"{s['index']:5d} {s['seed']:5d}  {s['infidelity']:.3e}   {s['leakage']:.3e}"
                   f"   {s['iterations']:9d}  {s['stop_reason']}")
-    trust = r.get("trust") or r
-    print(f"{recipe.name}: infidelity {trust['infidelity']:.3e}, leakage "
-          f"{trust['leakage']:.3e} (on the exported {r['samples']} samples, "
-          f"{recipe.export.dac_bits}-bit DAC)")
     from shaper.cli.text import (
         coherence_lines,
         explanation_lines,
+        judged_line,
         line_summary,
         trust_summary,
     )
-    for text in (trust_summary(r.get("trust")) + coherence_lines(r.get("open_system"))
+    print(judged_line(recipe.name, r, f" on the exported {r['samples']} samples, "
+                                      f"{recipe.export.dac_bits}-bit DAC,"))
+    for text in (trust_summary(r.get("trust"), r.get("before_quantisation"))
+                 + coherence_lines(r.get("open_system"))
                  + line_summary(r.get("line"), r.get("mixer"))):
         print(text)
-    print(f"stopped: {reason} after {r['optimizer']['iterations']} iterations; optimiser "
-          f"{r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} s); "
-          f"the whole command {command_s:.2f} s (start-up, re-checks, plots included)")
+    print(f"the optimiser stopped: {reason} after {r['optimizer']['iterations']} iterations; "
+          f"optimiser {r['wall_time_s']:.2f} s (compile {r['optimizer']['compile_time_s']:.2f} "
+          f"s); the whole command {command_s:.2f} s (start-up, re-checks, plots included)")
     print("wrote " + ", ".join(p.name for p in output.files) + f" in {output.folder}")
     print(f"CAUTION: {r['caution']}")
     from shaper.costs.verdict import summary
-    print(summary(r["targets"]))
+    print(summary(r["targets"]) + f" (judged on {r.get('judged_on', 'the exported file')})")
     for text in explanation_lines(r):
         print(text)
 

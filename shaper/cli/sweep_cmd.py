@@ -10,6 +10,7 @@ import argparse
 import contextlib
 import os
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 
@@ -34,10 +35,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import time
 
+    from shaper.io.heartbeat import Heartbeat
     from shaper.optimizer.interrupt import stop_on_signals
 
     started = time.monotonic()
-    with stop_on_signals() as stop:  # first: a signal during start-up must not be lost
+    # first: a signal during start-up must not be lost; and no long silence after it
+    with stop_on_signals() as stop, Heartbeat(quiet=args.quiet):
         code = _run(args, stop)  # an error is one line (exit 2/3): no time after it
     print(f"the whole command took {time.monotonic() - started:.1f} s", file=sys.stderr)
     return code
@@ -98,17 +101,27 @@ def _sweep(args: argparse.Namespace, stop, recipe, durations, painter) -> int:
               f", incoherent {point.incoherent_error:.2e})")
     print(f"compiles: {sweep.compiles} for {len(sweep.points)} duration(s) in this session")
     if stop:
-        print(f"interrupted; continue with --resume (finished durations are kept in {folder})")
+        from shaper.jobs.next_steps import Where, again
+        print(f"interrupted; finished durations are kept in {folder}")
+        print("next: go on from where it stopped: `" + again(Where(
+            "sweep", file=args.recipe, out=str(folder), durations=args.durations),
+            "--resume") + "`")
         return stop.exit_code
+    from shaper.jobs.next_steps import Where
+
+    where = Where("sweep", file=args.recipe, out=str(folder), durations=args.durations)
     if shortest is None:
-        return _no_pass(sweep, folder)
+        return _no_pass(sweep, folder, where, echo)
+    echo(f"writing the full result of the shortest duration ({shortest} samples): judged "
+         f"again as the chip plays it, with plots")
     output = finish(sweep.result_at(shortest), folder / "shortest", plots_too=not args.no_plots,
-                    painter=painter)
-    trust = output.report.get("trust") or output.report
+                    painter=painter, say=echo,
+                    where=replace(where, run=str(folder / "shortest")))
+    r = output.report
     print(f"shortest duration meeting the targets: {format_quantity(chosen, 's')} ({shortest} "
-          f"samples); exported: infidelity {trust['infidelity']:.3e}, leakage "
-          f"{trust['leakage']:.3e} ({trust.get('judged_on', 'rotating frame')}; rotating "
-          f"frame {output.report['infidelity']:.3e}); full result in {output.folder}")
+          f"samples); judged infidelity {r['infidelity']:.3e}, leakage {r['leakage']:.3e} "
+          f"({r['judged_on']}; rotating frame {r['trust']['rotating_frame']['infidelity']:.3e})"
+          f"; full result in {output.folder}")
     rotating = sweep.shortest_in_rotating_frame()
     if rotating is not None and rotating < chosen:
         print(f"(in the optimiser's rotating frame alone it would be "
@@ -126,10 +139,12 @@ def _gate_set(args: argparse.Namespace, recipe, stop) -> int:
     from shaper.io.waveio import CAUTION
     from shaper.jobs.chip import gate_set_chip, run_chip
     from shaper.jobs.executors import LocalExecutor
+    from shaper.jobs.next_steps import Where, again
     from shaper.optimizer.interrupt import Interrupted
 
     chip = gate_set_chip(recipe, args.durations)
     folder = Path(args.out) if args.out else Path("results") / f"{recipe.name}-sweep"
+    where = Where("sweep", file=args.recipe, out=str(folder), durations=args.durations)
     atomic.lock_folder(folder)
     executor = LocalExecutor(max(1, min(args.workers or os.cpu_count() or 1, len(chip.tasks))),
                              stop=stop)
@@ -141,7 +156,7 @@ def _gate_set(args: argparse.Namespace, recipe, stop) -> int:
                                                             "deadline")})
     except Interrupted as exc:
         print(f"shaper sweep: {exc}; the workers are stopped and the finished gates kept in "
-              f"{folder}: run again with --resume", file=sys.stderr)
+              f"{folder}: go on with `{again(where, '--resume')}`", file=sys.stderr)
         return exc.exit_code
     finally:
         executor.close()
@@ -151,23 +166,26 @@ def _gate_set(args: argparse.Namespace, recipe, stop) -> int:
     missing = len(chip.tasks) - len({r.derived_from or r.gate for r in rows})
     failing = [r.gate for r in rows if not r.met]
     if missing > 0:
-        print(f"{missing} gate sweep(s) not finished within --hours; run again with --resume")
+        print(f"{missing} gate sweep(s) not finished within --hours")
+        command = again(where, "--resume", "--hours", "1")
+        print(f"next: finish them, the finished ones kept: `{command}`")
         return 1
     print("targets met by every gate" if not failing else
           f"targets NOT met by: {', '.join(failing)}")
     return 0 if not failing else 1
 
 
-def _no_pass(sweep, folder: Path) -> int:
+def _no_pass(sweep, folder: Path, where, echo) -> int:
     """No duration passed: the budget ran out, or the longest missed (why, and what to
-    try, from its report)."""
+    try, from its report: the next steps go on with this sweep, ``where``)."""
     from shaper.jobs.run import finish
     from shaper.recipe.units import format_quantity
 
     if sweep.budget_reached:
+        from shaper.jobs.next_steps import again
         print(f"the --hours budget ran out after {len(sweep.points)} duration(s) without a "
-              f"passing one; continue with --resume (and a budget): finished durations are "
-              f"kept in {folder}")
+              f"passing one; finished durations are kept in {folder}")
+        print(f"next: go on with a new budget: `{again(where, '--resume', '--hours', '1')}`")
         return 1
     longest = sweep.points[max(sweep.points)] if sweep.points else None
     print("targets NOT met at any duration of the sweep"
@@ -176,8 +194,11 @@ def _no_pass(sweep, folder: Path) -> int:
     if longest is not None:  # why the longest missed, and what to try: its report
         from shaper.cli.text import explanation_lines
 
+        echo("judging the longest duration again for its explanation")
         output = finish(sweep.result_at(longest.samples), folder / "longest",
-                        plots_too=False)
+                        plots_too=False, say=echo,
+                        where=replace(where, run=str(folder / "longest"), waveform=str(
+                            folder / "longest" / f"{sweep.recipe.name}.csv")))
         why = explanation_lines(output.report)
         sweep.add_to_summary("Why the longest duration missed, and what to try", why)
         for text in why:

@@ -4,19 +4,28 @@ blocks."""
 from __future__ import annotations
 
 
-def trust_summary(trust: dict | None) -> list[str]:
-    """How the figures change from the optimiser's model to the most faithful one, and
-    which the verdict is judged on (a report's or a check's ``trust`` block)."""
+def trust_summary(trust: dict | None, own: dict | None = None) -> list[str]:
+    """Every model's figures of the file, from the optimiser's to the most faithful, and
+    which the verdict is judged on (a report's or a check's ``trust`` block). ``own``: the
+    optimiser's own figures of its samples (a report's ``before_quantisation``), with the
+    model it used (the recipe's, or after an escalation the last it went on in)."""
     if not trust:
         return []
-    rot = trust["rotating_frame"]
     out = [f"  model: {trust['model']}"] if trust.get("model") else []
-    out += [f"  rotating frame, {'x'.join(map(str, rot['levels']))} levels (the optimiser's "
-           f"model): infidelity {rot['infidelity']:.3e}, leakage {rot['leakage']:.3e}"]
+    if own and own.get("model"):
+        out.append(f"  the optimiser's own figures, {own['model']}, before export: "
+                   f"infidelity {own['infidelity']:.3e}, leakage {own['leakage']:.3e}")
+    rot = trust["rotating_frame"]
+    out.append(f"  rotating frame, {'x'.join(map(str, rot['levels']))} levels (the recipe's "
+               f"levels): infidelity {rot['infidelity']:.3e}, leakage {rot['leakage']:.3e}")
     more = trust.get("more_levels")
     if more:
         out.append(f"  rotating frame, {'x'.join(map(str, more['levels']))} levels: "
                    f"infidelity {more['infidelity']:.3e}, leakage {more['leakage']:.3e}")
+    second = trust.get("second_order")
+    if second:
+        out.append(f"  lab frame to second order (worst carrier phase): infidelity "
+                   f"{second['infidelity']:.3e}, leakage {second['leakage']:.3e}")
     lab = trust.get("lab_frame")
     if lab:
         phases = len(lab["phases_rad"])
@@ -24,6 +33,10 @@ def trust_summary(trust: dict | None) -> list[str]:
         out.append(f"  lab frame, no rotating-wave approximation, "
                    f"{'x'.join(map(str, lab['levels']))} levels: infidelity "
                    f"{lab['infidelity']:.3e}, leakage {lab['leakage']:.3e}{spread}")
+    stairs = trust.get("staircase")
+    if stairs:
+        out.append(f"  the same file from an instrument with no output filter (a bound): "
+                   f"infidelity {stairs['infidelity']:.3e}, leakage {stairs['leakage']:.3e}")
     out.append(f"  judged on: {trust['judged_on']}")
     return out
 
@@ -57,6 +70,12 @@ def explanation_lines(report: dict) -> list[str]:
     return out
 
 
+def judged_line(name: str, report: dict, what: str = "") -> str:
+    """The headline of a judged file: its judged figures and what they are."""
+    return (f"{name}: judged infidelity {report['infidelity']:.3e}, leakage "
+            f"{report['leakage']:.3e}{what} ({report.get('judged_on') or 'as exported'})")
+
+
 def coherence_lines(open_system: dict | None) -> list[str]:
     """With T1/T2 given: the coherence times and the error budget (the pulse's own error
     and what decay and dephasing add), as a report's ``open_system`` holds them."""
@@ -66,7 +85,12 @@ def coherence_lines(open_system: dict | None) -> list[str]:
         f"{q}: " + " ".join(f"{k[:2].upper()} {v * 1e6:g} us" for k, v in t.items()
                             if v is not None)
         for q, t in (open_system.get("coherence_times") or {}).items())
+    over = open_system.get("over")
+    span = "" if not over else (
+        f" over the footprint, {over['footprint_s'] * 1e9:.4g} ns: the file's "
+        f"{over['file_s'] * 1e9:.4g} ns (its padding included) and the output's "
+        f"{over['ring_down_s'] * 1e9:.4g} ns ring-down")
     return [f"  with decoherence: infidelity {open_system['infidelity']:.3e} = coherent "
             f"{open_system['coherent_error']:.3e} (the pulse) + incoherent "
-            f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}); "
-            f"leakage {open_system['leakage']:.3e}"]
+            f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}"
+            f"{span}); leakage {open_system['leakage']:.3e}"]

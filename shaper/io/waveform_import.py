@@ -87,20 +87,52 @@ def read_any(path: str | Path, system: System, *, sample_rate_hz: float | None =
                             f"({', '.join(names)}), got shape {data.shape}")
     _check_values(path, data)
     rate = sample_rate_hz or meta_rate
+    if rate is None and times is not None and len(times) > 1:
+        rate = rate_of_times(path, times)  # a time column says the rate itself
     scale = full_scale_hz if full_scale_hz is not None else meta_scale
     if rate is None:
-        raise WaveformError(f"{path}: the file does not give its sample rate; pass "
-                            f"--sample-rate (e.g. 2.4GS/s)")
+        raise WaveformError(f"{path}: the file does not give its sample rate (no sidecar, no "
+                            f"time_s column); pass --sample-rate (e.g. 2.4GS/s)")
     if scale is None:
         raise WaveformError(f"{path}: the file does not give its full scale; pass "
                             f"--full-scale (the Rabi frequency of 1.0, e.g. 60MHz)")
-    if times is not None and len(times) > 1 and not np.allclose(np.diff(times), 1 / rate,
-                                                                  rtol=1e-6, atol=0):
+    if times is not None and len(times) > 1 and not on_grid(times, rate):
         raise WaveformError(f"{path}: time steps are uneven or do not match the sample rate "
                             f"{rate} Hz")
     full = scale if isinstance(scale, dict) else {c.name: float(scale) for c in system.channels}
     return Waveform(fractions=_order(path, names, data, system), sample_rate_hz=float(rate),
                     full_scale_hz=full, column_names=system.control_names)
+
+
+GRID_TOLERANCE = 1e-3  # of a sample period: what printed times may be off by (a DAC's
+# clock is far better; a time column written with 7 digits is off by about 1e-5 of one)
+
+
+def on_grid(times: np.ndarray, rate: float) -> bool:
+    """Whether ``times`` are the first one plus whole sample periods at ``rate``, each
+    within :data:`GRID_TOLERANCE` of a period (the precision a CSV prints them with)."""
+    times = np.asarray(times, float)
+    grid = times[0] + np.arange(len(times)) / rate
+    return bool(np.all(np.isfinite(times))
+                and np.max(np.abs(times - grid)) <= GRID_TOLERANCE / rate)
+
+
+def rate_of_times(path: Path, times: np.ndarray) -> float:
+    """The sample rate a ``time_s`` column gives: its samples over its span, rounded to 7
+    significant digits where the times allow it (a rate written as times of a few digits
+    comes back as the round number it was).
+
+    Raises:
+        WaveformError: times that do not increase by one period per row.
+    """
+    times = np.asarray(times, float)
+    span = float(times[-1]) - float(times[0])
+    rate = (len(times) - 1) / span if span > 0 else 0.0
+    if not rate > 0 or not on_grid(times, rate):
+        raise WaveformError(f"{path}: time steps are uneven (the time_s column must increase "
+                            f"by one sample period per row)")
+    rounded = float(f"{rate:.7g}")
+    return rounded if on_grid(times, rounded) else rate
 
 
 def _read_plain(path: Path, system: System, max_rows: int, why: str):

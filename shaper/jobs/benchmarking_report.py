@@ -12,7 +12,7 @@ of the markdown summary; :func:`page_section` is the chip page's.
 
 Two-qubit RB plays every map on the chip's own levels (the verdict's ``extra_levels``
 left out): on the verdict's 6 x 6 levels a pair's T1/T2 map is built from a 1296 x 1296
-superoperator per slice (a Wren-5 CZ: about 350 GB; on 4 x 4 levels 14 GB,
+superoperator per slice (a ring-5 CZ: about 350 GB; on 4 x 4 levels 14 GB,
 :func:`shaper.jobs.benchmarking.check_memory`), and the sampled sequences would cost 20
 times more.
 """

@@ -26,6 +26,7 @@ from shaper.errors import ResultError
 from shaper.io import atomic
 from shaper.jobs.executors import DaskExecutor, LocalExecutor  # noqa: F401 (their old home)
 from shaper.jobs.gateset import GateRow, describe, write_table
+from shaper.jobs.next_steps import task_where
 from shaper.recipe.chip import Chip, Task
 
 
@@ -72,11 +73,12 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
         return {"rows": None, "compiles": sweep.compiles, "wall_time_s":
                 time.monotonic() - started}
     n = shortest if shortest is not None else max(sweep.points)
-    output = finish(sweep.result_at(n), folder / "shortest", plots_too=False)
+    where = task_where(task, root, folder / "shortest")  # a miss's next steps: the chip's
+    output = finish(sweep.result_at(n), folder / "shortest", plots_too=False, where=where)
     result = output.result
     rows = [optimised_row(result.recipe, output.report, folder / "shortest", root_path)]
     for label, phase in task.derived:
-        row = derive(result.recipe, result.samples, label, phase, folder / "derived")
+        row = derive(result.recipe, result.samples, label, phase, folder / "derived", where)
         row.waveform = str((folder / "derived" / Path(row.waveform).name).relative_to(
             root_path))
         rows.append(row)
@@ -85,7 +87,7 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
     if task.near is not None or task.alone is not None:  # the chip's heaviest physics, here
         from shaper.jobs.chip_pairs import with_neighbours
         for row in rows:
-            with_neighbours(task, row, root_path)
+            with_neighbours(task, row, root_path, where)
     return {"rows": [asdict(r) for r in rows], "compiles": sweep.compiles,
             "wall_time_s": time.monotonic() - started}
 
@@ -369,7 +371,8 @@ def gate_set_chip(recipe, durations: str) -> Chip:
     for parent, derived in plan(recipe.gate_set, qubits):
         raw = _absolute_files(for_gate(recipe, parent).raw, recipe.path)
         tasks.append(Task(slug(parent), subject, parent, tuple(derived), raw, durations,
-                          "--durations"))
+                          "--durations", where={"command": "sweep",
+                                                "file": recipe.path or "RECIPE"}))
     return Chip(name=recipe.name, path=recipe.path, sha256=recipe.sha256,
                 qubits=(subject,), pairs=(), tasks=tuple(tasks))
 

@@ -90,23 +90,31 @@ def _playback(raw: dict, row, root: Path, **verdict):
     return Playback(load_recipe(raw), read_waveform(root / row.waveform))
 
 
-def with_neighbours(task, row, root: Path) -> None:
+def with_neighbours(task, row, root: Path, where=None) -> None:
     """Give a single-qubit gate row of ``task`` both figures, alone and with its
     neighbours: its own verdict is one of them, its file played on the task's other
     recipe the other (each the verdict's most faithful figure there), and the lab frame
-    beside its neighbours (:func:`near_lab`). A gate made beside its neighbours that
-    misses there in the lab frame is not met, and says why. Runs in the task's worker
-    (:func:`shaper.jobs.chip.run_task`): the chip's summary only reads the rows."""
+    beside its neighbours (:func:`near_lab`). The figures beside its neighbours, rotating
+    and lab frame, are judged figures in either ``[gates] neighbours`` mode (with the
+    alone verdict when it was optimised alone): the row's ``infidelity`` and ``leakage``
+    become the worst of them, ``judged_on`` says which, and a miss among them is a miss
+    (:func:`judge_beside`). Runs in the task's worker (:func:`shaper.jobs.chip.run_task`):
+    the chip's summary only reads the rows. ``where``: where a miss's next steps run."""
     found = played_elsewhere(task, row, root)
     if found is None:
         return
-    where, playback = found
-    infidelity, leakage, _ = playback.trusted()
-    if where == "near":
+    where_played, playback = found
+    infidelity, leakage, basis = playback.trusted()
+    own = {"infidelity": row.infidelity, "leakage": row.leakage, "basis": row.judged_on}
+    if where_played == "near":  # optimised alone: its own verdict is the alone figure
+        row.alone_infidelity, row.alone_leakage = row.infidelity, row.leakage
         row.neighbours_infidelity, row.neighbours_leakage = infidelity, leakage
-    else:
+        near_rotating = {"infidelity": infidelity, "leakage": leakage, "basis": basis}
+        idle = playback.idle
+    else:  # optimised beside them: its own verdict is there, alone is for information
         row.neighbours_infidelity, row.neighbours_leakage = row.infidelity, row.leakage
         row.alone_infidelity, row.alone_leakage = infidelity, leakage
+        near_rotating, idle = own, None
         budget = playback.open_system  # T1/T2 of the qubit alone (closed neighbourhood)
         if budget is not None:
             row.coherent_error = budget["coherent_error"]
@@ -114,8 +122,15 @@ def with_neighbours(task, row, root: Path) -> None:
     near = near_lab(task, row, root)
     lab = near.lab
     row.neighbours_lab_infidelity, row.neighbours_lab_leakage = lab.infidelity, lab.leakage
-    if where == "alone":
-        _judge_lab(row, near)
+    judged = ([("alone", own)] if where_played == "near" else []) + [
+        ("beside its neighbours, " + near_rotating["basis"], near_rotating),
+        ("beside its neighbours, " + near.trusted()[2],
+         {"infidelity": lab.infidelity, "leakage": lab.leakage})]
+    judge_beside(row, near.recipe, judged, {
+        "mode": "check" if where_played == "near" else "optimise",
+        "rotating": {k: near_rotating[k] for k in ("infidelity", "leakage")},
+        "lab_frame": {"infidelity": lab.infidelity, "leakage": lab.leakage},
+        "idle": idle}, where)
 
 
 def near_lab(task, row, root: Path):
@@ -127,21 +142,35 @@ def near_lab(task, row, root: Path):
     return _playback(raw, row, root, lab_frame="on", extra_levels=0)
 
 
-def _judge_lab(row, near) -> None:
-    """A gate made beside its neighbours judged again on its lab-frame figure there."""
+def judge_beside(row, recipe, judged: list, beside: dict, where=None) -> None:
+    """A single-qubit chip gate judged on every figure it has (``judged``: ``(what,
+    {"infidelity", "leakage"})``, ``what`` its model in words): the row's figures become
+    the worst of them (``judged_on`` names where each comes from), and any figure over a
+    target is a miss, said in ``missed`` with the model and explained in ``why`` from the
+    ``beside`` block (:func:`shaper.jobs.explain.explain`)."""
     from shaper.jobs.explain import explain
 
-    recipe, lab = near.recipe, near.lab
     limits = (recipe.optimizer.target_infidelity, recipe.optimizer.target_leakage)
-    missed = [{"name": name, "value": value, "limit": limit} for name, value, limit in
-              (("infidelity", lab.infidelity, limits[0]), ("leakage", lab.leakage, limits[1]))
-              if value > limit]
-    if not missed or not row.met:
+    worst_i = max(judged, key=lambda item: item[1]["infidelity"])
+    worst_l = max(judged, key=lambda item: item[1]["leakage"])
+    row.infidelity, row.leakage = worst_i[1]["infidelity"], worst_l[1]["leakage"]
+    row.judged_on = (f"infidelity {worst_i[0]}; leakage {worst_l[0]}"
+                     if worst_i[0] != worst_l[0] else worst_i[0])
+    missed = [f"{name} {what}" for what, fig in judged
+              for name, limit in zip(("infidelity", "leakage"), limits, strict=True)
+              if fig[name] > limit]
+    if not missed:
         return
-    rotating = {"infidelity": row.infidelity, "leakage": row.leakage}
     report = {"targets": {"met": False, "infidelity": limits[0], "leakage": limits[1],
-                          "missed": missed}, **rotating, "duration_s": row.duration_s,
-              "trust": {"rotating_frame": rotating, "lab_frame": lab.figures()}}
+                          "missed": []}, "infidelity": row.infidelity,
+              "leakage": row.leakage, "duration_s": row.duration_s,
+              "beside_neighbours": beside,
+              "trust": {"rotating_frame": beside["rotating"], "idle": beside["idle"],
+                        "infidelity": row.infidelity, "leakage": row.leakage}}
+    alone_missed = not row.met
     row.met = False
-    row.missed = "; ".join(f"{m['name']} beside neighbours, lab frame" for m in missed)
-    row.why = " ".join(r.line() for r in explain(report, recipe=recipe.name))
+    row.missed = "; ".join(([row.missed] if alone_missed and row.missed else [])
+                           + [m for m in missed if not m.startswith(("infidelity alone",
+                                                                     "leakage alone"))])
+    if not alone_missed:  # the alone verdict's explanation stays where it missed alone
+        row.why = " ".join(r.line() for r in explain(report, where=where))

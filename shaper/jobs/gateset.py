@@ -15,13 +15,14 @@ from __future__ import annotations
 
 import csv
 import io
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
 
 from shaper.errors import InputError
 from shaper.io import atomic, writers
+from shaper.jobs.next_steps import Where
 from shaper.physics.targets import DERIVED, plan, slug  # noqa: F401 (part of this job)
 from shaper.recipe import Recipe
 from shaper.recipe import derive as recipes
@@ -61,6 +62,7 @@ class GateRow:
     frame_after_rad: list = field(default_factory=list)
     subject: str = ""  # the qubit or pair (chip runs)
     missed: str = ""
+    judged_on: str = ""  # the model of infidelity and leakage (the worst judged, on a chip)
     # infidelity and leakage are the verdict's (README, "How far the figures are trusted");
     # these are the optimiser's model's: rotating frame, the recipe's levels
     rotating_infidelity: float | None = None
@@ -89,9 +91,9 @@ class GateRow:
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
-           folder: Path) -> GateRow:
+           folder: Path, where: Where | None = None) -> GateRow:
     """Export the parent's pulse turned by the phase as gate ``label`` into ``folder`` and
-    judge it on what the instrument plays."""
+    judge it on what the instrument plays (a miss's next steps for ``where``)."""
     from shaper.jobs.playback import Playback
     from shaper.jobs.waveform import make_waveform
 
@@ -105,43 +107,51 @@ def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
     playback = Playback(recipe, wave)
     played, verdict = playback.nominal, playback.verdict()
-    infidelity, leakage, _ = playback.trusted()
+    infidelity, leakage, basis = playback.trusted()
+    if where is not None:  # its own file, checked as the set's gate it is
+        where = replace(where, waveform=str(files[0]), gate=label)
     return GateRow(gate=label, derived_from=parent.target.label, phase_deg=phase_deg,
                    duration_s=recipe.duration_s, samples=recipe.samples,
-                   infidelity=infidelity, leakage=leakage, met=verdict.met,
+                   infidelity=infidelity, leakage=leakage, met=verdict.met, judged_on=basis,
                    rotating_infidelity=played.infidelity, rotating_leakage=played.leakage,
                    waveform=str(files[0].relative_to(folder.parent)),
                    frame_before_rad=list(played.frame_before_rad or []),
                    frame_after_rad=list(played.frame_after_rad or []),
                    missed="; ".join(m["name"] for m in verdict.as_dict()["missed"]),
-                   why=_why({**played.figures(), "duration_s": recipe.duration_s,
-                             "trust": playback.trust_block(),
+                   why=_why({"infidelity": infidelity, "leakage": leakage,
+                             "duration_s": recipe.duration_s,
+                             "trust": playback.trust_block(), "recipe": {"content": recipe.raw},
                              "targets": {"infidelity": recipe.optimizer.target_infidelity,
                                          "leakage": recipe.optimizer.target_leakage,
-                                         **verdict.as_dict()}}, recipe))
+                                         **verdict.as_dict()}}, recipe, where))
 
 
 def optimised_row(recipe: Recipe, report: dict, folder: Path, root: Path) -> GateRow:
-    """The row of an optimised gate, from its run's report."""
-    trust = report.get("trust") or report
+    """The row of an optimised gate, from its run's report (its explanation already says
+    what to run next where the run was made)."""
+    rotating = report["trust"]["rotating_frame"]
     return GateRow(gate=recipe.target.label, derived_from="", phase_deg=0.0,
                    duration_s=recipe.duration_s, samples=recipe.samples,
-                   infidelity=trust["infidelity"], leakage=trust["leakage"],
-                   rotating_infidelity=report["infidelity"], rotating_leakage=report["leakage"],
-                   met=report["targets"]["met"],
+                   infidelity=report["infidelity"], leakage=report["leakage"],
+                   judged_on=report.get("judged_on", ""),
+                   rotating_infidelity=rotating["infidelity"],
+                   rotating_leakage=rotating["leakage"], met=report["targets"]["met"],
                    waveform=str((folder / report["waveform"]).relative_to(root)),
                    frame_before_rad=list(report.get("frame_before_rad") or []),
                    frame_after_rad=list(report.get("frame_after_rad") or []),
                    missed="; ".join(m["name"] for m in report["targets"]["missed"]),
-                   why=_why(report, recipe),
+                   why=" ".join(f"why: {r['why']}. next: {r['next']}"
+                                for r in report.get("explanation") or []),
                    coherent_error=(report.get("open_system") or {}).get("coherent_error"),
                    incoherent_error=(report.get("open_system") or {}).get("incoherent_error"))
 
 
-def _why(report: dict, recipe: Recipe) -> str:
-    from shaper.jobs.explain import explain
+def _why(report: dict, recipe: Recipe, where: Where | None = None) -> str:
+    """A missed gate's explanation in one line, its next steps for ``where``."""
+    from shaper.jobs.explain import explain, shortest_duration
 
-    return " ".join(r.line() for r in explain(report, recipe=recipe.path or recipe.name))
+    return " ".join(r.line() for r in explain(report, where=where or Where(
+        file=recipe.path or recipe.name), shortest_s=shortest_duration(recipe)))
 
 
 COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "samples",
@@ -149,7 +159,7 @@ COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "sample
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
            "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity",
            "neighbours_lab_frame_infidelity", "neighbours_lab_frame_leakage", "predicted_epc",
-           "interleaved_error", "interleaved_bound")
+           "interleaved_error", "interleaved_bound", "judged_on")
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -173,19 +183,34 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          _number(r.simultaneous_infidelity),
                          _number(r.neighbours_lab_infidelity),
                          _number(r.neighbours_lab_leakage), _number(r.predicted_epc),
-                         _number(r.interleaved_error), _number(r.interleaved_bound)])
+                         _number(r.interleaved_error), _number(r.interleaved_bound),
+                         r.judged_on])
+    lines = _markdown(rows)
+    csv_path, md_path = folder / f"{name}.csv", folder / f"{name}.md"
+    atomic.write_text(csv_path, text.getvalue())
+    atomic.write_text(md_path, "\n".join(lines) + "\n")
+    return [csv_path, md_path]
+
+
+def _markdown(rows: list[GateRow]) -> list[str]:
+    """The table's Markdown lines: the judged figures first (and, where the rows' models
+    differ, which model each is), every other model's beside them, then why the misses
+    missed."""
     subjects = any(r.subject for r in rows)  # a chip's rows; a gate set's have none
     budget = any(r.incoherent_error is not None for r in rows)
     near = any(r.neighbours_infidelity is not None for r in rows)
     alone = any(r.alone_infidelity is not None for r in rows)
+    models = len({r.judged_on for r in rows}) > 1
     head = (["subject"] if subjects else []) + [
-        "gate", "from", "phase", "duration", "infidelity", "leakage", "met", "rotating frame",
-        "virtual Z before / after (rad)", "file"] + (
+        "gate", "from", "phase", "duration", "infidelity", "leakage", "met"] + (
+        ["judged on"] if models else []) + [
+        "rotating frame", "virtual Z before / after (rad)", "file"] + (
         ["T1/T2: coherent + incoherent error"] if budget else []) + (
         ["with neighbours: infidelity, leakage", "with neighbours, lab frame"]
         if near else []) + (["alone: infidelity, leakage"] if alone else [])
-    lines = ["Infidelity and leakage as judged (README, \"How far the figures are trusted\"); "
-             "the optimiser's rotating frame beside them.", "",
+    lines = ["Infidelity and leakage as judged (the most faithful model; on a chip the worst "
+             "of alone and beside the neighbours: README, \"How far the figures are "
+             "trusted\"); every other model's beside them.", "",
              "| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     for r in rows:
         frames = (" ".join(f"{v:.3f}" for v in r.frame_before_rad) + " / "
@@ -194,32 +219,32 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
         cells = ([r.subject] if subjects else []) + [
             r.gate, r.derived_from or "optimised", f"{r.phase_deg:g}",
             f"{r.duration_s * 1e9:.3f} ns", f"{r.infidelity:.2e}", f"{r.leakage:.2e}",
-            "yes" if r.met else "NO", _number(r.rotating_infidelity, ".2e"), frames,
+            "yes" if r.met else "NO: " + r.missed] + ([r.judged_on] if models else []) + [
+            _number(r.rotating_infidelity, ".2e"), frames,
             f"[{Path(r.waveform).name}]({r.waveform})"] + (
             [f"{r.coherent_error:.2e} + {r.incoherent_error:.2e}"
              if r.incoherent_error is not None else ""] if budget else []) + (
-            [f"{r.neighbours_infidelity:.2e}, {r.neighbours_leakage:.2e}"
-             if r.neighbours_infidelity is not None else "",
-             f"{r.neighbours_lab_infidelity:.2e}, {r.neighbours_lab_leakage:.2e}"
-             if r.neighbours_lab_infidelity is not None else ""] if near else []) + (
-            [f"{r.alone_infidelity:.2e}, {r.alone_leakage:.2e}"
-             if r.alone_infidelity is not None else ""] if alone else [])
+            [_pair(r.neighbours_infidelity, r.neighbours_leakage),
+             _pair(r.neighbours_lab_infidelity, r.neighbours_lab_leakage)] if near else []) + (
+            [_pair(r.alone_infidelity, r.alone_leakage)] if alone else [])
         lines.append("| " + " | ".join(cells) + " |")
     failing = [r for r in rows if not r.met and r.why]
     if failing:
         lines += ["", "Why the misses missed, and what to try:", ""]
         lines += [f"- {r.subject + ' ' if r.subject else ''}{r.gate}: {r.why}" for r in failing]
-    csv_path, md_path = folder / f"{name}.csv", folder / f"{name}.md"
-    atomic.write_text(csv_path, text.getvalue())
-    atomic.write_text(md_path, "\n".join(lines) + "\n")
-    return [csv_path, md_path]
+    return lines
+
+
+def _pair(infidelity: float | None, leakage: float | None) -> str:
+    return "" if infidelity is None else f"{infidelity:.2e}, {leakage:.2e}"
 
 
 def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = True,
             options=None, echo=print, painter=None) -> list[GateRow]:
     """Optimise every gate of ``recipe.gate_set`` that must be played (each a run in
     ``out/<gate>``), derive the others, and write ``out/gateset.csv`` and ``.md``.
-    ``painter``: draws every run's plots (:func:`shaper.jobs.run.run`)."""
+    ``painter``: draws every run's plots (:func:`shaper.jobs.run.run`). A miss's next steps
+    are the set's own command (``shaper optimize SET --out OUT``), not a gate's folder."""
     from shaper.jobs.run import run
 
     if not recipe.gate_set:
@@ -230,13 +255,15 @@ def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = Tru
     for parent_label, derived in plan(recipe.gate_set, qubits):
         parent = for_gate(recipe, parent_label)
         folder = out / slug(parent_label)
+        where = Where(file=recipe.path or "RECIPE", out=str(out), run=str(folder),
+                      waveform=str(folder / f"{parent.name}.csv"), gate=parent_label)
         output = run(parent, options, out=folder, force=force, plots_too=plots,
-                     painter=painter)
+                     painter=painter, where=where)
         rows.append(optimised_row(parent, output.report, folder, out))
         echo(describe(rows[-1]))
         for label, phase in derived:
             rows.append(derive(parent, output.result.samples, label, phase,
-                               out / slug(label)))
+                               out / slug(label), where))
             echo(describe(rows[-1]))
     _benchmark(recipe, rows, out, echo=echo, plots=plots,
                draw=painter.draw if painter else None)

@@ -258,8 +258,9 @@ class Playback:
     @cached_property
     def open_system(self) -> dict | None:
         """The error budget on the open system (README, "Decoherence"): channel infidelity
-        and leakage, coherent and incoherent error. None without coherence times or for a
-        state target."""
+        and leakage, coherent and incoherent error, over the file's whole footprint (the
+        file as written, its padding included, and the output's ring-down after it:
+        ``over``). None without coherence times or for a state target."""
         recipe = self.recipe
         if not recipe.system.collapse or not recipe.target.is_gate:
             return None
@@ -268,7 +269,12 @@ class Playback:
         result = simulate_open(recipe.system, recipe.target, self.chain(self.samples),
                                self.chain.dt_s, virtual_z=recipe.virtual_z,
                                closed=self.nominal)
-        return {**result.figures(), "coherence_times": recipe.system.coherence}
+        output = self.output_block()
+        return {**result.figures(), "coherence_times": recipe.system.coherence,
+                "over": {"file_s": output["file_s"], "ring_down_s": output["ring_down_s"],
+                         "footprint_s": output["footprint_s"],
+                         "what": "T1/T2 act over the file as written (its padding included) "
+                                 "and the output's ring-down after it"}}
 
     def intended(self) -> np.ndarray:
         """The samples (Hz) the file means the chip to see, averaged per sample: its own,

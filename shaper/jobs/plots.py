@@ -2,7 +2,7 @@
 
 Figures are drawn with matplotlib's object interface on its Agg canvas: no screen is
 needed and the caller's pyplot backend (a notebook's) is left alone. Each function
-writes one file; ``title`` (the run, the gate and its exported figures) heads each plot.
+writes one file; ``title`` (the run, the gate and its judged figures) heads each plot.
 """
 
 from __future__ import annotations
@@ -43,8 +43,9 @@ def _finish(fig, path: Path, title: str | None = None, *, fit: bool = False) -> 
     if fit:
         fig.tight_layout()
     else:
+        lines = title.count("\n") + 1 if title else 1  # room for each line of the title
         fig.subplots_adjust(left=0.8 / width, right=1 - 0.15 / width, bottom=0.5 / height,
-                            top=1 - 0.55 / height, wspace=0.3)
+                            top=1 - (0.4 + 0.15 * lines) / height, wspace=0.3)
     fig.savefig(path, dpi=110)
 
 
@@ -171,7 +172,7 @@ def plot_convergence(path: Path, history: list[dict], title: str | None = None,
     ax.set_xlabel("iteration")
     ax.set_ylabel("value of the best point so far")
     _integer_ticks(ax.xaxis)
-    ax.set_title("Convergence (optimiser's figures)", fontsize=9)
+    ax.set_title("Convergence (the optimiser's own figures, in its model)", fontsize=9)
     ax.legend(fontsize=8)
     _finish(fig, path, title)
 

@@ -42,7 +42,7 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
             optimised with the line in the loop, ``out`` naming a file.
         ResultError: ``out`` holds files this export would replace, without ``force``.
     """
-    recipe, samples, _, _ = load_run(run_path)
+    recipe, samples, run_report, _ = load_run(run_path)
     _check_predistort(recipe, predistort)
     rate = _checked_rate(recipe, sample_rate_hz)
     settings = _settings(recipe, bits=bits, if_hz=if_hz, sideband=sideband,
@@ -66,8 +66,14 @@ def reexport(run_path, *, out, sample_rate_hz=None, bits=None, if_hz=None, sideb
     writer()
     files = writers.write_waveform(out, recipe.name, wave, recipe.system, recipe_name=recipe.name,
                                   recipe_sha256=recipe.sha256, format=format)
+    from shaper.jobs.next_steps import Where
+
+    where = Where("export", file=str(run_report["recipe"].get("path") or "RECIPE"),
+                  out=str(out), run=str(run_path), waveform=str(out / files[0].name),
+                  lab_frame=recipe.optimizer.lab_frame)
     report = export_report(playback, files, original, samples, settings, rate,
-                           method=method, clipped=clipped, source=run_path, recipe=recipe)
+                           method=method, clipped=clipped, source=run_path, recipe=recipe,
+                           where=where)
     atomic.write_json(out / "export.json", report)
     return report
 
@@ -97,6 +103,11 @@ def _checked_rate(recipe, rate) -> float:
 
 def _settings(recipe, *, bits, if_hz, sideband, granularity, padding, clip, codes):
     """The recipe's export settings with the options given, each checked and named."""
+    from shaper.recipe.instrument import PADDINGS, padding_word
+
+    padding = padding_word(padding)
+    if padding is not None and padding not in PADDINGS:
+        raise InputError(f"--padding must be one of {', '.join(PADDINGS)}, got {padding!r}")
     if bits is not None and not (isinstance(bits, int) and 2 <= bits <= 32):
         raise InputError(f"--bits must be a whole number from 2 to 32, got {bits!r}")
     if granularity is not None and not (isinstance(granularity, int)

@@ -15,7 +15,8 @@ import numpy as np
 
 from shaper.errors import RecipeError, ResultError
 from shaper.io import atomic, waveio
-from shaper.jobs.explain import explain, speed_limit
+from shaper.jobs.explain import explain, shortest_duration, speed_limit
+from shaper.jobs.next_steps import Where
 from shaper.jobs.playback import Playback, system_model
 from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.starts import Result
@@ -34,15 +35,58 @@ def versions() -> dict[str, str]:
     return out
 
 
+def headline(playback: Playback) -> dict:
+    """The figures a report, an export or a check leads with: the judged ones (the most
+    faithful model, :meth:`Playback.trusted`, the one the verdict uses) and what they are
+    (``judged_on``); the frame updates are the rotating frame's (what a lab applies). Every
+    other model's figures stay in ``trust`` (README, "Output files")."""
+    infidelity, leakage, basis = playback.trusted()
+    rotating = playback.nominal.figures()
+    return {"fidelity": 1.0 - infidelity, "infidelity": infidelity, "leakage": leakage,
+            "judged_on": basis, "frame_before_rad": rotating["frame_before_rad"],
+            "frame_after_rad": rotating["frame_after_rad"]}
+
+
+LAB_WORDS = {"off": "the rotating frame",
+             "corrected": "the lab frame to second order (worst of its carrier phases by a "
+                          "smooth maximum)",
+             "exact": "the exact lab frame (worst of the verdict's carrier phases by a smooth "
+                      "maximum)"}
+
+
+def optimiser_model(recipe: Recipe, escalation: list | None = None) -> dict:
+    """The model the optimiser's own figures are in: the recipe's (its levels, its
+    ``optimizer.lab_frame``), or after an escalation the model it last used."""
+    levels, mode, how = list(recipe.system.dims), recipe.optimizer.lab_frame, "the recipe's"
+    if escalation:
+        last = escalation[-1]
+        levels, mode = list(last["levels"]), last["lab_frame"]
+        how = f"after escalation, the last it used: {last['model']}"
+    return {"levels": levels, "lab_frame": mode,
+            "model": f"{LAB_WORDS.get(mode, mode)}, {'x'.join(map(str, levels))} levels "
+                     f"({how})"}
+
+
 def build_report(result: Result, playback: Playback, internal: Simulation, clipped: int,
-                 csv_name: str) -> dict:
+                 csv_name: str, *, escalation: list | None = None, where=None) -> dict:
+    """``report.json`` of a run: the judged figures first (:func:`headline`), every model's
+    in ``trust``, the optimiser's own in ``before_quantisation`` (in its model, said
+    there), and the explanation of a miss with next steps for ``where``
+    (:class:`shaper.jobs.explain.Where`)."""
     recipe, best, o = result.recipe, result.best, result.recipe.optimizer
-    waveform, exported = playback.wave, playback.nominal
+    waveform = playback.wave
     members = playback.members
     verdict = playback.verdict()
     band = verdict.judged.get("out_of_band")
+    trust = playback.trust_block()
+    trust["rotating_frame"]["unquantised"] = {"infidelity": internal.infidelity,
+                                              "leakage": internal.leakage}
+    own = {"infidelity": best.infidelity, "leakage": best.leakage,
+           **optimiser_model(recipe, escalation),
+           "what": "the optimiser's own figures of its samples, before export, in its own "
+                   "model"}
     report = {
-        **exported.figures(),
+        **headline(playback),
         "waveform": csv_name,
         "sidecar": Path(csv_name).with_suffix(".json").name,
         "targets": {"infidelity": o.target_infidelity, "leakage": o.target_leakage,
@@ -53,7 +97,7 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
             "detuning_hz": np.asarray(recipe.ensemble_detunings_hz)[:, 0].tolist(),
             "amplitude_scale": np.asarray(recipe.ensemble_scales).tolist(),
             "infidelity": members[0], "leakage": members[1]},
-        "trust": playback.trust_block(),
+        "trust": trust,
         "system_model": system_model(recipe.system),
         "open_system": playback.open_system,
         "line": playback.line_block(),
@@ -62,19 +106,11 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
         "bandwidth_cutoff_hz": recipe.bandwidth_hz,
         "peak_fraction_of_full_scale": float(np.max(np.abs(waveform.fractions), initial=0.0)),
         "clipped_samples": clipped,
-        "before_quantisation": internal.figures(),
+        "before_quantisation": own,
         "costs": best.parts,
         "cost_weights": dict(zip(result.objective.names, result.objective.weights.tolist(),
                                  strict=True)),
-        "optimizer": {"method": o.method, "iterations": best.iterations,
-                      "evaluations": best.evaluations, "stop_reason": best.stop_reason,
-                      "stop_detail": best.stop_detail,
-                      "seed": best.seed, "compile_time_s": result.compile_time_s,
-                      "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
-                                  "infidelity": s.infidelity, "leakage": s.leakage,
-                                  "iterations": s.iterations,
-                                  "stop_reason": s.stop_reason, "wall_time_s": s.wall_time_s}
-                                 for s in result.starts]},
+        "optimizer": optimizer_block(result),
         "samples": int(waveform.fractions.shape[0]),
         "pulse_samples": recipe.samples,
         "duration_s": recipe.duration_s,
@@ -86,25 +122,48 @@ def build_report(result: Result, playback: Playback, internal: Simulation, clipp
         "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "caution": waveio.CAUTION,
     }
-    return explained(report, recipe)
+    if escalation:
+        report["escalation"] = escalation
+    return explained(report, recipe, where)
 
 
-def explained(report: dict, recipe: Recipe) -> dict:
-    """The report with ``explanation``: why it missed and what to run next (empty when
-    met; :mod:`shaper.jobs.explain`)."""
-    reasons = explain(report, recipe=recipe.path or recipe.name)
-    bound = speed_limit(recipe) if reasons else None
+def optimizer_block(result: Result) -> dict:
+    """The report's ``optimizer``: how the optimiser ran (its method, its lab-frame model
+    and levels as the recipe set them) and each start, in its own model."""
+    o, best = result.recipe.optimizer, result.best
+    return {"method": o.method, "lab_frame": o.lab_frame,
+            "levels": list(result.recipe.system.dims), "iterations": best.iterations,
+            "evaluations": best.evaluations, "stop_reason": best.stop_reason,
+            "stop_detail": best.stop_detail, "seed": best.seed,
+            "compile_time_s": result.compile_time_s,
+            "starts": [{"index": s.index, "seed": s.seed, "cost": s.cost,
+                        "infidelity": s.infidelity, "leakage": s.leakage,
+                        "iterations": s.iterations, "stop_reason": s.stop_reason,
+                        "wall_time_s": s.wall_time_s} for s in result.starts]}
+
+
+def explained(report: dict, recipe: Recipe, where: Where | None = None) -> dict:
+    """The report with ``explanation``: why it missed and what to run next where the user
+    stands (``where``; default an ``optimize`` of the recipe's file), empty when met
+    (:mod:`shaper.jobs.explain`)."""
+    where = where or Where(file=recipe.path or "RECIPE")
+    reasons = explain(report, where=where, shortest_s=shortest_duration(recipe))
+    bound = speed_limit(recipe, where) if reasons else None
+    if bound is not None:  # out of reach at this duration: more iterations cannot help
+        reasons = [r for r in reasons if r.cause != "budget"] or reasons
     report["explanation"] = [r._asdict() for r in ([bound] if bound else []) + reasons]
     return report
 
 
 def export_report(playback: Playback, files: list, original: Simulation, samples: np.ndarray,
                   settings: ExportSettings, rate: float, *, method: str, clipped: int, source,
-                  recipe: Recipe) -> dict:
-    """``export.json`` of ``shaper export``: what the new file plays, beside the run's own
-    figures at its own rate (``original``)."""
-    played, verdict, wave = playback.nominal, playback.verdict(), playback.wave
-    report = {**played.figures(), "waveform": files[0].name, "files": [f.name for f in files],
+                  recipe: Recipe, where: Where | None = None) -> dict:
+    """``export.json`` of ``shaper export``: what the new file plays (judged first, every
+    model in ``trust``), beside the run's own figures at its own rate (``original``, the
+    rotating frame)."""
+    verdict, wave = playback.verdict(), playback.wave
+    report = {**headline(playback), "waveform": files[0].name,
+              "files": [f.name for f in files],
               "sample_rate_hz": rate, "resampling": method, "samples": wave.fractions.shape[0],
               "dac_bits": settings.dac_bits, "if_frequency_hz": settings.if_frequency_hz,
               "sideband": settings.sideband, "clipped_samples": clipped,
@@ -112,11 +171,13 @@ def export_report(playback: Playback, files: list, original: Simulation, samples
               "trust": playback.trust_block(),
               "line": playback.line_block(),
               "mixer": mixer_figures(playback.recipe, samples, settings, rate),
-              "at_run_rate": original.figures(), "source": str(source),
+              "at_run_rate": {**original.figures(), "model": "the rotating frame, the recipe's "
+                                                                  "levels"},
+              "source": str(source),
               "targets": {"infidelity": recipe.optimizer.target_infidelity,
                           "leakage": recipe.optimizer.target_leakage, **verdict.as_dict()},
               "caution": waveio.CAUTION}
-    return explained(report, recipe)
+    return explained(report, recipe, where)
 
 
 def mixer_figures(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettings,

@@ -20,6 +20,7 @@ from shaper.io.runlog import RunLog
 from shaper.jobs import plots
 from shaper.jobs.baselines import textbook_pulses
 from shaper.jobs.folder import prepare_run_folder
+from shaper.jobs.next_steps import Where
 from shaper.jobs.playback import Playback
 from shaper.jobs.report import build_report
 from shaper.jobs.waveform import check_predistortion, make_waveform
@@ -32,14 +33,22 @@ from shaper.signal.pulses import to_samples
 
 @dataclass
 class RunOutput:
+    """A finished run: the optimiser's result, the report (``report.json``), the folder
+    and the files written; ``met``: whether the exported file meets the recipe's targets
+    as judged (the report's ``targets.met``)."""
+
     result: Result
     report: dict
     folder: Path
     files: list[Path]
 
+    @property
+    def met(self) -> bool:
+        return bool(self.report["targets"]["met"])
+
 
 def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | None = None,
-        force: bool = False, plots_too: bool = True, painter=None,
+        force: bool = False, plots_too: bool = True, painter=None, where: Where | None = None,
         **option_fields) -> RunOutput:
     """Optimise, export and report. Writes into ``out`` (default ``results/<name>``).
 
@@ -49,7 +58,9 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
     best pulse so far and a report with stop reason "interrupted". Its ``watchdog`` is
     beaten after every evaluation and every later stage; :func:`rescue_writer` gives its
     rescue. ``painter`` (a :class:`~shaper.jobs.painter.Painter`) draws the plots in its
-    helper process while the rest of the report is computed.
+    helper process while the rest of the report is computed. ``where``: the command the
+    user ran (:class:`~shaper.jobs.next_steps.Where`), so that a miss's next steps run
+    there; by default ``shaper optimize`` of the recipe's file into ``out``.
     """
     recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else load_recipe(
         recipe_or_path)
@@ -75,7 +86,9 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
         options = options.with_(on_start_done=on_start_done)
     from shaper.jobs.explain import speed_limit
 
-    bound = speed_limit(recipe)  # said before the night, not after it
+    where = where or Where(file=recipe.path or "RECIPE", out=str(folder), run=str(folder),
+                           waveform=str(folder / f"{recipe.name}.csv"))
+    bound = speed_limit(recipe, where)  # said before the night, not after it
     if bound is not None:
         log.line(f"warning: {bound.why}. {bound.next}")
     result = optimize(recipe, options)
@@ -89,11 +102,17 @@ def run(recipe_or_path, options: RunOptions | None = None, *, out: str | Path | 
         deadline=time.monotonic() + (options.time_left_s or recipe.optimizer.max_time_s))
     output = finish(result, folder, plots_too=plots_too, watchdog=options.watchdog,
                     painter=painter, say=log.line, judged=(waveform, playback),
-                    escalation=steps)
-    r = output.report
-    log.line(f"finished: {r['optimizer']['stop_reason']}; infidelity {r['infidelity']:.3e}, "
-             f"leakage {r['leakage']:.3e}; {summary(r['targets'])}", echo=False)
+                    escalation=steps, where=where)
+    log.line(last_line(output.report), echo=False)
     return output
+
+
+def last_line(report: dict) -> str:
+    """run.log's last line: how the optimiser stopped, then the judged figures (what they
+    are) and the verdict on them, the one truth of the run."""
+    return (f"finished: the optimiser stopped: {report['optimizer']['stop_reason']}; judged "
+            f"infidelity {report['infidelity']:.3e}, leakage {report['leakage']:.3e} "
+            f"({report.get('judged_on', '')}); {summary(report['targets'])}")
 
 
 def rescue_writer(folder: Path, watchdog):
@@ -129,7 +148,7 @@ def rescue_writer(folder: Path, watchdog):
 
 def finish(result: Result, folder: Path, *, plots_too: bool = True,
            watchdog=None, painter=None, say=None, judged=None,
-           escalation: list | None = None) -> RunOutput:
+           escalation: list | None = None, where: Where | None = None) -> RunOutput:
     """Export the result's samples, re-check what the AWG plays, write report and plots.
 
     Nothing finished is lost to a later step: the waveform files are written first, the
@@ -139,7 +158,8 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
     ``painter`` the plots are drawn by its helper process while the textbook comparison
     is computed here. ``say(text)``: each phase as it begins (the command's progress).
     ``judged``: the exported waveform and its Playback, if already made
-    (:mod:`shaper.jobs.escalate`); ``escalation``: its steps, for the report.
+    (:mod:`shaper.jobs.escalate`); ``escalation``: its steps, for the report. ``where``:
+    where a miss's next steps must run (:func:`shaper.jobs.report.explained`).
     """
     recipe = result.recipe
     folder.mkdir(parents=True, exist_ok=True)
@@ -154,15 +174,16 @@ def finish(result: Result, folder: Path, *, plots_too: bool = True,
                                       recipe.sample_rate_hz)
     files = writers.write_waveform(folder, recipe.name, waveform, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
-    playback = judged[1] if judged is not None else Playback(recipe, waveform)
+    playback = judged[1] if judged is not None else Playback(recipe, waveform, progress=say)
     stage("re-simulating the exported file (as the chip plays it: more levels, lab frame)")
     unquantised, _ = make_waveform(recipe, result.samples,  # padded as the optimiser saw
                                    replace(recipe.export, dac_bits=None),
                                    recipe.sample_rate_hz)
     internal = Playback(recipe, unquantised).nominal
-    report = build_report(result, playback, internal, clipped, files[0].name)
-    if escalation:
-        report["escalation"] = escalation
+    where = where or Where(file=recipe.path or "RECIPE", out=str(folder), run=str(folder),
+                           waveform=str(folder / files[0].name))
+    report = build_report(result, playback, internal, clipped, files[0].name,
+                          escalation=escalation, where=where)
     atomic.write_json(folder / "report.json", report)
     (folder / "rescue.json").unlink(missing_ok=True)  # the run finished after all
     failed, plotted = _extras(result, folder, playback, report, plots_too, painter, stage)
@@ -190,7 +211,7 @@ def _extras(result: Result, folder: Path, playback: Playback, report: dict, plot
         try:
             history = read_history(folder, result.best.index) or result.history
             plotted = write_plots(folder, recipe, playback.wave, playback.nominal, history,
-                                  draw=draw)
+                                  draw=draw, judged=report)
         except Exception as exc:  # noqa: BLE001
             failed["plots"] = f"{type(exc).__name__}: {exc}"
     if has_ensemble(recipe) and plots_too:  # a robust run shows what it is robust to
@@ -209,9 +230,11 @@ def _extras(result: Result, folder: Path, playback: Playback, report: dict, plot
                                                     result.objective.qubits)
         if plots_too and any(isinstance(v, dict) for v in report["textbook_pulses"].values()):
             o = recipe.optimizer
-            # both in the optimiser's model (rotating frame, the recipe's levels)
+            # like for like: the file and the textbook pulses in the rotating frame on the
+            # recipe's levels (the judged figures are in the title of every other plot)
+            rotating = report["trust"]["rotating_frame"]
             draw(plots.plot_textbook, folder / "textbook.png",
-                 {"infidelity": report["infidelity"], "leakage": report["leakage"]},
+                 {"infidelity": rotating["infidelity"], "leakage": rotating["leakage"]},
                  report["textbook_pulses"], (o.target_infidelity, o.target_leakage),
                  title=f"{recipe.name}: {recipe.target.label}, {recipe.duration_s * 1e9:g} ns")
             plotted.append(folder / "textbook.png")
@@ -221,9 +244,12 @@ def _extras(result: Result, folder: Path, playback: Playback, report: dict, plot
 
 
 def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
-                history, *, dt: float | None = None, draw=None) -> list[Path]:
+                history, *, dt: float | None = None, draw=None,
+                judged: dict | None = None) -> list[Path]:
     """waveform.png, spectrum.png (transitions marked), populations.png, convergence.png,
-    each titled with the run, the gate and the figures of what was simulated.
+    each titled with the run, the gate and the judged figures (``judged``: a report or a
+    check with ``infidelity``, ``leakage`` and ``judged_on``; the populations are those of
+    ``simulation``, the rotating frame).
 
     ``draw(plot, path, *args, **kwargs)`` (a :meth:`Painter.draw
     <shaper.jobs.painter.Painter.draw>`) draws them elsewhere; by default they are drawn
@@ -236,8 +262,8 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     draw = draw or draw_here
     system, dt = recipe.system, dt or recipe.dt
     samples = waveform.to_hz(system)
-    title = (f"{recipe.name}: {recipe.target.label}, infidelity {simulation.infidelity:.2e}, "
-             f"leakage {simulation.leakage:.2e} (as exported)")
+    title = plot_title(recipe, judged or {**simulation.figures(),
+                                          "judged_on": "rotating frame, as exported"})
     names = [folder / n for n in ("waveform.png", "spectrum.png", "populations.png",
                                   "convergence.png")]
     channels = [SimpleNamespace(name=c.name, columns=tuple(c.columns)) for c in system.channels]
@@ -266,6 +292,13 @@ def write_plots(folder: Path, recipe: Recipe, waveform, simulation: Simulation,
     else:
         names = names[:3]
     return names
+
+
+def plot_title(recipe: Recipe, judged: dict) -> str:
+    """A run's plots' title: the run, the gate and its judged figures, with their model."""
+    basis = judged.get("judged_on") or "as exported"
+    return (f"{recipe.name}: {recipe.target.label}, judged infidelity "
+            f"{judged['infidelity']:.2e}, leakage {judged['leakage']:.2e}\n({basis})")
 
 
 def sensitivity_of(playback, *, span_hz: float = 5e6, scale_span: float = 0.05,

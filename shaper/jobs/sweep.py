@@ -82,6 +82,9 @@ class SweepPoint:
     starts: int = 0  # how many starts the point ran (0: the recipe's)
     retried: bool = False  # failed while a longer duration passed: run again, more starts
     escalated: str = ""  # the models the optimiser went on in (jobs.escalate), in order
+    # the optimiser's own figures of its samples, in its own model (the last it used)
+    own_infidelity: float | None = None
+    own_leakage: float | None = None
 
 
 RETRY_STARTS = 4  # at least this many starts when a point is retried
@@ -174,6 +177,9 @@ class Sweep:
         from shaper.jobs.escalate import escalate
 
         recipe = recipe_at(self.recipe, n)
+        if starts is None:  # a retry has said so
+            self.echo(f"{format_quantity(n / recipe.sample_rate_hz, 's'):>10} ({n:4d} "
+                      f"samples): optimising")
         objective = self.objective_for(recipe)
         t0 = time.monotonic()
         work = self.folder / f"duration-{n}"  # checkpoints and history of this duration
@@ -201,7 +207,8 @@ class Sweep:
                            incoherent_error=budget and budget["incoherent_error"],
                            total_error=budget and budget["infidelity"],
                            starts=len(result.starts), retried=starts is not None,
-                           escalated=", ".join(step["model"] for step in steps))
+                           escalated=", ".join(step["model"] for step in steps),
+                           own_infidelity=best.infidelity, own_leakage=best.leakage)
         if not self.stop:  # an interrupted point is not finished: it is redone on resume
             writers.write_waveform(self.folder, f"pulse-{n}", wave, recipe.system,
                                   recipe_name=recipe.name, recipe_sha256=recipe.sha256)
@@ -323,8 +330,10 @@ class Sweep:
         """A :class:`Result` for the finished point at ``n`` samples (for the full report)."""
         recipe = recipe_at(self.recipe, n)
         point, samples = self.points[n], self.pulse(n)
-        best = StartResult(seed=self.seed, params=None, cost=point.infidelity, parts={},
-                           infidelity=point.infidelity, leakage=point.leakage,
+        own = (point.own_infidelity, point.own_leakage) if point.own_infidelity is not None \
+            else (point.rotating_infidelity, point.rotating_leakage)  # an older sweep.json
+        best = StartResult(seed=self.seed, params=None, cost=own[0], parts={},
+                           infidelity=own[0], leakage=own[1],
                            iterations=point.iterations, evaluations=point.iterations,
                            stop_reason=point.stop_reason, wall_time_s=point.wall_time_s)
         return Result(recipe=recipe, objective=self.objective_for(recipe), best=best,

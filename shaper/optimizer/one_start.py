@@ -19,7 +19,7 @@ from shaper.optimizer import checkpoint
 from shaper.optimizer.methods import run_start
 from shaper.optimizer.objective import Objective
 from shaper.optimizer.options import RunOptions
-from shaper.optimizer.tracker import Session, StartResult
+from shaper.optimizer.tracker import Session, StartResult, StopReason
 from shaper.physics._jax import device
 from shaper.recipe import Recipe
 from shaper.signal.pulses import first_guess, rotation_area, to_params
@@ -61,6 +61,10 @@ def checkpoint_path(folder: Path | None, index: int) -> Path | None:
     return None if folder is None else Path(folder) / f"checkpoint-{index}.npz"
 
 
+# stop reasons as earlier versions wrote them into checkpoints
+LEGACY_STOPS = {"targets met": str(StopReason.TARGETS_MET)}
+
+
 def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | None, tuple | None]:
     """A start's state on disk: (its result if it had finished, the resume tuple if not)."""
     if path is None or not (path.exists() or checkpoint.previous(path).exists()):
@@ -79,7 +83,8 @@ def finished_start(path: Path | None, recipe: Recipe) -> tuple[StartResult | Non
         return StartResult(seed=meta["seed"], params=arrays["best_x"], cost=b["cost"],
                            parts=b["parts"], infidelity=b["infidelity"],
                            leakage=b["leakage"], iterations=meta["iteration"],
-                           evaluations=meta["evaluations"], stop_reason=meta["stop_reason"],
+                           evaluations=meta["evaluations"],
+                           stop_reason=LEGACY_STOPS.get(meta["stop_reason"], meta["stop_reason"]),
                            stop_detail=meta.get("stop_detail", ""),
                            wall_time_s=0.0, index=meta["index"],
                            member_infidelities=b.get("member_infidelities"),

@@ -28,7 +28,9 @@ HISTORY_ON_DISK = 4000  # records of one start in history.jsonl before it is thi
 class StopReason(StrEnum):
     """Why a start stopped: a fixed set of plain words (``stop_detail`` says more)."""
 
-    TARGETS_MET = "targets met"
+    # its own figures met the targets (with the margin) in its own model; the file is
+    # judged after that, on the most faithful model (shaper.jobs.playback.Playback.verdict)
+    TARGETS_MET = "met in the optimiser's model"
     ITERATION_LIMIT = "iteration limit"
     TIME_LIMIT = "time limit"
     NO_PROGRESS = "no progress"          # no 0.1 % improvement in stall_iterations

@@ -13,7 +13,7 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from shaper.errors import RecipeError
@@ -57,6 +57,10 @@ class Task:
     # in its neighbourhood (optimised alone); None: no other
     alone: dict | None = None
     near: dict | None = None
+    # where the user ran it ({"command": "chip", "file": the chip file}, or a gate set's
+    # sweep), so that a miss's next step is that command (shaper.jobs.next_steps.Where);
+    # not part of the digest
+    where: dict | None = None
 
     @property
     def alone_recipe(self) -> dict:
@@ -133,6 +137,7 @@ def load_chip(path: str | Path) -> Chip:
     pairs = _pairs(r, raw, specs)
     tasks = _tasks(r, raw, specs, pairs, gates["single"], gates, template,
                    raw.get("coupling", []))
+    tasks = [replace(task, where={"command": "chip", "file": str(path)}) for task in tasks]
     return Chip(name=name, path=str(path), sha256=hashlib.sha256(text).hexdigest(),
                 qubits=tuple(specs), pairs=tuple(pairs), tasks=tuple(tasks),
                 simultaneous=gates["simultaneous"],

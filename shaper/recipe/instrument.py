@@ -8,6 +8,15 @@ from shaper.physics.systems import System
 from shaper.recipe.schema import KEYS, PADDING, ExportSettings, MixerSettings, _Reader
 from shaper.recipe.units import format_quantity
 
+PADDINGS = PADDING  # where the zeros of the granularity go; ours is spelled "centre"
+SPELLINGS = {"center": "centre"}  # the other spelling, taken as ours
+
+
+def padding_word(value):
+    """``export.padding`` or ``--padding`` as we spell it ("center" is "centre"); any
+    other value is returned as it came, for the reader to refuse."""
+    return SPELLINGS.get(value, value) if isinstance(value, str) else value
+
 
 def read_export(r: _Reader, t: dict, system: System, limits: dict[str, float],
             rate: float) -> ExportSettings:
@@ -46,7 +55,8 @@ def read_export(r: _Reader, t: dict, system: System, limits: dict[str, float],
         full_scale_hz=full, dac_bits=bits,
         granularity=r.number(t, "granularity", "export.granularity", 1, integer=True,
                              minimum=1),
-        padding=r.choice(t, "padding", "export.padding", PADDING, "after"),
+        padding=r.choice({"padding": padding_word(t.get("padding", "after"))}, "padding",
+                         "export.padding", PADDING),
         clip=r.flag(t, "clip", "export.clip", False),
         if_frequency_hz=if_hz,
         sideband=r.choice(t, "sideband", "export.sideband", ("lower", "upper"), "lower"),
