@@ -243,3 +243,23 @@ def test_watchdog_limit_follows_the_median_evaluation():
     dog.last -= 4.0
     assert dog.check() and exits == [3]
 
+
+
+def test_a_long_lab_frame_verdict_is_alive_for_the_watchdog():
+    # one exact lab-frame propagation of many chunks is one call for minutes on a long
+    # two-qubit gate: every chunk tells the watchdog the process is computing, not stuck
+    import numpy as np
+
+    from shaper.optimizer.watchdog import Watchdog
+    from shaper.physics.lab_simulation import lab_unitary
+
+    exits = []
+    with Watchdog(limit_s=1.0, factor=100.0, exit=exits.append, poll_s=10.0) as dog:
+        dog.beat()
+        dog.last -= 0.9  # a moment before the limit
+        drift = np.diag([0.0, 1e9])
+        operators = np.array([[[0.0, 1.0], [1.0, 0.0]]])
+        lab_unitary(drift, operators, np.full((5000, 1), 1e7), 1e-12)  # many chunks
+        assert dog.silence_s() < 0.5 and dog.what == "evaluation"
+    assert not exits
+    assert dog.limit() == pytest.approx(1.0)

@@ -26,6 +26,8 @@ import time
 from collections import deque
 from collections.abc import Callable
 
+from shaper.physics.alive import listening
+
 STALLED = 3  # exit code of a run the watchdog stopped (an environment failure)
 DEFAULT_LIMIT_S = 600.0
 DEFAULT_FACTOR = 100.0
@@ -70,6 +72,11 @@ class Watchdog:
             self.durations.append(now - self.last)
         self.evaluated = self.evaluated or what == "evaluation"
         self.last, self.what, self._told = now, what, 0.0
+
+    def alive(self) -> None:
+        """A long computation made progress (:mod:`shaper.physics.alive`): the silence
+        restarts, the phase and the evaluation times stay as they were."""
+        self.last, self._told = time.monotonic(), 0.0
 
     def silence_s(self) -> float:
         """Seconds since the last beat (shown in progress lines)."""
@@ -120,9 +127,12 @@ class Watchdog:
 
     def __enter__(self) -> Watchdog:
         self.last = time.monotonic()
+        self._listening = listening(self.alive)
+        self._listening.__enter__()
         self._thread = threading.Thread(target=self._run, name="shaper-watchdog", daemon=True)
         self._thread.start()
         return self
 
     def __exit__(self, *exc) -> None:
         self._done.set()
+        self._listening.__exit__(None, None, None)

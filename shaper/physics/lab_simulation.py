@@ -12,6 +12,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from shaper.physics.alive import alive
 from shaper.physics._jax import device
 from shaper.physics.figures import gate_figures, state_figures
 from shaper.physics.figures import project as project_subspace
@@ -273,6 +274,7 @@ def lab_unitary(drift: np.ndarray, operators: np.ndarray, samples: np.ndarray,
         padded[:block.shape[0]] = block
         u = np.asarray(_lab_chunk(h0, ops, device(padded, float), device(lengths, float),
                                   degree=degree)) @ u
+        alive()
     return u
 
 
