@@ -62,7 +62,7 @@ def test_bloch_siegert_shift_of_a_strongly_driven_two_level_system():
     deltas = np.linspace(-60e6, 60e6, 7)
     splitting2 = []
     for delta in deltas:
-        system = transmon(2, f_q, 0.0, drive_frequency_hz=f_q - delta)
+        system = transmon(2, f_q, 0.0, drive_frequency_hz=f_q - delta, spectrum="duffing")
         period = 1 / (2 * (f_q - delta))
         u = _frame_unitary(system, lambda t: np.tile([omega, 0.0], (t.size, 1)), period, 1,
                            0.0, points=400)

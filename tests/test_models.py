@@ -10,7 +10,7 @@ from shaper.physics.transmons import TransmonSpec, coupled_transmons, transmon
 
 def test_transmon_matches_duffing_model_by_hand():
     # Koch et al., Phys. Rev. A 76, 042319 (2007), Duffing form, drive frame (README, "Conventions")
-    s = transmon(5, 5.1e9, -220e6, drive_frequency_hz=5.097e9)
+    s = transmon(5, 5.1e9, -220e6, drive_frequency_hz=5.097e9, spectrum="duffing")
     drift, controls = duffing(5, 3e6, -220e6)
     assert np.allclose(s.drift, drift, atol=1e-6)
     assert np.allclose(s.controls, controls, atol=1e-15)
@@ -20,7 +20,7 @@ def test_transmon_matches_duffing_model_by_hand():
 
 def test_two_level_controls_are_pauli_halves():
     # common practice, no source: on two levels (a + a^dag)/2 = X/2 and i(a^dag - a)/2 = Y/2
-    s = transmon(2, 5e9, -200e6)
+    s = transmon(2, 5e9, -200e6, spectrum="duffing")
     assert np.allclose(s.controls[0], gate("X").unitary / 2)
     assert np.allclose(s.controls[1], gate("Y").unitary / 2)
 

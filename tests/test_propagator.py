@@ -205,3 +205,19 @@ def test_bench_rows_a_user_feels_run_whole_commands(tmp_path):
     assert [r["command"] for r in startup] == ["optimize (cold cache)", "optimize (warm cache)"]
     for r in startup:
         assert r["ratio"] == pytest.approx(r["seconds"] / r["floor_s"])
+
+
+@pytest.mark.parametrize("size", [0.01, 0.5, 3.0, 15.0])
+def test_taylor_exponential_matches_scipy_expm(size):
+    # the lab frame's kicks are exponentiated without LAPACK (one eigendecomposition per
+    # program); reference: scipy.linalg.expm (Al-Mohy and Higham, 2009)
+    import scipy.linalg
+
+    from shaper.physics.propagator import taylor_exponential
+
+    rng = np.random.default_rng(7)
+    a = rng.normal(size=(5, 5)) + 1j * rng.normal(size=(5, 5))
+    h = a + a.conj().T
+    h *= size / np.linalg.norm(2 * np.pi * h, 2)
+    got = np.asarray(taylor_exponential(h))
+    assert np.abs(got - scipy.linalg.expm(-2j * np.pi * h)).max() < 1e-13

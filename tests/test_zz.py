@@ -45,9 +45,11 @@ def test_the_chip_model_gives_the_zz_of_its_own_hamiltonian():
     # coupled_transmons keeps the coupling's counter-rotating terms (charge coupling):
     # the same ZZ as the full Hamiltonian built here independently, to numerical precision,
     # and within a few % of the exchange-only (RWA) value
-    specs = [TransmonSpec(name="qa", levels=4, qubit_frequency_hz=5.0e9, anharmonicity_hz=-220e6),
+    # (the Duffing ladder, as the reference written out here)
+    specs = [TransmonSpec(name="qa", levels=4, qubit_frequency_hz=5.0e9, anharmonicity_hz=-220e6,
+                          spectrum="duffing"),
              TransmonSpec(name="qb", levels=4, qubit_frequency_hz=5.3e9,
-                          anharmonicity_hz=-210e6)]
+                          anharmonicity_hz=-210e6, spectrum="duffing")]
     system = coupled_transmons(specs, [("qa", "qb", 6e6)])
     ours = static_zz(system.lab.static, system.dims)
     full = static_zz(duffing_pair(4, 5.0e9, 5.3e9, -220e6, -210e6, 6e6, rwa=False), (4, 4))

@@ -17,7 +17,7 @@ import numpy as np
 from shaper.physics._jax import device
 from shaper.physics.figures import apply_frame, average_gate_fidelity, gate_figures, leakage
 from shaper.physics.figures import project as project_subspace
-from shaper.physics.propagator import ordered_product, slice_unitaries
+from shaper.physics.propagator import ordered_product, slice_unitaries, taylor_exponential
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
 
@@ -71,7 +71,7 @@ def _corrected(drift, controls, samples, dt, computational, target, phases, corr
             def one(phase):
                 k0 = kick(c, samples[0], 2 * jnp.pi * f * start + phase)
                 k1 = kick(c, samples[-1], 2 * jnp.pi * f * (start + total) + phase)
-                ends = jax.vmap(jax.scipy.linalg.expm)(jnp.stack([-1j * k1, 1j * k0]))
+                ends = taylor_exponential(jnp.stack([k1, -k0]) / (2 * jnp.pi))
                 p = project_subspace(ends[0] @ u @ ends[1], computational)
                 framed = apply_frame(p, base.frame_before, base.frame_after, qubits)
                 return jnp.stack([1.0 - average_gate_fidelity(framed, target), leakage(p)])

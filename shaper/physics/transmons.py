@@ -148,8 +148,9 @@ SPECTRA = {"duffing": _duffing, "charge": _charge}  # a new transmon model: one 
 
 def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
              drive_frequency_hz: float | None = None, name: str = "q0",
-             t1_s: float | None = None, t2_s: float | None = None) -> System:
-    """One transmon (Duffing oscillator) driven by an I/Q pair, in the drive frame.
+             t1_s: float | None = None, t2_s: float | None = None,
+             spectrum: str = "charge") -> System:
+    """One transmon driven by an I/Q pair, in the drive frame.
 
     Args:
         levels: number of levels kept, >= 2.
@@ -158,20 +159,23 @@ def transmon(levels: int, qubit_frequency_hz: float, anharmonicity_hz: float, *,
         drive_frequency_hz: f_d, the frame; default resonant (f_q).
         name: the channel and qubit name.
         t1_s, t2_s: coherence times (seconds), optional (:func:`transmon_collapse`).
+        spectrum: ``"charge"`` (the Cooper-pair box, the default: README, "The charge
+            model") or ``"duffing"`` (the Duffing ladder).
 
     Returns:
         A :class:`System` with controls ``<name>_i`` = (a + a^dag)/2 and
         ``<name>_q`` = i (a^dag - a)/2 (README, "Conventions").
 
     Examples:
-        >>> s = transmon(3, 5.1e9, -220e6)
+        >>> s = transmon(3, 5.1e9, -220e6, spectrum="duffing")
         >>> s.drift.real.diagonal() / 1e6
         array([   0.,    0., -220.])
         >>> s.control_names
         ('q0_i', 'q0_q')
     """
     spec = TransmonSpec(name=name, levels=levels, qubit_frequency_hz=qubit_frequency_hz,
-                        anharmonicity_hz=anharmonicity_hz, t1_s=t1_s, t2_s=t2_s)
+                        anharmonicity_hz=anharmonicity_hz, t1_s=t1_s, t2_s=t2_s,
+                        spectrum=spectrum)
     return coupled_transmons([spec], [], frame_frequency_hz=drive_frequency_hz)
 
 

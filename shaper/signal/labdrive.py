@@ -112,7 +112,7 @@ class CorrectedDrive:
         import jax.numpy as jnp
 
         from shaper.physics.effective import kick
-        from shaper.physics.propagator import _pade_exponential
+        from shaper.physics.propagator import taylor_exponential
 
         f = self.correction.frame_hz
 
@@ -121,7 +121,7 @@ class CorrectedDrive:
             k1 = kick(self.correction, values[-1],
                       2 * np.pi * f * (self.start_s + footprint_s) + phase)
             # exp(i K) = exp(-2 pi i H) with H = -K / (2 pi)
-            ends = _pade_exponential(jnp.stack([k1, -k0]) / (2 * np.pi))
+            ends = taylor_exponential(jnp.stack([k1, -k0]) / (2 * np.pi))
             return ends[0] @ u @ ends[1]
 
         return jax.vmap(one)(jnp.asarray(self.phases_rad))
