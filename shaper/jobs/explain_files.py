@@ -103,9 +103,13 @@ def export_reasons(c: Context) -> list[Reason]:
                                    min(32, bits + 4), "--force")) \
         if bits < 32 and where.run and where.out else Step(
             f"more DAC bits (--bits {min(32, bits + 4)})" if bits < 32 else "a finer DAC")
+    if_mhz = report.get("if_frequency_hz", 0) / 1e6
+    at_if = Step(f"optimise with the IF in the recipe: export.if_frequency = \"{if_mhz:g} MHz\""
+                 f" (the instrument's output filter then acts on the modulated samples in the "
+                 f"optimiser's model too: its phase and gain at the IF move the drive)")
     return [reason("the new instrument",
                    f"the run meets the targets ({pair(run)}); the new file reaches "
-                   f"{pair(new)} ({report.get('dac_bits')}-bit, IF "
-                   f"{report.get('if_frequency_hz', 0) / 1e6:g} MHz)",
+                   f"{pair(new)} ({report.get('dac_bits')}-bit, IF {if_mhz:g} MHz)",
+                   joined(at_if, more) if if_mhz else
                    joined(more, "optimise with the instrument's settings in the recipe's "
                                 "[export]"))]
