@@ -47,6 +47,53 @@ def pinned_text(text: str, *, duffing: bool = True, staircase: bool = True) -> s
     return text
 
 
+QUICK = {"verdict": {"lab_frame": "off", "extra_levels": 0, "benchmark": False},
+         "optimizer": {"escalate": False}}
+"""For tests about something other than the verdict's models (files, signals, resuming,
+reports): judged in the rotating frame on the recipe's levels, no escalation, no predicted
+benchmarking. The lab frame, more levels, escalation and benchmarking have tests of their
+own against independent references."""
+
+
+def quick(raw: dict) -> dict:
+    """:data:`QUICK` merged into a recipe dict (keys the recipe sets win)."""
+    import copy
+
+    raw = copy.deepcopy(raw)
+    for section, keys in QUICK.items():
+        raw[section] = {**keys, **raw.get(section, {})}
+    return raw
+
+
+def with_keys(text: str, section: str, keys: dict) -> str:
+    """Recipe or chip text with ``keys`` added to its ``[section]`` (created at the end if
+    missing; a key the text already sets in that section is kept)."""
+    import re
+    import tomllib
+
+    table = tomllib.loads(text)
+    for part in section.split("."):
+        table = table.get(part, {}) if isinstance(table, dict) else {}
+    lines = "".join(f"{k} = {_toml_value(v)}\n" for k, v in keys.items() if k not in table)
+    header = re.search(rf"^\[{re.escape(section)}\]\n", text, flags=re.M)
+    if header:
+        return text[:header.end()] + lines + text[header.end():]
+    return text.rstrip("\n") + f"\n\n[{section}]\n" + lines
+
+
+def _toml_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    return f'"{value}"' if isinstance(value, str) else repr(value)
+
+
+def quick_text(text: str, *, chip: bool = False) -> str:
+    """:data:`QUICK` in recipe text (``chip``: in a chip file's ``[template.*]``)."""
+    for section, keys in QUICK.items():
+        text = with_keys(text, f"template.{section}" if chip else section, keys)
+    return text
+
+
 def expm_product(drift, controls, samples, dt) -> np.ndarray:
     """U = U_{n-1} ... U_0 with U_j = scipy.linalg.expm(-2 pi i dt H_j) (README, "Conventions")."""
     u = np.eye(drift.shape[0], dtype=complex)
