@@ -12,8 +12,8 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from shaper.physics.alive import alive
 from shaper.physics._jax import device
+from shaper.physics.alive import alive
 from shaper.physics.figures import gate_figures, state_figures
 from shaper.physics.figures import project as project_subspace
 from shaper.physics.propagator import cycle_exponential, ordered_product
