@@ -121,11 +121,19 @@ RECIPE_MUTATIONS = [
      "system.qubit_frequency", "beyond any transmon"),
     ("drive-frequency-terahertz", "system.drive_frequency", "1 THz", "transmon",
      "system.drive_frequency", "beyond any transmon"),
+    # the levels the verdict re-checks (levels + extra_levels) past what the spectrum
+    # keeps: 64 on the Duffing ladder, 40 bound levels of the charge model (the default)
     ("levels-64-extra-8", "system.levels", 64, "transmon", "verdict.extra_levels", "72"),
+    ("levels-36-extra-8", "system.levels", 36, "transmon", "verdict.extra_levels", "44"),
+    ("levels-41", "system.levels", 41, "transmon", "system.levels", "at most 40"),
     ("transmon-frequency-1e30", "system.transmon[{i}].qubit_frequency", 1e30, "transmons",
      "system.transmon[{i}].qubit_frequency", "beyond any transmon"),
     ("transmon-levels-63", "system.transmon[{i}].levels", 63, "transmons",
      "system.transmon[{i}].levels", "65 levels"),
+    ("transmon-levels-39", "system.transmon[{i}].levels", 39, "transmons",
+     "system.transmon[{i}].levels", "41 levels"),
+    ("transmon-levels-41", "system.transmon[{i}].levels", 41, "transmons",
+     "system.transmon[{i}].levels", "spectrum = \"duffing\""),
     ("frame-terahertz", "system.frame_frequency", "1 THz", "transmons",
      "system.frame_frequency", "beyond any transmon"),
     ("max-rabi-terahertz", "pulse.max_rabi", "1 THz", "transmon", "pulse.max_rabi",
@@ -145,7 +153,11 @@ RECIPE_MUTATIONS = [
      "at most 10"),
     ("t1-attosecond", "system.t1", "1e-30 s", "transmon", "system.t1", "nanosecond"),
 ]
-EXTRA = {"levels-64-extra-8": ("verdict.extra_levels", 8)}  # a second change of a case
+# further changes of a case ({i} as in its path): 64 and 63 levels are Duffing ladders
+# (the charge model keeps 40, refused by levels-41 and transmon-levels-41)
+EXTRA = {"levels-64-extra-8": [("verdict.extra_levels", 8), ("system.spectrum", "duffing")],
+         "levels-36-extra-8": [("verdict.extra_levels", 8)],
+         "transmon-levels-63": [("system.transmon[{i}].spectrum", "duffing")]}
 
 
 def recipe_cases():
@@ -160,8 +172,9 @@ def recipe_cases():
                 continue
             for i in range(transmons) if "{i}" in where else [None]:
                 out = setting(raw, where.format(i=i), value)
-                if out is not None and case in EXTRA:
-                    out = setting(out, *EXTRA[case])
+                for also, more in EXTRA.get(case, []):
+                    if out is not None:
+                        out = setting(out, also.format(i=i), more)
                 if out is not None:
                     yield (f"{path.stem}-{case}" + ("" if i is None else f"-{i}"), dump(out),
                            key.format(i=i), reason)
@@ -213,7 +226,8 @@ CHIP_MUTATIONS = [
     ("template-starts", "template.optimizer.starts", 100000, "template.optimizer.starts",
      "at most"),
     ("template-extra-levels", "template.verdict.extra_levels", 8,
-     "template.verdict.extra_levels", "levels"),
+     "template.verdict.extra_levels", "44 levels"),
+    ("first-qubit-levels-charge", "qubit[0].levels", 41, 'qubit "qa".levels', "at most 40"),
     ("template-granularity", "template.export.granularity", 1_000_000,
      "template.export.granularity", "10 min"),
     ("neighbour-levels", "gates.neighbour_levels", 40, "gates.neighbour_levels", "from 2"),
@@ -227,7 +241,7 @@ CHIP_MUTATIONS = [
      'qubit "qb".anharmonicity', "smaller in size"),
 ]
 CHIP_EXTRA = {"second-qubit-t2": ("qubit[1].t1", "40 us"),
-              "template-extra-levels": ("qubit[0].levels", 60)}
+              "template-extra-levels": ("qubit[0].levels", 36)}  # 36 + 8 > the charge model's 40
 
 
 def chip_cases():

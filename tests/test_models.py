@@ -26,9 +26,13 @@ def test_two_level_controls_are_pauli_halves():
 
 
 def test_coupled_transmons_order_coupling_and_flux():
-    specs = [TransmonSpec(name="a", levels=3, qubit_frequency_hz=5.0e9, anharmonicity_hz=-0.2e9),
+    # the Duffing ladder pinned: the coupling g (a^dag b + b^dag a) and the flux line on the
+    # number operator below are its operators (README, "Conventions"); the charge model's
+    # flux response is not the number operator (level 2 moves 2.003x, not 2x, per hertz)
+    specs = [TransmonSpec(name="a", levels=3, qubit_frequency_hz=5.0e9, anharmonicity_hz=-0.2e9,
+                          spectrum="duffing"),
              TransmonSpec(name="b", levels=3, qubit_frequency_hz=5.5e9, anharmonicity_hz=-0.2e9,
-                          flux=True)]
+                          flux=True, spectrum="duffing")]
     s = coupled_transmons(specs, [("a", "b", 10e6)])
     assert s.dims == (3, 3)
     # computational states |00>, |01>, |10>, |11> with the first transmon leftmost

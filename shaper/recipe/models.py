@@ -16,7 +16,8 @@ import numpy as np
 from shaper.errors import InputError
 from shaper.physics.dressed import dressed
 from shaper.physics.systems import NAME, NAME_RULE, System, from_matrices
-from shaper.physics.transmons import SPECTRA, TransmonSpec, coupled_transmons
+from shaper.physics.transmons import (MAX_CHARGE_LEVELS, SPECTRA, TransmonSpec,
+                                      coupled_transmons)
 from shaper.recipe.schema import KEYS, _Reader
 from shaper.recipe.units import format_quantity, parse_quantity
 
@@ -134,6 +135,24 @@ def _spectrum(r: _Reader, t: dict, where: str) -> dict:
     return out
 
 
+def max_levels(spectrum: str) -> int:
+    """The most levels a transmon of ``spectrum`` keeps: the charge model's bound states
+    (:data:`~shaper.physics.transmons.MAX_CHARGE_LEVELS`), the Duffing ladder's
+    :data:`MAX_TRANSMON_LEVELS`."""
+    return MAX_CHARGE_LEVELS if spectrum == "charge" else MAX_TRANSMON_LEVELS
+
+
+def _spectrum_levels(r: _Reader, levels: int, spectrum: str, where: str) -> None:
+    """``levels`` within what ``spectrum`` keeps, refused naming ``{where}.levels`` (the
+    key the user wrote; the model's own error named no key)."""
+    if levels > max_levels(spectrum):
+        r.fail(f"{where}.levels", f"the charge model (the default spectrum) keeps at most "
+                                  f"{MAX_CHARGE_LEVELS} levels (levels far above the cosine "
+                                  f"potential are not a transmon's), got {levels}; keep at "
+                                  f"most {MAX_CHARGE_LEVELS}, or spectrum = \"duffing\" for "
+                                  f"up to {MAX_TRANSMON_LEVELS}")
+
+
 def _coherence(r: _Reader, t: dict, where: str) -> dict:
     """``t1`` and ``t2`` (times, optional) as TransmonSpec keywords."""
     out = {}
@@ -167,9 +186,10 @@ def _transmon(r: _Reader, t: dict) -> System:
     if not isinstance(name, str) or not NAME.fullmatch(name):
         r.fail("system.qubit", f"expected a name like \"q0\" ({NAME_RULE}), "
                                f"got {str(name)[:80]!r}")
+    spectrum = _spectrum(r, t, "system")
+    _spectrum_levels(r, levels, spectrum["spectrum"], "system")
     spec = TransmonSpec(name=name, levels=levels, qubit_frequency_hz=fq,
-                        anharmonicity_hz=alpha, **_coherence(r, t, "system"),
-                        **_spectrum(r, t, "system"))
+                        anharmonicity_hz=alpha, **_coherence(r, t, "system"), **spectrum)
     return coupled_transmons([spec], [], frame_frequency_hz=fd)
 
 
@@ -203,13 +223,15 @@ def _transmons(r: _Reader, t: dict) -> System:
         levels = r.number(item, "levels", f"{where}.levels", integer=True)
         if not 2 <= levels <= MAX_TRANSMON_LEVELS:
             r.fail(f"{where}.levels", f"must be from 2 to {MAX_TRANSMON_LEVELS}, got {levels}")
+        spectrum = _spectrum(r, item, where)
+        _spectrum_levels(r, levels, spectrum["spectrum"], where)
         specs.append(TransmonSpec(
             name=name, levels=levels,
             qubit_frequency_hz=(fq := _frequency(r, item, "qubit_frequency", where)),
             anharmonicity_hz=_anharmonicity(r, item, where, fq),
             flux=r.flag(item, "flux", f"{where}.flux", False),
             driven=r.flag(item, "driven", f"{where}.driven", True), **_coherence(r, item, where),
-            **_spectrum(r, item, where)))
+            **spectrum))
     couplings = _couplings(r, t)
     frame = _frequency(r, t, "frame_frequency", "system", specs[0].qubit_frequency_hz)
     drives = _drives(r, t, frame)
@@ -231,22 +253,27 @@ def _transmons(r: _Reader, t: dict) -> System:
 
 def check_more_levels(r: _Reader, t: dict, system: System, extra: int) -> None:
     """The verdict re-plays every transmon with ``extra`` more levels: that must stay a
-    transmon the reader accepts, refused here naming what the user wrote (not after the
-    optimiser ran, naming a sum nobody wrote)."""
-    if system.lab is None or not extra or max(system.dims) + extra <= MAX_TRANSMON_LEVELS:
+    transmon the reader accepts (at most :func:`max_levels` of its spectrum), refused here
+    naming what the user wrote (not after the optimiser ran, naming a sum nobody wrote)."""
+    if system.lab is None or not extra:
         return
     table = r.raw.get("system", {})
     items = [("system.levels", table)] if "levels" in table else [
         (f"system.transmon[{i}].levels", tr) for i, tr in enumerate(table.get("transmon", []))]
-    where, item = next(((w, tr) for w, tr in items
-                        if tr.get("levels", 0) + extra > MAX_TRANSMON_LEVELS), items[0])
+    over = [(where, item, most) for where, item in items
+            if item.get("levels", 0) + extra > (most := max_levels(item.get(
+                "spectrum", DEFAULT_SPECTRUM)))]
+    if not over:
+        return
+    where, item, most = over[0]
+    keeps = (f"the charge model keeps at most {most}" if most == MAX_CHARGE_LEVELS else
+             f"a transmon keeps at most {most}")
     written = "extra_levels" in t
     r.fail("verdict.extra_levels" if written else where,
            f"levels = {item.get('levels')!r} with verdict.extra_levels = "
            f"{t['extra_levels'] if written else f'{extra} (the default)'} is "
-           f"{item.get('levels', 0) + extra} levels for the verdict's re-check; a transmon "
-           f"keeps at most {MAX_TRANSMON_LEVELS}: keep at most "
-           f"{MAX_TRANSMON_LEVELS - extra} levels, or fewer verdict.extra_levels")
+           f"{item.get('levels', 0) + extra} levels for the verdict's re-check; {keeps}: "
+           f"keep at most {most - extra} levels, or fewer verdict.extra_levels")
 
 
 def _couplings(r: _Reader, t: dict) -> list[tuple[str, str, float]]:
