@@ -64,7 +64,7 @@ def lapack_calls(compiled_text: str) -> list[str]:
 
 @pytest.mark.parametrize("variant", sorted(VARIANTS))
 def test_robust_probe_runs_to_its_iteration_budget(tmp_path, variant):
-    # Three starts one after another in one process, each to the iteration budget: before
+    # Three starts one after another in one process, each to its end: before
     # the fix every such run stopped computing within 5-36 iterations (0 % CPU, all threads
     # in futex waits). The timeout bounds the test; the run itself takes ~10-30 s.
     out = tmp_path / "out"
@@ -76,7 +76,11 @@ def test_robust_probe_runs_to_its_iteration_budget(tmp_path, variant):
     starts = json.loads((out / "starts.json").read_text())
     assert len(starts) == 3
     for start in starts:
-        assert start["iterations"] == 60, start
+        # to its budget, or stopped by the optimiser's own test (the ensemble's spread is
+        # reached near 1e-4 within the budget through the output filter); a stalled run
+        # exits 3 from the watchdog or times out
+        assert start["iterations"] == 60 or start["stop_reason"] == "converged", start
+        assert start["infidelity"] < 1e-6, start
 
 
 def test_every_compiled_objective_runs_one_eigendecomposition(tmp_path):
@@ -84,7 +88,11 @@ def test_every_compiled_objective_runs_one_eigendecomposition(tmp_path):
     # program"): the nominal system and every ensemble member share ONE batched LAPACK call,
     # in the plain objective and in the optax chunks (adam, and L-BFGS whose extra
     # evaluation depends on its line search).
-    recipe = load_recipe(probe(tmp_path, "scales"))
+    # the default program with an output filter: the second-order lab frame (its kicks
+    # are exponentiated with products only, so the one LAPACK call stays one)
+    raw = load_recipe(probe(tmp_path, "scales")).raw
+    recipe = load_recipe({**raw, "optimizer": {**raw["optimizer"], "lab_frame": "corrected"}})
+    assert recipe.optimizer.lab_frame == "corrected"
     objective = make_objective(recipe)
     x = jnp.zeros(objective.layout.shape)
     w = jnp.asarray(objective.weights)
