@@ -16,7 +16,14 @@ import pytest
 import scipy.integrate
 import scipy.linalg
 import scipy.signal
-from helpers import demo_text, duffing, pedersen_fidelity, subspace_leakage
+from helpers import (
+    demo_text,
+    duffing,
+    pedersen_fidelity,
+    pinned_text,
+    quick_text,
+    subspace_leakage,
+)
 from helpers import run_cli as cli
 
 from shaper.errors import InputError, RecipeError
@@ -35,6 +42,11 @@ ROOT = Path(__file__).resolve().parents[1]
 RATE = 2.4e9
 
 DEMO = demo_text("NAME")
+# the demo as the references below build it by hand: the Duffing ladder, the [line] alone
+# after held samples (no instrument output filter), judged in the rotating frame on the
+# recipe's levels (the output filter, the charge model and the lab frame have their own
+# tests against independent references: test_analog, test_charge, test_labframe)
+PINNED = quick_text(pinned_text(DEMO))
 BESSEL = """
 [line]
 oversample = 4
@@ -150,13 +162,25 @@ def _with(tmp_path, name, base, extra=""):
     return path
 
 
-def independent_played_fidelity(recipe, csv, sub=32):
+def held_exponentials(hamiltonians, dt):
+    """``exp(-2 pi i dt H_j)`` of every Hermitian ``H_j`` (Hz) at once, from numpy's
+    eigendecomposition ``H = V diag(w) V^dag`` (common practice, no source): the same as
+    scipy.linalg.expm one by one, in one call."""
+    w, v = np.linalg.eigh(hamiltonians)
+    return (v * np.exp(-2j * np.pi * dt * w)[:, None, :]) @ np.conj(np.swapaxes(v, 1, 2))
+
+
+def independent_played_fidelity(recipe, csv, end_s, sub=32):
     """Re-simulate a waveform through a 2nd-order 150 MHz Bessel without shaper's propagator
     or line: scipy.signal.lsim (zero-order-hold input) on ``sub`` points per sample, the
-    output at the middle of each sub-step, a scipy.linalg.expm product."""
+    output at the middle of each sub-step, a scipy.linalg.expm product, on to ``end_s``
+    after the first sample (the DAC holds zero after the file while the line rings down:
+    README, "The ring-down and the footprint")."""
     wave = read_waveform(csv)
     samples = wave.fractions * 60e6
-    n = samples.shape[0]
+    n = round(end_s * RATE)
+    assert abs(n - end_s * RATE) < 1e-6 and n >= samples.shape[0]
+    samples = np.concatenate([samples, np.zeros((n - samples.shape[0], 2))])
     b, a = scipy.signal.bessel(2, 2 * math.pi * 150e6, analog=True, norm="mag")
     dt = 1 / RATE / sub
     t = (np.arange(2 * n * sub) + 0.5) * dt / 2  # half steps: the midpoints are odd entries
@@ -168,9 +192,8 @@ def independent_played_fidelity(recipe, csv, sub=32):
     mid = out[1::2]
     drift, controls = duffing(4, 0.0, -220e6)
     u = np.eye(4, dtype=complex)
-    for row in mid:
-        u = scipy.linalg.expm(-2j * np.pi * dt * (drift + row[0] * controls[0]
-                                                 + row[1] * controls[1])) @ u
+    for step in held_exponentials(drift + np.tensordot(mid, controls, axes=1), dt):
+        u = step @ u
     x = np.array([[0, 1], [1, 0]], complex)
     return 1 - pedersen_fidelity(u[:2, :2], x), subspace_leakage(u, [0, 1])
 
@@ -178,8 +201,8 @@ def independent_played_fidelity(recipe, csv, sub=32):
 @pytest.fixture(scope="module")
 def bessel_runs(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("bessel")
-    with_line = run(_with(tmp, "inloop", DEMO, BESSEL), out=tmp / "inloop", plots_too=False)
-    plain = run(_with(tmp, "plain", DEMO), out=tmp / "plain", plots_too=False)
+    with_line = run(_with(tmp, "inloop", PINNED, BESSEL), out=tmp / "inloop", plots_too=False)
+    plain = run(_with(tmp, "plain", PINNED), out=tmp / "plain", plots_too=False)
     return tmp, with_line, plain
 
 
@@ -190,13 +213,22 @@ def test_pulse_optimised_through_the_filter_meets_the_target_by_independent_resi
     # the rotating frame on the recipe's levels, the model re-simulated here (the report's
     # top-level figures are the judged ones, the lab frame: test_labframe, test_analog)
     ours = inloop.report["trust"]["rotating_frame"]["infidelity"]
-    ref_inf, ref_leak = independent_played_fidelity(recipe, inloop.folder / "inloop.csv")
+    footprint = inloop.report["trust"]["output"]["footprint_s"]  # the file and its tail
+    assert footprint > 20e-9
+    ref_inf, ref_leak = independent_played_fidelity(recipe, inloop.folder / "inloop.csv",
+                                                    footprint)
     assert ref_inf < recipe.optimizer.target_infidelity
     assert abs(ref_inf - ours) < 2e-8  # two discretisations of the same continuous drive
-    # the pulse optimised for an ideal line, then played through the filter, misses by far
-    plain_inf, _ = independent_played_fidelity(recipe, plain.folder / "plain.csv")
-    assert plain_inf > 10 * recipe.optimizer.target_infidelity
-    assert plain_inf > 1000 * ref_inf
+    # the line delays the pulse past the file's end: cut at the last sample the file misses
+    # by far (measured 3.6e-4), which is why the figures play on to the footprint's end
+    cut_inf, _ = independent_played_fidelity(recipe, inloop.folder / "inloop.csv", 48 / RATE)
+    assert cut_inf > 100 * recipe.optimizer.target_infidelity
+    # played to its end, the pulse optimised for an ideal line does worse through the filter
+    # than the one optimised through it (measured 1.4e-7 against 1.8e-9: a 150 MHz Bessel
+    # mostly delays a 20 ns pulse, and a delay on resonance costs little; cut at the file's
+    # end, as this test once compared, both miss by the delay)
+    plain_inf, _ = independent_played_fidelity(recipe, plain.folder / "plain.csv", footprint)
+    assert plain_inf > 10 * ref_inf
     line = inloop.report["line"]
     assert line["in_the_loop"] and line["without_line"]["infidelity"] > 100 * ours
 
@@ -209,8 +241,9 @@ def test_oversampling_converges_at_second_order(bessel_runs):
     values = []
     for steps in (4, 8, 16, 32, 64):
         chain = for_waveform(recipe, wave)
+        assert chain.ring > 0  # the line's ring-down after the file, simulated too
         chain = type(chain)(chain.iq_columns, chain.period_s, line=chain.line,
-                            modulated=True, steps=steps)
+                            modulated=True, steps=steps, ring=chain.ring)
         sim = simulate(recipe.system, recipe.target, chain(wave.to_hz(recipe.system)),
                        chain.dt_s)
         values.append(sim.fidelity)
@@ -255,7 +288,7 @@ def settled(samples, amplitudes, taus, sub=64):
 
 def test_predistorted_export_plays_the_ideal_pulse_through_the_line(tmp_path):
     amps, taus = (0.05, -0.02), (3e-9, 30e-9)
-    path = _with(tmp_path, "pre", DEMO, f"""
+    path = _with(tmp_path, "pre", PINNED, f"""
 [[line.q0]]
 kind = "exponential"
 amplitudes = {list(amps)}
@@ -268,17 +301,28 @@ predistort = true
     assert wave.predistorted and out.report["line"]["predistorted"]
     assert out.report["line"]["predistortion_residual"] < 1e-4
     samples = wave.to_hz(load_recipe(path).system)
+    n = samples.shape[0]
+    # the file, then the DAC holding zero while the line settles, to the footprint's end
+    # (README, "The ring-down and the footprint")
+    played = round(out.report["trust"]["output"]["footprint_s"] * RATE)
+    assert played > n
+    samples = np.concatenate([samples, np.zeros((played - n, 2))])
     sub = 64
     fine = np.stack([settled(samples[:, c], amps, taus, sub) for c in range(2)], axis=1)
     drift, controls = duffing(4, 0.0, -220e6)
+    x = np.array([[0, 1], [1, 0]], complex)
     u = np.eye(4, dtype=complex)
-    for row in fine:
-        u = scipy.linalg.expm(-2j * np.pi / (RATE * sub) * (
-            drift + row[0] * controls[0] + row[1] * controls[1])) @ u
-    infidelity = 1 - pedersen_fidelity(u[:2, :2], np.array([[0, 1], [1, 0]], complex))
+    steps = held_exponentials(drift + np.tensordot(fine, controls, axes=1), 1 / (RATE * sub))
+    for k, step in enumerate(steps):
+        u = step @ u
+        if k == n * sub - 1:  # the file's end: the chip has seen the ideal pulse
+            infidelity = 1 - pedersen_fidelity(u[:2, :2], x)
     assert infidelity < 1e-5  # the ideal pulse reached 1e-6 at the AWG grid
-    # the rotating frame on the recipe's levels, the model re-simulated here
-    assert abs(infidelity - out.report["trust"]["rotating_frame"]["infidelity"]) < 1e-6
+    # the rotating frame on the recipe's levels, the model re-simulated here, to the end of
+    # the footprint: pre-distortion inverts the line inside the file only, and the settling
+    # terms' tail after it is in the figures (README, "The ring-down and the footprint")
+    footprint = 1 - pedersen_fidelity(u[:2, :2], x)
+    assert abs(footprint - out.report["trust"]["rotating_frame"]["infidelity"]) < 1e-6
     # without the pre-distortion the same pulse through the line is far worse
     assert out.report["line"]["without_line"]["infidelity"] > 10 * infidelity
 
@@ -305,12 +349,18 @@ def test_predistortion_of_a_flux_step_through_two_settling_terms():
 
 
 def test_one_sided_flux_and_a_channel_switched_off(tmp_path):
+    # the subject is the flux line's range and the switched-off drive, not the gate: the
+    # Duffing ladder and held samples (no output filter, so the optimiser's model is the
+    # rotating frame), judged in the rotating frame on the recipe's levels (tests/helpers.py,
+    # QUICK), a 40 ns pulse and a few iterations (every sample must stay in range all along)
     text = (ROOT / "recipes" / "cz-line.toml").read_text().replace(
         'max_rabi = "40 MHz"', 'max_rabi = {qa = "40 MHz", qb = 0}').replace(
-        "max_iterations = 3000", "max_iterations = 25").replace('name = "cz-line"',
-                                                                 'name = "czoff"')
+        "max_iterations = 3000", "max_iterations = 5").replace(
+        'duration = "100 ns"', 'duration = "40 ns"').replace('name = "cz-line"',
+                                                             'name = "czoff"')
+    assert 'duration = "40 ns"' in text and "max_iterations = 5" in text
     path = tmp_path / "czoff.toml"
-    path.write_text(text)
+    path.write_text(quick_text(pinned_text(text)))
     recipe = load_recipe(path)
     objective = make_objective(recipe)
     assert objective.layout.shape == (recipe.samples, 3)  # qa_i, qa_q, qb_flux; no qb

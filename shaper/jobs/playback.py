@@ -285,7 +285,7 @@ class Playback:
             samples = Mixer.for_recipe(recipe, wave.full_scale_hz).plays(samples)
         if wave.predistorted:
             from shaper.signal.line import through_line
-            for column, stages in line_columns(recipe):
+            for column, stages in line_columns(recipe, awg=False):  # the inverted line
                 samples[:, column] = through_line(samples[:, column], stages,
                                                   1 / wave.sample_rate_hz,
                                                   max(recipe.line.oversample, 1))

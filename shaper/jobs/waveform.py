@@ -80,12 +80,15 @@ def make_waveform(recipe: Recipe, samples_hz: np.ndarray, settings: ExportSettin
 
 
 def _predistorted(recipe: Recipe, played: np.ndarray, rate: float) -> tuple[np.ndarray, float]:
-    """Every lined column inverted through its line; the worst residual of them."""
+    """Every lined column inverted through its line; the worst residual of them. The line
+    alone: the instrument's output filter ([awg]) is in the optimiser's chain of a
+    pre-distorting recipe (:func:`shaper.signal.chain.for_recipe`) and has no stable
+    inverse at the AWG's rate."""
     from shaper.signal.line import predistort
 
     out, worst = np.array(played, float), 0.0
     channel_of = {c: ch.name for ch in recipe.system.channels for c in ch.columns}
-    for column, stages in line_columns(recipe):
+    for column, stages in line_columns(recipe, awg=False):
         if not np.any(played[:, column]):
             continue
         out[:, column], residual = predistort(played[:, column], stages, 1 / rate,
@@ -106,7 +109,7 @@ def _residual(recipe: Recipe, fractions: np.ndarray, settings: ExportSettings, r
     if settings.mixer:
         played = Mixer.for_recipe(recipe, settings.full_scale_hz).plays(played)
     worst, peak = 0.0, 0.0
-    for column, stages in line_columns(recipe):
+    for column, stages in line_columns(recipe, awg=False):  # the line that was inverted
         peak = max(peak, float(np.max(np.abs(wanted[:, column]), initial=0.0)))
         out = through_line(played[:, column], stages, 1 / rate,
                            max(recipe.line.oversample, 1))

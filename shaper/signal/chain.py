@@ -66,6 +66,9 @@ class Chain:
             analog output"): simulated, never exported; the gate's footprint ends there.
         ring_residual_rad: the largest angle the output could still turn a qubit by
             after the ring-down (:func:`shaper.signal.analog.ring_samples`).
+        rests_corrected: after the input the DAC holds the mixer's correction of zero
+            (a mixer-corrected file: README, "Mixer corrections"), so the mixer plays 0 in
+            the ring-down; otherwise it holds 0 and the mixer plays its offsets.
     """
 
     iq_columns: np.ndarray
@@ -83,6 +86,7 @@ class Chain:
     tail: int = 0
     ring: int = 0
     ring_residual_rad: float = 0.0
+    rests_corrected: bool = False
 
     def __post_init__(self):
         if not self.steps:
@@ -125,6 +129,10 @@ class Chain:
                               self.sideband, start=self.start)
         if self.mixer is not None:
             played = self.mixer.plays(played)
+            if self.rests_corrected and self.ring:  # the LO leakage cancelled between files
+                xp = np if isinstance(played, np.ndarray) else _jnp()
+                played = xp.concatenate([played[:-self.ring],
+                                         xp.zeros((self.ring, played.shape[1]))])
         return played
 
     def __call__(self, samples):
@@ -326,4 +334,5 @@ def for_waveform(recipe, wave, *, line: bool = True, mixer: bool = True,
     return Chain(recipe.system.iq_columns(), period, wave.if_frequency_hz,
                  wave.sideband, wave.pulse_start, modulated=True, line=columns,
                  oversample=recipe.line.oversample, mixer=model,
-                 carriers=carriers(recipe.system), ring=ring, ring_residual_rad=residual)
+                 carriers=carriers(recipe.system), ring=ring, ring_residual_rad=residual,
+                 rests_corrected=wave.mixer_corrected)
