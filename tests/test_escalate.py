@@ -76,3 +76,31 @@ def test_escalation_is_one_key_away_and_the_miss_is_then_explained(tmp_path):
     assert code == 1, err + out
     assert "escalation" not in report
     assert report["explanation"][0]["cause"] == "levels"
+
+
+def test_a_model_this_machine_cannot_hold_is_skipped_and_the_file_kept(tmp_path,
+                                                                        monkeypatch):
+    # the escalation's next model is refused before it starts when it would not fit in
+    # memory (a 200 ns CNOT's exact lab frame asked for 794 GiB after 21 minutes and the
+    # run ended with nothing written): it is said, recorded, and the run's file is kept
+    from shaper.jobs.run import run
+    from shaper.recipe import memory
+
+    from shaper.recipe import load_recipe
+
+    import shaper.jobs.escalate as escalation
+
+    real = escalation._on_levels
+
+    def tight(*args):  # the escalation's model built on a machine with 1 kB free
+        with monkeypatch.context() as m:
+            m.setattr(memory, "available_memory", lambda: 1024.0)
+            return real(*args)
+    monkeypatch.setattr(escalation, "_on_levels", tight)
+    recipe = load_recipe(_write(tmp_path, pinned(FAST)))
+    out = run(recipe, out=tmp_path / "run", plots_too=False)
+    (step,) = out.report["escalation"]
+    assert step["model"] == "levels" and "GiB" in step["skipped"] and not step["met"]
+    assert not out.report["targets"]["met"]
+    assert (tmp_path / "run" / "fast.csv").exists()
+    assert "not optimising on the levels" in (tmp_path / "run" / "run.log").read_text()

@@ -25,6 +25,7 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
+from shaper.errors import RecipeError
 from shaper.jobs.playback import Playback
 from shaper.jobs.waveform import make_waveform
 from shaper.optimizer.starts import Result, optimize
@@ -50,18 +51,32 @@ def next_model(recipe: Recipe, playback: Playback, tried: list[str]) -> tuple[st
     more = playback.more_levels
     extra = recipe.verdict.extra_levels
     if more is not None and "levels" not in tried and over(more.nominal) \
-            and not over(playback.nominal):
-        return "levels", _on_levels(recipe, extra, recipe.optimizer.lab_frame)
+            and (not over(playback.nominal) or _worse(more.nominal, playback.nominal)):
+        return "levels", _built(recipe, extra, recipe.optimizer.lab_frame)
     lab = playback.lab
     if lab is None or not (lab.infidelity > limits[0] or lab.leakage > limits[1]):
         return None
     levels = extra if more is not None else 0
     if recipe.optimizer.lab_frame == "off" and "lab frame (second order)" not in tried \
             and playback.corrected is not None and recipe.line.awg.stages:
-        return "lab frame (second order)", _on_levels(recipe, levels, "corrected")
+        return "lab frame (second order)", _built(recipe, levels, "corrected")
     if "lab frame (exact)" not in tried:
-        return "lab frame (exact)", _on_levels(recipe, levels, "exact")
+        return "lab frame (exact)", _built(recipe, levels, "exact")
     return None
+
+
+def _worse(more, own) -> bool:
+    """More levels change the figures (by more than a factor of two): they matter."""
+    return more.infidelity > 2 * own.infidelity or more.leakage > 2 * abs(own.leakage)
+
+
+def _built(recipe: Recipe, extra: int, lab_frame: str) -> Recipe | RecipeError:
+    """:func:`_on_levels`, or why this machine cannot run it (the recipe checks' own
+    refusal, e.g. its memory: :func:`shaper.recipe.memory.fits_in_memory`)."""
+    try:
+        return _on_levels(recipe, extra, lab_frame)
+    except RecipeError as refused:
+        return refused
 
 
 def _on_levels(recipe: Recipe, extra: int, lab_frame: str) -> Recipe:
@@ -98,6 +113,15 @@ def escalate(recipe: Recipe, result: Result, options, *, say=None,
             break
         name, model = step
         before = playback.verdict().judged
+        if isinstance(model, RecipeError):  # said and recorded, the result so far kept
+            why_not = model.detail
+            if say is not None:
+                say(f"escalation: not optimising on the {name}: {why_not}")
+            steps.append({"model": name, "judged_before": before, "skipped": why_not,
+                          "met": False})
+            continue
+        record = {"model": name, "levels": list(model.system.dims),
+                  "lab_frame": model.optimizer.lab_frame, "judged_before": before}
         if say is not None:
             say(f"escalating: the file misses as the chip plays it ({_words(before)}); "
                 f"optimising again on the {name}")
@@ -106,15 +130,27 @@ def escalate(recipe: Recipe, result: Result, options, *, say=None,
             f"escalation-{len(steps) + 1}"
         again = optimize(model, options.with_(folder=folder, resume=False, starts=1),
                          first=result.samples)
-        result = replace(again, recipe=recipe)
-        waveform, playback = judged(recipe, result, progress)
-        after = playback.verdict()
-        steps.append({"model": name, "levels": list(model.system.dims),
-                      "lab_frame": model.optimizer.lab_frame,
-                      "iterations": again.best.iterations, "seconds": time.monotonic() - t0,
-                      "judged_before": before, "judged_after": after.judged,
-                      "met": after.met})
+        candidate = replace(again, recipe=recipe)
+        new_waveform, new_playback = judged(recipe, candidate, progress)
+        after = new_playback.verdict()
+        kept = _closer(after.judged, before, recipe)
+        if kept:  # a step that judged worse leaves the result before it in place
+            result, waveform, playback = candidate, new_waveform, new_playback
+        steps.append({**record, "iterations": again.best.iterations,
+                      "seconds": time.monotonic() - t0, "judged_after": after.judged,
+                      "kept": kept, "met": after.met})
     return result, waveform, playback, steps
+
+
+def _closer(after: dict, before: dict, recipe: Recipe) -> bool:
+    """The judged figures ``after`` are no further from the targets than ``before``: the
+    largest ratio of a figure to its target decides."""
+    limits = {"infidelity": recipe.optimizer.target_infidelity,
+              "leakage": recipe.optimizer.target_leakage}
+
+    def worst(figures: dict) -> float:
+        return max((figures[k] / limits[k] for k in limits if k in figures), default=0.0)
+    return worst(after) <= worst(before)
 
 
 def _met_own(result: Result) -> bool:

@@ -56,10 +56,11 @@ LAB_WORDS = {"off": "the rotating frame",
 
 def optimiser_model(recipe: Recipe, escalation: list | None = None) -> dict:
     """The model the optimiser's own figures are in: the recipe's (its levels, its
-    ``optimizer.lab_frame``), or after an escalation the model it last used."""
+    ``optimizer.lab_frame``), or after an escalation the model of the last step kept."""
     levels, mode, how = list(recipe.system.dims), recipe.optimizer.lab_frame, "the recipe's"
-    if escalation:
-        last = escalation[-1]
+    kept = [s for s in escalation or [] if s.get("kept")]  # skipped or judged worse: not
+    if kept:
+        last = kept[-1]
         levels, mode = list(last["levels"]), last["lab_frame"]
         how = f"after escalation, the last it used: {last['model']}"
     return {"levels": levels, "lab_frame": mode,
