@@ -83,12 +83,9 @@ def test_a_model_this_machine_cannot_hold_is_skipped_and_the_file_kept(tmp_path,
     # the escalation's next model is refused before it starts when it would not fit in
     # memory (a 200 ns CNOT's exact lab frame asked for 794 GiB after 21 minutes and the
     # run ended with nothing written): it is said, recorded, and the run's file is kept
-    from shaper.jobs.run import run
-    from shaper.recipe import memory
-
-    from shaper.recipe import load_recipe
-
     import shaper.jobs.escalate as escalation
+    from shaper.jobs.run import run
+    from shaper.recipe import load_recipe, memory
 
     real = escalation._on_levels
 

@@ -16,8 +16,7 @@ import numpy as np
 from shaper.errors import InputError
 from shaper.physics.dressed import dressed
 from shaper.physics.systems import NAME, NAME_RULE, System, from_matrices
-from shaper.physics.transmons import (MAX_CHARGE_LEVELS, SPECTRA, TransmonSpec,
-                                      coupled_transmons)
+from shaper.physics.transmons import MAX_CHARGE_LEVELS, SPECTRA, TransmonSpec, coupled_transmons
 from shaper.recipe.schema import KEYS, _Reader
 from shaper.recipe.units import format_quantity, parse_quantity
 
