@@ -14,16 +14,20 @@ import time
 from pathlib import Path
 
 import pytest
-from helpers import chip_text, demo_text, write_long
+from helpers import chip_text, demo_text, quick_text, write_long
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def faults_chip(qubits: int, iterations: int = 60) -> str:
-    return chip_text("faults", [(f"q{i}", f"{5.0 + 0.1 * i:.2f} GHz", "-220 MHz", 3)
-                                for i in range(qubits)], single='["X", "X/2"]',
-                     durations="10ns,14ns,18ns",
-                     optimizer=f"max_iterations = {iterations}\ntarget_infidelity = 1e-12")
+def faults_chip(qubits: int, iterations: int = 60, durations: str = "10ns,14ns,18ns") -> str:
+    """Judged in the rotating frame on the chip's levels, no escalation, no predicted RB
+    (:func:`helpers.quick_text`): these tests are about files surviving faults, and each
+    of those models has tests of its own."""
+    return quick_text(chip_text("faults", [(f"q{i}", f"{5.0 + 0.1 * i:.2f} GHz", "-220 MHz", 3)
+                                           for i in range(qubits)], single='["X", "X/2"]',
+                                durations=durations,
+                                optimizer=f"max_iterations = {iterations}\n"
+                                          f"target_infidelity = 1e-12"), chip=True)
 
 
 def shaper(*args, **kwargs) -> subprocess.Popen:
@@ -77,7 +81,7 @@ def fill(mount: Path) -> Path:
 
 def test_a_full_disk_during_chip_loses_no_finished_gate(tmp_path, small_disk):
     chip = tmp_path / "chip.toml"
-    chip.write_text(faults_chip(4))
+    chip.write_text(faults_chip(3))
     out = small_disk / "run"
     proc = shaper("chip", chip, "--out", out, "--workers", 1, "--quiet")
     wait_for(lambda: finished_tasks(out) >= 1, 300, proc)
@@ -95,7 +99,7 @@ def test_a_full_disk_during_chip_loses_no_finished_gate(tmp_path, small_disk):
     _, err = done.communicate(timeout=600)
     assert done.returncode == 1, err  # targets of 1e-12: not met, but every gate done
     assert f"{len(state['tasks'])} finished earlier and kept" in err
-    assert finished_tasks(out) == 8 and (out / "chip.csv").exists()
+    assert finished_tasks(out) == 6 and (out / "chip.csv").exists()
 
 
 def test_a_full_disk_during_sweep_loses_no_finished_point(tmp_path, small_disk):
@@ -133,7 +137,7 @@ def test_ctrl_c_to_a_chip_keeps_finished_gates_and_resume_completes(tmp_path):
     # a terminal's Ctrl-C reaches the whole foreground process group: the command and its
     # worker processes (here: a new session, signalled as a group)
     chip = tmp_path / "chip.toml"
-    chip.write_text(faults_chip(6))
+    chip.write_text(faults_chip(4))
     out = tmp_path / "run"
     # Ctrl-C as a terminal delivers it, whatever the suite inherited: a suite started in the
     # background of a non-interactive shell ignores SIGINT, and a child inherits an ignored
@@ -156,7 +160,7 @@ def test_ctrl_c_to_a_chip_keeps_finished_gates_and_resume_completes(tmp_path):
     done = shaper("chip", chip, "--out", out, "--workers", 2, "--quiet", "--resume")
     _, err = done.communicate(timeout=600)
     assert done.returncode == 1, err
-    assert f"{kept} finished earlier and kept" in err and finished_tasks(out) == 12
+    assert f"{kept} finished earlier and kept" in err and finished_tasks(out) == 8
 
 
 def test_three_runs_at_once_into_different_folders(tmp_path):
