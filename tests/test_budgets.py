@@ -8,11 +8,14 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from helpers import chip_text, demo_text
+from helpers import chip_text, demo_text, quick_text
 from helpers import run_cli as cli
 
-CHIP = chip_text("budget", [("qa", "5.0 GHz", "-220 MHz", 3), ("qb", "5.3 GHz", "-210 MHz", 3)],
-                 optimizer="max_iterations = 200")
+# budgets are the subject: judged quickly (rotating frame on the recipe's levels, no
+# escalation, no predicted RB; each has tests of its own)
+CHIP = quick_text(chip_text("budget", [("qa", "5.0 GHz", "-220 MHz", 3),
+                                       ("qb", "5.3 GHz", "-210 MHz", 3)],
+                            optimizer="max_iterations = 200"), chip=True)
 
 
 def sweep_points(folder: Path) -> list[dict]:
@@ -21,7 +24,7 @@ def sweep_points(folder: Path) -> list[dict]:
 
 def test_a_sweep_stops_at_its_hours_and_resume_finishes(tmp_path):
     recipe = tmp_path / "demo.toml"
-    recipe.write_text(demo_text("demo") + "\n[optimizer]\nmax_iterations = 30\n")
+    recipe.write_text(quick_text(demo_text("demo") + "\n[optimizer]\nmax_iterations = 30\n"))
     out = tmp_path / "sweep"
     # a budget spent before the first duration: nothing runs, the sweep says so
     code, stdout, err = cli("sweep", recipe, "--durations", "10ns:20ns:5ns", "--out", out,
@@ -55,8 +58,8 @@ def test_a_failing_point_below_a_passing_one_is_retried_with_more_starts(tmp_pat
     # the Rabi formula, theta = 2 pi Omega t); 10 ns can. The miss just below the first pass
     # decides the shortest duration, so it is tried again with 4 starts before it counts.
     recipe = tmp_path / "demo.toml"
-    recipe.write_text(demo_text("demo") + "\n[optimizer]\nmax_iterations = 150\n"
-                      "target_infidelity = 1e-4\ntarget_leakage = 1e-4\n")
+    recipe.write_text(quick_text(demo_text("demo") + "\n[optimizer]\nmax_iterations = 150\n"
+                                 "target_infidelity = 1e-4\ntarget_leakage = 1e-4\n"))
     out = tmp_path / "sweep"
     code, stdout, err = cli("sweep", recipe, "--durations", "7.5ns,10ns", "--out", out,
                             "--quiet", "--no-plots", "--workers", 1)

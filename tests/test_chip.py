@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import demo_text, duffing, expm_product, pedersen_fidelity, pinned_text
+from helpers import demo_text, duffing, expm_product, pedersen_fidelity, pinned_text, quick_text
 from helpers import run_cli as cli
 
 from shaper.errors import EnvironmentFailure, RecipeError
@@ -39,6 +39,12 @@ pair_durations = "50ns"
 max_iterations = 40
 target_infidelity = 1e-4
 target_leakage = 1e-4
+escalate = false  # escalation has tests of its own (test_escalate.py)
+
+# judged beside the neighbours in the lab frame on the chip's own levels: the verdict's
+# extra levels make each neighbourhood 125-dimensional, and have tests of their own
+[template.verdict]
+extra_levels = 0
 
 # the Duffing ladder and held samples, as the references of these tests build them
 [template.awg]
@@ -142,7 +148,8 @@ def test_a_sweep_of_a_gate_set_finds_each_gates_shortest_duration(tmp_path):
     # the set's gates that must be played (X, X/2) each swept; Y, Y/2, -X/2, -Y/2 derived
     # from them by a drive phase at their parent's shortest duration
     path = tmp_path / "set.toml"
-    path.write_text(SET.replace("[optimizer]", "[optimizer]\nmax_iterations = 300"))
+    # (judged quickly: this test is about the set's layout and its derived gates)
+    path.write_text(quick_text(SET.replace("[optimizer]", "[optimizer]\nmax_iterations = 300")))
     out = tmp_path / "sweep"
     code, stdout, err = cli("sweep", path, "--durations", "10ns,15ns", "--out", out,
                             "--quiet", "--workers", 2)
