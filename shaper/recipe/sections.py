@@ -55,7 +55,7 @@ def build(r: _Reader, raw: dict, path: str | None, sha256: str) -> Recipe:
     fits_in_memory(r, system, pulse, len(scales), export,
                     line.oversample if filtered else 1,
                     lab_phases=len(verdict.phases_rad()) if optimizer.lab_frame == "exact"
-                    else 0)
+                    else 0, corrected=optimizer.lab_frame == "corrected")
     fits_in_time(r, system, pulse, len(scales), export,
                  line.oversample if filtered else 1, verdict)
     if optimizer.open_system and not system.collapse:
