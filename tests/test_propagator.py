@@ -192,7 +192,7 @@ def test_bench_rows_a_user_feels_run_whole_commands(tmp_path):
     # ratios of things measured in this run (the numbers live in results/bench.md)
     from shaper.jobs.bench_user import objective_rows, startup_rows
     recipe = ROOT / "recipes" / "demo-x180.toml"
-    objectives = objective_rows(recipe, repeats=1)
+    objectives = objective_rows(recipe, repeats=1, turns=1)
     assert [r["what"] for r in objectives] == [
         "ensemble of 9 (detunings x scales) / nominal", "open system (T1, T2) / closed",
         "lab frame to second order, 16 carrier phases (the default) / rotating frame "

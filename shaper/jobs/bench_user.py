@@ -166,10 +166,10 @@ def _objective_call(raw: dict):
     return call
 
 
-def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
+def objective_rows(recipe: Path, *, repeats: int, turns: int = 5) -> list[dict]:
     """Value and gradient of the recipe's objective: nominal, with a 3 x 3 ensemble, and
-    as an open system (T1/T2 added), timed in turns so that both sides of a ratio share
-    the machine's moods."""
+    as an open system (T1/T2 added), timed in ``turns`` rounds so that both sides of a
+    ratio share the machine's moods (the best of each side is kept)."""
     import tomllib
 
     with open(recipe, "rb") as f:
@@ -180,7 +180,7 @@ def objective_rows(recipe: Path, *, repeats: int) -> list[dict]:
     near = {k: v for k, v in variants.items() if k.startswith("near ")}
     calls = {name: _objective_call(r) for name, r in variants.items()}
     best = {name: [] for name in calls}
-    for _ in range(5):
+    for _ in range(turns):
         for name, call in calls.items():
             best[name].append(1e3 * best_time(call, repeats))
     ms = {name: min(times) for name, times in best.items()}

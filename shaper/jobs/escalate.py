@@ -107,12 +107,20 @@ def escalate(recipe: Recipe, result: Result, options, *, say=None,
     steps: list[dict] = []
     if not recipe.optimizer.escalate:
         return result, waveform, playback, steps
-    while not playback.verdict().met and _met_own(result):
-        step = next_model(recipe, playback, [s["model"] for s in steps])
+    while _met_own(result):
+        tried = [s["model"] for s in steps]
+        # more levels that already miss decide the next step before the lab frame's
+        # minutes-long figures are computed (they would be computed again after it)
+        step = _levels_first(recipe, playback, tried)
+        if step is None:
+            if playback.verdict().met:
+                break
+            step = next_model(recipe, playback, tried)
         if step is None or (deadline is not None and time.monotonic() > deadline):
             break
         name, model = step
-        before = playback.verdict().judged
+        cheap = name == "levels" and "lab" not in playback.__dict__  # lab not computed
+        before = _figures(playback.more_levels.nominal) if cheap else playback.verdict().judged
         if isinstance(model, RecipeError):  # said and recorded, the result so far kept
             why_not = model.detail
             if say is not None:
@@ -133,7 +141,9 @@ def escalate(recipe: Recipe, result: Result, options, *, say=None,
         candidate = replace(again, recipe=recipe)
         new_waveform, new_playback = judged(recipe, candidate, progress)
         after = new_playback.verdict()
-        kept = _closer(after.judged, before, recipe)
+        # compared in the model ``before`` was read in
+        kept = _closer(_figures(new_playback.more_levels.nominal) if cheap else after.judged,
+                       before, recipe)
         if kept:  # a step that judged worse leaves the result before it in place
             result, waveform, playback = candidate, new_waveform, new_playback
         steps.append({**record, "iterations": again.best.iterations,
@@ -151,6 +161,22 @@ def _closer(after: dict, before: dict, recipe: Recipe) -> bool:
     def worst(figures: dict) -> float:
         return max((figures[k] / limits[k] for k in limits if k in figures), default=0.0)
     return worst(after) <= worst(before)
+
+
+def _levels_first(recipe: Recipe, playback: Playback, tried: list[str]):
+    """The ``levels`` step when the file already misses on more levels in the rotating
+    frame (cheap), else None."""
+    more = playback.more_levels
+    if more is None or "levels" in tried:
+        return None
+    limits = recipe.optimizer.target_infidelity, recipe.optimizer.target_leakage
+    if more.nominal.infidelity <= limits[0] and more.nominal.leakage <= limits[1]:
+        return None
+    return "levels", _built(recipe, recipe.verdict.extra_levels, recipe.optimizer.lab_frame)
+
+
+def _figures(simulation) -> dict:
+    return {"infidelity": float(simulation.infidelity), "leakage": float(simulation.leakage)}
 
 
 def _met_own(result: Result) -> bool:
