@@ -239,3 +239,20 @@ def test_numbers_are_quoted_as_written_without_float_noise(tmp_path):
                        "--full-scale", "60MHz", "--levels", "39")
     # 39 levels + the verdict's 2 extra pass the charge model's 40 bound levels (the default)
     refused(code, err, "--levels 39", "levels = 39", "41")
+
+
+def test_a_microsecond_typo_is_refused_not_a_crash(tmp_path):
+    # found by a new user's trial: "16 us" for "16 ns" on a 35 MHz X/2 (40000 samples); the
+    # optimiser's first evaluation is not finite, and the run ended in an internal error
+    # (exit 4) instead of saying which keys to check
+    recipe = tmp_path / "typo-us.toml"
+    recipe.write_text('name = "typo-us"\n[system]\nmodel = "transmon"\nlevels = 4\n'
+                      'qubit_frequency = "5.634 GHz"\nanharmonicity = "-188 MHz"\n'
+                      '[gate]\ntarget = "X/2"\nvirtual_z = true\n[pulse]\n'
+                      'duration = "16 us"\nsample_rate = "2.5 GS/s"\nmax_rabi = "35 MHz"\n'
+                      '[optimizer]\ntarget_infidelity = 1e-5\ntarget_leakage = 1e-6\n'
+                      '[export]\ndac_bits = 14\ngranularity = 8\n')
+    code, out, err = cli("optimize", recipe, "--out", tmp_path / "out", "--quiet")
+    assert code in (0, 1, 2) and "internal error" not in err and "Traceback" not in err, err
+    if code == 2:
+        assert "typo-us.toml" in err and "pulse.duration" in err, err

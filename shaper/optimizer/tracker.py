@@ -213,6 +213,13 @@ class Tracker:
         self.saved_at, self.saved_iteration = time.monotonic(), self.iteration
 
     def result(self) -> StartResult:
+        if self.best is None:  # not one finite evaluation: say why, never a bare crash
+            from shaper.errors import InputError
+            raise InputError(f"{self.s.recipe.path or self.s.recipe.name}: the optimiser "
+                             f"found no finite cost from its first guess ("
+                             f"{self.detail or 'no evaluation completed'}); check "
+                             f"pulse.duration and pulse.max_rabi (units: ns, us), or give "
+                             f"optimizer.initial")
         value, x, parts, infid, leak = self.best
         return StartResult(seed=self.s.seed, params=x, cost=value, parts=parts,
                            infidelity=infid, leakage=leak, iterations=self.iteration,
