@@ -94,6 +94,39 @@ def quick_text(text: str, *, chip: bool = False) -> str:
     return text
 
 
+# a two-transmon chip for the hostile-input tests (test_hostile.py, hostile_cases.py) and its
+# coupling
+HOSTILE_CHIP = """name = "hostile"
+[gates]
+single = ["X"]
+single_durations = "10ns,12ns"
+
+[template.optimizer]
+max_iterations = 20
+
+[[qubit]]
+name = "qa"
+frequency = "5.0 GHz"
+anharmonicity = "-220 MHz"
+max_rabi = "60 MHz"
+levels = 3
+
+[[qubit]]
+name = "qb"
+frequency = "5.5 GHz"
+anharmonicity = "-210 MHz"
+max_rabi = "60 MHz"
+flux = true
+flux_range = ["-900 MHz", 0]
+levels = 3
+"""
+HOSTILE_PAIR = """
+[[coupling]]
+between = ["qa", "qb"]
+strength = "12 MHz"
+"""
+
+
 def expm_product(drift, controls, samples, dt) -> np.ndarray:
     """U = U_{n-1} ... U_0 with U_j = scipy.linalg.expm(-2 pi i dt H_j) (README, "Conventions")."""
     u = np.eye(drift.shape[0], dtype=complex)

@@ -13,6 +13,8 @@ import re
 import tomllib
 from pathlib import Path
 
+from helpers import HOSTILE_CHIP, HOSTILE_PAIR
+
 ROOT = Path(__file__).resolve().parents[1]
 RECIPES = sorted((ROOT / "recipes").glob("*.toml"))
 
@@ -180,33 +182,7 @@ def recipe_cases():
                            key.format(i=i), reason)
 
 
-CHIP = """name = "hostile"
-[gates]
-single = ["X"]
-single_durations = "10ns,12ns"
-[template.optimizer]
-max_iterations = 20
-
-[[qubit]]
-name = "qa"
-frequency = "5.0 GHz"
-anharmonicity = "-220 MHz"
-max_rabi = "60 MHz"
-levels = 3
-
-[[qubit]]
-name = "qb"
-frequency = "5.5 GHz"
-anharmonicity = "-210 MHz"
-max_rabi = "60 MHz"
-flux = true
-flux_range = ["-900 MHz", 0]
-levels = 3
-
-[[coupling]]
-between = ["qa", "qb"]
-strength = "12 MHz"
-"""
+CHIP = HOSTILE_CHIP + HOSTILE_PAIR
 
 # (id, path in the chip file, value, the key the message names, a word of the reason): a
 # chip's qubit is named by its name, the template by template.<section>.<key>

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import demo_text, verdict_code
+from helpers import HOSTILE_CHIP, HOSTILE_PAIR, demo_text, verdict_code
 from helpers import run_cli as cli
 
 from shaper.errors import RecipeError
@@ -23,35 +23,7 @@ from shaper.recipe.chip import load_chip
 
 ROOT = Path(__file__).resolve().parents[1]
 
-CHIP = """name = "hostile"
-[gates]
-single = ["X"]
-single_durations = "10ns,12ns"
-
-[template.optimizer]
-max_iterations = 20
-
-[[qubit]]
-name = "qa"
-frequency = "5.0 GHz"
-anharmonicity = "-220 MHz"
-max_rabi = "60 MHz"
-levels = 3
-
-[[qubit]]
-name = "qb"
-frequency = "5.5 GHz"
-anharmonicity = "-210 MHz"
-max_rabi = "60 MHz"
-flux = true
-flux_range = ["-900 MHz", 0]
-levels = 3
-"""
-PAIR = """
-[[coupling]]
-between = ["qa", "qb"]
-strength = "12 MHz"
-"""
+CHIP, PAIR = HOSTILE_CHIP, HOSTILE_PAIR
 
 
 def gates(line: str) -> str:

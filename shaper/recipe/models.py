@@ -275,23 +275,6 @@ def check_more_levels(r: _Reader, t: dict, system: System, extra: int) -> None:
            f"keep at most {most - extra} levels, or fewer verdict.extra_levels")
 
 
-def _couplings(r: _Reader, t: dict) -> list[tuple[str, str, float]]:
-    """``[[system.coupling]]``: ``(name_a, name_b, strength_hz)`` per table."""
-    couplings = []
-    for where, item in r.tables(t, "coupling", "system.coupling", "system.coupling"):
-        pair = item.get("between")
-        if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str)
-                                                                 for p in pair)):
-            r.fail(f"{where}.between", f"expected two transmon names, got {pair!r}")
-        g = r.number(item, "strength", f"{where}.strength", kind="frequency")
-        if abs(g) > MAX_COUPLING_HZ:
-            r.fail(f"{where}.strength", f"{format_quantity(g, 'Hz')} is above "
-                                        f"{format_quantity(MAX_COUPLING_HZ, 'Hz')}; transmon "
-                                        f"couplings are MHz to tens of MHz (check the unit)")
-        couplings.append((pair[0], pair[1], g))
-    return couplings
-
-
 def _drives(r: _Reader, t: dict, frame: float) -> list[tuple[str, str, float]]:
     """``[[system.drive]]``: ``(name, transmon, carrier_hz)`` per table, each carrier
     near the frame (``frame``, Hz)."""
