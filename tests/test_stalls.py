@@ -262,12 +262,13 @@ def test_a_long_lab_frame_verdict_is_alive_for_the_watchdog():
     from shaper.physics.lab_simulation import lab_unitary
 
     exits = []
-    with Watchdog(limit_s=1.0, factor=100.0, exit=exits.append, poll_s=10.0) as dog:
+    with Watchdog(limit_s=1000.0, factor=100.0, exit=exits.append, poll_s=10.0) as dog:
         dog.beat()
-        dog.last -= 0.9  # a moment before the limit
+        dog.last -= 500.0  # silent for half the limit
         drift = np.diag([0.0, 1e9])
         operators = np.array([[[0.0, 1.0], [1.0, 0.0]]])
-        lab_unitary(drift, operators, np.full((5000, 1), 1e7), 1e-12)  # many chunks
-        assert dog.silence_s() < 0.5 and dog.what == "evaluation"
+        lab_unitary(drift, operators, np.full((5000, 1), 1e7), 1e-12)
+        # the silence restarted (not a speed check: 500 s of margin), the phase kept
+        assert dog.silence_s() < 250.0 and dog.what == "evaluation"
     assert not exits
-    assert dog.limit() == pytest.approx(1.0)
+    assert dog.limit() == pytest.approx(1000.0)

@@ -41,33 +41,20 @@ def judged(recipe: Recipe, result: Result, progress=None) -> tuple[object, Playb
 
 
 def next_model(recipe: Recipe, playback: Playback, tried: list[str]) -> tuple[str, Recipe] | None:
-    """The model to optimise in next, as ``(name, recipe)``, or None: the first step of the
-    module docstring whose condition holds and that was not tried yet."""
+    """The lab-frame model to optimise in next, as ``(name, recipe)``, or None: steps 2 and
+    3 of the module docstring whose condition holds and that were not tried yet (step 1,
+    more levels, is :func:`_levels_first`)."""
     limits = recipe.optimizer.target_infidelity, recipe.optimizer.target_leakage
-
-    def over(sim) -> bool:
-        return not (sim.infidelity <= limits[0] and sim.leakage <= limits[1])
-
-    more = playback.more_levels
-    extra = recipe.verdict.extra_levels
-    if more is not None and "levels" not in tried and over(more.nominal) \
-            and (not over(playback.nominal) or _worse(more.nominal, playback.nominal)):
-        return "levels", _built(recipe, extra, recipe.optimizer.lab_frame)
     lab = playback.lab
     if lab is None or not (lab.infidelity > limits[0] or lab.leakage > limits[1]):
         return None
-    levels = extra if more is not None else 0
+    levels = recipe.verdict.extra_levels if playback.more_levels is not None else 0
     if recipe.optimizer.lab_frame == "off" and "lab frame (second order)" not in tried \
             and playback.corrected is not None and recipe.line.awg.stages:
         return "lab frame (second order)", _built(recipe, levels, "corrected")
     if "lab frame (exact)" not in tried:
         return "lab frame (exact)", _built(recipe, levels, "exact")
     return None
-
-
-def _worse(more, own) -> bool:
-    """More levels change the figures (by more than a factor of two): they matter."""
-    return more.infidelity > 2 * own.infidelity or more.leakage > 2 * abs(own.leakage)
 
 
 def _built(recipe: Recipe, extra: int, lab_frame: str) -> Recipe | RecipeError:
