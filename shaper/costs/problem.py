@@ -21,6 +21,7 @@ from shaper.physics.figures import Figures, gate_figures, project, state_figures
 from shaper.physics.lindblad import dissipator
 from shaper.physics.propagator import ordered_product, slice_unitaries
 from shaper.recipe import Recipe
+from shaper.signal.chain import cells_of
 from shaper.signal.pulses import Layout, make_layout
 
 
@@ -75,14 +76,15 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
     ``corrected``: a :class:`~shaper.signal.labdrive.CorrectedDrive`, the lab frame to
     second order, judged by a smooth maximum over its carrier phases.
     """
+    slopes = None
     if drive is not None:
-        samples = drive(samples)
+        samples, slopes = cells_of(drive, samples)
     if open_system:
         from shaper.physics.lindblad import open_figures
         return open_figures(problem.drift, problem.controls, samples,
                             problem.dt * problem.active, problem.noise, problem.computational,
                             problem.target, qubits=qubits, virtual_z=virtual_z,
-                            scalings=open_scalings)
+                            scalings=open_scalings, slopes=slopes)
     dt = (problem.dt * problem.active)[:, None, None]
     if corrected is not None:
         from shaper.physics.figures import (
@@ -93,7 +95,8 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
         )
         from shaper.signal.labdrive import smooth_worst
         u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
-                                            method=method, extra=corrected.extra(samples)))
+                                            method=method, extra=corrected.extra(samples),
+                                            slopes=slopes))
         # the frame angles found once without the kicks (which move them by about the
         # kick's size), then refined per phase from there in a few sweeps
         base = figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
@@ -113,7 +116,7 @@ def evaluate(samples: jax.Array, problem: Problem, *, qubits: int, is_gate: bool
                                  leakage=leakage(p), frame_before=before, frame_after=after)
         return smooth_worst(jax.vmap(one)(phases))
     u = ordered_product(slice_unitaries(problem.drift, problem.controls, samples, dt,
-                                        method=method))
+                                        method=method, slopes=slopes))
     return figures_of(u, problem, qubits=qubits, is_gate=is_gate, virtual_z=virtual_z)
 
 

@@ -34,8 +34,15 @@ from shaper.io import waveio
 from shaper.physics.lab_simulation import LabSimulation
 from shaper.physics.simulation import Simulation, simulate
 from shaper.recipe import Recipe
-from shaper.signal.chain import for_waveform, line_columns
+from shaper.signal.chain import extrapolated, for_waveform, line_columns
 from shaper.signal.mixer import Mixer
+
+
+def played_on(recipe: Recipe, chain, samples: np.ndarray, **flags) -> Simulation:
+    """The rotating-frame figures of ``samples`` through ``chain`` on its own slices (their
+    means and slopes: :meth:`shaper.signal.chain.Chain.cells`)."""
+    means, slopes = chain.cells(samples)
+    return simulate(recipe.system, recipe.target, means, chain.dt_s, slopes=slopes, **flags)
 
 
 class Playback:
@@ -66,8 +73,9 @@ class Playback:
         The chain includes the recipe's mixer and line unless ``mixer``/``line`` is False.
         Where it runs on sub-steps (an IF, a line, a carrier offset), the figures on ``s``
         and ``2 s`` sub-steps per sample are extrapolated (Richardson; the sub-step error
-        falls as 1/s^2), exact to about 1e-12 here; ``extrapolate=False`` gives the
-        figures on the chain's own ``s`` (what the optimiser saw).
+        falls as 1/s^4 with the slopes: :func:`shaper.signal.chain.extrapolated`);
+        ``extrapolate=False`` gives the figures on the chain's own ``s`` (what the
+        optimiser saw).
         """
         key = (line, mixer, extrapolate)
         if key not in self._played:
@@ -83,13 +91,12 @@ class Playback:
             return simulate(recipe.system, recipe.target, self.samples, chain.dt_s, **flags)
         steps = chain.steps
         if not extrapolate:
-            coarse = simulate(recipe.system, recipe.target, chain(self.samples), chain.dt_s,
-                              **flags)
+            coarse = played_on(recipe, chain, self.samples, **flags)
             return replace(coarse, populations=coarse.populations[:, ::steps])
-        coarse, fine = (simulate(recipe.system, recipe.target, c(self.samples), c.dt_s,
-                                 **flags) for c in (chain, chain.finer(2)))
-        fidelity = fine.fidelity + (fine.fidelity - coarse.fidelity) / 3
-        leak = fine.leakage + (fine.leakage - coarse.leakage) / 3
+        coarse, fine = (played_on(recipe, c, self.samples, **flags)
+                        for c in (chain, chain.finer(2)))
+        fidelity = extrapolated(coarse.fidelity, fine.fidelity)
+        leak = extrapolated(coarse.leakage, fine.leakage)
         return replace(fine, fidelity=fidelity, infidelity=1 - fidelity, leakage=leak,
                        populations=fine.populations[:, ::2 * steps])
 
@@ -266,9 +273,9 @@ class Playback:
             return None
         from shaper.physics.simulation import simulate_open
 
-        result = simulate_open(recipe.system, recipe.target, self.chain(self.samples),
-                               self.chain.dt_s, virtual_z=recipe.virtual_z,
-                               closed=self.nominal)
+        means, slopes = self.chain.cells(self.samples)
+        result = simulate_open(recipe.system, recipe.target, means, self.chain.dt_s,
+                               virtual_z=recipe.virtual_z, closed=self.nominal, slopes=slopes)
         output = self.output_block()
         return {**result.figures(), "coherence_times": recipe.system.coherence,
                 "over": {"file_s": output["file_s"], "ring_down_s": output["ring_down_s"],

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from shaper.signal.analog import FINE
-from shaper.signal.chain import for_waveform, ring_angle
+from shaper.signal.chain import extrapolated, for_waveform, ring_angle
 
 GUIDE_PHASES = 64  # carrier phases of the second-order model (each costs two kicks)
 
@@ -63,13 +63,13 @@ def second_order(playback) -> dict | None:
         return None
     phases = np.pi * np.arange(GUIDE_PHASES) / GUIDE_PHASES
     try:
-        runs = [simulate_corrected(recipe.system, recipe.target, c(play.samples), c.dt_s,
+        runs = [simulate_corrected(recipe.system, recipe.target, means, c.dt_s,
                                    phases_rad=phases, start_s=-c.start * c.period_s,
-                                   virtual_z=recipe.virtual_z)
-                for c in (chain, chain.finer(2))]
+                                   virtual_z=recipe.virtual_z, slopes=slopes)
+                for c in (chain, chain.finer(2)) for means, slopes in [c.cells(play.samples)]]
     except ValueError:
         return None
-    return {"phases_rad": phases, "figures": runs[1] + (runs[1] - runs[0]) / 3}
+    return {"phases_rad": phases, "figures": extrapolated(runs[0], runs[1])}
 
 
 def played_map(playback) -> dict:
@@ -83,9 +83,10 @@ def played_map(playback) -> dict:
     phase = None
     if playback.lab is not None and playback.corrected is not None:
         phase = playback.lab.phases_rad[int(np.argmax(playback.lab.infidelities))]
-    mapped = gate_map(recipe.system, recipe.target, chain(play.samples), chain.dt_s,
+    means, slopes = chain.cells(play.samples)
+    mapped = gate_map(recipe.system, recipe.target, means, chain.dt_s,
                       phase_rad=phase, start_s=-chain.start * chain.period_s,
-                      virtual_z=recipe.virtual_z)
+                      virtual_z=recipe.virtual_z, slopes=slopes)
     return {**mapped, "levels": list(recipe.system.dims),
             "computational": [int(i) for i in recipe.system.computational],
             "footprint_s": chain.played_samples(play.samples.shape[0]) * chain.period_s,

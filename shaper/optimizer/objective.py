@@ -25,7 +25,7 @@ from shaper.errors import InputError
 from shaper.physics._jax import device
 from shaper.physics.propagator import slice_unitaries
 from shaper.recipe import Recipe, digest
-from shaper.signal.chain import for_recipe
+from shaper.signal.chain import cells_of, for_recipe
 from shaper.signal.labdrive import CorrectedDrive, LabDrive, smooth_worst
 from shaper.signal.pulses import Layout, padded, to_samples
 
@@ -189,9 +189,12 @@ def _slices_program(layout, drive, method: str):
     @jax.jit
     def slices(params, problem):
         samples = to_samples(params, layout, problem.envelope)
-        samples = samples if drive is None else drive(samples)
+        slopes = None
+        if drive is not None:
+            samples, slopes = cells_of(drive, samples)
         dt = (problem.dt * problem.active)[:, None, None]
-        return slice_unitaries(problem.drift, problem.controls, samples, dt, method=method)
+        return slice_unitaries(problem.drift, problem.controls, samples, dt, method=method,
+                               slopes=slopes)
     return slices
 
 

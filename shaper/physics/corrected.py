@@ -17,18 +17,24 @@ import numpy as np
 from shaper.physics._jax import device
 from shaper.physics.figures import apply_frame, average_gate_fidelity, gate_figures, leakage
 from shaper.physics.figures import project as project_subspace
-from shaper.physics.propagator import ordered_product, slice_unitaries, taylor_exponential
+from shaper.physics.propagator import (
+    ordered_product,
+    slice_unitaries,
+    slope_term,
+    taylor_exponential,
+)
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
 
 
 def simulate_corrected(system: System, target: Target, samples: np.ndarray, dt: float, *,
                        phases_rad: np.ndarray, start_s: float,
-                       virtual_z: bool = False) -> np.ndarray:
+                       virtual_z: bool = False, slopes: np.ndarray | None = None) -> np.ndarray:
     """``(P, 2)`` infidelity and leakage at every carrier phase of the lab frame to second
     order (:mod:`shaper.physics.effective`): one propagation with the effective term, then
     the two kicks per phase. ``samples`` ``(n, k)`` on slices of ``dt`` from ``start_s``
-    (seconds from the pulse start)."""
+    (seconds from the pulse start); ``slopes``: their rates of change across each slice
+    (:func:`shaper.physics.propagator.slope_term`)."""
     from shaper.physics.effective import correction_for
 
     corr = correction_for(system, float(np.max(np.abs(samples), initial=0.0)))
@@ -39,12 +45,13 @@ def simulate_corrected(system: System, target: Target, samples: np.ndarray, dt: 
                      device(system.computational),
                      device(target.unitary if target.is_gate else np.zeros((dc, dc)), complex),
                      device(np.asarray(phases_rad, float), float), corr, start_s,
+                     None if slopes is None else device(np.asarray(slopes, float), float),
                      qubits=qubits, virtual_z=virtual_z)
     return np.asarray(out)
 
 
-def _corrected(drift, controls, samples, dt, computational, target, phases, corr, start_s, *,
-               qubits, virtual_z):
+def _corrected(drift, controls, samples, dt, computational, target, phases, corr, start_s,
+               slopes, *, qubits, virtual_z):
     """One compiled program per layout (the correction's arrays are arguments: a second
     file on the same system is not traced again)."""
     from dataclasses import replace as swap
@@ -52,15 +59,16 @@ def _corrected(drift, controls, samples, dt, computational, target, phases, corr
     from shaper.physics.effective import effective_term, kick
 
     arrays = (corr.basis, corr.static, corr.raise_, corr.lower, corr.plus, corr.minus)
-    key = (qubits, virtual_z, corr.frame_hz, corr.iq_columns.tobytes(),
+    key = (qubits, virtual_z, slopes is None, corr.frame_hz, corr.iq_columns.tobytes(),
            corr.orders.tobytes(), tuple(a.shape for a in arrays))
     if key not in _CORRECTED:
         def program(drift, controls, samples, dt, computational, target, phases, start,
-                    arrays):
+                    arrays, slopes):
             c = swap(corr, basis=arrays[0], static=arrays[1], raise_=arrays[2],
                      lower=arrays[3], plus=arrays[4], minus=arrays[5])
             extra = effective_term(c, samples)
-            u = ordered_product(slice_unitaries(drift, controls, samples, dt, extra=extra))
+            u = ordered_product(slice_unitaries(drift, controls, samples, dt, extra=extra,
+                                                slopes=slopes))
             f, total = c.frame_hz, dt * samples.shape[0]
 
             # frame angles found once, without the kicks (they move them by about the
@@ -83,14 +91,15 @@ def _corrected(drift, controls, samples, dt, computational, target, phases, corr
         _CORRECTED[key] = jax.jit(program)
     return _CORRECTED[key](drift, controls, samples, dt, computational, target, phases,
                            start_s, tuple(device(a, complex if np.iscomplexobj(a) else float)
-                                          for a in arrays))
+                                          for a in arrays), slopes)
 
 
 _CORRECTED: dict = {}  # compiled corrected-lab programs, by layout
 
 
 def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
-             phase_rad: float | None, start_s: float, virtual_z: bool) -> dict:
+             phase_rad: float | None, start_s: float, virtual_z: bool,
+             slopes: np.ndarray | None = None) -> dict:
     """A played file's map on every level, for predicted benchmarking
     (:mod:`shaper.physics.benchmarking`): the rotating frame with, where ``phase_rad`` is
     given, the lab frame's second-order term and kicks at that carrier phase
@@ -110,7 +119,13 @@ def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
     samples = np.asarray(samples, float)
     corr = correction_for(system, float(np.max(np.abs(samples), initial=0.0))) \
         if phase_rad is not None else None
-    extra = None if corr is None else effective_term(corr, samples)
+    extra = None if corr is None else np.asarray(effective_term(corr, samples))
+    if slopes is not None:  # the controls' change across each slice, as a term of its own
+        mean = system.drift + np.einsum("nk,kij->nij", samples, system.controls) \
+            + (0 if extra is None else extra)
+        term = np.asarray(slope_term(device(mean, complex), device(system.controls, complex),
+                                     device(np.asarray(slopes, float), float), dt))
+        extra = term if extra is None else extra + term
     ends = [np.eye(system.dimension), np.eye(system.dimension)]
     if corr is not None:
         f, total = corr.frame_hz, dt * samples.shape[0]

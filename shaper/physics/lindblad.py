@@ -31,7 +31,7 @@ from jax.typing import ArrayLike
 
 from shaper.errors import InputError
 from shaper.physics import _jax  # noqa: F401
-from shaper.physics.propagator import ordered_product
+from shaper.physics.propagator import ordered_product, slope_term
 
 
 def hamiltonian_superoperator(h: ArrayLike) -> jax.Array:
@@ -110,14 +110,26 @@ def scalings_for(drift, controls, samples, dt, noise) -> int:
 
 def slice_channels(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike,
                    noise: ArrayLike, *, scalings: int | None = None,
-                   extra: ArrayLike | None = None) -> jax.Array:
+                   extra: ArrayLike | None = None,
+                   slopes: ArrayLike | None = None) -> jax.Array:
     """``exp(G_j dt_j)`` of every slice, ``(n, d^2, d^2)``; ``noise`` is the dissipator.
 
     ``scalings`` (static) must cover every slice's generator (:func:`norm_bound`,
     :func:`squarings`); None: taken from the samples, which must then be concrete.
     ``extra``: ``(n, d, d)`` Hermitian, Hz, added to each slice's Hamiltonian (the lab
-    frame's second-order term, :mod:`shaper.physics.effective`).
+    frame's second-order term, :mod:`shaper.physics.effective`). ``slopes``: the controls'
+    rates of change across each slice; their fourth-order term
+    (:func:`shaper.physics.propagator.slope_term`) joins the Hamiltonian (its commutator
+    with the dissipator, smaller by the decay rate times the slice, is left out).
     """
+    if slopes is not None:
+        controls = jnp.asarray(controls)
+        mean = jnp.asarray(drift) + jnp.einsum("nk,kij->nij",
+                                               jnp.asarray(samples).astype(controls.dtype),
+                                               controls)
+        mean = mean if extra is None else mean + extra
+        term = slope_term(mean, controls, slopes, dt)
+        extra = term if extra is None else extra + term
     g0 = hamiltonian_superoperator(drift) + noise
     gc = jax.vmap(hamiltonian_superoperator)(jnp.asarray(controls))
     gens = g0 + jnp.einsum("nk,kij->nij", jnp.asarray(samples).astype(gc.dtype), gc)
@@ -134,7 +146,8 @@ def slice_channels(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt
 
 def propagate_open(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike,
                    noise: ArrayLike, *, scalings: int | None = None,
-                   extra: ArrayLike | None = None) -> jax.Array:
+                   extra: ArrayLike | None = None,
+                   slopes: ArrayLike | None = None) -> jax.Array:
     """The total channel ``S = S_{n-1} ... S_0`` of a piecewise-constant pulse (d^2 x d^2).
 
     Args: as :func:`shaper.physics.propagator.propagate`, plus ``noise``, the ``(d^2, d^2)``
@@ -142,7 +155,7 @@ def propagate_open(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt
     ``conj(U) kron U`` of the unitary propagator.
     """
     return ordered_product(slice_channels(drift, controls, samples, dt, noise,
-                                          scalings=scalings, extra=extra))
+                                          scalings=scalings, extra=extra, slopes=slopes))
 
 
 def channel_block(s: ArrayLike, computational: ArrayLike, d: int) -> jax.Array:
@@ -230,7 +243,7 @@ def best_channel_angles(block: ArrayLike, target: ArrayLike, qubits: int, *,
 
 
 def open_figures(drift, controls, samples, dt, noise, computational, target, *, qubits: int,
-                 virtual_z: bool, scalings: int | None = None):
+                 virtual_z: bool, scalings: int | None = None, slopes=None):
     """Channel fidelity, leakage and frame angles of a pulse on an open system.
 
     Returns:
@@ -240,7 +253,7 @@ def open_figures(drift, controls, samples, dt, noise, computational, target, *, 
     from shaper.physics.figures import Figures, qubit_bits
 
     d = jnp.asarray(drift).shape[-1]
-    s = propagate_open(drift, controls, samples, dt, noise, scalings=scalings)
+    s = propagate_open(drift, controls, samples, dt, noise, scalings=scalings, slopes=slopes)
     block = channel_block(s, computational, d)
     zeros = jnp.zeros(qubits)
     if virtual_z:

@@ -99,20 +99,50 @@ def _pade_exponential(phases: jax.Array) -> jax.Array:
 
 
 def slice_unitaries(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike,
-                    *, method: str = "eigh", extra: ArrayLike | None = None) -> jax.Array:
+                    *, method: str = "eigh", extra: ArrayLike | None = None,
+                    slopes: ArrayLike | None = None) -> jax.Array:
     """The propagator of every slice, ``(n, d, d)``, first slice first.
 
     Args: as :func:`propagate`; ``extra``: ``(n, d, d)`` Hermitian, Hz, added to each
     slice's Hamiltonian (a term that is not linear in the controls, such as the lab
-    frame's second-order correction, :mod:`shaper.physics.effective`).
+    frame's second-order correction, :mod:`shaper.physics.effective`); ``slopes``: each
+    control's rate of change across each slice (:func:`slope_term`).
     """
     hamiltonians = drift + jnp.einsum("nk,kij->nij", samples.astype(controls.dtype), controls)
     if extra is not None:
         hamiltonians = hamiltonians + extra
+    if slopes is not None:
+        hamiltonians = hamiltonians + slope_term(hamiltonians, controls, slopes, dt)
     phases = hamiltonians * dt
     if method == "eigh":
         return cycle_exponential(phases)
     return _pade_exponential(phases)
+
+
+def slope_term(hamiltonians: ArrayLike, controls: ArrayLike, slopes: ArrayLike,
+               dt: ArrayLike) -> jax.Array:
+    """The fourth-order Magnus term of controls that change across their slices, Hz.
+
+    A slice whose Hamiltonian is ``Hbar + (t - t_mid) Vdot`` over ``h`` seconds
+    (``Hbar``: the slice's mean, ``hamiltonians``; ``Vdot = sum_k slopes[:, k]
+    controls[k]``, Hz/s) has, to fourth order in ``h``, the propagator
+    ``exp(-2 pi i h (Hbar + K))`` with ``K = -i (pi h^2 / 6) [Vdot, Hbar]`` (Hermitian).
+    Holding the mean alone (``K = 0``) is second order, and its error grows with the
+    frame's transition frequencies times ``h``: on a 6x6-level cross-resonance pair whose
+    transitions reach 1.3 GHz from the frame, 2 slices per 2.4 GS/s sample put the
+    leakage 20x low; with ``K`` it is within 1 % there (README, "Slices").
+
+    References:
+        The fourth-order Magnus integrator with the moments of ``A(t) = -2 pi i H(t)``:
+        ``Omega = B0 + [B1, B0]``, ``B0 = int A``, ``B1 = (1/h) int (t - t_mid) A``
+        (Blanes, Casas and Ros, BIT 40, 434 (2000); Blanes, Casas, Oteo and Ros,
+        Phys. Rep. 470, 151 (2009), section 5). With a linear slope, ``B1 = -2 pi i
+        (h^2 / 12) Vdot``, and ``[B1, B0] = -2 pi i h K``.
+    """
+    vdot = jnp.einsum("nk,kij->nij", jnp.asarray(slopes).astype(controls.dtype), controls)
+    h = jnp.reshape(jnp.asarray(dt), (-1, 1, 1))
+    return (-1j * jnp.pi / 6) * h * h * (_matmul(vdot, hamiltonians)
+                                         - _matmul(hamiltonians, vdot))
 
 
 def ordered_product(unitaries: jax.Array) -> jax.Array:
@@ -126,7 +156,8 @@ def ordered_product(unitaries: jax.Array) -> jax.Array:
 
 
 def propagate(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: ArrayLike, *,
-              method: str = "eigh", history: bool = False) -> jax.Array:
+              method: str = "eigh", history: bool = False,
+              slopes: ArrayLike | None = None) -> jax.Array:
     """The total propagator of a piecewise-constant pulse.
 
     Args:
@@ -138,6 +169,8 @@ def propagate(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: Arr
         method: ``"eigh"`` (default, fastest measured) or ``"pade"``.
         history: if True, return the ``(n + 1, d, d)`` products after 0, 1, ..., n
             slices (the first is the identity) instead of the total.
+        slopes: ``(n, k)`` Hz/s, each control's rate of change across its slice, where
+            ``samples`` are the slices' means of a changing output (:func:`slope_term`).
 
     Returns:
         ``(d, d)`` unitary, or ``(n + 1, d, d)`` with ``history=True``.
@@ -156,7 +189,8 @@ def propagate(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt: Arr
                [1., 0.]])
     """
     drift, controls, samples = check_arrays(drift, controls, samples, dt, method=method)
-    unitaries = slice_unitaries(drift, controls, samples, dt, method=method)
+    unitaries = slice_unitaries(drift, controls, samples, dt, method=method,
+                                slopes=None if slopes is None else jnp.asarray(slopes, float))
     if not history:
         return ordered_product(unitaries)
     products = jax.lax.associative_scan(lambda early, late: late @ early, unitaries)

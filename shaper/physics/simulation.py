@@ -49,8 +49,11 @@ class Simulation:
 
 
 def simulate(system: System, target: Target, samples: np.ndarray, dt: float, *,
-             virtual_z: bool = False, method: str = "eigh") -> Simulation:
-    """Simulate ``samples`` ``(n, k)`` Hz on ``system`` and score them against ``target``.
+             virtual_z: bool = False, method: str = "eigh",
+             slopes: np.ndarray | None = None) -> Simulation:
+    """Simulate ``samples`` ``(n, k)`` Hz on ``system`` and score them against ``target``
+    (``slopes``: their rates of change across each slice, Hz/s, where the samples are the
+    slices' means of a changing output: :func:`shaper.physics.propagator.slope_term`).
 
     One compiled program per shape (propagation, populations and figures together), so a
     report or a check does not run the propagator operation by operation.
@@ -69,6 +72,7 @@ def simulate(system: System, target: Target, samples: np.ndarray, dt: float, *,
         device(target.unitary if target.is_gate else np.zeros((dc, dc)), complex),
         device(zeros if target.is_gate else target.initial, complex),
         device(zeros if target.is_gate else target.final, complex),
+        None if slopes is None else device(np.asarray(slopes, float), float),
         method=method, qubits=qubits, virtual_z=virtual_z, is_gate=target.is_gate)
     fidelity = float(fig.fidelity)
     return Simulation(fidelity=fidelity, infidelity=1.0 - fidelity, leakage=float(fig.leakage),
@@ -78,9 +82,10 @@ def simulate(system: System, target: Target, samples: np.ndarray, dt: float, *,
 
 
 @functools.partial(jax.jit, static_argnames=("method", "qubits", "virtual_z", "is_gate"))
-def _run(drift, controls, samples, dt, computational, target, initial, final, *, method,
-         qubits, virtual_z, is_gate):
-    history = propagate(drift, controls, samples, dt, method=method, history=True)
+def _run(drift, controls, samples, dt, computational, target, initial, final, slopes, *,
+         method, qubits, virtual_z, is_gate):
+    history = propagate(drift, controls, samples, dt, method=method, history=True,
+                        slopes=slopes)
     u = history[-1]
     if is_gate:
         fig = gate_figures(project_subspace(u, computational), target, qubits=qubits,
@@ -113,7 +118,8 @@ class OpenSimulation:
 
 
 def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float, *,
-                  virtual_z: bool = False, closed: Simulation | None = None) -> OpenSimulation:
+                  virtual_z: bool = False, closed: Simulation | None = None,
+                  slopes: np.ndarray | None = None) -> OpenSimulation:
     """The channel figures of ``samples`` on ``system`` with its collapse operators.
 
     ``closed``: the closed-system simulation of the same samples, if already made.
@@ -128,13 +134,15 @@ def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float
                          "the open system")
     if not target.is_gate:
         raise InputError("open-system figures are those of a gate; this target is a state")
-    closed = closed or simulate(system, target, samples, dt, virtual_z=virtual_z)
+    closed = closed or simulate(system, target, samples, dt, virtual_z=virtual_z,
+                                slopes=slopes)
     qubits = max(1, int(round(np.log2(len(system.computational)))))
     noise = dissipator(system.collapse, system.dimension)
     samples = np.asarray(samples, float)
     fig = _open(device(system.drift, complex), device(system.controls, complex),
                 device(samples, float), device(dt, float), device(noise, complex),
                 device(system.computational), device(target.unitary, complex),
+                None if slopes is None else device(np.asarray(slopes, float), float),
                 qubits=qubits, virtual_z=virtual_z,
                 scalings=scalings_for(system.drift, system.controls, samples, dt, noise))
     fidelity = float(fig.fidelity)
@@ -146,8 +154,8 @@ def simulate_open(system: System, target: Target, samples: np.ndarray, dt: float
 
 
 @functools.partial(jax.jit, static_argnames=("qubits", "virtual_z", "scalings"))
-def _open(drift, controls, samples, dt, noise, computational, target, *, qubits, virtual_z,
-          scalings):
+def _open(drift, controls, samples, dt, noise, computational, target, slopes, *, qubits,
+          virtual_z, scalings):
     from shaper.physics.lindblad import open_figures
     return open_figures(drift, controls, samples, dt, noise, computational, target,
-                        qubits=qubits, virtual_z=virtual_z, scalings=scalings)
+                        qubits=qubits, virtual_z=virtual_z, scalings=scalings, slopes=slopes)
