@@ -101,3 +101,28 @@ def test_a_model_this_machine_cannot_hold_is_skipped_and_the_file_kept(tmp_path,
     assert not out.report["targets"]["met"]
     assert (tmp_path / "run" / "fast.csv").exists()
     assert "not optimising on the levels" in (tmp_path / "run" / "run.log").read_text()
+
+
+def test_a_run_that_converged_between_the_targets_and_its_margin_is_escalated():
+    # the optimiser stopped "converged" at 4.4e-5 (targets 1e-4, margin 10) on the 200 ns
+    # cross-resonance CNOT while 6 levels judged 3e-4: that run met the targets in its own
+    # model and must go on; one over the targets must not (the next model cannot do
+    # better). The step then works on the verdict's own model, with a margin of at most 2.
+    from types import SimpleNamespace
+
+    from shaper.jobs.escalate import ESCALATION_MARGIN, _met_own, _on_levels
+    from shaper.recipe import load_recipe
+
+    recipe = load_recipe(pinned(FAST))
+
+    def result(infidelity, leakage, reason="no 0.1 % improvement"):
+        best = SimpleNamespace(stop_reason=reason, infidelity=infidelity, leakage=leakage,
+                               member_infidelities=None, member_leakages=None, parts={})
+        return SimpleNamespace(recipe=recipe, best=best)
+    assert _met_own(result(4.4e-5, 3.7e-5))
+    assert not _met_own(result(4.4e-5, 2e-4))
+    assert not _met_own(result(1.2e-4, 1e-6))
+    assert _met_own(result(1.0, 1.0, "met in the optimiser's model"))
+    step = _on_levels(recipe, 2, "off")
+    assert step.system.dims == (4,) and step.optimizer.margin == ESCALATION_MARGIN == 2
+    assert recipe.optimizer.margin == 10
