@@ -209,15 +209,16 @@ def _print_summary(v: dict) -> None:
         print(text)
     if any(v["frame_after_rad"]) or any(v["frame_before_rad"]):
         print(f"  virtual Z: before {v['frame_before_rad']} rad, after {v['frame_after_rad']} rad")
+    ends = (0, -1)
     print(f"  d(infidelity)/d(detuning) {s['d_infidelity_d_detuning_per_mhz']:.3e} per MHz; "
-          f"at +-{max(s['detuning_hz']) / 1e6:g} MHz: {s['infidelity_vs_detuning'][0]:.3e}, "
-          f"{s['infidelity_vs_detuning'][-1]:.3e}")
+          + ", ".join(f"at {s['detuning_hz'][i] / 1e6:+g} MHz {s['infidelity_vs_detuning'][i]:.3e}"
+                      for i in ends))
     print(f"  d(infidelity)/d(amplitude) {s['d_infidelity_d_scale_per_percent']:.3e} per %; "
-          f"at +-{100 * (max(s['amplitude_scale']) - 1):.3g} %: "
-          f"{s['infidelity_vs_scale'][0]:.3e}, {s['infidelity_vs_scale'][-1]:.3e}")
+          + ", ".join(f"at {100 * (s['amplitude_scale'][i] - 1):+.3g} % "
+                      f"{s['infidelity_vs_scale'][i]:.3e}" for i in ends))
     t = v["targets"]
     from shaper.cli.text import coherence_lines
-    for text in coherence_lines(v.get("open_system")):
+    for text in coherence_lines(v.get("open_system"), t["infidelity"]):
         print(text)
     for text in line_summary(v.get("line")):
         print(text)

@@ -74,8 +74,10 @@ def _run(args: argparse.Namespace) -> int:
                       force=args.force, predistort=args.predistort,
                       codes=True if args.codes else None)
     run_fig = report["at_run_rate"]
+    how = report["resampling"]
+    how = "no resampling" if how == "none" else f"resampled: {how}"
     print(f"exported {report['samples']} samples at {report['sample_rate_hz'] / 1e9:g} GS/s "
-          f"({report['resampling']}), {report['dac_bits']}-bit, IF "
+          f"({how}), {report['dac_bits']}-bit, IF "
           f"{report['if_frequency_hz'] / 1e6:g} MHz: {', '.join(report['files'])} in {args.out}")
     print(f"  as played, judged: infidelity {report['infidelity']:.3e}, leakage "
           f"{report['leakage']:.3e} ({report['judged_on']}); the run at its own rate, "

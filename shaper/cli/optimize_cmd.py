@@ -173,7 +173,7 @@ def _print_summary(recipe, output, command_s: float) -> None:
     print(judged_line(recipe.name, r, f" on the exported {r['samples']} samples, "
                                       f"{recipe.export.dac_bits}-bit DAC,"))
     for text in (trust_summary(r.get("trust"), r.get("before_quantisation"))
-                 + coherence_lines(r.get("open_system"))
+                 + coherence_lines(r.get("open_system"), recipe.optimizer.target_infidelity)
                  + line_summary(r.get("line"), r.get("mixer"))):
         print(text)
     print(f"the optimiser stopped: {reason} after {r['optimizer']['iterations']} iterations; "

@@ -76,9 +76,11 @@ def judged_line(name: str, report: dict, what: str = "") -> str:
             f"{report['leakage']:.3e}{what} ({report.get('judged_on') or 'as exported'})")
 
 
-def coherence_lines(open_system: dict | None) -> list[str]:
+def coherence_lines(open_system: dict | None, target: float | None = None) -> list[str]:
     """With T1/T2 given: the coherence times and the error budget (the pulse's own error
-    and what decay and dephasing add), as a report's ``open_system`` holds them."""
+    and what decay and dephasing add), as a report's ``open_system`` holds them; with the
+    infidelity ``target``, a line when decoherence alone puts the channel over it (the
+    verdict judges the pulse, which T1/T2 do not change)."""
     if not open_system:
         return []
     times = ", ".join(
@@ -93,4 +95,9 @@ def coherence_lines(open_system: dict | None) -> list[str]:
     return [f"  with decoherence: infidelity {open_system['infidelity']:.3e} = coherent "
             f"{open_system['coherent_error']:.3e} (the pulse) + incoherent "
             f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}"
-            f"{span}); leakage {open_system['leakage']:.3e}"]
+            f"{span}); leakage {open_system['leakage']:.3e}"] + (
+        [f"  note: the verdict judges the pulse (closed system); with T1/T2 the channel's "
+         f"infidelity {open_system['infidelity']:.3e} is over the target {target:g}. That "
+         f"floor is set by the coherence times and the gate's length (a shorter gate lowers "
+         f"it), not by the pulse's shape"]
+        if target is not None and open_system["infidelity"] > target else [])
