@@ -271,3 +271,17 @@ def test_frame_updates_are_optimised_on_the_channel():
     assert float(plain.fidelity) < 0.99
     assert float(framed.fidelity) == pytest.approx(decay_only, abs=1e-9)
     assert float(framed.frame_before[0]) == 0.0
+
+
+def test_a_budget_over_the_target_is_said_beside_a_passing_pulse():
+    # the verdict judges the pulse (closed system); when T1/T2 alone put the channel over
+    # the target, the printed budget says so and why no pulse shape can fix it
+    from shaper.cli.text import coherence_lines
+
+    budget = {"infidelity": 3.8e-4, "coherent_error": 2e-8, "incoherent_error": 3.8e-4,
+              "leakage": 1e-9, "coherence_times": {"q0": {"t1_s": 45e-6, "t2_s": 38e-6}}}
+    over = coherence_lines(budget, 2e-5)
+    assert len(over) == 2 and "over the target 2e-05" in over[1]
+    assert "coherence times and the gate's length" in over[1]
+    assert len(coherence_lines(budget, 1e-3)) == 1  # under the target: the budget alone
+    assert len(coherence_lines(budget)) == 1
