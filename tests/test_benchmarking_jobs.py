@@ -336,3 +336,19 @@ def test_two_qubit_rb_of_a_depolarising_pair_gate(tmp_path):
     # a map that would not fit in this machine is refused before it is built
     with pytest.raises(InputError, match="needs about .* GB"):
         predict_pair("CZ", pair(0.0, slices=10 ** 12), (qubit, qubit), echo=said.append)
+
+
+def test_a_gate_sets_prediction_plot_is_drawn_before_the_command_ends(tmp_path):
+    # the set's decay plot is queued on the run's plot helper after its gates; the helper
+    # was closed with it still queued, so the plot was dropped (and its process killed,
+    # leaking its semaphores). Now it is drawn.
+    from helpers import with_keys
+
+    text = (Path(__file__).resolve().parents[1] / "recipes" / "xy-set.toml").read_text()
+    text = with_keys(text, "verdict", {"lab_frame": "off", "extra_levels": 0})
+    recipe = tmp_path / "set.toml"
+    recipe.write_text(text)
+    code, out, err = run_cli("optimize", recipe, "--out", tmp_path / "run")
+    assert code == 0, out + err
+    assert (tmp_path / "run" / "benchmarking-q0.png").stat().st_size > 1000
+    assert "leaked" not in err and "not written" not in out

@@ -267,6 +267,10 @@ def run_set(recipe: Recipe, out: Path, *, force: bool = False, plots: bool = Tru
             echo(describe(rows[-1]))
     _benchmark(recipe, rows, out, echo=echo, plots=plots,
                draw=painter.draw if painter else None)
+    if painter is not None:  # the set's own plots (its predicted RB) are drawn before
+        # the command ends; a painter closed with them queued drops them
+        for path, error in painter.finish().items():
+            echo(f"warning: plot {path} not written: {error}")
     return rows
 
 
