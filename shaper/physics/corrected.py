@@ -20,8 +20,8 @@ from shaper.physics.figures import project as project_subspace
 from shaper.physics.propagator import (
     ordered_product,
     slice_unitaries,
-    slope_term,
     taylor_exponential,
+    with_slope_term,
 )
 from shaper.physics.systems import System
 from shaper.physics.targets import Target
@@ -121,11 +121,10 @@ def gate_map(system: System, target: Target, samples: np.ndarray, dt: float, *,
         if phase_rad is not None else None
     extra = None if corr is None else np.asarray(effective_term(corr, samples))
     if slopes is not None:  # the controls' change across each slice, as a term of its own
-        mean = system.drift + np.einsum("nk,kij->nij", samples, system.controls) \
-            + (0 if extra is None else extra)
-        term = np.asarray(slope_term(device(mean, complex), device(system.controls, complex),
-                                     device(np.asarray(slopes, float), float), dt))
-        extra = term if extra is None else extra + term
+        extra = np.asarray(with_slope_term(
+            device(system.drift, complex), device(system.controls, complex),
+            device(samples, float), device(np.asarray(slopes, float), float), dt,
+            None if extra is None else device(extra, complex)))
     ends = [np.eye(system.dimension), np.eye(system.dimension)]
     if corr is not None:
         f, total = corr.frame_hz, dt * samples.shape[0]

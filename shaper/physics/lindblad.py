@@ -31,7 +31,7 @@ from jax.typing import ArrayLike
 
 from shaper.errors import InputError
 from shaper.physics import _jax  # noqa: F401
-from shaper.physics.propagator import ordered_product, slope_term
+from shaper.physics.propagator import ordered_product, with_slope_term
 
 
 def hamiltonian_superoperator(h: ArrayLike) -> jax.Array:
@@ -122,14 +122,7 @@ def slice_channels(drift: ArrayLike, controls: ArrayLike, samples: ArrayLike, dt
     (:func:`shaper.physics.propagator.slope_term`) joins the Hamiltonian (its commutator
     with the dissipator, smaller by the decay rate times the slice, is left out).
     """
-    if slopes is not None:
-        controls = jnp.asarray(controls)
-        mean = jnp.asarray(drift) + jnp.einsum("nk,kij->nij",
-                                               jnp.asarray(samples).astype(controls.dtype),
-                                               controls)
-        mean = mean if extra is None else mean + extra
-        term = slope_term(mean, controls, slopes, dt)
-        extra = term if extra is None else extra + term
+    extra = with_slope_term(drift, controls, samples, slopes, dt, extra)
     g0 = hamiltonian_superoperator(drift) + noise
     gc = jax.vmap(hamiltonian_superoperator)(jnp.asarray(controls))
     gens = g0 + jnp.einsum("nk,kij->nij", jnp.asarray(samples).astype(gc.dtype), gc)

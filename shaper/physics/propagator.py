@@ -145,6 +145,20 @@ def slope_term(hamiltonians: ArrayLike, controls: ArrayLike, slopes: ArrayLike,
                                          - _matmul(hamiltonians, vdot))
 
 
+def with_slope_term(drift, controls, samples, slopes, dt, extra=None):
+    """``extra`` plus :func:`slope_term` of the slices' mean Hamiltonians (``drift``, the
+    samples on ``controls`` and ``extra``), for a propagator that takes an extra term
+    rather than slopes (the Lindblad channel, a map); ``extra`` itself without slopes."""
+    if slopes is None:
+        return extra
+    controls = jnp.asarray(controls)
+    mean = jnp.asarray(drift) + jnp.einsum("nk,kij->nij",
+                                           jnp.asarray(samples).astype(controls.dtype), controls)
+    mean = mean if extra is None else mean + extra
+    term = slope_term(mean, controls, slopes, dt)
+    return term if extra is None else extra + term
+
+
 def ordered_product(unitaries: jax.Array) -> jax.Array:
     """``U_{n-1} ... U_1 U_0`` of a stack ``(n, d, d)``, multiplied pairwise."""
     while unitaries.shape[0] > 1:
