@@ -12,6 +12,7 @@ The chip is invented and small: two fixed transmons 0.4 GHz apart, strongly coup
 from __future__ import annotations
 
 import csv
+import json
 import os
 import re
 import subprocess
@@ -159,3 +160,42 @@ def test_the_chips_next_step_runs_when_pasted_and_from_python(beside, monkeypatc
     assert not result.met and result.unfinished == 0 and len(result.rows) == 2
     assert all(not row.met and "beside its neighbours" in row.missed for row in result.rows)
     assert "| NO: infidelity beside its neighbours" in result.table
+
+
+# A qubit driven hard (a 4 ns X at 3.2 GHz) beside a weakly coupled neighbour, optimised
+# beside it (the sweep judges the rotating frame): the counter-rotating terms cost the
+# 4 ns file its targets in the lab frame, so the chip keeps the next passing duration
+# (README, "Chips: neighbours"). The lab-frame figure itself is checked against independent
+# integrations in test_labframe.py; this checks which file the chip keeps and says.
+HARD = BESIDE.replace('single_durations = "12ns"', 'single_durations = "4ns:7ns:3ns"') \
+    .replace('neighbours = "check"', 'neighbours = "optimise"') \
+    .replace('target_leakage = 1e-5', 'target_leakage = 1e-4') \
+    .replace('frequency = "5.0 GHz"\nanharmonicity = "-220 MHz"\nmax_rabi = "60 MHz"',
+             'frequency = "3.2 GHz"\nanharmonicity = "-450 MHz"\nmax_rabi = "300 MHz"') \
+    .replace('frequency = "5.4 GHz"\nanharmonicity = "-220 MHz"\nmax_rabi = "60 MHz"',
+             'frequency = "4.4 GHz"\nanharmonicity = "-450 MHz"\nmax_rabi = "300 MHz"') \
+    .replace('strength = "20 MHz"', 'strength = "2 MHz"') \
+    .replace('[template.optimizer]', '[template.pulse]\nsample_rate = "2.4 GS/s"\n'
+             'ramp = "1 ns"\n\n[template.optimizer]')
+
+
+def test_a_file_that_passes_the_sweep_but_misses_in_the_lab_frame_is_not_kept(tmp_path):
+    # the edits took
+    assert HARD.count("300 MHz") == 2 and HARD.count("3.2 GHz") == 1 and "4ns:7ns" in HARD
+    (tmp_path / "hard.toml").write_text(HARD)
+    code, out, err = run_cli("chip", tmp_path / "hard.toml", "--out", tmp_path / "out",
+                             "--workers", "1")
+    assert code == 0, out + err
+    sweep = json.loads((tmp_path / "out/gates/qa-x/sweep/sweep.json").read_text())
+    first = sweep["points"][0]
+    assert first["samples"] == 10 and first["met"]  # 4.17 ns passed the sweep's model
+    rows = {r["subject"]: r for r in csv.DictReader(
+        (tmp_path / "out/chip.csv").read_text().splitlines())}
+    kept = rows["qa"]
+    assert kept["samples"] == "17" and kept["met"] == "yes"  # the next passing duration
+    assert float(kept["neighbours_lab_frame_infidelity"]) <= 1e-4
+    assert kept["lengthened"].startswith("4.167 ns missed (infidelity beside its "
+                                         "neighbours, lab frame")
+    table = (tmp_path / "out/chip.md").read_text()
+    assert "Kept at a longer duration than the sweep's shortest passing one" in table
+    assert "- qa X: 4.167 ns missed" in table

@@ -88,6 +88,9 @@ class GateRow:
     predicted_epc: float | None = None
     interleaved_error: float | None = None
     interleaved_bound: float | None = None
+    # a chip gate kept at a longer duration than the sweep's shortest passing one: what each
+    # shorter passing duration missed where the chip plays it (shaper.jobs.chip._kept)
+    lengthened: str = ""
 
 
 def derive(parent: Recipe, samples_hz: np.ndarray, label: str, phase_deg: float,
@@ -159,7 +162,7 @@ COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "sample
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
            "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity",
            "neighbours_lab_frame_infidelity", "neighbours_lab_frame_leakage", "predicted_epc",
-           "interleaved_error", "interleaved_bound", "judged_on")
+           "interleaved_error", "interleaved_bound", "judged_on", "lengthened")
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -184,7 +187,7 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          _number(r.neighbours_lab_infidelity),
                          _number(r.neighbours_lab_leakage), _number(r.predicted_epc),
                          _number(r.interleaved_error), _number(r.interleaved_bound),
-                         r.judged_on])
+                         r.judged_on, r.lengthened])
     lines = _markdown(rows)
     csv_path, md_path = folder / f"{name}.csv", folder / f"{name}.md"
     atomic.write_text(csv_path, text.getvalue())
@@ -228,6 +231,12 @@ def _markdown(rows: list[GateRow]) -> list[str]:
              _pair(r.neighbours_lab_infidelity, r.neighbours_lab_leakage)] if near else []) + (
             [_pair(r.alone_infidelity, r.alone_leakage)] if alone else [])
         lines.append("| " + " | ".join(cells) + " |")
+    longer = [r for r in rows if r.lengthened and not r.derived_from]
+    if longer:
+        lines += ["", "Kept at a longer duration than the sweep's shortest passing one "
+                  "(that one met in the sweep's model, not where the chip plays it):", ""]
+        lines += [f"- {r.subject + ' ' if r.subject else ''}{r.gate}: {r.lengthened}"
+                  for r in longer]
     failing = [r for r in rows if not r.met and r.why]
     if failing:
         lines += ["", "Why the misses missed, and what to try:", ""]
