@@ -194,8 +194,9 @@ def test_a_file_that_passes_the_sweep_but_misses_in_the_lab_frame_is_not_kept(tm
     kept = rows["qa"]
     assert kept["samples"] == "17" and kept["met"] == "yes"  # the next passing duration
     assert float(kept["neighbours_lab_frame_infidelity"]) <= 1e-4
-    assert kept["lengthened"].startswith("4.167 ns missed (infidelity beside its "
-                                         "neighbours, lab frame")
+    passed_over = re.fullmatch(r"4.167 ns: infidelity (\S+), leakage (\S+) \(infidelity "
+                               r"beside its neighbours, lab frame.*\)", kept["lengthened"])
+    assert passed_over and float(passed_over[1]) > 1e-4  # the figure that missed
     table = (tmp_path / "out/chip.md").read_text()
     assert "Kept at a longer duration than the sweep's shortest passing one" in table
-    assert "- qa X: 4.167 ns missed" in table
+    assert "- qa X: 4.167 ns: infidelity" in table

@@ -120,7 +120,8 @@ def _kept(task: Task, sweep, shortest: int | None, folder: Path, root: Path, whe
         output, row = kept_at(n)
         if row.met:
             return output, row, "; ".join(passed_over)
-        passed_over.append(f"{row.duration_s * 1e9:.4g} ns missed ({row.missed})")
+        passed_over.append(f"{row.duration_s * 1e9:.4g} ns: infidelity {row.infidelity:.2e}, "
+                           f"leakage {row.leakage:.2e} ({row.missed})")
     if len(tried) > 1:  # none met where the chip plays it: the shortest, as the miss
         output, row = kept_at(tried[0])
         row.why = (f"{row.why} Every longer duration that passed the sweep missed there "
