@@ -587,8 +587,8 @@ def test_ordinary_transmon_sweep_keeps_a_file_that_meets_its_targets_on_the_chip
     assert awg["cutoff_hz"] == pytest.approx(0.4 * 2e9)  # the default, said as assumed
     levels = trust["lab_frame"]["levels"][0]
     ej, ec, energies, drive = charge_transmon(levels, 4.37e9, -262e6)
-    assert ej == pytest.approx(report["system_model"]["q0"]["ej_hz"], rel=1e-9)
-    assert ec == pytest.approx(report["system_model"]["q0"]["ec_hz"], rel=1e-9)
+    assert ej == pytest.approx(report["system_model"]["transmons"]["q0"]["ej_hz"], rel=1e-9)
+    assert ec == pytest.approx(report["system_model"]["transmons"]["q0"]["ec_hz"], rel=1e-9)
     output = lowpass_ss(awg["kind"], awg["order"], awg["cutoff_hz"])
     worst = trust["lab_frame"]["worst_phase_rad"]
     for phase in (worst, worst + np.pi / 2):
