@@ -200,3 +200,11 @@ def test_a_file_that_passes_the_sweep_but_misses_in_the_lab_frame_is_not_kept(tm
     table = (tmp_path / "out/chip.md").read_text()
     assert "Kept at a longer duration than the sweep's shortest passing one" in table
     assert "- qa X: 4.167 ns: infidelity" in table
+    # and the page says it, as a browser shows it
+    from test_chip import HEADLESS, _browser
+
+    dom = subprocess.run([_browser(), *HEADLESS, f"--user-data-dir={tmp_path / 'profile'}",
+                          "--dump-dom", (tmp_path / "out" / "chip.html").as_uri()],
+                         capture_output=True, text=True, timeout=120).stdout
+    listed = re.search(r'<ul id="lengthened">(.*?)</ul>', dom, flags=re.S)
+    assert listed and "qa X</b>, kept at 7.083 ns: 4.167 ns: infidelity" in listed.group(1)

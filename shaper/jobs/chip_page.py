@@ -130,6 +130,18 @@ def _whys(failing) -> str:
     return f'<h2>Why, and what to try</h2><ul id="why">{"".join(items)}</ul>' if items else ""
 
 
+def _lengthened(rows) -> str:
+    """The optimised gates kept longer than the sweep's shortest passing duration, and what
+    each shorter one missed where the chip plays it (shaper.jobs.chip._kept), as a list."""
+    items = [f"<li><b>{html.escape((r.subject + ' ') if r.subject else '')}"
+             f"{html.escape(r.gate)}</b>, kept at {r.duration_s * 1e9:.4g} ns: "
+             f"{html.escape(r.lengthened)}</li>" for r in rows
+             if r.lengthened and not r.derived_from]
+    return ('<h2>Kept longer than the sweep\'s shortest passing duration</h2><p>That one '
+            'met in the sweep\'s model, not where the chip plays it.</p>'
+            f'<ul id="lengthened">{"".join(items)}</ul>') if items else ""
+
+
 def _pair_table(pairs) -> str:
     if not pairs:
         return ""
@@ -298,6 +310,7 @@ from {html.escape(Path(chip.path or '').name)} (sha256 <code>{chip.sha256[:16]}<
 <table id="gates"><thead><tr>{''.join(f'<th>{h}</th>' for h in head)}</tr></thead>
 <tbody>{''.join(lines)}</tbody></table>
 {_whys(failing)}
+{_lengthened(rows)}
 <div id="plots">{pictures}</div>
 <p class="caution">{html.escape(CAUTION)}</p>
 <script>
