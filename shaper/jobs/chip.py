@@ -47,7 +47,8 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
     if "jax" not in sys.modules:  # a fresh worker: one thread, as the starts' workers
         from shaper.optimizer.parallel import _PINNED
         os.environ.update(_PINNED)
-    from shaper.jobs.chip_pairs import kept, with_neighbours
+    from shaper.jobs.chip_kept import kept
+    from shaper.jobs.chip_pairs import with_neighbours
     from shaper.jobs.gateset import derive
     from shaper.jobs.sweep import Sweep
     from shaper.recipe import load_recipe

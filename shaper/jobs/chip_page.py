@@ -132,7 +132,7 @@ def _whys(failing) -> str:
 
 def _lengthened(rows) -> str:
     """The optimised gates kept longer than the sweep's shortest passing duration, and what
-    each shorter one missed where the chip plays it (shaper.jobs.chip_pairs.kept), as a list."""
+    each shorter one missed where the chip plays it (shaper.jobs.chip_kept.kept), as a list."""
     items = [f"<li><b>{html.escape((r.subject + ' ') if r.subject else '')}"
              f"{html.escape(r.gate)}</b>, kept at {r.duration_s * 1e9:.4g} ns: "
              f"{html.escape(r.lengthened)}</li>" for r in rows

@@ -89,7 +89,7 @@ class GateRow:
     interleaved_error: float | None = None
     interleaved_bound: float | None = None
     # a chip gate kept at a longer duration than the sweep's shortest passing one: what each
-    # shorter passing duration missed where the chip plays it (shaper.jobs.chip_pairs.kept)
+    # shorter passing duration missed where the chip plays it (shaper.jobs.chip_kept.kept)
     lengthened: str = ""
 
 
