@@ -233,6 +233,33 @@ def test_dask_cluster_gives_the_same_table_as_local_workers(chip_runs):
     assert _rows(tmp / "dask") == _rows(tmp / "local")
 
 
+@pytest.mark.filterwarnings("ignore")
+def test_units_a_stop_left_unfinished_are_run_when_resumed(chip_runs, tmp_path):
+    # a stop (SIGTERM, a lost worker) after every task finished but while the pairs played
+    # together and a qubit's predicted RB were still queued: chip.json records them
+    # submitted, without a result. Resumed, they run; before, their entry matched the
+    # tasks and they were never run again.
+    tmp, _, _ = chip_runs
+    run = tmp_path / "run"
+    shutil.copytree(tmp / "local", run)
+    state = json.loads((run / "chip.json").read_text())
+    finished = {kind: state[kind][key]["result"] for kind, key in
+                (("together", "qa-qb"), ("benchmark_qubit", "qa"))}
+    assert all(v is not None for v in finished.values())
+    for kind, key in finished.items():
+        state[kind][key]["result"] = None
+    (run / "chip.json").write_text(json.dumps(state))
+    (run / "chip-simultaneous.csv").unlink()
+    code, out, err = cli("chip", tmp / "chip.toml", "--out", run, "--resume", "--quiet")
+    assert code == (0 if all(r["met"] == "yes" for r in _rows(tmp / "local")) else 1), err
+    assert "5 finished earlier and kept, 0 to run" in err
+    state = json.loads((run / "chip.json").read_text())
+    for kind, key in (("together", "qa-qb"), ("benchmark_qubit", "qa")):
+        assert state[kind][key]["result"] == finished[kind]  # run again, the same figures
+    assert ((run / "chip-simultaneous.csv").read_text()
+            == (tmp / "local" / "chip-simultaneous.csv").read_text())
+
+
 def _neighbourhood_unitary(levels: int, samples_hz, rate_hz) -> np.ndarray:
     """qb (5.5 GHz, -210 MHz) between qa (5.0 GHz, -220 MHz, 12 MHz) and qc (5.2 GHz,
     -230 MHz, 10 MHz), order qb, qa, qc, in qb's frame: Duffing transmons (Koch et al.,

@@ -32,7 +32,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def _status(args: argparse.Namespace) -> str:
     """What the chip is at, from its chip.json (written as each task and unit finishes):
-    tasks recorded, units still running."""
+    tasks recorded, units submitted and not finished (running or queued)."""
     import json
 
     folder = getattr(args, "folder", None)
@@ -48,7 +48,7 @@ def _status(args: argparse.Namespace) -> str:
                for key, unit in (state.get(kind) or {}).items()
                if isinstance(unit, dict) and unit.get("result") is None]
     return (f"{len(state.get('tasks') or {})} task(s) recorded in chip.json"
-            + (f"; still running: {', '.join(running)}" if running else ""))
+            + (f"; submitted, not finished: {', '.join(running)}" if running else ""))
 
 
 def _again(args: argparse.Namespace, *options) -> str:

@@ -173,6 +173,12 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
         if state.get("chip") != chip.name:
             raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
                               f"{chip.name!r}")
+        for kind in UNIT_WORDS:  # a unit submitted but not finished when the run stopped
+            # is run again (its entry would otherwise match the tasks and never be redone)
+            units = state.get(kind)
+            if isinstance(units, dict):
+                state[kind] = {key: unit for key, unit in units.items()
+                               if isinstance(unit, dict) and unit.get("result") is not None}
         for task_id, task in state["tasks"].items():  # files are read from the run only
             for row in (task.get("rows") or []) if isinstance(task, dict) else []:
                 atomic.inside_for_reading(out, row.get("waveform") if isinstance(row, dict)
