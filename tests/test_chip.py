@@ -243,10 +243,10 @@ def test_units_a_stop_left_unfinished_are_run_when_resumed(chip_runs, tmp_path):
     run = tmp_path / "run"
     shutil.copytree(tmp / "local", run)
     state = json.loads((run / "chip.json").read_text())
-    finished = {kind: state[kind][key]["result"] for kind, key in
-                (("together", "qa-qb"), ("benchmark_qubit", "qa"))}
+    units = (("together", "qa-qb"), ("benchmark_qubit", "qa"))
+    finished = {kind: state[kind][key]["result"] for kind, key in units}
     assert all(v is not None for v in finished.values())
-    for kind, key in finished.items():
+    for kind, key in units:
         state[kind][key]["result"] = None
     (run / "chip.json").write_text(json.dumps(state))
     (run / "chip-simultaneous.csv").unlink()
@@ -254,7 +254,7 @@ def test_units_a_stop_left_unfinished_are_run_when_resumed(chip_runs, tmp_path):
     assert code == (0 if all(r["met"] == "yes" for r in _rows(tmp / "local")) else 1), err
     assert "5 finished earlier and kept, 0 to run" in err
     state = json.loads((run / "chip.json").read_text())
-    for kind, key in (("together", "qa-qb"), ("benchmark_qubit", "qa")):
+    for kind, key in units:
         assert state[kind][key]["result"] == finished[kind]  # run again, the same figures
     assert ((run / "chip-simultaneous.csv").read_text()
             == (tmp / "local" / "chip-simultaneous.csv").read_text())
