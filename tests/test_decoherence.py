@@ -285,3 +285,33 @@ def test_a_budget_over_the_target_is_said_beside_a_passing_pulse():
     assert "coherence times and the gate's length" in over[1]
     assert len(coherence_lines(budget, 1e-3)) == 1  # under the target: the budget alone
     assert len(coherence_lines(budget)) == 1
+
+
+@pytest.mark.parametrize("before, after", [(-0.4, 0.7), (2.19, 2.40), (1.3, -2.6), (0.0, 3.0)])
+@pytest.mark.parametrize("steps", [12, 13, 16, 17])
+def test_the_channels_frame_search_stays_at_its_optimum(before, after, steps):
+    # a channel that is X/2 up to frame rotations, Z(a) X/2 Z(b), with weak decay (T1 =
+    # 1 ms over 1 ns): for X/2 both angles matter, and with the frames undone the channel's
+    # fidelity is that of the decay alone (the idle formula, as in the test above). The
+    # search ended 0.1 rad off its optimum whenever its last step was the fixed step it
+    # took once Newton's could not improve (at the optimum): ring-5's q0 X/2 budget came
+    # out 10x high. Now it must reach the decay-only figure whatever its step count.
+    from shaper.physics.lindblad import best_channel_angles
+
+    def z(phi):
+        return np.diag([1, np.exp(1j * phi)])
+    half = np.array([[1, -1j], [-1j, 1]]) / np.sqrt(2)
+    p = z(after) @ half @ z(before)
+    w, v = np.linalg.eig(p)
+    h = v @ np.diag(-np.angle(w) / (2 * np.pi)) @ np.linalg.inv(v)
+    h = (h + h.conj().T) / 2
+    noise = dissipator(duffing_collapse(2, 1e-3, None), 2)
+    s = propagate_open(h / 1e-9, np.zeros((1, 2, 2)), np.zeros((1, 1)), 1e-9, noise)
+    block = channel_block(s, np.arange(2), 2)
+    b, a = best_channel_angles(block, half, 1, steps=steps)
+    from shaper.physics.lindblad import _frame_superop
+    bits = jnp.asarray([[0], [1]])
+    framed = _frame_superop(a, bits)[:, None] * block * _frame_superop(b, bits)[None, :]
+    fidelity, _ = channel_figures(framed, half)
+    decay_only = (3 + np.exp(-1e-9 / 1e-3) + 2 * np.exp(-1e-9 / 2e-3)) / 6  # idle formula
+    assert float(fidelity) == pytest.approx(decay_only, abs=1e-10)
