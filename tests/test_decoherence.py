@@ -158,9 +158,18 @@ def test_incoherent_error_of_an_optimised_gate_matches_the_first_order_estimate(
     t_phi = 1 / (1 / t2 - 1 / (2 * t1))
     estimate = t / (3 * t1) + t / (3 * t_phi)
     assert budget["incoherent_error"] == pytest.approx(estimate, rel=0.2)
-    # the coherent error is the closed system's on the recipe's levels, rotating frame
-    rotating = json.loads(out)["trust"]["rotating_frame"]
-    assert budget["coherent_error"] == pytest.approx(rotating["infidelity"], abs=1e-12)
+    # the coherent error is the judged figure (the pulse's fault where it is judged: lab
+    # frame, 2 more levels); the incoherent error is the channel's infidelity minus the
+    # closed system's, both built in the rotating frame on the recipe's levels
+    report = json.loads(out)
+    rotating = report["trust"]["rotating_frame"]
+    assert budget["coherent_error"] == pytest.approx(report["infidelity"], abs=1e-15)
+    assert budget["coherent_basis"].startswith("lab frame")
+    assert abs(report["infidelity"] - rotating["infidelity"]) > 1e-9  # they differ here
+    channel = budget["channel"]
+    assert channel["closed_infidelity"] == pytest.approx(rotating["infidelity"], abs=1e-12)
+    assert budget["incoherent_error"] == pytest.approx(
+        channel["infidelity"] - channel["closed_infidelity"], abs=1e-15)
     assert budget["infidelity"] == pytest.approx(budget["coherent_error"]
                                                  + budget["incoherent_error"], abs=1e-15)
 

@@ -92,10 +92,12 @@ def coherence_lines(open_system: dict | None, target: float | None = None) -> li
         f" over the footprint, {over['footprint_s'] * 1e9:.4g} ns: the file's "
         f"{over['file_s'] * 1e9:.4g} ns (its padding included) and the output's "
         f"{over['ring_down_s'] * 1e9:.4g} ns ring-down")
+    channel = "; the channel minus the closed system, both in the rotating frame on the " \
+        "recipe's levels" if open_system.get("channel") else ""
     return [f"  with decoherence: infidelity {open_system['infidelity']:.3e} = coherent "
-            f"{open_system['coherent_error']:.3e} (the pulse) + incoherent "
+            f"{open_system['coherent_error']:.3e} (the pulse, as judged) + incoherent "
             f"{open_system['incoherent_error']:.3e} (T1/T2{': ' + times if times else ''}"
-            f"{span}); leakage {open_system['leakage']:.3e}"] + (
+            f"{span}{channel}); leakage {open_system['leakage']:.3e}"] + (
         [f"  note: the verdict judges the pulse (closed system); with T1/T2 the channel's "
          f"infidelity {open_system['infidelity']:.3e} is over the target {target:g}. That "
          f"floor is set by the coherence times and the gate's length (a shorter gate lowers "

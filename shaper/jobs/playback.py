@@ -264,10 +264,13 @@ class Playback:
 
     @cached_property
     def open_system(self) -> dict | None:
-        """The error budget on the open system (README, "Decoherence"): channel infidelity
-        and leakage, coherent and incoherent error, over the file's whole footprint (the
-        file as written, its padding included, and the output's ring-down after it:
-        ``over``). None without coherence times or for a state target."""
+        """The error budget on the open system (README, "Decoherence"), over the file's
+        whole footprint (the file as written, its padding included, and the output's
+        ring-down after it: ``over``): ``coherent_error`` the judged figure
+        (:meth:`trusted`, the pulse's fault), ``incoherent_error`` what T1/T2 add (the
+        channel's infidelity minus the closed system's, both in the rotating frame on the
+        recipe's levels: ``channel``), ``infidelity`` and ``leakage`` the two together.
+        None without coherence times or for a state target."""
         recipe = self.recipe
         if not recipe.system.collapse or not recipe.target.is_gate:
             return None
@@ -276,8 +279,19 @@ class Playback:
         means, slopes = self.chain.cells(self.samples)
         result = simulate_open(recipe.system, recipe.target, means, self.chain.dt_s,
                                virtual_z=recipe.virtual_z, closed=self.nominal, slopes=slopes)
+        judged, judged_leakage, basis = self.trusted()
         output = self.output_block()
-        return {**result.figures(), "coherence_times": recipe.system.coherence,
+        return {"infidelity": judged + result.incoherent_error,
+                "leakage": judged_leakage + result.leakage - self.nominal.leakage,
+                "coherent_error": judged, "coherent_basis": basis,
+                "incoherent_error": result.incoherent_error,
+                "frame_before_rad": result.frame_before_rad,
+                "frame_after_rad": result.frame_after_rad,
+                "channel": {"infidelity": result.infidelity, "leakage": result.leakage,
+                            "closed_infidelity": result.coherent_error,
+                            "closed_leakage": self.nominal.leakage,
+                            "basis": "rotating frame, the recipe's levels"},
+                "coherence_times": recipe.system.coherence,
                 "over": {"file_s": output["file_s"], "ring_down_s": output["ring_down_s"],
                          "footprint_s": output["footprint_s"],
                          "what": "T1/T2 act over the file as written (its padding included) "
