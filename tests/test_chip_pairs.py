@@ -208,3 +208,17 @@ def test_a_file_that_passes_the_sweep_but_misses_in_the_lab_frame_is_not_kept(tm
                          capture_output=True, text=True, timeout=120).stdout
     listed = re.search(r'<ul id="lengthened">(.*?)</ul>', dom, flags=re.S)
     assert listed and "qa X</b>, kept at 7.083 ns: 4.167 ns: infidelity" in listed.group(1)
+
+
+def test_a_coupled_pair_without_a_pair_gate_has_no_two_qubit_rb(tmp_path):
+    # pair = "none": the pair is coupled (its neighbours matter) but has no two-qubit gate,
+    # so there is no two-qubit RB to predict; each qubit's own RB is still predicted. It
+    # was submitted anyway, printed "qa-qb: predicted two-qubit RB" and recorded nothing.
+    from shaper.jobs.chip import _ready_units
+    from shaper.recipe.chip import load_chip
+
+    (tmp_path / "c.toml").write_text(BESIDE.replace("benchmark = false", "benchmark = true"))
+    chip = load_chip(tmp_path / "c.toml")
+    units = {(kind, key) for kind, key, _, _ in _ready_units(
+        chip, {t.id: [] for t in chip.tasks}, {})}
+    assert units == {("benchmark_qubit", "qa"), ("benchmark_qubit", "qb")}

@@ -277,9 +277,12 @@ def _ready_units(chip: Chip, done: dict, state: dict) -> list[tuple]:
     for kind, subjects in wanted:
         names = set(subjects) | ({"-".join(subjects)} if kind == "benchmark_pair" else set())
         tasks = [t for t in chip.tasks if t.subject in names]
+        key = "-".join(subjects)
+        if kind == "benchmark_pair" and not any(t.subject == key for t in tasks):
+            continue  # a coupled pair without a two-qubit gate (pair = "none"): nothing to run
         if not tasks or any(t.id not in done for t in tasks):
             continue
-        key, digest = "-".join(subjects), _digest([[t.digest for t in tasks], kind])
+        digest = _digest([[t.digest for t in tasks], kind])
         if state.get(kind, {}).get(key, {}).get("digest") != digest:
             rows = [r for t in tasks for r in done[t.id]]
             ready.append((kind, key, digest, (subjects, rows)))
