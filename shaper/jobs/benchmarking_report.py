@@ -216,7 +216,7 @@ def _interleaved_rows(block: dict) -> list[list[str]]:
 
 
 INTERLEAVED_HEAD = ["qubit", "gate", "interleaved r_C", "bound E", "its map's infidelity",
-                    "judged infidelity", "its map's leakage"]
+                    "judged infidelity (the qubit alone)", "its map's leakage"]
 
 
 def markdown_lines(block: dict) -> list[str]:
