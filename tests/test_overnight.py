@@ -229,7 +229,12 @@ def test_sweep_finds_a_gate_shorter_than_any_gaussian(tmp_path):
     assert shaper_main(["check", str(tmp_path / "r.toml"),
                         str(tmp_path / "s" / f"pulse-{shortest}.csv")]) == 0
     # the library writes the sweep's summary itself, not only the command line
-    assert "| duration |" in (tmp_path / "s" / "sweep.md").read_text()
+    table = (tmp_path / "s" / "sweep.md").read_text()
+    assert "| duration |" in table
+    # each duration was judged at its own worst carrier phase: the header names the model,
+    # not the first row's phase as if it were every row's
+    assert "Infidelity and leakage as judged: lab frame, 6 levels, worst carrier phase " \
+        "(each duration's own)" in table and " deg)" not in table.split("| duration |")[0]
     assert (tmp_path / "s" / "sweep.png").exists()
     # resuming redoes nothing
     again = Sweep(recipe, tmp_path / "s", resume=True, echo=lambda text: None)

@@ -15,6 +15,7 @@ resumed sweep does not redo finished durations.
 
 from __future__ import annotations
 
+import re
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -359,7 +360,13 @@ class Sweep:
         """sweep.md's table: infidelity and leakage as judged (``judged_on``), and the
         optimiser's rotating frame beside them, so both shortest durations show."""
         budget = any(p.total_error is not None for p in self.points.values())
-        judged = next((p.judged_on for p in self.points.values() if p.judged_on), "")
+        # each duration has its own worst carrier phase: the header names the model only
+        models = {re.sub(r" \([-\d.e+]+ deg\)$", "", p.judged_on)
+                  for p in self.points.values() if p.judged_on}
+        judged = "each duration in its own model (sweep.json, judged_on)" if models else ""
+        if len(models) == 1:
+            judged = models.pop()
+            judged += " (each duration's own)" if judged.endswith("carrier phase") else ""
         head = "| duration | asked | samples | infidelity | leakage | meets targets | " \
                "rotating frame: infidelity, leakage | "
         if budget:
