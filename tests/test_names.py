@@ -13,8 +13,6 @@ ROOT = Path(__file__).resolve().parents[1]
 OLD = re.compile(r"\b(wren|kestrel|larkspur|alder|tamarind)\b", re.IGNORECASE)
 
 SKIP_DIRS = {".git", "__pycache__", ".pytest_cache", ".ruff_cache", "runs", "build", "dist"}
-# A chip run made before the rename carries the old chip name inside until it is re-run
-RERUN = {ROOT / "results" / "ring-5"}
 
 
 def _shipped() -> list[Path]:
@@ -23,7 +21,7 @@ def _shipped() -> list[Path]:
         parts = set(path.relative_to(ROOT).parts)
         if parts & SKIP_DIRS or any(p.endswith(".egg-info") for p in parts):
             continue
-        if any(folder in path.parents for folder in RERUN) or path == Path(__file__):
+        if path == Path(__file__):
             continue
         out.append(path)
     return out

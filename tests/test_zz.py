@@ -212,6 +212,8 @@ def test_a_gate_beside_its_neighbours_in_the_lab_frame_matches_an_independent_in
                key=lambda r: r.fun)
     assert ours.infidelity == pytest.approx(best.fun, rel=1e-5)
     assert ours.leakage == pytest.approx(1 - np.trace(p @ p.conj().T).real / 8, rel=1e-5)
-    # the lab frame costs this file several times its rotating-frame figure (README,
-    # "Chips: neighbours")
-    assert ours.infidelity > 3e-4
+    # the file was made and judged on the chip's own model (charge transmons, the
+    # instrument's output filter) and meets 1e-4 there, beside these neighbours in the lab
+    # frame (8.1e-5); played here as a held staircase on Duffing transmons it does not
+    # (2.5e-4, measured): the model it is judged in matters (README, "Chips: neighbours")
+    assert ours.infidelity > 1e-4
