@@ -173,12 +173,10 @@ def _state(chip: Chip, out: Path, resume: bool, force: bool) -> dict:
         if state.get("chip") != chip.name:
             raise ResultError(f"{state_path}: belongs to chip {state.get('chip')!r}, not "
                               f"{chip.name!r}")
-        for kind in UNIT_WORDS:  # a unit submitted but not finished when the run stopped
-            # is run again (its entry would otherwise match the tasks and never be redone)
-            units = state.get(kind)
-            if isinstance(units, dict):
-                state[kind] = {key: unit for key, unit in units.items()
-                               if isinstance(unit, dict) and unit.get("result") is not None}
+        for kind in UNIT_WORDS:  # a unit a stop left unfinished runs again
+            units = state.get(kind) if isinstance(state.get(kind), dict) else {}
+            state[kind] = {k: u for k, u in units.items()
+                           if isinstance(u, dict) and u.get("result") is not None}
         for task_id, task in state["tasks"].items():  # files are read from the run only
             for row in (task.get("rows") or []) if isinstance(task, dict) else []:
                 atomic.inside_for_reading(out, row.get("waveform") if isinstance(row, dict)
@@ -272,17 +270,15 @@ def _ready_units(chip: Chip, done: dict, state: dict) -> list[tuple]:
         wanted += [("together", (a, b)) for a, b in together_pairs(chip)]
     if benchmarks(chip):
         wanted += [("benchmark_qubit", (q,)) for q in chip.qubits]
-        wanted += [("benchmark_pair", (a, b)) for a, b in chip.pairs]
+        wanted += [("benchmark_pair", (a, b)) for a, b in chip.pairs  # with a pair gate
+                   if any(t.subject == f"{a}-{b}" for t in chip.tasks)]
     ready = []
     for kind, subjects in wanted:
         names = set(subjects) | ({"-".join(subjects)} if kind == "benchmark_pair" else set())
         tasks = [t for t in chip.tasks if t.subject in names]
-        key = "-".join(subjects)
-        if kind == "benchmark_pair" and not any(t.subject == key for t in tasks):
-            continue  # a coupled pair without a two-qubit gate (pair = "none"): nothing to run
         if not tasks or any(t.id not in done for t in tasks):
             continue
-        digest = _digest([[t.digest for t in tasks], kind])
+        key, digest = "-".join(subjects), _digest([[t.digest for t in tasks], kind])
         if state.get(kind, {}).get(key, {}).get("digest") != digest:
             rows = [r for t in tasks for r in done[t.id]]
             ready.append((kind, key, digest, (subjects, rows)))
