@@ -324,3 +324,23 @@ def test_the_channels_frame_search_stays_at_its_optimum(before, after, steps):
     fidelity, _ = channel_figures(framed, half)
     decay_only = (3 + np.exp(-1e-9 / 1e-3) + 2 * np.exp(-1e-9 / 2e-3)) / 6  # idle formula
     assert float(fidelity) == pytest.approx(decay_only, abs=1e-10)
+
+
+def test_the_bundled_chips_budgets_are_symmetric_and_near_the_first_order_estimate():
+    # ring-5's q0 (T1 60 us, T2 45 us): X/2, Y/2 and -X/2 are one file turned by 90 and 180
+    # deg, and decay and dephasing commute with Z rotations (common practice, no source),
+    # so what T1/T2 add must agree; the frame search's old last step put X/2 10x over Y/2.
+    # Each is also near the first-order estimate t/(3 T1) + t/(3 T_phi) over its 16.67 ns
+    # (from memory, as above; the footprint adds the output's ring-down: within 25 %), and
+    # the q4-q0 CNOT's near the same rates on one qubit of two: the single-qubit process
+    # infidelity (3/2 of the average) times d/(d + 1) = 4/5 for d = 4 (Nielsen 2002).
+    import csv
+
+    rows = {(r["subject"], r["gate"]): r for r in csv.DictReader(
+        (ROOT / "results" / "ring-5" / "chip.csv").read_text().splitlines())}
+    halves = [float(rows[("q0", g)]["incoherent_error"]) for g in ("X/2", "Y/2", "-X/2")]
+    assert max(halves) == pytest.approx(min(halves), rel=1e-6)
+    rate = (1 / 60e-6 + 1 / (1 / (1 / 45e-6 - 1 / 120e-6))) / 3  # t/(3 T1) + t/(3 T_phi)
+    assert halves[0] == pytest.approx(rate * 16.67e-9, rel=0.25)
+    cnot = float(rows[("q4-q0", "CNOT")]["incoherent_error"])
+    assert cnot == pytest.approx(rate * 120e-9 * 1.5 * 0.8, rel=0.25)

@@ -17,6 +17,7 @@ import numpy as np
 from shaper import __version__
 from shaper.io import atomic
 from shaper.io.waveio import CAUTION
+from shaper.jobs.gateset import BUDGET_HEAD
 from shaper.jobs.plots import _figure, _finish
 
 
@@ -221,7 +222,7 @@ def _gate_table(rows) -> tuple[list[str], list[str]]:
     rb = any(r.predicted_epc is not None for r in rows)
     head = ["subject", "gate", "from", "duration (ns)", "judged infidelity", "judged leakage",
             "met", "judged on", "virtual Z before / after (rad)"] + (
-        ["T1/T2: coherent + incoherent error"] if budget else []) + (
+        [BUDGET_HEAD] if budget else []) + (
         ["with neighbours: infidelity, leakage", "with neighbours, lab frame"]
         if near else []) + (["alone: infidelity, leakage"] if alone else []) + (
         ["predicted RB: error per Clifford; interleaved r_C (bound E)"] if rb else []) + [

@@ -162,7 +162,13 @@ COLUMNS = ("subject", "gate", "derived_from", "phase_deg", "duration_s", "sample
            "rotating_frame_infidelity", "rotating_frame_leakage", "neighbours_infidelity",
            "neighbours_leakage", "alone_infidelity", "alone_leakage", "simultaneous_infidelity",
            "neighbours_lab_frame_infidelity", "neighbours_lab_frame_leakage", "predicted_epc",
-           "interleaved_error", "interleaved_bound", "judged_on", "lengthened")
+           "interleaved_error", "interleaved_bound", "judged_on", "lengthened",
+           "coherent_error", "incoherent_error")
+
+
+# the T1/T2 budget is that of the gate's own qubits (a chip's single-qubit gate: its file
+# alone, README "Chips: neighbours"), beside a judged figure that may be beside neighbours
+BUDGET_HEAD = "T1/T2, the gate's own qubits: coherent + incoherent error"
 
 
 def _number(value: float | None, spec: str = ".6e") -> str:
@@ -187,7 +193,8 @@ def write_table(folder: Path, name: str, rows: list[GateRow]) -> list[Path]:
                          _number(r.neighbours_lab_infidelity),
                          _number(r.neighbours_lab_leakage), _number(r.predicted_epc),
                          _number(r.interleaved_error), _number(r.interleaved_bound),
-                         r.judged_on, r.lengthened])
+                         r.judged_on, r.lengthened, _number(r.coherent_error),
+                         _number(r.incoherent_error)])
     lines = _markdown(rows)
     csv_path, md_path = folder / f"{name}.csv", folder / f"{name}.md"
     atomic.write_text(csv_path, text.getvalue())
@@ -208,7 +215,7 @@ def _markdown(rows: list[GateRow]) -> list[str]:
         "gate", "from", "phase", "duration", "infidelity", "leakage", "met"] + (
         ["judged on"] if models else []) + [
         "rotating frame", "virtual Z before / after (rad)", "file"] + (
-        ["T1/T2: coherent + incoherent error"] if budget else []) + (
+        [BUDGET_HEAD] if budget else []) + (
         ["with neighbours: infidelity, leakage", "with neighbours, lab frame"]
         if near else []) + (["alone: infidelity, leakage"] if alone else [])
     lines = ["Infidelity and leakage as judged (the most faithful model; on a chip the worst "
