@@ -55,7 +55,6 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
     from shaper.recipe.units import parse_durations
 
     root_path = Path(root)
-    neighbourhood = task.near is not None or task.alone is not None
     folder = root_path / "gates" / task.id
     marker = folder / "task.json"
     if folder.exists() and (not marker.exists() or atomic.read_json(
@@ -83,8 +82,7 @@ def run_task(task: Task, root: str, budget: dict | None = None) -> dict:
         row.waveform = str((folder / "derived" / Path(row.waveform).name).relative_to(
             root_path))
         row.subject = task.subject
-        if neighbourhood:
-            with_neighbours(task, row, root_path, where)
+        with_neighbours(task, row, root_path, where)  # a no-op without neighbours
         rows.append(row)
     for row in rows:
         row.lengthened = lengthened

@@ -25,8 +25,7 @@ def kept(task, sweep, shortest: int | None, folder: Path, root: Path, where):
         output = finish(sweep.result_at(n), folder / "shortest", plots_too=False, where=where)
         row = optimised_row(output.result.recipe, output.report, folder / "shortest", root)
         row.subject = task.subject
-        if task.near is not None or task.alone is not None:
-            with_neighbours(task, row, root, where)
+        with_neighbours(task, row, root, where)  # a no-op without neighbours
         return output, row
 
     tried = [max(sweep.points)] if shortest is None else sorted(
